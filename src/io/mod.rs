@@ -1,0 +1,6 @@
+//! File-system edge: atomic writes. Only the edges of hardmax (CLI, experiment runner, reports)
+//! use this module; the numerical core never touches files.
+
+pub mod atomic;
+
+pub use atomic::{write_atomic, AtomicWriteError};

@@ -1,0 +1,3 @@
+fn main() {
+    println!("hardmax {}", env!("CARGO_PKG_VERSION"));
+}

@@ -1,0 +1,34 @@
+//! Physical constants and the thermal voltage.
+//!
+//! Exact SI values of the 2019 redefinition (CODATA 2018): the Boltzmann constant and the
+//! elementary charge are defined, not measured.
+
+/// Boltzmann constant k in J/K (exact, CODATA 2018).
+pub const BOLTZMANN: f64 = 1.380_649e-23;
+/// Elementary charge q in C (exact, CODATA 2018).
+pub const ELEMENTARY_CHARGE: f64 = 1.602_176_634e-19;
+/// 0 degC in kelvin.
+pub const ZERO_CELSIUS: f64 = 273.15;
+
+/// Thermal voltage U_T = k T / q in volts, for an absolute temperature in kelvin.
+///
+/// `thermal_voltage(300.0)` = 25.852 mV; 27 degC = 300.15 K gives 25.865 mV: temperatures are
+/// always explicit in hardmax, never assumed.
+#[inline]
+pub fn thermal_voltage(temperature_k: f64) -> f64 {
+    BOLTZMANN * temperature_k / ELEMENTARY_CHARGE
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use approx::assert_relative_eq;
+
+    /// U_T(300 K) = 25.852 mV from the exact SI constants (CODATA 2018).
+    #[test]
+    fn thermal_voltage_at_300k() {
+        assert_relative_eq!(thermal_voltage(300.0), 25.852e-3, max_relative = 2e-5);
+        // 27 degC = 300.15 K, same source.
+        assert_relative_eq!(thermal_voltage(300.15), 25.865e-3, max_relative = 2e-5);
+    }
+}

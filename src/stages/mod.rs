@@ -1,0 +1,1 @@
+//! Circuit stages: weight stages (vector-matrix multiply) and competition stages (WTA).
