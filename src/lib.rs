@@ -5,11 +5,21 @@
 //! a design -> chip (sampled instance) -> per-sample evaluation -> per-chip metrics ->
 //! population statistics -> files and reports.
 //!
-//! The numerical core (`physics`, `units`, `device`, `stages`, `rng`) does no I/O and never
-//! prints. Files, progress and plots live in `io`, `experiment`, `report` and `cli`.
+//! The numerical core (`physics`, `units`, `device`, `solvers`, `stages`, `pipeline`, `rng`,
+//! `data` parsing of in-memory text, `training`) does no I/O beyond reading a dataset file when
+//! asked and never prints. Files, progress and plots live in `io`, `experiment`, `report` and
+//! `cli`.
 
+pub mod cli;
+pub mod data;
 pub mod device;
+pub mod experiment;
 pub mod io;
 pub mod physics;
+pub mod pipeline;
+pub mod report;
 pub mod rng;
+pub mod solvers;
 pub mod stages;
+pub mod training;
+pub mod units;

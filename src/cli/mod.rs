@@ -1,0 +1,51 @@
+//! Command-line interface (edge layer). Each subcommand lives in its own file with its clap
+//! arguments and a `run` function; `main.rs` only calls [`main_entry`].
+
+use clap::{Parser, Subcommand};
+
+pub mod baseline;
+pub mod batch;
+pub mod render;
+pub mod resolve;
+pub mod run;
+pub mod stage;
+
+/// hardmax: what accuracy will a population of analog WTA classifier chips deliver?
+///
+/// Architecture-stage estimates from compact models and generic parameters; final decisions
+/// need the foundry's characterised models and your verification flow.
+#[derive(Debug, Parser)]
+#[command(name = "hardmax", version, about, long_about = None)]
+pub struct Cli {
+    #[command(subcommand)]
+    pub command: Command,
+}
+
+#[derive(Debug, Subcommand)]
+pub enum Command {
+    /// Run one experiment file: Monte Carlo chip populations over its sweep; writes a results folder.
+    Run(run::RunArgs),
+    /// Run every experiment file in folders or lists; skip those already up to date.
+    Batch(batch::BatchArgs),
+    /// Print an experiment file with every default filled in, after overrides; check it.
+    Resolve(resolve::ResolveArgs),
+    /// Evaluate one competition stage on given inputs, or sweep one input (transfer curve).
+    Stage(stage::StageArgs),
+    /// Re-render plots and the HTML report of an existing results folder from its CSV files.
+    Render(render::RenderArgs),
+    /// Train the float classifier on a dataset; print the linfa baseline and ideal-argmax accuracy.
+    Baseline(baseline::BaselineArgs),
+}
+
+/// Parse the command line and run the chosen subcommand.
+pub fn main_entry() -> anyhow::Result<()> {
+    let cli = Cli::parse();
+    match cli.command {
+        Command::Run(a) => run::run(a),
+        Command::Batch(a) => batch::run(a),
+        Command::Resolve(a) => resolve::run(a),
+        Command::Stage(a) => stage::run(a),
+        Command::Render(a) => render::run(a),
+        Command::Baseline(a) => baseline::run(a),
+    }
+}

@@ -1,0 +1,1 @@
+//! Datasets: the shipped open datasets and user CSV files; stratified split; scaling.

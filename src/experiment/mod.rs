@@ -1,0 +1,1 @@
+//! Experiment files, sweeps, Monte Carlo populations, results folders, batch runs.

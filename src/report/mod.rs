@@ -1,0 +1,1 @@
+//! Plots (SVG) and the self-contained HTML report of a results folder.

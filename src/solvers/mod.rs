@@ -1,0 +1,1 @@
+//! Generic numerical solvers (scalar bracketing, Newton helpers, ODE integration).

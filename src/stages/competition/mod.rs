@@ -1,0 +1,1 @@
+//! Competition stages: current-mode WTA, multi-input differential pair, decisions.

@@ -1,0 +1,1 @@
+//! Weight stages: input encoding, programmable elements, signed-weight encodings.

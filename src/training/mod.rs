@@ -1,0 +1,1 @@
+//! Training float classifiers (linfa) and the reference accuracies.
