@@ -1,1 +1,5 @@
-//! Experiment files, sweeps, Monte Carlo populations, results folders, batch runs.
+//! Experiment files, sweeps, Monte Carlo populations, results folders, batch runs (edge layer).
+
+pub mod stats;
+pub mod sweep;
+pub mod tree;

@@ -1,0 +1,117 @@
+//! Population statistics: mean, standard deviation, percentiles, and the Wilson score interval.
+
+/// Wilson score interval for a binomial proportion (E. B. Wilson, "Probable inference, the law of
+/// succession, and statistical inference", JASA 22, 1927).
+///
+/// Returns `(lower, upper)` for `successes` out of `trials` at normal quantile `z` (1.96 for 95 %).
+/// With zero trials the interval is the whole of [0, 1].
+pub fn wilson_interval(successes: u64, trials: u64, z: f64) -> (f64, f64) {
+    if trials == 0 {
+        return (0.0, 1.0);
+    }
+    let n = trials as f64;
+    let p = successes as f64 / n;
+    let z2 = z * z;
+    let denom = 1.0 + z2 / n;
+    let centre = (p + z2 / (2.0 * n)) / denom;
+    let half = z * (p * (1.0 - p) / n + z2 / (4.0 * n * n)).sqrt() / denom;
+    ((centre - half).max(0.0), (centre + half).min(1.0))
+}
+
+/// Summary of a sample of values (e.g. per-chip accuracies at one sweep point).
+#[derive(Clone, Debug, PartialEq)]
+pub struct Summary {
+    pub count: usize,
+    pub mean: f64,
+    /// Sample standard deviation (n - 1 in the denominator); 0 for fewer than two values.
+    pub std: f64,
+    pub p05: f64,
+    pub p50: f64,
+    pub p95: f64,
+    pub min: f64,
+    pub max: f64,
+}
+
+/// Percentile by linear interpolation between closest ranks (the "linear" method, type 7 of
+/// R. J. Hyndman, Y. Fan, "Sample quantiles in statistical packages", The American Statistician
+/// 50(4), 1996; the default of numpy.percentile). `sorted` must be ascending and non-empty.
+pub fn percentile_sorted(sorted: &[f64], q: f64) -> f64 {
+    debug_assert!(!sorted.is_empty());
+    let h = (sorted.len() - 1) as f64 * q.clamp(0.0, 1.0);
+    let lo = h.floor() as usize;
+    let hi = h.ceil() as usize;
+    sorted[lo] + (h - lo as f64) * (sorted[hi] - sorted[lo])
+}
+
+/// Summarise `values` (NaN values are ignored). Returns `None` when no finite value remains.
+pub fn summarize(values: &[f64]) -> Option<Summary> {
+    let mut v: Vec<f64> = values.iter().copied().filter(|x| !x.is_nan()).collect();
+    if v.is_empty() {
+        return None;
+    }
+    v.sort_by(f64::total_cmp);
+    let n = v.len();
+    let mean = v.iter().sum::<f64>() / n as f64;
+    let std = if n > 1 {
+        (v.iter().map(|x| (x - mean).powi(2)).sum::<f64>() / (n - 1) as f64).sqrt()
+    } else {
+        0.0
+    };
+    Some(Summary {
+        count: n,
+        mean,
+        std,
+        p05: percentile_sorted(&v, 0.05),
+        p50: percentile_sorted(&v, 0.50),
+        p95: percentile_sorted(&v, 0.95),
+        min: v[0],
+        max: v[n - 1],
+    })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use approx::assert_abs_diff_eq;
+
+    /// Wilson 1927 score interval; worked value 10 of 100 at z = 1.96 -> [0.0552, 0.1744]
+    /// (the value quoted in the issue; it also follows from Wilson's formula by hand).
+    #[test]
+    fn wilson_worked_value() {
+        let (lo, hi) = wilson_interval(10, 100, 1.96);
+        assert_abs_diff_eq!(lo, 0.0552, epsilon = 5e-5);
+        assert_abs_diff_eq!(hi, 0.1744, epsilon = 5e-5);
+    }
+
+    /// Edge cases of the Wilson interval: 0 and n successes stay inside [0, 1] and are not
+    /// degenerate (unlike the Wald interval), per Wilson 1927. 0 of 10 at z = 1.96 gives
+    /// upper = z^2/(n + z^2) = 0.2775 (closed form of the formula at p = 0).
+    #[test]
+    fn wilson_edges() {
+        let (lo, hi) = wilson_interval(0, 10, 1.96);
+        assert_abs_diff_eq!(lo, 0.0, epsilon = 1e-12);
+        assert_abs_diff_eq!(
+            hi,
+            1.96f64.powi(2) / (10.0 + 1.96f64.powi(2)),
+            epsilon = 1e-12
+        );
+        let (lo, hi) = wilson_interval(10, 10, 1.96);
+        assert_abs_diff_eq!(hi, 1.0, epsilon = 1e-12);
+        assert_abs_diff_eq!(lo, 10.0 / (10.0 + 1.96f64.powi(2)), epsilon = 1e-12);
+        assert_eq!(wilson_interval(0, 0, 1.96), (0.0, 1.0));
+    }
+
+    /// Type-7 percentiles agree with numpy.percentile's default (Hyndman & Fan 1996):
+    /// numpy.percentile([1, 2, 3, 4], [5, 50, 95]) = [1.15, 2.5, 3.85].
+    #[test]
+    fn percentiles_match_type7() {
+        let s = summarize(&[4.0, 1.0, 3.0, 2.0]).unwrap();
+        assert_abs_diff_eq!(s.p05, 1.15, epsilon = 1e-12);
+        assert_abs_diff_eq!(s.p50, 2.5, epsilon = 1e-12);
+        assert_abs_diff_eq!(s.p95, 3.85, epsilon = 1e-12);
+        assert_abs_diff_eq!(s.mean, 2.5, epsilon = 1e-12);
+        // sample std of 1..4 = sqrt(5/3)
+        assert_abs_diff_eq!(s.std, (5.0f64 / 3.0).sqrt(), epsilon = 1e-12);
+        assert!(summarize(&[]).is_none());
+    }
+}
