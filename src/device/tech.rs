@@ -8,6 +8,7 @@
 use serde::{Deserialize, Serialize};
 
 use super::ekv::{Ekv, Polarity};
+use super::error::{check, validate_temperature, DeviceError};
 use crate::physics::thermal_voltage;
 
 /// How the drain couples into the channel's surface potential (sets the WTA gain kappa/sigma).
@@ -103,6 +104,119 @@ impl Transistor {
     pub fn area(&self) -> f64 {
         self.w * self.l
     }
+
+    /// Check W and L: finite, from 1 nm to 1 cm (a larger value is almost surely a unit slip,
+    /// e.g. micrometres written as metres).
+    pub fn validate(&self) -> Result<(), DeviceError> {
+        const RANGE: &str = "a length from 1 nm to 1 cm, in metres (e.g. 1e-6 or \"1 um\")";
+        check(
+            "transistor.w",
+            self.w,
+            |v| (1e-9..=1e-2).contains(&v),
+            RANGE,
+        )?;
+        check(
+            "transistor.l",
+            self.l,
+            |v| (1e-9..=1e-2).contains(&v),
+            RANGE,
+        )
+    }
+}
+
+impl DrainCoupling {
+    /// Check the coupling value: finite and positive (sigma, eta below 1).
+    pub fn validate(&self, parameter: &str) -> Result<(), DeviceError> {
+        match *self {
+            DrainCoupling::Eta(v) => check(
+                parameter,
+                v,
+                |v| v > 0.0 && v < 1.0,
+                "eta between 0 and 1 (exclusive), typically 0.001 to 0.05",
+            ),
+            DrainCoupling::Sigma(v) => check(
+                parameter,
+                v,
+                |v| v > 0.0 && v < 1.0,
+                "sigma between 0 and 1 (exclusive), typically 0.001 to 0.05",
+            ),
+            DrainCoupling::EarlyVoltage(v) => check(
+                parameter,
+                v,
+                |v| v > 0.0 && v <= 1e4,
+                "an Early voltage above 0 V and at most 10 kV, typically 5 to 100 V",
+            ),
+            DrainCoupling::EarlyVoltagePerLength(v) => check(
+                parameter,
+                v,
+                |v| v > 0.0 && v <= 1e10,
+                "an Early voltage per length above 0 and at most 1e10 V/m (10 kV/um), \
+                 typically 2e6 to 3e7 V/m (2 to 30 V/um)",
+            ),
+        }
+    }
+}
+
+impl DeviceTech {
+    /// Check every parameter; `prefix` names the device type in messages (e.g. `nmos`).
+    pub fn validate(&self, prefix: &str) -> Result<(), DeviceError> {
+        let p = |name: &str| format!("{prefix}.{name}");
+        check(
+            &p("vt0"),
+            self.vt0,
+            |v| v.abs() <= 5.0,
+            "a threshold magnitude from -5 V to 5 V",
+        )?;
+        check(
+            &p("n"),
+            self.n,
+            |v| v > 1.0 && v <= 5.0,
+            "a slope factor above 1 and at most 5, typically 1.2 to 1.6",
+        )?;
+        check(
+            &p("mu_cox"),
+            self.mu_cox,
+            |v| v > 0.0 && v <= 1e-1,
+            "above 0 and at most 0.1 A/V^2, typically 30 to 600 uA/V^2",
+        )?;
+        self.drain_coupling.validate(&p("drain_coupling"))?;
+        check(
+            &p("a_vt_pair"),
+            self.a_vt_pair,
+            |v| (0.0..=1e-7).contains(&v),
+            "from 0 to 100 mV·um (1e-7 V·m), typically 1 to 10 mV·um",
+        )?;
+        check(
+            &p("a_beta_pair"),
+            self.a_beta_pair,
+            |v| (0.0..=1e-6).contains(&v),
+            "from 0 to 100 %·um (1e-6 m), typically 0.5 to 2 %·um",
+        )?;
+        check(
+            &p("vt0_tempco"),
+            self.vt0_tempco,
+            |v| v.abs() <= 0.1,
+            "from -100 mV/K to 100 mV/K, typically -1 to -2 mV/K",
+        )?;
+        check(
+            &p("beta_temp_exponent"),
+            self.beta_temp_exponent,
+            |v| v.abs() <= 5.0,
+            "from -5 to 5, typically about -1.5",
+        )?;
+        check(
+            &p("cox"),
+            self.cox,
+            |v| v > 0.0 && v <= 1.0,
+            "above 0 and at most 1 F/m^2, typically 2e-3 to 2e-2 F/m^2 (2 to 20 fF/um^2)",
+        )?;
+        check(
+            &p("kf"),
+            self.kf,
+            |v| (0.0..=1e-18).contains(&v),
+            "from 0 to 1e-18 V^2·F, typically 1e-26 to 1e-24 V^2·F",
+        )
+    }
 }
 
 impl Process {
@@ -112,6 +226,44 @@ impl Process {
             Polarity::Nmos => &self.nmos,
             Polarity::Pmos => &self.pmos,
         }
+    }
+
+    /// Check the supply, the nominal temperature and both device types.
+    pub fn validate(&self) -> Result<(), DeviceError> {
+        check(
+            "process.vdd",
+            self.vdd,
+            |v| v > 0.0 && v <= 100.0,
+            "a supply above 0 V and at most 100 V",
+        )?;
+        validate_temperature("process.t_nom", self.t_nom)?;
+        self.nmos.validate("nmos")?;
+        self.pmos.validate("pmos")
+    }
+
+    /// [`Process::ekv`] after checking the transistor, the temperature and the mismatch draw
+    /// (a relative beta deviation at or below -100 % would give a non-positive beta).
+    pub fn checked_ekv(
+        &self,
+        t: &Transistor,
+        temperature: f64,
+        mm: MosMismatch,
+    ) -> Result<Ekv, DeviceError> {
+        t.validate()?;
+        validate_temperature("temperature", temperature)?;
+        check(
+            "mismatch.dvt0",
+            mm.dvt0,
+            |_| true,
+            "a finite threshold deviation in volts",
+        )?;
+        check(
+            "mismatch.dbeta_rel",
+            mm.dbeta_rel,
+            |v| v > -1.0,
+            "a relative deviation above -1 (-100 %)",
+        )?;
+        Ok(self.ekv(t, temperature, mm))
     }
 
     /// Evaluate transistor `t` with mismatch `mm` at `temperature` (K) into an EKV device.
