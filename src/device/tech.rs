@@ -286,3 +286,205 @@ impl Process {
         }
     }
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::device::presets::preset;
+    use approx::assert_relative_eq;
+
+    fn process() -> Process {
+        preset("generic-180nm").unwrap_or_else(|e| panic!("{e}"))
+    }
+
+    fn nmos(w: f64, l: f64) -> Transistor {
+        Transistor {
+            polarity: Polarity::Nmos,
+            w,
+            l,
+        }
+    }
+
+    /// V_T0(T) = V_T0 + tempco (T - T_nom) (linear tempco of -1 to -2 mV/K: common practice, no
+    /// source), U_T = kT/q (CODATA 2018), beta ∝ (T/T_nom)^exp (exp ≈ -1.5: common practice),
+    /// beta = mu C_ox W/L (Enz, Krummenacher, Vittoz 1995), mismatch additive on V_T0 and
+    /// multiplicative on beta.
+    #[test]
+    fn temperature_laws() {
+        let p = process();
+        let t = nmos(4e-6, 2e-6);
+        let nom = p.ekv(&t, p.t_nom, MosMismatch::default());
+        assert_relative_eq!(nom.vt0, p.nmos.vt0, max_relative = 1e-14);
+        assert_relative_eq!(nom.beta, p.nmos.mu_cox * 2.0, max_relative = 1e-14);
+        for temp in [233.15, 273.15, 350.0, 398.15] {
+            let e = p.ekv(&t, temp, MosMismatch::default());
+            assert_relative_eq!(
+                e.ut,
+                crate::physics::thermal_voltage(temp),
+                max_relative = 1e-14
+            );
+            // -1.5 mV/K over (T - 300.15 K).
+            assert_relative_eq!(e.vt0, 0.45 - 1.5e-3 * (temp - 300.15), max_relative = 1e-12);
+            assert_relative_eq!(
+                e.beta / nom.beta,
+                (temp / 300.15).powf(-1.5),
+                max_relative = 1e-12
+            );
+            // The slope factor and the drain coupling do not drift.
+            assert_eq!(e.n, nom.n);
+            assert_eq!(e.eta, nom.eta);
+        }
+        let mm = MosMismatch {
+            dvt0: 3e-3,
+            dbeta_rel: -0.02,
+        };
+        let e = p.ekv(&t, 350.0, mm);
+        let e0 = p.ekv(&t, 350.0, MosMismatch::default());
+        assert_relative_eq!(e.vt0 - e0.vt0, 3e-3, max_relative = 1e-9);
+        assert_relative_eq!(e.beta / e0.beta, 0.98, max_relative = 1e-12);
+        // PMOS takes its own tempco (-1.8 mV/K in the preset).
+        let tp = Transistor {
+            polarity: Polarity::Pmos,
+            ..t
+        };
+        let ep = p.ekv(&tp, 350.0, MosMismatch::default());
+        assert_relative_eq!(
+            ep.vt0,
+            0.45 - 1.8e-3 * (350.0 - 300.15),
+            max_relative = 1e-12
+        );
+        assert_eq!(ep.polarity, Polarity::Pmos);
+    }
+
+    /// An Early voltage V_A means I_D / g_ds = V_A in weak-inversion saturation, where
+    /// I_D ∝ exp(sigma V_D / U_T) and sigma ≈ U_T / V_A (DESIGN.md section 3; EKV weak-inversion
+    /// law, Enz, Krummenacher, Vittoz 1995); all four ways of giving the coupling agree.
+    #[test]
+    fn drain_coupling_forms() {
+        let mut p = process();
+        let t = nmos(2e-6, 2e-6);
+        let ut = crate::physics::thermal_voltage(p.t_nom);
+        let n = p.nmos.n;
+        let va = 20.0;
+        let forms = [
+            DrainCoupling::EarlyVoltage(va),
+            DrainCoupling::EarlyVoltagePerLength(va / t.l),
+            DrainCoupling::Sigma(ut / va),
+            DrainCoupling::Eta(n * ut / va),
+        ];
+        for dc in forms {
+            p.nmos.drain_coupling = dc;
+            let e = p.ekv(&t, p.t_nom, MosMismatch::default());
+            assert_relative_eq!(e.sigma(), ut / va, max_relative = 1e-12);
+            // Deep weak inversion (EKV departs from the exponential by ~e^(x/2)).
+            let ev = e.eval(-0.1, 0.6, 0.0);
+            assert_relative_eq!(ev.id / ev.d_vd, va, max_relative = 1e-3);
+        }
+        // Early voltage per length: twice the length, twice V_A, half the coupling.
+        p.nmos.drain_coupling = DrainCoupling::EarlyVoltagePerLength(1e7);
+        let short = p.ekv(&nmos(2e-6, 1e-6), p.t_nom, MosMismatch::default());
+        let long = p.ekv(&nmos(2e-6, 2e-6), p.t_nom, MosMismatch::default());
+        assert_relative_eq!(short.eta / long.eta, 2.0, max_relative = 1e-12);
+    }
+
+    fn expect_err(r: Result<(), DeviceError>, parameter: &str, fragment: &str) {
+        let e = r
+            .err()
+            .unwrap_or_else(|| panic!("{parameter} should be rejected"));
+        let msg = e.to_string();
+        assert!(msg.contains(&format!("`{parameter}`")), "{msg}");
+        assert!(msg.contains(fragment), "{msg}");
+    }
+
+    #[test]
+    fn transistor_validation() {
+        assert!(nmos(1e-6, 180e-9).validate().is_ok());
+        expect_err(
+            nmos(0.0, 1e-6).validate(),
+            "transistor.w",
+            "from 1 nm to 1 cm",
+        );
+        expect_err(
+            nmos(-1e-6, 1e-6).validate(),
+            "transistor.w",
+            "from 1 nm to 1 cm",
+        );
+        expect_err(nmos(f64::NAN, 1e-6).validate(), "transistor.w", "NaN");
+        expect_err(nmos(1e-6, f64::INFINITY).validate(), "transistor.l", "inf");
+        // 10 m: micrometres written as metres.
+        expect_err(nmos(1e-6, 10.0).validate(), "transistor.l", "\"1 um\"");
+    }
+
+    #[test]
+    fn process_validation() {
+        let good = process();
+        assert!(good.validate().is_ok());
+        type Edit = fn(&mut Process);
+        let cases: [(Edit, &str, &str); 12] = [
+            (|p| p.nmos.n = 1.0, "nmos.n", "above 1"),
+            (|p| p.pmos.n = 12.0, "pmos.n", "at most 5"),
+            (|p| p.nmos.n = f64::NAN, "nmos.n", "above 1"),
+            (|p| p.t_nom = 0.0, "process.t_nom", "above 0 K"),
+            (|p| p.t_nom = -5.0, "process.t_nom", "above 0 K"),
+            (|p| p.vdd = f64::INFINITY, "process.vdd", "above 0 V"),
+            (|p| p.nmos.mu_cox = 0.0, "nmos.mu_cox", "uA/V^2"),
+            (
+                |p| p.nmos.drain_coupling = DrainCoupling::Eta(0.0),
+                "nmos.drain_coupling",
+                "eta",
+            ),
+            (
+                |p| p.pmos.drain_coupling = DrainCoupling::Sigma(-0.01),
+                "pmos.drain_coupling",
+                "sigma",
+            ),
+            (
+                |p| p.nmos.drain_coupling = DrainCoupling::EarlyVoltage(0.0),
+                "nmos.drain_coupling",
+                "Early voltage",
+            ),
+            (
+                |p| p.nmos.drain_coupling = DrainCoupling::EarlyVoltagePerLength(f64::NAN),
+                "nmos.drain_coupling",
+                "V/um",
+            ),
+            (|p| p.pmos.kf = f64::NAN, "pmos.kf", "V^2·F"),
+        ];
+        for (edit, parameter, fragment) in cases {
+            let mut p = good.clone();
+            edit(&mut p);
+            expect_err(p.validate(), parameter, fragment);
+        }
+        let mut p = good.clone();
+        p.nmos.a_vt_pair = -1e-9;
+        expect_err(p.validate(), "nmos.a_vt_pair", "mV·um");
+    }
+
+    #[test]
+    fn checked_evaluation() {
+        let p = process();
+        let t = nmos(1e-6, 1e-6);
+        let mm = MosMismatch::default();
+        let e = p
+            .checked_ekv(&t, 300.0, mm)
+            .unwrap_or_else(|e| panic!("{e}"));
+        assert_eq!(e, p.ekv(&t, 300.0, mm));
+        for bad in [0.0, -10.0, f64::NAN] {
+            let r = p.checked_ekv(&t, bad, mm).map(|_| ());
+            expect_err(r, "temperature", "above 0 K");
+        }
+        let r = p
+            .checked_ekv(
+                &t,
+                300.0,
+                MosMismatch {
+                    dvt0: 0.0,
+                    dbeta_rel: -1.5,
+                },
+            )
+            .map(|_| ());
+        expect_err(r, "mismatch.dbeta_rel", "above -1");
+        let r = p.checked_ekv(&nmos(0.0, 1e-6), 300.0, mm).map(|_| ());
+        expect_err(r, "transistor.w", "1 nm");
+    }
+}
