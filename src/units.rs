@@ -8,7 +8,8 @@
 //! - a plain number in base units: `1e-8`, `300`, `-0.0015`;
 //! - a number, optional spaces, then a unit: `10 nA`, `1.5um`, `8.5 fF/um^2`, `300 uA/V^2`,
 //!   `5 mV um`, `5 mV*um`, `5 mV·um`, `1 %um`, `-1.5 mV/K`, `10 MHz`, `1 kohm`, `1 kΩ`;
-//! - a temperature in Celsius: `27 degC`, `27 °C`, `27 ℃` (= 300.15 K);
+//! - a temperature in Celsius: `27 degC`, `27 °C`, `27 ℃` (= 300.15 K); inside a compound unit
+//!   a Celsius degree is an interval equal to a kelvin (`-1.5 mV/degC` = -1.5 mV/K);
 //! - a percentage where a fraction is expected: `5 %` = 0.05.
 //!
 //! A unit is a product of factors separated by spaces, `*`, `·` or `/` (left to right: `a/b*c` =
@@ -300,6 +301,11 @@ fn is_separator(c: char) -> bool {
 fn parse_symbol(tok: &str) -> Option<(f64, Dims)> {
     if tok == "%" {
         return Some((0.01, DIMS_NONE));
+    }
+    // Inside a compound unit a Celsius degree is a temperature *interval*, equal to a kelvin
+    // ("-1.5 mV/degC"). Alone it is an absolute temperature, handled by the caller.
+    if matches!(tok, "degC" | "\u{b0}C" | "\u{2103}") {
+        return Some((1.0, [0, 0, 0, 0, 1]));
     }
     if let Some(&(_, scale, dims)) = SYMBOLS.iter().find(|(s, _, _)| *s == tok) {
         return Some((scale, dims));
@@ -607,6 +613,8 @@ mod tests {
             ("300 uA/V²", Transconductance, 300e-6),
             ("300 uA/V/V", Transconductance, 300e-6),
             ("-1.5 mV/K", VoltagePerKelvin, -1.5e-3),
+            ("-1.5 mV/degC", VoltagePerKelvin, -1.5e-3),
+            ("-1.5 mV/°C", VoltagePerKelvin, -1.5e-3),
             ("8.5 fF/um^2", CapacitancePerArea, 8.5e-3),
             ("8.5 fF/um²", CapacitancePerArea, 8.5e-3),
             ("1 pJ", Energy, 1e-12),

@@ -213,8 +213,25 @@ mod tests {
         let m = nmos();
         let (vg, vd, vs) = (2.0, 3.0, 0.0);
         let closed = m.beta / (2.0 * m.n) * (vg - m.vt0).powi(2);
-        // The exact EKV value differs from the square law by the softplus tail, O(u/(V_G - V_T0)).
-        assert_relative_eq!(m.id(vg, vd, vs), closed, max_relative = 0.05);
+        // The exact EKV value differs from the square law by the softplus tail, 4 e^(-x/2)/x with
+        // x = (V_G - V_T0)/(n U_T) = 46 here (see the next test).
+        assert_relative_eq!(m.id(vg, vd, vs), closed, max_relative = 1e-9);
+    }
+
+    /// Approach to the square law: with eta = 0, V_S = 0 and a saturated drain,
+    /// F(x) = ln^2(1 + e^(x/2)) = (x/2)^2 (1 + 4 e^(-x/2) / x + ...), so the relative departure
+    /// from beta/(2n) (V_G - V_T0)^2 is 4 e^(-x/2)/x with x = (V_G - V_T0)/(n U_T) (series of the
+    /// EKV interpolation function, Enz, Krummenacher, Vittoz 1995).
+    #[test]
+    fn strong_inversion_converges_to_square_law() {
+        let m = nmos();
+        for vg in [0.75, 0.95, 1.2] {
+            let closed = m.beta / (2.0 * m.n) * (vg - m.vt0).powi(2);
+            let err = m.id(vg, 5.0, 0.0) / closed - 1.0;
+            let x = (vg - m.vt0) / (m.n * m.ut);
+            let want = 4.0 * (-x / 2.0).exp() / x;
+            assert_relative_eq!(err, want, max_relative = 0.05);
+        }
     }
 
     /// A PMOS device with every bulk-referred voltage negated carries the same current.

@@ -19,7 +19,7 @@
 use rand::Rng;
 use rand_distr::StandardNormal;
 
-use super::tech::{DeviceTech, MosMismatch, Transistor};
+use super::tech::{DeviceTech, MosMismatch, Process, Transistor};
 
 /// One device's own threshold spread from nominal, `A_VT / sqrt(2 W L)`, in V.
 pub fn device_sigma_vt0(tech: &DeviceTech, t: &Transistor) -> f64 {
@@ -57,6 +57,15 @@ pub fn sample_mismatch<R: Rng + ?Sized>(
     }
 }
 
+/// [`sample_mismatch`] with the device type of `t` taken from `process`.
+pub fn sample_transistor_mismatch<R: Rng + ?Sized>(
+    rng: &mut R,
+    process: &Process,
+    t: &Transistor,
+) -> MosMismatch {
+    sample_mismatch(rng, process.tech(t.polarity), t)
+}
+
 /// Relative drain-current spread in weak inversion from a threshold spread and a current-factor
 /// spread: `sqrt((sigma_vt / (n U_T))^2 + sigma_beta_rel^2)`, since there
 /// `I_D ∝ beta exp(-V_T0 / (n U_T))` (first order in the deviations; Pelgrom 1989 with the
@@ -80,7 +89,7 @@ pub fn pair_weak_inversion_current_sigma(tech: &DeviceTech, t: &Transistor, ut: 
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::device::{DrainCoupling, Polarity, Process};
+    use crate::device::{DrainCoupling, Polarity};
     use crate::physics::thermal_voltage;
     use crate::rng::{domain, stream};
     use approx::assert_relative_eq;
@@ -227,5 +236,22 @@ mod tests {
             .collect();
         let want = pair_weak_inversion_current_sigma(&tech, &dev, thermal_voltage(300.0));
         assert_variance(&logs, want);
+    }
+
+    /// The process-level sampler uses the device type of the transistor: a PMOS draw has the
+    /// PMOS spread (A_VT 8 mV·um in generic-350nm vs 7.5 for NMOS; Pelgrom 1989 law).
+    #[test]
+    fn process_sampler_picks_polarity() {
+        let p = crate::device::preset("generic-350nm").unwrap_or_else(|e| panic!("{e}"));
+        let tp = Transistor {
+            polarity: Polarity::Pmos,
+            w: 1e-6,
+            l: 1e-6,
+        };
+        let mut rng = stream(3, &[domain::CHIP, 2]);
+        let vt: Vec<f64> = (0..20_000)
+            .map(|_| sample_transistor_mismatch(&mut rng, &p, &tp).dvt0)
+            .collect();
+        assert_variance(&vt, 8e-9 / (2.0 * 1e-12f64).sqrt());
     }
 }

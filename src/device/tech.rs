@@ -158,6 +158,12 @@ impl DrainCoupling {
 }
 
 impl DeviceTech {
+    /// Gate-oxide capacitance of transistor `t`, C_ox W L in F (intrinsic gate capacitance scale;
+    /// overlap and junction capacitances are not included).
+    pub fn gate_capacitance(&self, t: &Transistor) -> f64 {
+        self.cox * t.area()
+    }
+
     /// Check every parameter; `prefix` names the device type in messages (e.g. `nmos`).
     pub fn validate(&self, prefix: &str) -> Result<(), DeviceError> {
         let p = |name: &str| format!("{prefix}.{name}");
@@ -394,6 +400,20 @@ mod tests {
         let msg = e.to_string();
         assert!(msg.contains(&format!("`{parameter}`")), "{msg}");
         assert!(msg.contains(fragment), "{msg}");
+    }
+
+    /// C_ox W L: 4.1 nm oxide, eps_ox = 3.9 eps_0 -> 8.42 fF/um^2, so 8.42 fF for 1 um^2
+    /// (parallel-plate capacitor; eps_0 from CODATA 2018).
+    #[test]
+    fn gate_capacitance() {
+        let p = process();
+        let c = p.nmos.gate_capacitance(&nmos(2e-6, 0.5e-6));
+        assert_relative_eq!(
+            c,
+            3.9 * 8.854_187_812_8e-12 / 4.1e-9 * 1e-12,
+            max_relative = 1e-9
+        );
+        assert_relative_eq!(c, 8.42e-15, max_relative = 1e-3);
     }
 
     #[test]
