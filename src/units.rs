@@ -201,7 +201,7 @@ pub enum UnitProblem {
 
 /// A quantity that could not be read: the text, what was expected (with an example), and why.
 #[derive(Clone, Debug, PartialEq, Error)]
-#[error("cannot read \"{text}\" as {}: {problem}; write e.g. {} or a plain number in {}", .expected.name(), .expected.example(), base_or_none(.expected))]
+#[error("cannot read \"{text}\" as {}: {problem}; write e.g. {} or {}", .expected.name(), .expected.example(), plain_hint(.expected))]
 pub struct UnitError {
     /// The text as given.
     pub text: String,
@@ -211,10 +211,10 @@ pub struct UnitError {
     pub problem: UnitProblem,
 }
 
-fn base_or_none(d: &Dimension) -> &'static str {
+fn plain_hint(d: &Dimension) -> String {
     match d {
-        Dimension::Dimensionless => "plain units",
-        _ => d.base_unit(),
+        Dimension::Dimensionless => "a plain fraction".to_string(),
+        _ => format!("a plain number in {}", d.base_unit()),
     }
 }
 
@@ -394,6 +394,15 @@ fn parse_unit(unit: &str) -> Result<(f64, Dims), UnitProblem> {
 fn describe_dims(d: Dims) -> String {
     if let Some(k) = Dimension::ALL.iter().find(|k| k.dims() == d) {
         return format!("{} ({})", k.name(), k.base_unit());
+    }
+    // Common dimensions hardmax does not take as input, named for clearer messages.
+    const OTHERS: [(Dims, &str); 3] = [
+        ([-2, -1, 3, 2, 0], "a conductance (S = A/V)"),
+        ([0, 0, 1, 1, 0], "a charge (C)"),
+        ([0, 1, 0, 0, 0], "a mass (kg)"),
+    ];
+    if let Some((_, name)) = OTHERS.iter().find(|(k, _)| *k == d) {
+        return name.to_string();
     }
     let names = ["m", "kg", "s", "A", "K"];
     let parts: Vec<String> = names
@@ -653,7 +662,9 @@ mod tests {
         rejected("0 K", Temperature, "at or below absolute zero");
         rejected("-300 degC", Temperature, "at or below absolute zero");
         rejected("-5", Temperature, "at or below absolute zero");
-        rejected("300 uA/V", Transconductance, "a quantity in");
+        rejected("300 uA/V", Transconductance, "a conductance (S = A/V)");
+        rejected("3 V*K", Voltage, "a quantity in m^2·kg·s^-3·A^-1·K");
+        rejected("x", Dimensionless, "or a plain fraction");
     }
 
     #[test]
@@ -706,5 +717,27 @@ mod tests {
         assert_eq!(format_si(-2.5e-3, "V", 2), "-2.5 mV");
         assert_eq!(format_si(0.0, "A", 3), "0 A");
         assert_eq!(format_si(0.25, "", 2), "250m");
+    }
+
+    proptest::proptest! {
+        /// No panic on any user text (DEVELOPERS.md invariant 5), and any accepted value is finite.
+        #[test]
+        fn never_panics(text in "\\PC{0,24}", pick in 0usize..17) {
+            let dim = Dimension::ALL[pick % Dimension::ALL.len()];
+            if let Ok(v) = parse_quantity(&text, dim) {
+                proptest::prop_assert!(v.is_finite());
+            }
+        }
+
+        /// Number + prefix + unit round trip: value * prefix scale (BIPM SI brochure, 2019).
+        #[test]
+        fn prefixed_numbers(m in -1e3f64..1e3, p in 0usize..9) {
+            let (pre, scale) = [("a", 1e-18), ("f", 1e-15), ("p", 1e-12), ("n", 1e-9), ("u", 1e-6),
+                                ("m", 1e-3), ("", 1.0), ("k", 1e3), ("Meg", 1e6)][p];
+            let v = parse_quantity(&format!("{m:e} {pre}A"), Dimension::Current);
+            proptest::prop_assert!(v.is_ok());
+            let v = v.unwrap_or(f64::NAN);
+            proptest::prop_assert!((v - m * scale).abs() <= 1e-12 * (m * scale).abs());
+        }
     }
 }
