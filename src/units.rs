@@ -633,7 +633,7 @@ mod tests {
             ("3 /s", Frequency, 3.0),
         ];
         for &(text, dim, want) in cases {
-            assert_relative_eq!(ok(text, dim), want, max_relative = 1e-12);
+            assert_relative_eq!(ok(text, dim), want, epsilon = 0.0, max_relative = 1e-12);
         }
     }
 
@@ -674,15 +674,21 @@ mod tests {
         let get = |k: &str| v.get(k).cloned().unwrap_or(toml::Value::Boolean(false));
         assert_relative_eq!(
             quantity_from_toml(&get("a"), Dimension::Current).unwrap_or(f64::NAN),
-            1e-8
+            1e-8,
+            epsilon = 0.0,
+            max_relative = 1e-12
         );
         assert_relative_eq!(
             quantity_from_toml(&get("b"), Dimension::Temperature).unwrap_or(f64::NAN),
-            300.0
+            300.0,
+            epsilon = 0.0,
+            max_relative = 1e-12
         );
         assert_relative_eq!(
             quantity_from_toml(&get("c"), Dimension::Current).unwrap_or(f64::NAN),
-            1e-8
+            1e-8,
+            epsilon = 0.0,
+            max_relative = 1e-12
         );
         let e = quantity_from_toml(&get("d"), Dimension::Current).unwrap_err();
         assert!(e.to_string().contains("boolean is not a quantity"), "{e}");
@@ -704,7 +710,7 @@ mod tests {
         // format_si output reads back.
         for (v, d) in [(1.5e-6, Dimension::Length), (10e-9, Dimension::Current)] {
             let t = format_si(v, d.base_unit(), 4);
-            assert_relative_eq!(ok(&t, d), v, max_relative = 1e-12);
+            assert_relative_eq!(ok(&t, d), v, epsilon = 0.0, max_relative = 1e-12);
         }
     }
 

@@ -204,7 +204,7 @@ mod tests {
         let ut = m.ut;
         let vp = (vg - m.vt0) / m.n;
         let closed = m.specific_current() * (vp / ut).exp() * ((-vs / ut).exp() - (-vd / ut).exp());
-        assert_relative_eq!(m.id(vg, vd, vs), closed, max_relative = 1e-3);
+        assert_relative_eq!(m.id(vg, vd, vs), closed, epsilon = 0.0, max_relative = 1e-3);
     }
 
     /// Strong-inversion saturation: I_D = beta/(2n) (V_G - V_T0)^2 (Enz, Krummenacher, Vittoz 1995).
@@ -215,7 +215,7 @@ mod tests {
         let closed = m.beta / (2.0 * m.n) * (vg - m.vt0).powi(2);
         // The exact EKV value differs from the square law by the softplus tail, 4 e^(-x/2)/x with
         // x = (V_G - V_T0)/(n U_T) = 46 here (see the next test).
-        assert_relative_eq!(m.id(vg, vd, vs), closed, max_relative = 1e-9);
+        assert_relative_eq!(m.id(vg, vd, vs), closed, epsilon = 0.0, max_relative = 1e-9);
     }
 
     /// Approach to the square law: with eta = 0, V_S = 0 and a saturated drain,
@@ -230,7 +230,7 @@ mod tests {
             let err = m.id(vg, 5.0, 0.0) / closed - 1.0;
             let x = (vg - m.vt0) / (m.n * m.ut);
             let want = 4.0 * (-x / 2.0).exp() / x;
-            assert_relative_eq!(err, want, max_relative = 0.05);
+            assert_relative_eq!(err, want, epsilon = 0.0, max_relative = 0.05);
         }
     }
 
@@ -245,11 +245,12 @@ mod tests {
         assert_relative_eq!(
             n.id(0.6, 0.9, 0.1),
             p.id(-0.6, -0.9, -0.1),
+            epsilon = 0.0,
             max_relative = 1e-12
         );
         let (en, ep) = (n.eval(0.6, 0.9, 0.1), p.eval(-0.6, -0.9, -0.1));
-        assert_relative_eq!(en.d_vg, -ep.d_vg, max_relative = 1e-12);
-        assert_relative_eq!(en.d_vd, -ep.d_vd, max_relative = 1e-12);
+        assert_relative_eq!(en.d_vg, -ep.d_vg, epsilon = 0.0, max_relative = 1e-12);
+        assert_relative_eq!(en.d_vd, -ep.d_vd, epsilon = 0.0, max_relative = 1e-12);
     }
 
     use proptest::prelude::*;
@@ -279,12 +280,17 @@ mod tests {
             let (v1, v2) = (-0.3, -0.2);
             let decades = (m.id(v2, 0.5, 0.0) / m.id(v1, 0.5, 0.0)).log10();
             let swing = (v2 - v1) / decades;
-            assert_relative_eq!(swing, n * ut * std::f64::consts::LN_10, max_relative = 1e-3);
+            assert_relative_eq!(
+                swing,
+                n * ut * std::f64::consts::LN_10,
+                epsilon = 0.0,
+                max_relative = 1e-3
+            );
         }
         // n = 1 gives 59.5 mV/dec at 300 K (the familiar ~60 mV/dec).
         let m = device(Polarity::Nmos, 1.0, 0.0);
         let swing = 0.1 / (m.id(-0.2, 0.5, 0.0) / m.id(-0.3, 0.5, 0.0)).log10();
-        assert_relative_eq!(swing, 59.53e-3, max_relative = 1e-3);
+        assert_relative_eq!(swing, 59.53e-3, epsilon = 0.0, max_relative = 1e-3);
     }
 
     /// The drain current is antisymmetric in swapping source and drain when eta = 0 (the EKV
@@ -293,7 +299,12 @@ mod tests {
     fn source_drain_symmetry() {
         let m = nmos();
         for (vg, a, b) in [(0.2, 0.0, 0.3), (0.9, 0.1, 0.2), (1.5, 0.4, 1.0)] {
-            assert_relative_eq!(m.id(vg, a, b), -m.id(vg, b, a), max_relative = 1e-12);
+            assert_relative_eq!(
+                m.id(vg, a, b),
+                -m.id(vg, b, a),
+                epsilon = 0.0,
+                max_relative = 1e-12
+            );
             assert_eq!(m.id(vg, a, a), 0.0);
         }
     }

@@ -157,9 +157,15 @@ mod tests {
         assert_relative_eq!(
             device_sigma_vt0(&tech, &dev),
             5e-3 / 2f64.sqrt(),
+            epsilon = 0.0,
             max_relative = 1e-12
         );
-        assert_relative_eq!(pair_sigma_vt0(&tech, &dev), 5e-3, max_relative = 1e-12);
+        assert_relative_eq!(
+            pair_sigma_vt0(&tech, &dev),
+            5e-3,
+            epsilon = 0.0,
+            max_relative = 1e-12
+        );
         assert_variance(&vt, device_sigma_vt0(&tech, &dev));
         assert_variance(&beta, device_sigma_beta_rel(&tech, &dev));
         assert_variance(&vt_pair, pair_sigma_vt0(&tech, &dev));
@@ -179,7 +185,7 @@ mod tests {
         let tech = tech();
         let small = device_sigma_vt0(&tech, &t(1e-6, 1e-6));
         let large = device_sigma_vt0(&tech, &t(2e-6, 2e-6));
-        assert_relative_eq!(small / large, 2.0, max_relative = 1e-12);
+        assert_relative_eq!(small / large, 2.0, epsilon = 0.0, max_relative = 1e-12);
     }
 
     /// DESIGN.md worked value: A_VT = 5 mV·um on a 1 um^2 pair gives about 14 % in weak
@@ -196,16 +202,19 @@ mod tests {
         assert_relative_eq!(
             pair_weak_inversion_current_sigma(&tech, &pair, ut),
             0.140,
+            epsilon = 0.0,
             max_relative = 5e-3
         );
         assert_relative_eq!(
             weak_inversion_current_sigma(5e-3, 0.0, 1.3, ut),
             0.149,
+            epsilon = 0.0,
             max_relative = 5e-3
         );
         assert_relative_eq!(
             weak_inversion_current_sigma(5e-3, 0.0, 1.5, ut),
             0.129,
+            epsilon = 0.0,
             max_relative = 5e-3
         );
     }

@@ -320,20 +320,32 @@ mod tests {
         let p = process();
         let t = nmos(4e-6, 2e-6);
         let nom = p.ekv(&t, p.t_nom, MosMismatch::default());
-        assert_relative_eq!(nom.vt0, p.nmos.vt0, max_relative = 1e-14);
-        assert_relative_eq!(nom.beta, p.nmos.mu_cox * 2.0, max_relative = 1e-14);
+        assert_relative_eq!(nom.vt0, p.nmos.vt0, epsilon = 0.0, max_relative = 1e-14);
+        assert_relative_eq!(
+            nom.beta,
+            p.nmos.mu_cox * 2.0,
+            epsilon = 0.0,
+            max_relative = 1e-14
+        );
         for temp in [233.15, 273.15, 350.0, 398.15] {
             let e = p.ekv(&t, temp, MosMismatch::default());
             assert_relative_eq!(
                 e.ut,
                 crate::physics::thermal_voltage(temp),
+                epsilon = 0.0,
                 max_relative = 1e-14
             );
             // -1.5 mV/K over (T - 300.15 K).
-            assert_relative_eq!(e.vt0, 0.45 - 1.5e-3 * (temp - 300.15), max_relative = 1e-12);
+            assert_relative_eq!(
+                e.vt0,
+                0.45 - 1.5e-3 * (temp - 300.15),
+                epsilon = 0.0,
+                max_relative = 1e-12
+            );
             assert_relative_eq!(
                 e.beta / nom.beta,
                 (temp / 300.15).powf(-1.5),
+                epsilon = 0.0,
                 max_relative = 1e-12
             );
             // The slope factor and the drain coupling do not drift.
@@ -346,8 +358,8 @@ mod tests {
         };
         let e = p.ekv(&t, 350.0, mm);
         let e0 = p.ekv(&t, 350.0, MosMismatch::default());
-        assert_relative_eq!(e.vt0 - e0.vt0, 3e-3, max_relative = 1e-9);
-        assert_relative_eq!(e.beta / e0.beta, 0.98, max_relative = 1e-12);
+        assert_relative_eq!(e.vt0 - e0.vt0, 3e-3, epsilon = 0.0, max_relative = 1e-9);
+        assert_relative_eq!(e.beta / e0.beta, 0.98, epsilon = 0.0, max_relative = 1e-12);
         // PMOS takes its own tempco (-1.8 mV/K in the preset).
         let tp = Transistor {
             polarity: Polarity::Pmos,
@@ -357,6 +369,7 @@ mod tests {
         assert_relative_eq!(
             ep.vt0,
             0.45 - 1.8e-3 * (350.0 - 300.15),
+            epsilon = 0.0,
             max_relative = 1e-12
         );
         assert_eq!(ep.polarity, Polarity::Pmos);
@@ -381,16 +394,21 @@ mod tests {
         for dc in forms {
             p.nmos.drain_coupling = dc;
             let e = p.ekv(&t, p.t_nom, MosMismatch::default());
-            assert_relative_eq!(e.sigma(), ut / va, max_relative = 1e-12);
+            assert_relative_eq!(e.sigma(), ut / va, epsilon = 0.0, max_relative = 1e-12);
             // Deep weak inversion (EKV departs from the exponential by ~e^(x/2)).
             let ev = e.eval(-0.1, 0.6, 0.0);
-            assert_relative_eq!(ev.id / ev.d_vd, va, max_relative = 1e-3);
+            assert_relative_eq!(ev.id / ev.d_vd, va, epsilon = 0.0, max_relative = 1e-3);
         }
         // Early voltage per length: twice the length, twice V_A, half the coupling.
         p.nmos.drain_coupling = DrainCoupling::EarlyVoltagePerLength(1e7);
         let short = p.ekv(&nmos(2e-6, 1e-6), p.t_nom, MosMismatch::default());
         let long = p.ekv(&nmos(2e-6, 2e-6), p.t_nom, MosMismatch::default());
-        assert_relative_eq!(short.eta / long.eta, 2.0, max_relative = 1e-12);
+        assert_relative_eq!(
+            short.eta / long.eta,
+            2.0,
+            epsilon = 0.0,
+            max_relative = 1e-12
+        );
     }
 
     fn expect_err(r: Result<(), DeviceError>, parameter: &str, fragment: &str) {
@@ -411,9 +429,10 @@ mod tests {
         assert_relative_eq!(
             c,
             3.9 * 8.854_187_812_8e-12 / 4.1e-9 * 1e-12,
+            epsilon = 0.0,
             max_relative = 1e-9
         );
-        assert_relative_eq!(c, 8.42e-15, max_relative = 1e-3);
+        assert_relative_eq!(c, 8.42e-15, epsilon = 0.0, max_relative = 1e-3);
     }
 
     #[test]
