@@ -19,7 +19,23 @@
 //! there: the long-channel saturation value `4 k T (2/3) g_ms` with g_ms = n g_m the source
 //! transconductance (A. van der Ziel, "Noise in Solid State Devices and Circuits", Wiley 1986,
 //! from memory; in weak inversion the same expression with 1/2 in place of 2/3 gives 2 q I_D
-//! again). [`white_channel_noise_psd`] picks by inversion level.
+//! again).
+//!
+//! [`white_channel_noise_psd`] covers all regions with one continuous expression: the long-channel
+//! thermal noise `4 k T (mu / L^2) |Q_inv,total|` (F. Klaassen, J. Prins, "Thermal noise of MOS
+//! transistors", Philips Research Reports 22, 1967, from memory) written with the normalised
+//! charges of the charge-based EKV model, i = q^2 + q (C. Enz, E. Vittoz, "Charge-Based MOS
+//! Transistor Modeling", Wiley 2006, from memory):
+//!
+//! ```text
+//! S_I = 4 k T (I_S / U_T) N,   N = [ (2/3)(q_f^2 + q_f q_r + q_r^2) + (1/2)(q_f + q_r) ] / (1 + q_f + q_r)
+//! ```
+//!
+//! Limits (tested): N -> (i_f + i_r)/2 in weak inversion (= the shot form above), N -> (2/3) q_f
+//! in strong-inversion saturation (= 4 k T (2/3) g_ms), N = q at V_DS = 0 (= 4 k T g_ds in both
+//! weak and strong inversion). The charges are obtained from the inversion coefficients of this
+//! crate's F(x) interpolation, so in moderate inversion it is an interpolation, not a fit to a
+//! foundry noise model.
 //!
 //! Flicker noise, input-referred at the gate: `S_V = K_F / (C_ox W L f)` (V^2/Hz).
 //!
@@ -32,15 +48,9 @@ use super::error::{check, DeviceError};
 use super::tech::{DeviceTech, Transistor};
 use crate::physics::ELEMENTARY_CHARGE;
 
-/// Inversion coefficient (forward normalised current i_f = I_f / I_S) above which
-/// [`white_channel_noise_psd`] uses the strong-inversion form. i_f = 1 is the centre of
-/// moderate inversion (Enz, Krummenacher, Vittoz 1995); 10 is its conventional upper edge
-/// (common practice, no source).
-pub const STRONG_INVERSION_IC: f64 = 10.0;
-
 /// One-sided channel shot-noise current PSD `2 q (I_f + I_r)` in A^2/Hz at bulk-referred
 /// terminal voltages (Sarpeshkar, Delbrück, Mead 1993). Valid in weak and moderate inversion;
-/// see the module docs for strong inversion.
+/// see the module docs for strong inversion, and [`white_channel_noise_psd`] for all regions.
 pub fn shot_noise_psd(ekv: &Ekv, vg: f64, vd: f64, vs: f64) -> f64 {
     let (i_f, i_r) = ekv.inversion_coefficients(vg, vd, vs);
     2.0 * ELEMENTARY_CHARGE * ekv.specific_current() * (i_f + i_r)
@@ -56,17 +66,23 @@ pub fn strong_inversion_thermal_noise_psd(ekv: &Ekv, vg: f64, vd: f64, vs: f64) 
     4.0 * kt * (2.0 / 3.0) * ekv.n * gm
 }
 
-/// White channel noise PSD in A^2/Hz: [`shot_noise_psd`] below [`STRONG_INVERSION_IC`], else the
-/// smaller of it and [`strong_inversion_thermal_noise_psd`] (the shot form only overestimates
-/// there). An architecture-stage estimate, not a charge-based noise model.
+/// Normalised inversion charge q from an inversion coefficient i, solving i = q^2 + q
+/// (charge-based EKV; Enz, Vittoz 2006, from memory), written without cancellation for small i.
+pub fn normalised_charge(i: f64) -> f64 {
+    let i = i.max(0.0);
+    2.0 * i / (1.0 + (1.0 + 4.0 * i).sqrt())
+}
+
+/// White channel noise PSD in A^2/Hz, continuous over weak, moderate and strong inversion and
+/// from V_DS = 0 to saturation (module docs): `4 k T (I_S/U_T) N(q_f, q_r)`. Equals
+/// [`shot_noise_psd`] in weak inversion and [`strong_inversion_thermal_noise_psd`] in
+/// strong-inversion saturation. Long-channel: no velocity saturation or excess noise.
 pub fn white_channel_noise_psd(ekv: &Ekv, vg: f64, vd: f64, vs: f64) -> f64 {
-    let shot = shot_noise_psd(ekv, vg, vd, vs);
-    let (i_f, _) = ekv.inversion_coefficients(vg, vd, vs);
-    if i_f < STRONG_INVERSION_IC {
-        shot
-    } else {
-        shot.min(strong_inversion_thermal_noise_psd(ekv, vg, vd, vs))
-    }
+    let (i_f, i_r) = ekv.inversion_coefficients(vg, vd, vs);
+    let (qf, qr) = (normalised_charge(i_f), normalised_charge(i_r));
+    let n = ((2.0 / 3.0) * (qf * qf + qf * qr + qr * qr) + 0.5 * (qf + qr)) / (1.0 + qf + qr);
+    // 4 k T I_S / U_T = 4 q I_S.
+    4.0 * ELEMENTARY_CHARGE * ekv.specific_current() * n
 }
 
 /// Input-referred flicker noise PSD at the gate, `K_F / (C_ox W L f)` in V^2/Hz, at frequency
@@ -212,19 +228,71 @@ mod tests {
             epsilon = 0.0,
             max_relative = 0.05
         );
-        assert_relative_eq!(
-            white_channel_noise_psd(&m, vg, vd, vs),
-            strong_inversion_thermal_noise_psd(&m, vg, vd, vs),
-            epsilon = 0.0,
-            max_relative = 1e-12
-        );
-        let weak = (0.1, 0.4, 0.0);
-        assert_relative_eq!(
-            white_channel_noise_psd(&m, weak.0, weak.1, weak.2),
-            shot_noise_psd(&m, weak.0, weak.1, weak.2),
-            epsilon = 0.0,
-            max_relative = 1e-12
-        );
+    }
+
+    /// The all-region channel noise reduces to its published limits (module docs): the shot
+    /// form 2q(I_f + I_r) in weak inversion (Sarpeshkar, Delbrück, Mead 1993), 4kT(2/3)g_ms in
+    /// strong-inversion saturation (van der Ziel 1986, from memory), and the Nyquist value
+    /// 4kT g_ds at V_DS = 0 in weak and in strong inversion (Klaassen, Prins 1967, from memory).
+    #[test]
+    fn all_region_channel_noise_limits() {
+        let m = nmos(0.0);
+        let kt4 = 4.0 * BOLTZMANN * 300.0;
+        // Weak inversion, saturated and at V_DS = 0: relative departure O(i_f) ~ 1e-5.
+        for (vg, vd, vs) in [(-0.1, 0.4, 0.0), (-0.1, 0.05, 0.05), (-0.1, 0.03, 0.0)] {
+            assert_relative_eq!(
+                white_channel_noise_psd(&m, vg, vd, vs),
+                shot_noise_psd(&m, vg, vd, vs),
+                epsilon = 0.0,
+                max_relative = 1e-3
+            );
+        }
+        // Strong inversion: the charges q = sqrt(i) - 1/2 + O(1/sqrt(i)) and F' = sqrt(F) agree
+        // to first order, so the limits are reached with a relative error below 1/sqrt(i_f)
+        // (about 0.75/sqrt(i_f) in saturation), shrinking as the overdrive grows.
+        let tol = |vg: f64, vd: f64, vs: f64| 1.0 / m.inversion_coefficients(vg, vd, vs).0.sqrt();
+        for vg in [1.2, 1.8, 3.0] {
+            let (vd, vs) = (vg + 1.0, 0.0);
+            assert_relative_eq!(
+                white_channel_noise_psd(&m, vg, vd, vs),
+                strong_inversion_thermal_noise_psd(&m, vg, vd, vs),
+                epsilon = 0.0,
+                max_relative = tol(vg, vd, vs)
+            );
+            // V_DS = 0: the Nyquist value 4kT g_ds, where the shot form is far off.
+            let gds = m.eval(vg, 0.2, 0.2).d_vd;
+            assert_relative_eq!(
+                white_channel_noise_psd(&m, vg, 0.2, 0.2),
+                kt4 * gds,
+                epsilon = 0.0,
+                max_relative = tol(vg, 0.2, 0.2)
+            );
+            // Triode: (2/3)(1 + a + a^2)/(1 + a) times 4kT g_ds(0), a = q_r/q_f
+            // (long-channel theory, Klaassen, Prins 1967, from memory).
+            let vd = 0.3;
+            let (i_f, i_r) = m.inversion_coefficients(vg, vd, 0.0);
+            let a = (i_r / i_f).sqrt();
+            let g0 = m.eval(vg, 0.0, 0.0).d_vd;
+            assert_relative_eq!(
+                white_channel_noise_psd(&m, vg, vd, 0.0),
+                kt4 * g0 * (2.0 / 3.0) * (1.0 + a + a * a) / (1.0 + a),
+                epsilon = 0.0,
+                max_relative = tol(vg, vd, 0.0)
+            );
+        }
+    }
+
+    proptest::proptest! {
+        /// Continuous and increasing in V_G (more inversion charge, more noise) across all
+        /// regions: no jump where the limits hand over.
+        #[test]
+        fn all_region_noise_is_smooth(vg in -0.3f64..2.0, vds in 0.0f64..1.5) {
+            let m = nmos(0.02);
+            let s0 = white_channel_noise_psd(&m, vg, vds, 0.0);
+            let s1 = white_channel_noise_psd(&m, vg + 1e-4, vds, 0.0);
+            proptest::prop_assert!(s1 > s0);
+            proptest::prop_assert!(s1 / s0 - 1.0 < 1e-4 / m.ut * 1.01);
+        }
     }
 
     fn tech() -> DeviceTech {
