@@ -155,7 +155,11 @@ mod tests {
         assert_abs_diff_eq!(s.std[0], 1.25f64.sqrt(), epsilon = 1e-15);
         let z = s.transform(x.view()).unwrap();
         assert_abs_diff_eq!(z.column(0).sum(), 0.0, epsilon = 1e-12);
-        assert_abs_diff_eq!(z.column(0).mapv(|v| v * v).sum() / 4.0, 1.0, epsilon = 1e-12);
+        assert_abs_diff_eq!(
+            z.column(0).mapv(|v| v * v).sum() / 4.0,
+            1.0,
+            epsilon = 1e-12
+        );
         assert!(z.column(1).iter().all(|&v| v == 0.0));
     }
 }

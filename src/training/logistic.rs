@@ -108,7 +108,12 @@ fn diagnostics(
     loss += 0.5 * alpha * params.iter().map(|v| v * v).sum::<f64>();
     let gw = z.t().dot(&diff) + &(params * alpha);
     let gb = diff.sum_axis(Axis(0));
-    let gradient_norm = gw.iter().chain(gb.iter()).map(|v| v * v).sum::<f64>().sqrt();
+    let gradient_norm = gw
+        .iter()
+        .chain(gb.iter())
+        .map(|v| v * v)
+        .sum::<f64>()
+        .sqrt();
     TrainingDiagnostics {
         gradient_norm,
         gradient_tolerance: tol,
@@ -163,7 +168,11 @@ pub(super) fn train_logistic(
     }
     let params = fitted.params().to_owned(); // features x classes
     let intercept = fitted.intercept().to_owned();
-    if params.iter().chain(intercept.iter()).any(|v| !v.is_finite()) {
+    if params
+        .iter()
+        .chain(intercept.iter())
+        .any(|v| !v.is_finite())
+    {
         return Err(TrainingError::NonFiniteWeights);
     }
     let diagnostics = diagnostics(
