@@ -136,3 +136,23 @@ fn bad_arguments_are_errors() {
         .failure()
         .stderr(predicate::str::contains("`l2`"));
 }
+
+#[test]
+fn cross_validation_row_on_request() {
+    // DESIGN.md section 6: wine 0.983 (5-fold stratified CV, scikit-learn 1.9.1); band 0.03.
+    let out = hardmax()
+        .args(["baseline", "--dataset", "wine", "--folds", "5"])
+        .assert()
+        .success()
+        .get_output()
+        .stdout
+        .clone();
+    let s = String::from_utf8(out).unwrap();
+    let cv = value(&s, "cross-validation");
+    assert!((cv - 0.983).abs() <= 0.03, "{s}");
+    hardmax()
+        .args(["baseline", "--dataset", "wine", "--folds", "1"])
+        .assert()
+        .failure()
+        .stderr(predicate::str::contains("cannot make 1 folds"));
+}

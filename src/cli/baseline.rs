@@ -7,7 +7,7 @@ use anyhow::Context;
 use clap::Args;
 
 use crate::data::{load_csv, stratified_split, CsvOptions, Dataset};
-use crate::training::{train_with_references, LogisticOptions};
+use crate::training::{cross_validate, train_with_references, LogisticOptions};
 
 /// The caution every user-facing report carries (DESIGN.md section 8).
 const CAUTION: &str = "hardmax gives architecture-stage estimates; final decisions need the foundry's characterised models and your team's verification flow.";
@@ -43,6 +43,9 @@ pub struct BaselineArgs {
     /// Standardise features while training (folded into the weights afterwards).
     #[arg(long)]
     pub standardize: bool,
+    /// Also report K-fold stratified cross-validation accuracy of the float model (K >= 2).
+    #[arg(long, value_name = "K")]
+    pub folds: Option<usize>,
 }
 
 pub fn run(args: BaselineArgs) -> anyhow::Result<()> {
@@ -115,6 +118,24 @@ pub fn run(args: BaselineArgs) -> anyhow::Result<()> {
         ("ideal argmax", pct(r.ideal_accuracy)),
         ("agreement", pct(r.agreement)),
     ];
+    let mut rows = rows;
+    if let Some(k) = args.folds {
+        let cv = cross_validate(&ds, k, args.seed, &opts)
+            .with_context(|| format!("{k}-fold cross-validation on dataset `{}`", ds.name))?;
+        let folds: Vec<String> = cv
+            .fold_accuracies
+            .iter()
+            .map(|a| format!("{a:.3}"))
+            .collect();
+        rows.push((
+            "cross-validation",
+            format!(
+                "{} mean over {k} stratified folds ({})",
+                pct(cv.mean_accuracy),
+                folds.join(", ")
+            ),
+        ));
+    }
     let width = rows.iter().map(|(k, _)| k.len()).max().unwrap_or(0);
     for (k, v) in rows {
         println!("{k:<width$}  {v}");
