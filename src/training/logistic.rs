@@ -82,7 +82,10 @@ pub(super) fn linfa_predict(
     if z.nrows() == 0 {
         return Ok(Vec::new());
     }
-    Ok(m.predict(&z).to_vec())
+    // Inputs and weights are finite, so linfa's argmax cannot meet a NaN; still, never let a
+    // library panic escape to the user.
+    std::panic::catch_unwind(std::panic::AssertUnwindSafe(|| m.predict(&z).to_vec()))
+        .map_err(|_| TrainingError::Linfa("prediction failed (non-finite scores?)".to_string()))
 }
 
 /// Objective and gradient norm of linfa's multinomial loss at (params, intercept).
@@ -153,12 +156,15 @@ pub(super) fn train_logistic(
 
     let targets = Array1::from(train.y.clone());
     let data = DatasetBase::new(z.view(), targets);
-    let fitted = MultiLogisticRegression::default()
-        .alpha(opts.l2)
-        .max_iterations(opts.max_iterations)
-        .gradient_tolerance(opts.gradient_tolerance)
-        .fit(&data)
-        .map_err(|e| TrainingError::Linfa(e.to_string()))?;
+    let fitted = std::panic::catch_unwind(std::panic::AssertUnwindSafe(|| {
+        MultiLogisticRegression::default()
+            .alpha(opts.l2)
+            .max_iterations(opts.max_iterations)
+            .gradient_tolerance(opts.gradient_tolerance)
+            .fit(&data)
+    }))
+    .map_err(|_| TrainingError::Linfa("the optimiser stopped unexpectedly".to_string()))?
+    .map_err(|e| TrainingError::Linfa(e.to_string()))?;
     // linfa sorts the labels it saw; with every class present they are 0..n_classes.
     let expected: Vec<usize> = (0..train.n_classes()).collect();
     if fitted.classes() != expected.as_slice() {
