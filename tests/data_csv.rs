@@ -44,14 +44,20 @@ fn good_file_with_bom_crlf_quotes_and_ignored_column() {
 fn missing_file_names_the_path() {
     let (e, msg) = err("does_not_exist.csv");
     assert!(matches!(e, DataError::FileNotFound { .. }));
-    assert!(msg.contains("does_not_exist.csv") && msg.contains("does not exist"), "{msg}");
+    assert!(
+        msg.contains("does_not_exist.csv") && msg.contains("does not exist"),
+        "{msg}"
+    );
 }
 
 #[test]
 fn empty_file() {
     let (e, msg) = err("empty.csv");
     assert!(matches!(e, DataError::Empty { .. }));
-    assert!(msg.contains("empty.csv") && msg.contains("header row"), "{msg}");
+    assert!(
+        msg.contains("empty.csv") && msg.contains("header row"),
+        "{msg}"
+    );
 }
 
 #[test]
@@ -78,23 +84,66 @@ fn ragged_row_names_line_and_counts() {
 #[test]
 fn non_numeric_cell_names_line_column_and_value() {
     let (e, msg) = err("non_numeric.csv");
-    assert!(matches!(e, DataError::NonNumeric { line: 3, column: 2, .. }), "{e:?}");
+    assert!(
+        matches!(
+            e,
+            DataError::NonNumeric {
+                line: 3,
+                column: 2,
+                ..
+            }
+        ),
+        "{e:?}"
+    );
     assert!(
         msg.contains("line 3, column 2 (`weight_g`)") && msg.contains("`heavy`"),
         "{msg}"
     );
     let (e, msg) = err("decimal_comma.csv");
-    assert!(matches!(e, DataError::NonNumeric { line: 3, column: 1, .. }), "{e:?}");
-    assert!(msg.contains("`58,5`") && msg.contains("decimal point"), "{msg}");
+    assert!(
+        matches!(
+            e,
+            DataError::NonNumeric {
+                line: 3,
+                column: 1,
+                ..
+            }
+        ),
+        "{e:?}"
+    );
+    assert!(
+        msg.contains("`58,5`") && msg.contains("decimal point"),
+        "{msg}"
+    );
 }
 
 #[test]
 fn nan_and_infinite_values_rejected() {
     let (e, msg) = err("nan.csv");
-    assert!(matches!(e, DataError::NonFinite { line: 3, column: 2, .. }), "{e:?}");
+    assert!(
+        matches!(
+            e,
+            DataError::NonFinite {
+                line: 3,
+                column: 2,
+                ..
+            }
+        ),
+        "{e:?}"
+    );
     assert!(msg.contains("NaN"), "{msg}");
     let (e, _) = err("infinite.csv");
-    assert!(matches!(e, DataError::NonFinite { line: 2, column: 2, .. }), "{e:?}");
+    assert!(
+        matches!(
+            e,
+            DataError::NonFinite {
+                line: 2,
+                column: 2,
+                ..
+            }
+        ),
+        "{e:?}"
+    );
 }
 
 #[test]
@@ -102,7 +151,9 @@ fn missing_label_column_lists_columns_and_option() {
     let (e, msg) = err("no_label.csv");
     assert!(matches!(e, DataError::MissingLabelColumn { .. }));
     assert!(
-        msg.contains("`label`") && msg.contains("width_mm, weight_g, fruit") && msg.contains("--label-column"),
+        msg.contains("`label`")
+            && msg.contains("width_mm, weight_g, fruit")
+            && msg.contains("--label-column"),
         "{msg}"
     );
     let ds = load_csv(
@@ -119,7 +170,17 @@ fn missing_label_column_lists_columns_and_option() {
 #[test]
 fn duplicate_column_names() {
     let (e, msg) = err("duplicate_columns.csv");
-    assert!(matches!(e, DataError::DuplicateColumn { first: 1, second: 3, .. }), "{e:?}");
+    assert!(
+        matches!(
+            e,
+            DataError::DuplicateColumn {
+                first: 1,
+                second: 3,
+                ..
+            }
+        ),
+        "{e:?}"
+    );
     assert!(msg.contains("`width_mm` appears twice"), "{msg}");
 }
 
@@ -135,20 +196,36 @@ fn unknown_ignore_column() {
     .unwrap_err();
     let msg = e.to_string();
     assert!(matches!(e, DataError::UnknownIgnoreColumn { .. }));
-    assert!(msg.contains("`serial`") && msg.contains("sample_id"), "{msg}");
+    assert!(
+        msg.contains("`serial`") && msg.contains("sample_id"),
+        "{msg}"
+    );
 }
 
 #[test]
 fn single_class() {
     let (e, msg) = err("single_class.csv");
     assert!(matches!(e, DataError::SingleClass { .. }));
-    assert!(msg.contains("`pear`") && msg.contains("two classes"), "{msg}");
+    assert!(
+        msg.contains("`pear`") && msg.contains("two classes"),
+        "{msg}"
+    );
 }
 
 #[test]
 fn empty_label_and_bad_encoding_and_bad_quote() {
     let (e, _) = err("empty_label.csv");
-    assert!(matches!(e, DataError::EmptyLabel { line: 3, column: 3, .. }), "{e:?}");
+    assert!(
+        matches!(
+            e,
+            DataError::EmptyLabel {
+                line: 3,
+                column: 3,
+                ..
+            }
+        ),
+        "{e:?}"
+    );
     let (e, msg) = err("not_utf8.csv");
     assert!(matches!(e, DataError::NotUtf8 { line: 3, .. }), "{e:?}");
     assert!(msg.contains("UTF-8"), "{msg}");
@@ -162,10 +239,14 @@ fn parse_text_without_files() {
     let ds = parse_csv_text("a,label\n1,x\n2,y\n", "inline", &CsvOptions::default()).unwrap();
     assert_eq!(ds.name, "inline");
     assert_eq!(ds.x, array![[1.0], [2.0]]);
-    let e = parse_csv_text("a,label\n1,x\n", "inline", &CsvOptions {
-        label_column: "label".into(),
-        ignore_columns: vec!["a".into()],
-    })
+    let e = parse_csv_text(
+        "a,label\n1,x\n",
+        "inline",
+        &CsvOptions {
+            label_column: "label".into(),
+            ignore_columns: vec!["a".into()],
+        },
+    )
     .unwrap_err();
     assert!(matches!(e, DataError::NoFeatures { .. }));
 }
@@ -190,7 +271,17 @@ fn split_errors() {
     )
     .unwrap();
     let e = stratified_split(&tiny, 0.3, 1).unwrap_err();
-    assert!(matches!(e, DataError::TooFewTrainingSamples { train: 2, classes: 3, .. }), "{e:?}");
+    assert!(
+        matches!(
+            e,
+            DataError::TooFewTrainingSamples {
+                train: 2,
+                classes: 3,
+                ..
+            }
+        ),
+        "{e:?}"
+    );
     assert!(e.to_string().contains("at least one sample per class"));
     // A class absent from the data although named.
     let gap = Dataset::new(

@@ -97,7 +97,10 @@ pub fn parse_csv_text(
     let mut seen: HashMap<&str, usize> = HashMap::new();
     for (i, name) in header.iter().enumerate() {
         if name.is_empty() {
-            return Err(DataError::EmptyColumnName { origin, column: i + 1 });
+            return Err(DataError::EmptyColumnName {
+                origin,
+                column: i + 1,
+            });
         }
         if let Some(&first) = seen.get(name.as_str()) {
             return Err(DataError::DuplicateColumn {
@@ -288,7 +291,14 @@ mod tests {
         let text = "f,label\n1,a\n\n2,b\nx,a\n";
         let e = parse_csv_text(text, "toy", &CsvOptions::default()).unwrap_err();
         assert!(
-            matches!(e, DataError::NonNumeric { line: 5, column: 1, .. }),
+            matches!(
+                e,
+                DataError::NonNumeric {
+                    line: 5,
+                    column: 1,
+                    ..
+                }
+            ),
             "{e:?}"
         );
     }

@@ -57,7 +57,9 @@ pub enum DataError {
         available: String,
     },
 
-    #[error("{origin}: cannot ignore column `{name}`: no such column; the columns are: {available}")]
+    #[error(
+        "{origin}: cannot ignore column `{name}`: no such column; the columns are: {available}"
+    )]
     UnknownIgnoreColumn {
         origin: String,
         name: String,
@@ -96,7 +98,9 @@ pub enum DataError {
         column_name: String,
     },
 
-    #[error("{origin}: every sample has the label `{class}`; a classifier needs at least two classes")]
+    #[error(
+        "{origin}: every sample has the label `{class}`; a classifier needs at least two classes"
+    )]
     SingleClass { origin: String, class: String },
 
     #[error("dataset `{dataset}`: test fraction {value} is outside (0, 1); use e.g. 0.3 for a 70/30 split")]

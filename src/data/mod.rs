@@ -148,7 +148,10 @@ impl Dataset {
                 samples: n,
             });
         }
-        let y = indices.iter().filter_map(|&i| self.y.get(i).copied()).collect();
+        let y = indices
+            .iter()
+            .filter_map(|&i| self.y.get(i).copied())
+            .collect();
         Ok(Dataset {
             name: self.name.clone(),
             feature_names: self.feature_names.clone(),
@@ -185,7 +188,10 @@ mod tests {
     fn unknown_builtin_lists_names() {
         let e = Dataset::builtin("mnist").unwrap_err();
         let msg = e.to_string();
-        assert!(msg.contains("mnist") && msg.contains("iris, wine, digits"), "{msg}");
+        assert!(
+            msg.contains("mnist") && msg.contains("iris, wine, digits"),
+            "{msg}"
+        );
     }
 
     #[test]

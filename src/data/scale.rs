@@ -155,7 +155,34 @@ mod tests {
         assert_abs_diff_eq!(s.std[0], 1.25f64.sqrt(), epsilon = 1e-15);
         let z = s.transform(x.view()).unwrap();
         assert_abs_diff_eq!(z.column(0).sum(), 0.0, epsilon = 1e-12);
-        assert_abs_diff_eq!(z.column(0).mapv(|v| v * v).sum() / 4.0, 1.0, epsilon = 1e-12);
+        assert_abs_diff_eq!(
+            z.column(0).mapv(|v| v * v).sum() / 4.0,
+            1.0,
+            epsilon = 1e-12
+        );
         assert!(z.column(1).iter().all(|&v| v == 0.0));
+    }
+
+    proptest::proptest! {
+        // Invariant of the min-max map (common practice, no source): any input lands in [0, 1];
+        // the training minimum maps to 0 and a non-constant feature's maximum to 1.
+        #[test]
+        fn minmax_output_in_unit_interval(
+            train in proptest::collection::vec(-1e6f64..1e6, 3..30),
+            probe in proptest::collection::vec(-1e7f64..1e7, 3..30),
+        ) {
+            let x = Array2::from_shape_vec((train.len(), 1), train.clone()).unwrap();
+            let s = MinMaxScaler::fit(x.view()).unwrap();
+            let p = Array2::from_shape_vec((probe.len(), 1), probe).unwrap();
+            let u = s.transform(p.view()).unwrap();
+            proptest::prop_assert!(u.iter().all(|&v| (0.0..=1.0).contains(&v)));
+            let t = s.transform(x.view()).unwrap();
+            let lo = t.iter().copied().fold(f64::INFINITY, f64::min);
+            let hi = t.iter().copied().fold(f64::NEG_INFINITY, f64::max);
+            proptest::prop_assert_eq!(lo, 0.0);
+            if s.max[0] > s.min[0] {
+                proptest::prop_assert_eq!(hi, 1.0);
+            }
+        }
     }
 }

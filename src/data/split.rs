@@ -135,13 +135,12 @@ mod tests {
         let (tr3, _) = stratified_split(&iris, 0.3, 2).unwrap();
         assert_ne!(tr.x, tr3.x, "a different seed gives a different split");
         // Every original row lands in exactly one split.
-        let mut rows: Vec<Vec<u64>> = tr
-            .x
-            .rows()
-            .into_iter()
-            .chain(te.x.rows())
-            .map(|r| r.iter().map(|v| v.to_bits()).collect())
-            .collect();
+        let mut rows: Vec<Vec<u64>> =
+            tr.x.rows()
+                .into_iter()
+                .chain(te.x.rows())
+                .map(|r| r.iter().map(|v| v.to_bits()).collect())
+                .collect();
         let mut orig: Vec<Vec<u64>> = iris
             .x
             .rows()

@@ -143,8 +143,11 @@ mod tests {
     // working precision (Ogita, Rump, Oishi 2005, section 1); naive left-to-right gives 0.
     #[test]
     fn scores_are_accurate_under_cancellation() {
-        let c = LinearClassifier::new(array![[1e16, 1.0, -1e16], [0.0, 0.0, 0.0]], array![0.0, 0.5])
-            .unwrap();
+        let c = LinearClassifier::new(
+            array![[1e16, 1.0, -1e16], [0.0, 0.0, 0.0]],
+            array![0.0, 0.5],
+        )
+        .unwrap();
         let s = c.scores(array![1.0, 1.0, 1.0].view()).unwrap();
         assert_eq!(s[0], 1.0);
         assert_eq!(c.predict(array![[1.0, 1.0, 1.0]].view()).unwrap(), [0]);

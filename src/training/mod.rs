@@ -102,7 +102,10 @@ impl FloatModel {
     }
 
     /// The trainer's own predictions (the float baseline) on raw features.
-    pub fn predict_baseline(&self, x_raw: ArrayView2<'_, f64>) -> Result<Vec<usize>, TrainingError> {
+    pub fn predict_baseline(
+        &self,
+        x_raw: ArrayView2<'_, f64>,
+    ) -> Result<Vec<usize>, TrainingError> {
         let u = self.scale(x_raw)?;
         let z = match &self.standardizer {
             Some(s) => s.transform(u.view())?,
@@ -138,11 +141,7 @@ pub fn accuracy(predicted: &[usize], truth: &[usize]) -> f64 {
     if truth.is_empty() {
         return 0.0;
     }
-    let hits = predicted
-        .iter()
-        .zip(truth)
-        .filter(|(p, t)| p == t)
-        .count();
+    let hits = predicted.iter().zip(truth).filter(|(p, t)| p == t).count();
     hits as f64 / truth.len() as f64
 }
 
