@@ -5,6 +5,7 @@ use clap::{Parser, Subcommand};
 
 pub mod baseline;
 pub mod batch;
+pub mod progress;
 pub mod render;
 pub mod resolve;
 pub mod run;

@@ -1,10 +1,40 @@
-//! `hardmax resolve` (placeholder until its issue lands; it reports that it is not available yet).
+//! `hardmax resolve`: check an experiment file and print it with every default filled in.
+
+use std::path::PathBuf;
 
 use clap::Args;
 
-#[derive(Debug, Args)]
-pub struct ResolveArgs {}
+use crate::experiment::config::load;
 
-pub fn run(_args: ResolveArgs) -> anyhow::Result<()> {
-    anyhow::bail!("`hardmax resolve` is not available in this build yet")
+#[derive(Debug, Args)]
+pub struct ResolveArgs {
+    /// Experiment file (TOML).
+    pub file: PathBuf,
+    /// Override a key, as for `hardmax run` (repeatable).
+    #[arg(long = "set", value_name = "KEY=VALUE")]
+    pub set: Vec<String>,
+    /// Also list every sweep point.
+    #[arg(long)]
+    pub points: bool,
+}
+
+pub fn run(args: ResolveArgs) -> anyhow::Result<()> {
+    let r = load(&args.file, &args.set)?;
+    println!(
+        "# resolved experiment `{}` (hardmax {})",
+        r.base.name,
+        env!("CARGO_PKG_VERSION")
+    );
+    println!(
+        "# quantities in SI base units; {} sweep point(s)",
+        r.points.len()
+    );
+    print!("{}", r.to_toml());
+    if args.points {
+        println!();
+        for p in &r.points {
+            println!("# point {}: {}", p.point, r.describe_point(p));
+        }
+    }
+    Ok(())
 }

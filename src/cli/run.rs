@@ -1,10 +1,90 @@
-//! `hardmax run` (placeholder until its issue lands; it reports that it is not available yet).
+//! `hardmax run`: one experiment file -> one results folder.
 
+use std::path::PathBuf;
+
+use anyhow::Context;
 use clap::Args;
 
-#[derive(Debug, Args)]
-pub struct RunArgs {}
+use super::progress::Progress;
+use crate::experiment::config::load;
+use crate::experiment::runner::{run as run_experiment, RunOptions};
 
-pub fn run(_args: RunArgs) -> anyhow::Result<()> {
-    anyhow::bail!("`hardmax run` is not available in this build yet")
+#[derive(Debug, Args)]
+pub struct RunArgs {
+    /// Experiment file (TOML).
+    pub file: PathBuf,
+    /// Results folder (default: results/<experiment name>).
+    #[arg(long, short)]
+    pub out: Option<PathBuf>,
+    /// Override a key of the experiment, e.g. --set population.chips=50 (repeatable).
+    #[arg(long = "set", value_name = "KEY=VALUE")]
+    pub set: Vec<String>,
+    /// Worker threads (default: all cores). Results do not depend on it.
+    #[arg(long)]
+    pub threads: Option<usize>,
+    /// Replace the results of a different experiment found in the output folder.
+    #[arg(long)]
+    pub fresh: bool,
+    /// No progress output.
+    #[arg(long, short)]
+    pub quiet: bool,
+    /// Skip the plots and HTML report.
+    #[arg(long)]
+    pub no_report: bool,
+}
+
+pub fn run(args: RunArgs) -> anyhow::Result<()> {
+    let resolved = load(&args.file, &args.set)?;
+    let out = args
+        .out
+        .clone()
+        .unwrap_or_else(|| PathBuf::from("results").join(&resolved.base.name));
+    let opts = RunOptions {
+        out: out.clone(),
+        threads: args.threads,
+        fresh: args.fresh,
+        no_report: args.no_report,
+        command: std::env::args().collect::<Vec<_>>().join(" "),
+    };
+    let progress = Progress::new(args.quiet, &resolved.base.name);
+    let summary = run_experiment(&resolved, &opts, &progress)
+        .with_context(|| format!("running `{}`", args.file.display()))?;
+    progress.finish();
+    if !args.no_report {
+        super::render::render_folder(&out)
+            .with_context(|| format!("rendering the report of `{}`", out.display()))?;
+    }
+    if !args.quiet {
+        print_summary(&summary);
+        println!("results: {}", out.display());
+        println!("{}", crate::CAUTION);
+    }
+    Ok(())
+}
+
+/// A short table of the points of a run on stdout.
+pub fn print_summary(s: &crate::experiment::runner::RunSummary) {
+    println!(
+        "{:>5}  {:>9}  {:>9}  {:>9}  {:>9}  {:>9}  {:>17}  {:>6}",
+        "point", "ideal", "baseline", "acc mean", "acc p05", "yield", "yield 95% CI", "failed"
+    );
+    for r in &s.records {
+        let m = r.summary();
+        println!(
+            "{:>5}  {:>9.4}  {:>9.4}  {:>9.4}  {:>9.4}  {:>9.3}  [{:>6.3}, {:>6.3}]  {:>6}",
+            r.point,
+            r.ideal_acc,
+            r.baseline_acc,
+            m.acc_mean,
+            m.acc_p05,
+            m.yield_,
+            m.yield_lo,
+            m.yield_hi,
+            m.nonconverged
+        );
+    }
+    println!(
+        "{} points ({} run now, {} resumed) in {:.1} s",
+        s.points_total, s.points_run, s.points_resumed, s.elapsed_s
+    );
 }

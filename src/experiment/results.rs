@@ -246,7 +246,7 @@ pub fn fmt(v: f64) -> String {
     if v.is_nan() {
         String::new()
     } else {
-        format!("{v}")
+        format!("{v:?}")
     }
 }
 

@@ -1,0 +1,220 @@
+//! From a checked experiment (edge types, with units) to the core's design types (plain SI):
+//! the process with overrides, the weight stage, the competition stage, the conditions.
+
+use std::path::Path;
+
+use super::config::{CircuitKind, ElementKind, EncodingKind, Experiment, SigmaKindCfg, SizeCfg};
+use crate::data::{load_csv, CsvOptions, Dataset};
+use crate::device::presets::preset;
+use crate::device::{DrainCoupling, Polarity, Process, Transistor};
+use crate::pipeline::{
+    prepare, ClassifierDesign, CompetitionDesign, InputNoise, PointSetup, Prepared,
+};
+use crate::stages::competition::wta::{WtaBias, WtaDesign};
+use crate::stages::competition::DecisionRule;
+use crate::stages::weights::{
+    Conditions, DriftSpec, ElementDesign, ErrorSpec, InputDesign, LinearElement, OffsetSetting,
+    SigmaKind, SignedEncoding, SubthresholdElement, WeightStageDesign,
+};
+use crate::training::LogisticOptions;
+
+/// Load the dataset of an experiment (relative CSV paths are relative to the experiment file).
+pub fn load_dataset(e: &Experiment, base_dir: &Path) -> Result<Dataset, String> {
+    match (&e.dataset.name, &e.dataset.file) {
+        (Some(name), _) => Dataset::builtin(name).map_err(|x| x.to_string()),
+        (None, Some(file)) => {
+            let path = if file.is_absolute() {
+                file.clone()
+            } else {
+                base_dir.join(file)
+            };
+            let opts = CsvOptions {
+                label_column: e.dataset.label_column.clone(),
+                ignore_columns: e.dataset.ignore_columns.clone(),
+            };
+            load_csv(&path, &opts).map_err(|x| format!("dataset.file: {x}"))
+        }
+        (None, None) => Err("dataset: give `name` or `file`".into()),
+    }
+}
+
+/// Load, split and train: the circuit-independent part of a point.
+pub fn prepare_data(e: &Experiment, base_dir: &Path) -> Result<Prepared, String> {
+    let ds = load_dataset(e, base_dir)?;
+    let trainer = LogisticOptions {
+        l2: e.training.l2,
+        max_iterations: e.training.max_iterations,
+        standardize: e.training.standardize,
+        ..LogisticOptions::default()
+    };
+    prepare(&ds, e.dataset.test_fraction, e.dataset.split_seed, &trainer).map_err(|x| x.to_string())
+}
+
+fn transistor(s: &SizeCfg) -> Transistor {
+    Transistor {
+        polarity: Polarity::Nmos,
+        w: s.w.si(),
+        l: s.l.si(),
+    }
+}
+
+/// The process of an experiment: the preset with every override applied.
+pub fn process(e: &Experiment) -> Result<Process, String> {
+    let mut p = preset(&e.process.preset).map_err(|x| format!("process.preset: {x}"))?;
+    if let Some(v) = e.process.vdd {
+        p.vdd = v.si();
+    }
+    for (cfg, tech) in [
+        (&e.process.nmos, &mut p.nmos),
+        (&e.process.pmos, &mut p.pmos),
+    ] {
+        if let Some(v) = cfg.vt0 {
+            tech.vt0 = v.si();
+        }
+        if let Some(v) = cfg.n {
+            tech.n = v;
+        }
+        if let Some(v) = cfg.mu_cox {
+            tech.mu_cox = v.si();
+        }
+        if let Some(v) = cfg.a_vt {
+            tech.a_vt_pair = v.si();
+        }
+        if let Some(v) = cfg.a_beta {
+            tech.a_beta_pair = v.si();
+        }
+        if let Some(v) = cfg.vt0_tempco {
+            tech.vt0_tempco = v.si();
+        }
+        if let Some(v) = cfg.beta_temp_exponent {
+            tech.beta_temp_exponent = v;
+        }
+        if let Some(v) = cfg.early_voltage_per_length {
+            tech.drain_coupling = DrainCoupling::EarlyVoltagePerLength(v);
+        }
+        if let Some(v) = cfg.kf {
+            tech.kf = v;
+        }
+        tech.a_vt_pair *= e.process.mismatch_scale;
+        tech.a_beta_pair *= e.process.mismatch_scale;
+    }
+    p.validate().map_err(|x| format!("process: {x}"))?;
+    Ok(p)
+}
+
+fn sigma(kind: SigmaKindCfg, sigma: f64) -> ErrorSpec {
+    ErrorSpec {
+        sigma,
+        kind: match kind {
+            SigmaKindCfg::Relative => SigmaKind::Relative,
+            SigmaKindCfg::Absolute => SigmaKind::Absolute,
+        },
+    }
+}
+
+/// The weight stage of an experiment.
+pub fn weight_stage(e: &Experiment) -> WeightStageDesign {
+    let w = &e.weights;
+    let levels = (w.levels >= 2).then_some(w.levels);
+    let w_min = w.w_min.unwrap_or(0.0);
+    let element = match w.element {
+        ElementKind::Linear => ElementDesign::Linear(LinearElement {
+            w_min,
+            w_max: w.w_max,
+            levels,
+            programming_error: sigma(w.programming_error_kind, w.programming_error),
+            read_noise: sigma(w.read_noise_kind, w.read_noise),
+            drift: DriftSpec {
+                nu: w.drift_exponent,
+                nu_sigma: w.drift_exponent_sigma,
+                t0_s: w.drift_reference_time.si(),
+            },
+            stuck_at_min_fraction: w.stuck_at_min,
+            stuck_at_max_fraction: w.stuck_at_max,
+        }),
+        ElementKind::Subthreshold => ElementDesign::Subthreshold(SubthresholdElement {
+            w_min,
+            w_max: w.w_max,
+            levels,
+            programming_error_v: w.programming_error_voltage.si(),
+            device: transistor(&w.device),
+            program_temperature_k: w.program_temperature.si(),
+            verify_compensates_mismatch: w.verify,
+            read_noise_rel: w.read_noise,
+        }),
+    };
+    WeightStageDesign {
+        input: InputDesign {
+            dac_bits: (e.input.dac_bits > 0).then_some(e.input.dac_bits),
+            full_scale_current_a: e.input.full_scale_current.si(),
+            gain_sigma_rel: e.input.gain_mismatch,
+        },
+        element,
+        encoding: match w.encoding {
+            EncodingKind::Shifted => SignedEncoding::Shifted,
+            EncodingKind::Differential => SignedEncoding::Differential {
+                mirror: transistor(&w.mirror),
+            },
+        },
+        offset: match w.offset_current {
+            Some(i) => OffsetSetting::Fixed { current_a: i.si() },
+            None => OffsetSetting::Auto {
+                margin: w.offset_margin,
+            },
+        },
+        offset_sigma_rel: w.offset_mismatch,
+        range_use: w.range_use,
+    }
+}
+
+/// The full design of one point.
+pub fn design(e: &Experiment, n_classes: usize) -> Result<ClassifierDesign, String> {
+    let process = process(e)?;
+    let c = &e.competition;
+    let competition = match c.circuit {
+        CircuitKind::Argmax => CompetitionDesign::Argmax,
+        CircuitKind::CurrentWta | CircuitKind::DiffPair => {
+            let mut w = WtaDesign::new(
+                n_classes,
+                process.clone(),
+                transistor(&c.sink),
+                transistor(&c.output),
+                WtaBias::Ideal {
+                    current: c.bias_current.si(),
+                },
+            );
+            if let Some(v) = c.output_voltage {
+                w.output_voltage = v.si();
+            }
+            if let Some(g) = c.gain {
+                // g = kappa / sigma = 1 / eta for the sink (DESIGN.md section 4).
+                w.drain_coupling = Some(DrainCoupling::Eta(1.0 / g));
+            }
+            w.input_capacitance = c.node_capacitance.si();
+            w.common_capacitance = c.common_capacitance.si();
+            CompetitionDesign::CurrentWta(Box::new(w))
+        }
+    };
+    Ok(ClassifierDesign {
+        process,
+        weights: weight_stage(e),
+        competition,
+        decision: DecisionRule {
+            min_winner_share: c.min_winner_share,
+            max_runner_up_share: c.max_runner_up_share,
+        },
+        input_noise: c.noise.then_some(InputNoise {
+            bandwidth: c.noise_bandwidth.si(),
+        }),
+        conditions: Conditions {
+            temperature_k: e.conditions.temperature.si(),
+            time_since_programming_s: e.conditions.time_since_programming.si(),
+        },
+    })
+}
+
+/// Build a point's setup (weights mapped) from its experiment and prepared classifier.
+pub fn build_point(e: &Experiment, prep: &Prepared) -> Result<PointSetup, String> {
+    let d = design(e, prep.class_names.len())?;
+    PointSetup::new(d, prep).map_err(|x| x.to_string())
+}

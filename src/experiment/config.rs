@@ -1,0 +1,1107 @@
+//! The experiment file: our own TOML schema, with physical quantities in SI (prefixes and units
+//! accepted), defaults for everything but the dataset, and errors that name the key path, the
+//! line, and the closest valid key.
+//!
+//! Loading is a pipeline with no side effects: text -> TOML tree -> command-line overrides ->
+//! typed [`Experiment`] (unknown keys and wrong units rejected) -> semantic checks -> resolved
+//! tree (every default filled in) -> sweep axes and points, each point re-checked. Nothing is
+//! written anywhere before all of this has passed.
+
+use std::path::{Path, PathBuf};
+
+use serde::{Deserialize, Serialize};
+use toml::Value;
+
+use super::quantity::{
+    Capacitance, Current, FractionLength, Frequency, Length, Resistance, Temperature, Time,
+    Transconductance, Voltage, VoltageLength, VoltagePerKelvin, Q,
+};
+use super::sweep::{Axis, PointIndex, SweepError, SweepSpec};
+use super::tree;
+use crate::units::{quantity_from_toml, Dimension};
+
+/// Errors in an experiment file. Every message names the file and the key path (and the line
+/// when the key is in the file), and says what to write instead.
+#[derive(Debug, thiserror::Error)]
+pub enum ConfigError {
+    #[error("cannot read experiment file `{path}`: {source}. Check the path")]
+    Read {
+        path: PathBuf,
+        #[source]
+        source: std::io::Error,
+    },
+    #[error("`{path}` is not valid TOML: {message}")]
+    Syntax { path: PathBuf, message: String },
+    #[error("`{path}`{line}: key `{key}`: {message}{hint}")]
+    Key {
+        path: PathBuf,
+        key: String,
+        line: LineNo,
+        message: String,
+        hint: Hint,
+    },
+    #[error("command-line override `{text}`: {message}. Write it as key.path=value, e.g. competition.bias_current=\"50 nA\"")]
+    Override { text: String, message: String },
+    #[error("`{path}`: sweep: {source}")]
+    Sweep {
+        path: PathBuf,
+        #[source]
+        source: SweepError,
+    },
+    #[error("`{path}`: sweep point {point} ({settings}): {message}")]
+    Point {
+        path: PathBuf,
+        point: usize,
+        settings: String,
+        message: String,
+    },
+}
+
+/// " (line N)" or nothing.
+#[derive(Debug, Clone, Copy, Default)]
+pub struct LineNo(pub Option<usize>);
+impl std::fmt::Display for LineNo {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        match self.0 {
+            Some(n) => write!(f, " (line {n})"),
+            None => Ok(()),
+        }
+    }
+}
+
+/// "; did you mean `x`?" or nothing.
+#[derive(Debug, Clone, Default)]
+pub struct Hint(pub Option<String>);
+impl std::fmt::Display for Hint {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        match &self.0 {
+            Some(s) => write!(f, "; did you mean `{s}`?"),
+            None => Ok(()),
+        }
+    }
+}
+
+// ---------------------------------------------------------------------------------------------
+// Schema
+// ---------------------------------------------------------------------------------------------
+
+fn default_label() -> String {
+    "label".into()
+}
+fn default_test_fraction() -> f64 {
+    0.3
+}
+fn one() -> u64 {
+    1
+}
+
+/// `[dataset]`: a shipped dataset by name, or a CSV file.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct DatasetCfg {
+    /// A shipped dataset: "iris", "wine" or "digits".
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub name: Option<String>,
+    /// A CSV file (relative paths are relative to the experiment file).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub file: Option<PathBuf>,
+    #[serde(default = "default_label")]
+    pub label_column: String,
+    #[serde(default)]
+    pub ignore_columns: Vec<String>,
+    /// Share of samples held out for testing (stratified).
+    #[serde(default = "default_test_fraction")]
+    pub test_fraction: f64,
+    /// Seed of the train/test split.
+    #[serde(default = "one")]
+    pub split_seed: u64,
+}
+
+/// `[training]`: float multinomial logistic regression (linfa-logistic).
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields, default)]
+pub struct TrainingCfg {
+    /// L2 regularisation strength.
+    pub l2: f64,
+    pub max_iterations: u64,
+    /// Train on standardised features (folded back into the [0, 1]-input weights).
+    pub standardize: bool,
+}
+
+impl Default for TrainingCfg {
+    fn default() -> Self {
+        let d = crate::training::LogisticOptions::default();
+        Self {
+            l2: d.l2,
+            max_iterations: d.max_iterations,
+            standardize: d.standardize,
+        }
+    }
+}
+
+/// Overrides of one device type's process parameters (all optional; filled from the preset).
+#[derive(Clone, Debug, Default, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct DeviceCfg {
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub vt0: Option<Q<Voltage>>,
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub n: Option<f64>,
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub mu_cox: Option<Q<Transconductance>>,
+    /// Pelgrom A_VT of a matched pair ("5 mV um").
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub a_vt: Option<Q<VoltageLength>>,
+    /// Pelgrom A_beta of a matched pair ("1 %um").
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub a_beta: Option<Q<FractionLength>>,
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub vt0_tempco: Option<Q<VoltagePerKelvin>>,
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub beta_temp_exponent: Option<f64>,
+    /// Early voltage per channel length in V/m ("10 V/um"); sets the drain coupling.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub early_voltage_per_length: Option<f64>,
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub kf: Option<f64>,
+}
+
+/// `[process]`: a generic preset plus overrides.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields, default)]
+pub struct ProcessCfg {
+    pub preset: String,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub vdd: Option<Q<Voltage>>,
+    /// Multiplies every Pelgrom constant (A_VT, A_beta) of both device types: 0 = no mismatch.
+    pub mismatch_scale: f64,
+    pub nmos: DeviceCfg,
+    pub pmos: DeviceCfg,
+}
+
+impl Default for ProcessCfg {
+    fn default() -> Self {
+        Self {
+            preset: "generic-180nm".into(),
+            vdd: None,
+            mismatch_scale: 1.0,
+            nmos: DeviceCfg::default(),
+            pmos: DeviceCfg::default(),
+        }
+    }
+}
+
+/// A transistor size.
+#[derive(Clone, Copy, Debug, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct SizeCfg {
+    pub w: Q<Length>,
+    pub l: Q<Length>,
+}
+
+impl SizeCfg {
+    pub fn um(w: f64, l: f64) -> Self {
+        Self {
+            w: Q::new(w * 1e-6),
+            l: Q::new(l * 1e-6),
+        }
+    }
+}
+
+/// `[input]`: the input DAC and the input lines.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields, default)]
+pub struct InputCfg {
+    /// DAC resolution in bits; 0 = ideal (no quantisation).
+    pub dac_bits: u32,
+    /// Current of a full-scale input (x = 1) through a unit weight.
+    pub full_scale_current: Q<Current>,
+    /// Relative sigma of each input line's gain (chip draw).
+    pub gain_mismatch: f64,
+}
+
+impl Default for InputCfg {
+    fn default() -> Self {
+        Self {
+            dac_bits: 8,
+            full_scale_current: Q::new(10e-9),
+            gain_mismatch: 0.0,
+        }
+    }
+}
+
+/// Element type of a weight stage.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum ElementKind {
+    /// Linear programmable element (conductance or current weight).
+    Linear,
+    /// Subthreshold element, w = exp(kappa dV / U_T).
+    Subthreshold,
+}
+
+/// Signed-weight encoding.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum EncodingKind {
+    Shifted,
+    Differential,
+}
+
+/// Relative or absolute error sigma.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum SigmaKindCfg {
+    Relative,
+    Absolute,
+}
+
+/// `[weights]`: the trained weight matrix on analog elements.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields, default)]
+pub struct WeightsCfg {
+    pub element: ElementKind,
+    pub encoding: EncodingKind,
+    /// Mirror transistors of the differential encoding.
+    pub mirror: SizeCfg,
+    /// Offset current per output line; absent = automatic (just enough to keep lines positive).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub offset_current: Option<Q<Current>>,
+    /// Margin of the automatic offset (0.1 = 10 % above the worst negative output).
+    pub offset_margin: f64,
+    /// Relative sigma of each line's offset current (chip draw).
+    pub offset_mismatch: f64,
+    /// Fraction of the element range used by the largest weight, (0, 1].
+    pub range_use: f64,
+    /// Element range (weights are dimensionless current gains). Absent: 0..1 for linear,
+    /// 1/16..1 for subthreshold.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub w_min: Option<f64>,
+    pub w_max: f64,
+    /// Programmable levels; 0 = continuous.
+    pub levels: u32,
+    /// Linear element: programming error sigma and its kind.
+    pub programming_error: f64,
+    pub programming_error_kind: SigmaKindCfg,
+    /// Read noise sigma per decision (relative for subthreshold elements).
+    pub read_noise: f64,
+    pub read_noise_kind: SigmaKindCfg,
+    /// Drift exponent nu of w(t) = w0 (t/t0)^-nu, its element-to-element sigma, and t0.
+    pub drift_exponent: f64,
+    pub drift_exponent_sigma: f64,
+    pub drift_reference_time: Q<Time>,
+    /// Fractions of elements stuck at w_min and at w_max.
+    pub stuck_at_min: f64,
+    pub stuck_at_max: f64,
+    /// Subthreshold element: programming error of the stored voltage (sigma).
+    pub programming_error_voltage: Q<Voltage>,
+    /// Subthreshold element transistor.
+    pub device: SizeCfg,
+    /// Temperature at which subthreshold elements are programmed.
+    pub program_temperature: Q<Temperature>,
+    /// Program-and-verify compensates each element's own mismatch at the programming temperature.
+    pub verify: bool,
+}
+
+impl Default for WeightsCfg {
+    fn default() -> Self {
+        Self {
+            element: ElementKind::Linear,
+            encoding: EncodingKind::Shifted,
+            mirror: SizeCfg::um(4.0, 4.0),
+            offset_current: None,
+            offset_margin: 0.1,
+            offset_mismatch: 0.0,
+            range_use: 1.0,
+            w_min: None,
+            w_max: 1.0,
+            levels: 16,
+            programming_error: 0.0,
+            programming_error_kind: SigmaKindCfg::Relative,
+            read_noise: 0.0,
+            read_noise_kind: SigmaKindCfg::Relative,
+            drift_exponent: 0.0,
+            drift_exponent_sigma: 0.0,
+            drift_reference_time: Q::new(1.0),
+            stuck_at_min: 0.0,
+            stuck_at_max: 0.0,
+            programming_error_voltage: Q::new(1e-3),
+            device: SizeCfg::um(2.0, 2.0),
+            program_temperature: Q::new(300.0),
+            verify: false,
+        }
+    }
+}
+
+/// Which competition circuit decides.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum CircuitKind {
+    /// Current-mode WTA (two transistors per cell, shared node).
+    CurrentWta,
+    /// Multi-input differential pair (voltage-mode soft WTA) fed through diode-connected devices.
+    DiffPair,
+    /// Exact argmax of the weight-stage output currents (no competition circuit).
+    Argmax,
+}
+
+/// How the decision is evaluated.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum EvaluationKind {
+    /// Static (DC) operating point; noise as an input-referred draw over `noise_bandwidth`.
+    Dc,
+    /// Transient from a reset state with node capacitances; time and energy per decision.
+    Transient,
+}
+
+/// `[competition]`: the WTA stage.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields, default)]
+pub struct CompetitionCfg {
+    pub circuit: CircuitKind,
+    /// Bias (tail) current of the competition stage.
+    pub bias_current: Q<Current>,
+    /// Current-mode WTA: the input (sink) transistor of each cell.
+    pub sink: SizeCfg,
+    /// Current-mode WTA: the output transistor of each cell; diff pair: the input transistors.
+    pub output: SizeCfg,
+    /// Competition gain kappa/sigma; when given, it sets the drain coupling of the stage's
+    /// transistors (overriding the process's Early voltage).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub gain: Option<f64>,
+    /// Voltage of the output nodes (drains of the output transistors); absent = supply.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub output_voltage: Option<Q<Voltage>>,
+    /// Per-decision shot noise of the input currents over `noise_bandwidth`.
+    pub noise: bool,
+    pub noise_bandwidth: Q<Frequency>,
+    /// A decision is ambiguous when the winner's share is below this ...
+    pub min_winner_share: f64,
+    /// ... or the runner-up's share is above this.
+    pub max_runner_up_share: f64,
+    pub evaluation: EvaluationKind,
+    /// Node capacitance of each input node (transient).
+    pub node_capacitance: Q<Capacitance>,
+    /// Capacitance of the common node (transient).
+    pub common_capacitance: Q<Capacitance>,
+    /// Time at which the decision is read (transient); absent = run until settled.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub read_time: Option<Q<Time>>,
+    /// Diff pair fed through resistors instead of diode-connected devices: the resistance.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub input_resistance: Option<Q<Resistance>>,
+}
+
+impl Default for CompetitionCfg {
+    fn default() -> Self {
+        Self {
+            circuit: CircuitKind::CurrentWta,
+            bias_current: Q::new(100e-9),
+            sink: SizeCfg::um(2.0, 2.0),
+            output: SizeCfg::um(2.0, 2.0),
+            gain: None,
+            output_voltage: None,
+            noise: false,
+            noise_bandwidth: Q::new(10e3),
+            min_winner_share: crate::stages::competition::DecisionRule::default().min_winner_share,
+            max_runner_up_share: crate::stages::competition::DecisionRule::default()
+                .max_runner_up_share,
+            evaluation: EvaluationKind::Dc,
+            node_capacitance: Q::new(100e-15),
+            common_capacitance: Q::new(200e-15),
+            read_time: None,
+            input_resistance: None,
+        }
+    }
+}
+
+/// `[conditions]`: what the chips see when they run.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields, default)]
+pub struct ConditionsCfg {
+    pub temperature: Q<Temperature>,
+    pub time_since_programming: Q<Time>,
+}
+
+impl Default for ConditionsCfg {
+    fn default() -> Self {
+        Self {
+            temperature: Q::new(300.0),
+            time_since_programming: Q::new(0.0),
+        }
+    }
+}
+
+/// `[population]`: Monte Carlo chips.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields, default)]
+pub struct PopulationCfg {
+    pub chips: u64,
+    pub seed: u64,
+}
+
+impl Default for PopulationCfg {
+    fn default() -> Self {
+        Self {
+            chips: 100,
+            seed: 1,
+        }
+    }
+}
+
+/// `[target]`: the accuracy a chip must reach to count towards yield.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields, default)]
+pub struct TargetCfg {
+    pub accuracy: f64,
+    /// Confidence level of the yield interval (0.95 -> z = 1.96).
+    pub confidence: f64,
+}
+
+impl Default for TargetCfg {
+    fn default() -> Self {
+        Self {
+            accuracy: 0.9,
+            confidence: 0.95,
+        }
+    }
+}
+
+/// A whole experiment file.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct Experiment {
+    /// Name (default: the file name without extension).
+    #[serde(default)]
+    pub name: String,
+    #[serde(default)]
+    pub description: String,
+    pub dataset: DatasetCfg,
+    #[serde(default)]
+    pub training: TrainingCfg,
+    #[serde(default)]
+    pub process: ProcessCfg,
+    #[serde(default)]
+    pub input: InputCfg,
+    #[serde(default)]
+    pub weights: WeightsCfg,
+    #[serde(default)]
+    pub competition: CompetitionCfg,
+    #[serde(default)]
+    pub conditions: ConditionsCfg,
+    #[serde(default)]
+    pub population: PopulationCfg,
+    #[serde(default)]
+    pub target: TargetCfg,
+    #[serde(default)]
+    pub sweep: SweepSpec,
+}
+
+// Unused-import guard for quantity markers kept for schema growth.
+#[allow(dead_code)]
+type _Unused = (Q<Current>,);
+
+// ---------------------------------------------------------------------------------------------
+// Loading
+// ---------------------------------------------------------------------------------------------
+
+/// An experiment after loading: the typed base (no sweep applied), its resolved tree, the sweep
+/// axes and points, and one typed experiment per sweep point.
+#[derive(Clone, Debug)]
+pub struct Resolved {
+    pub file: PathBuf,
+    pub base: Experiment,
+    /// The resolved experiment as TOML (every default filled in, overrides applied).
+    pub tree: Value,
+    pub axes: Vec<Axis>,
+    pub points: Vec<PointIndex>,
+    /// The experiment at each sweep point.
+    pub at_point: Vec<Experiment>,
+}
+
+impl Resolved {
+    /// The resolved experiment as TOML text (what `hardmax resolve` prints and what a results
+    /// folder keeps).
+    pub fn to_toml(&self) -> String {
+        toml::to_string_pretty(&self.tree).unwrap_or_default()
+    }
+
+    /// "path = value unit, ..." of a sweep point, for messages.
+    pub fn describe_point(&self, p: &PointIndex) -> String {
+        describe_point(&self.axes, p)
+    }
+}
+
+fn describe_point(axes: &[Axis], p: &PointIndex) -> String {
+    axes.iter()
+        .zip(&p.value_index)
+        .map(|(a, &i)| {
+            format!(
+                "{} = {}",
+                a.path,
+                crate::units::format_si(a.values[i], &a.unit, 4)
+            )
+        })
+        .collect::<Vec<_>>()
+        .join(", ")
+}
+
+/// Load, override, check and resolve an experiment file.
+pub fn load(file: &Path, overrides: &[String]) -> Result<Resolved, ConfigError> {
+    let text = std::fs::read_to_string(file).map_err(|source| ConfigError::Read {
+        path: file.into(),
+        source,
+    })?;
+    load_str(&text, file, overrides)
+}
+
+/// As [`load`], from text (`file` is used in messages and for relative dataset paths).
+pub fn load_str(text: &str, file: &Path, overrides: &[String]) -> Result<Resolved, ConfigError> {
+    let mut root: Value = toml::from_str(text).map_err(|e| ConfigError::Syntax {
+        path: file.into(),
+        message: e.to_string(),
+    })?;
+    for o in overrides {
+        let (k, v) = o.split_once('=').ok_or_else(|| ConfigError::Override {
+            text: o.clone(),
+            message: "no `=`".into(),
+        })?;
+        tree::set(&mut root, k.trim(), tree::parse_override_value(v)).map_err(|e| {
+            ConfigError::Override {
+                text: o.clone(),
+                message: e.to_string(),
+            }
+        })?;
+    }
+    let mut base = typed(&root, text, file)?;
+    if base.name.is_empty() {
+        base.name = file
+            .file_stem()
+            .map(|s| s.to_string_lossy().into_owned())
+            .unwrap_or_else(|| "experiment".into());
+    }
+    fill_process_defaults(&mut base, text, file)?;
+    check(&base, text, file)?;
+    let resolved_tree = Value::try_from(&base).map_err(|e| ConfigError::Syntax {
+        path: file.into(),
+        message: format!("internal: cannot serialise the resolved experiment: {e}"),
+    })?;
+    let axes = resolve_axes(&base, &resolved_tree, file)?;
+    let points =
+        super::sweep::points(&axes, base.sweep.combine).map_err(|source| ConfigError::Sweep {
+            path: file.into(),
+            source,
+        })?;
+    let mut at_point = Vec::with_capacity(points.len());
+    for p in &points {
+        let mut t = resolved_tree.clone();
+        for (a, &i) in axes.iter().zip(&p.value_index) {
+            // Paths were checked to exist in the resolved tree.
+            let _ = tree::set(&mut t, &a.path, a.toml_value(i));
+        }
+        let point_err = |message: String| ConfigError::Point {
+            path: file.into(),
+            point: p.point,
+            settings: describe_point(&axes, p),
+            message,
+        };
+        let e: Experiment = serde_path_to_error::deserialize(t)
+            .map_err(|e| point_err(format!("`{}`: {}", e.path(), e.inner())))?;
+        check(&e, "", file).map_err(|e| point_err(e.to_string()))?;
+        at_point.push(e);
+    }
+    Ok(Resolved {
+        file: file.into(),
+        base,
+        tree: resolved_tree,
+        axes,
+        points,
+        at_point,
+    })
+}
+
+/// Typed deserialisation with key paths, line numbers and suggestions in errors.
+fn typed(root: &Value, text: &str, file: &Path) -> Result<Experiment, ConfigError> {
+    serde_path_to_error::deserialize::<_, Experiment>(root.clone()).map_err(|e| {
+        let path = e.path().to_string();
+        let inner = e.inner().to_string();
+        let (key, hint) = match unknown_field(&inner) {
+            Some((field, expected)) => {
+                let full = if path == "." || path.is_empty() {
+                    field.clone()
+                } else {
+                    // serde_path_to_error reports the path of the table holding the field.
+                    let parent = path.trim_end_matches(&format!(".{field}"));
+                    if parent == field {
+                        field.clone()
+                    } else {
+                        format!("{parent}.{field}")
+                    }
+                };
+                let hint = tree::closest(&field, expected.iter().map(|s| s.as_str()))
+                    .map(|s| s.to_string());
+                (full, hint)
+            }
+            None => (path.clone(), None),
+        };
+        ConfigError::Key {
+            path: file.into(),
+            line: LineNo(line_of(text, &key)),
+            key,
+            message: inner,
+            hint: Hint(hint),
+        }
+    })
+}
+
+/// Parse serde's "unknown field `x`, expected one of `a`, `b`" into ("x", ["a", "b"]).
+fn unknown_field(msg: &str) -> Option<(String, Vec<String>)> {
+    let rest = msg.strip_prefix("unknown field `")?;
+    let (field, rest) = rest.split_once('`')?;
+    let expected = rest
+        .split('`')
+        .skip(1)
+        .step_by(2)
+        .map(String::from)
+        .collect();
+    Some((field.to_string(), expected))
+}
+
+/// 1-based line of the key at dotted `path` in the original text, if it is written there.
+pub fn line_of(text: &str, path: &str) -> Option<usize> {
+    use toml_edit::{ImDocument, Item};
+    if text.is_empty() {
+        return None;
+    }
+    let doc = ImDocument::parse(text.to_string()).ok()?;
+    let segs = tree::segments(path);
+    let (last, init) = segs.split_last()?;
+    enum Cur<'a> {
+        T(&'a toml_edit::Table),
+        I(&'a toml_edit::InlineTable),
+    }
+    let mut cur = Cur::T(doc.as_table());
+    for s in init {
+        let item = match cur {
+            Cur::T(t) => t.get(s)?,
+            Cur::I(t) => {
+                let v = t.get(s)?;
+                match v {
+                    toml_edit::Value::InlineTable(it) => {
+                        cur = Cur::I(it);
+                        continue;
+                    }
+                    _ => return None,
+                }
+            }
+        };
+        cur = match item {
+            Item::Table(t) => Cur::T(t),
+            Item::Value(toml_edit::Value::InlineTable(t)) => Cur::I(t),
+            Item::ArrayOfTables(_) => return None,
+            _ => return None,
+        };
+    }
+    let span = match cur {
+        Cur::T(t) => t.key(last)?.span()?,
+        Cur::I(t) => t.key(last)?.span()?,
+    };
+    Some(text[..span.start].matches('\n').count() + 1)
+}
+
+/// Fill the process overrides from the preset, so the resolved experiment shows every value.
+fn fill_process_defaults(e: &mut Experiment, text: &str, file: &Path) -> Result<(), ConfigError> {
+    let p = crate::device::presets::preset(&e.process.preset).map_err(|err| ConfigError::Key {
+        path: file.into(),
+        key: "process.preset".into(),
+        line: LineNo(line_of(text, "process.preset")),
+        message: err.to_string(),
+        hint: Hint(
+            tree::closest(
+                &e.process.preset,
+                crate::device::presets::preset_names().iter().copied(),
+            )
+            .map(String::from),
+        ),
+    })?;
+    e.process.vdd.get_or_insert(Q::new(p.vdd));
+    for (cfg, tech) in [
+        (&mut e.process.nmos, &p.nmos),
+        (&mut e.process.pmos, &p.pmos),
+    ] {
+        cfg.vt0.get_or_insert(Q::new(tech.vt0));
+        cfg.n.get_or_insert(tech.n);
+        cfg.mu_cox.get_or_insert(Q::new(tech.mu_cox));
+        cfg.a_vt.get_or_insert(Q::new(tech.a_vt_pair));
+        cfg.a_beta.get_or_insert(Q::new(tech.a_beta_pair));
+        cfg.vt0_tempco.get_or_insert(Q::new(tech.vt0_tempco));
+        cfg.beta_temp_exponent
+            .get_or_insert(tech.beta_temp_exponent);
+        cfg.kf.get_or_insert(tech.kf);
+        if let crate::device::DrainCoupling::EarlyVoltagePerLength(v) = tech.drain_coupling {
+            cfg.early_voltage_per_length.get_or_insert(v);
+        }
+    }
+    if e.weights.w_min.is_none() {
+        e.weights.w_min = Some(match e.weights.element {
+            ElementKind::Linear => 0.0,
+            ElementKind::Subthreshold => 1.0 / 16.0,
+        });
+    }
+    Ok(())
+}
+
+/// Semantic checks that serde cannot express; each names the key.
+fn check(e: &Experiment, text: &str, file: &Path) -> Result<(), ConfigError> {
+    let bad = |key: &str, message: String| ConfigError::Key {
+        path: file.into(),
+        key: key.into(),
+        line: LineNo(line_of(text, key)),
+        message,
+        hint: Hint(None),
+    };
+    match (&e.dataset.name, &e.dataset.file) {
+        (None, None) => {
+            return Err(bad(
+                "dataset",
+                "give `name` (a shipped dataset: iris, wine, digits) or `file` (a CSV file)".into(),
+            ))
+        }
+        (Some(_), Some(_)) => {
+            return Err(bad(
+                "dataset",
+                "give either `name` or `file`, not both".into(),
+            ))
+        }
+        (Some(n), None) if !crate::data::BUILTIN_DATASETS.contains(&n.as_str()) => {
+            return Err(ConfigError::Key {
+                path: file.into(),
+                key: "dataset.name".into(),
+                line: LineNo(line_of(text, "dataset.name")),
+                message: format!(
+                    "no shipped dataset `{n}`; the shipped ones are {}. For your own data use `file = \"path.csv\"`",
+                    crate::data::BUILTIN_DATASETS.join(", ")
+                ),
+                hint: Hint(
+                    tree::closest(n, crate::data::BUILTIN_DATASETS.iter().copied())
+                        .map(String::from),
+                ),
+            })
+        }
+        _ => {}
+    }
+    let frac = |key: &str, v: f64, lo_open: bool, hi_open: bool| {
+        let ok = v.is_finite()
+            && if lo_open { v > 0.0 } else { v >= 0.0 }
+            && if hi_open { v < 1.0 } else { v <= 1.0 };
+        if ok {
+            Ok(())
+        } else {
+            Err(bad(
+                key,
+                format!(
+                    "{v} is out of range: expected a number in {}0, 1{}",
+                    if lo_open { "(" } else { "[" },
+                    if hi_open { ")" } else { "]" }
+                ),
+            ))
+        }
+    };
+    frac("dataset.test_fraction", e.dataset.test_fraction, true, true)?;
+    frac("target.accuracy", e.target.accuracy, false, false)?;
+    frac("target.confidence", e.target.confidence, true, true)?;
+    frac(
+        "competition.min_winner_share",
+        e.competition.min_winner_share,
+        false,
+        false,
+    )?;
+    frac(
+        "competition.max_runner_up_share",
+        e.competition.max_runner_up_share,
+        false,
+        false,
+    )?;
+    frac("weights.stuck_at_min", e.weights.stuck_at_min, false, false)?;
+    frac("weights.stuck_at_max", e.weights.stuck_at_max, false, false)?;
+    frac("weights.range_use", e.weights.range_use, true, false)?;
+    if e.population.chips == 0 {
+        return Err(bad(
+            "population.chips",
+            "0 chips: a population needs at least 1 chip (100 to 1000 is typical)".into(),
+        ));
+    }
+    if e.population.chips > 10_000_000 {
+        return Err(bad(
+            "population.chips",
+            format!(
+                "{} chips is beyond what hardmax runs (at most 10 000 000)",
+                e.population.chips
+            ),
+        ));
+    }
+    if e.input.dac_bits > 24 {
+        return Err(bad(
+            "input.dac_bits",
+            format!("{} bits: use 0 (ideal) to 24", e.input.dac_bits),
+        ));
+    }
+    if e.weights.levels == 1 {
+        return Err(bad(
+            "weights.levels",
+            "1 level cannot hold a weight: use 0 (continuous) or at least 2".into(),
+        ));
+    }
+    if let Some(g) = e.competition.gain {
+        if !(g.is_finite() && g > 0.0) {
+            return Err(bad(
+                "competition.gain",
+                format!(
+                    "{g}: the gain kappa/sigma must be a positive number (hundreds are typical)"
+                ),
+            ));
+        }
+    }
+    for (key, v) in [
+        ("training.l2", e.training.l2),
+        ("process.mismatch_scale", e.process.mismatch_scale),
+        ("input.gain_mismatch", e.input.gain_mismatch),
+        ("weights.programming_error", e.weights.programming_error),
+        ("weights.read_noise", e.weights.read_noise),
+        ("weights.offset_margin", e.weights.offset_margin),
+        ("weights.offset_mismatch", e.weights.offset_mismatch),
+        ("weights.drift_exponent", e.weights.drift_exponent),
+        (
+            "weights.drift_exponent_sigma",
+            e.weights.drift_exponent_sigma,
+        ),
+        (
+            "weights.programming_error_voltage",
+            e.weights.programming_error_voltage.si(),
+        ),
+        (
+            "conditions.time_since_programming",
+            e.conditions.time_since_programming.si(),
+        ),
+    ] {
+        if !(v.is_finite() && v >= 0.0) {
+            return Err(bad(key, format!("{v}: expected a finite value >= 0")));
+        }
+    }
+    for (key, v) in [
+        ("input.full_scale_current", e.input.full_scale_current.si()),
+        ("competition.bias_current", e.competition.bias_current.si()),
+        (
+            "competition.noise_bandwidth",
+            e.competition.noise_bandwidth.si(),
+        ),
+        (
+            "competition.node_capacitance",
+            e.competition.node_capacitance.si(),
+        ),
+        (
+            "competition.common_capacitance",
+            e.competition.common_capacitance.si(),
+        ),
+        ("competition.sink.w", e.competition.sink.w.si()),
+        ("competition.sink.l", e.competition.sink.l.si()),
+        ("competition.output.w", e.competition.output.w.si()),
+        ("competition.output.l", e.competition.output.l.si()),
+        ("weights.device.w", e.weights.device.w.si()),
+        ("weights.device.l", e.weights.device.l.si()),
+        ("weights.mirror.w", e.weights.mirror.w.si()),
+        ("weights.mirror.l", e.weights.mirror.l.si()),
+        (
+            "weights.drift_reference_time",
+            e.weights.drift_reference_time.si(),
+        ),
+    ] {
+        if !(v.is_finite() && v > 0.0) {
+            return Err(bad(key, format!("{v}: expected a finite value > 0")));
+        }
+    }
+    if e.training.max_iterations == 0 {
+        return Err(bad(
+            "training.max_iterations",
+            "0 iterations cannot train; use e.g. 300".into(),
+        ));
+    }
+    Ok(())
+}
+
+/// Resolve the sweep axes against the resolved tree: the path must exist and hold a number
+/// or a quantity; its unit comes from the resolved value.
+fn resolve_axes(e: &Experiment, resolved: &Value, file: &Path) -> Result<Vec<Axis>, ConfigError> {
+    let leaves = tree::leaf_paths(resolved);
+    let mut axes = Vec::new();
+    for spec in &e.sweep.axis {
+        let sweep_err = |message: String| ConfigError::Sweep {
+            path: file.into(),
+            source: SweepError::Value {
+                path: spec.path.clone(),
+                message,
+            },
+        };
+        if spec.path.starts_with("sweep") {
+            return Err(sweep_err("the sweep cannot sweep itself".into()));
+        }
+        let Some(current) = tree::get(resolved, &spec.path) else {
+            let hint = tree::closest(&spec.path, leaves.iter().map(|s| s.as_str()))
+                .map(|s| format!("; did you mean `{s}`?"))
+                .unwrap_or_default();
+            return Err(sweep_err(format!(
+                "no such parameter in the experiment{hint} (`hardmax resolve FILE` lists every key)"
+            )));
+        };
+        let (unit, integer, dims): (String, bool, Vec<Dimension>) = match current {
+            Value::Integer(_) => (String::new(), true, vec![]),
+            Value::Float(_) => (String::new(), false, vec![]),
+            Value::String(s) => match super::quantity::parse_resolved(s) {
+                Some((_, d)) => (
+                    d.base_unit().to_string(),
+                    false,
+                    Dimension::ALL
+                        .iter()
+                        .copied()
+                        .filter(|x| x.base_unit() == d.base_unit())
+                        .collect(),
+                ),
+                None => {
+                    return Err(sweep_err(format!(
+                        "the parameter holds text ({s:?}), not a number; only numeric parameters can be swept"
+                    )))
+                }
+            },
+            other => {
+                return Err(sweep_err(format!(
+                    "the parameter is a {}, not a number; only numeric parameters can be swept",
+                    other.type_str()
+                )))
+            }
+        };
+        let parse = |v: &Value| -> Result<f64, String> {
+            if dims.is_empty() {
+                return match v {
+                    Value::Integer(i) => Ok(*i as f64),
+                    Value::Float(f) => Ok(*f),
+                    other => Err(format!("expected a plain number, got {other}")),
+                };
+            }
+            let mut first_err = None;
+            for d in &dims {
+                match quantity_from_toml(v, *d) {
+                    Ok(x) => return Ok(x),
+                    Err(e) => {
+                        first_err.get_or_insert(e.to_string());
+                    }
+                }
+            }
+            Err(first_err.unwrap_or_default())
+        };
+        let axis = spec
+            .resolve(&unit, integer, &parse)
+            .map_err(|source| ConfigError::Sweep {
+                path: file.into(),
+                source,
+            })?;
+        axes.push(axis);
+    }
+    Ok(axes)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn load_text(t: &str) -> Result<Resolved, ConfigError> {
+        load_str(t, Path::new("exp.toml"), &[])
+    }
+
+    #[test]
+    fn minimal_file_resolves_with_defaults() {
+        let r = load_text("[dataset]\nname = \"iris\"\n").unwrap();
+        assert_eq!(r.base.name, "exp");
+        assert_eq!(r.points.len(), 1);
+        let text = r.to_toml();
+        assert!(text.contains("bias_current"), "{text}");
+        assert!(text.contains("a_vt"), "{text}");
+        // The resolved text loads back to the same experiment.
+        let again = load_text(&text).unwrap();
+        assert_eq!(again.base, r.base);
+    }
+
+    #[test]
+    fn unknown_key_names_path_line_and_suggestion() {
+        let e = load_text("[dataset]\nname = \"iris\"\n[competition]\nbias_curent = \"1 nA\"\n")
+            .unwrap_err()
+            .to_string();
+        assert!(e.contains("competition.bias_curent"), "{e}");
+        assert!(e.contains("line 4"), "{e}");
+        assert!(e.contains("did you mean `bias_current`"), "{e}");
+    }
+
+    #[test]
+    fn wrong_unit_names_key() {
+        let e = load_text("[dataset]\nname = \"iris\"\n[competition]\nbias_current = \"10 nV\"\n")
+            .unwrap_err()
+            .to_string();
+        assert!(e.contains("competition.bias_current"), "{e}");
+        assert!(e.contains("10 nV"), "{e}");
+    }
+
+    #[test]
+    fn sweep_with_units_and_override() {
+        let r = load_str(
+            "[dataset]\nname = \"iris\"\n[[sweep.axis]]\npath = \"competition.bias_current\"\nfrom = \"1 nA\"\nto = \"1 uA\"\npoints = 4\nspacing = \"log\"\n",
+            Path::new("e.toml"),
+            &["population.chips=7".into()],
+        )
+        .unwrap();
+        assert_eq!(r.points.len(), 4);
+        assert_eq!(r.base.population.chips, 7);
+        assert_eq!(r.axes[0].unit, "A");
+        assert!((r.at_point[1].competition.bias_current.si() - 1e-8).abs() < 1e-20);
+    }
+
+    #[test]
+    fn bad_sweeps_are_refused() {
+        let unknown = load_text(
+            "[dataset]\nname = \"iris\"\n[[sweep.axis]]\npath = \"competition.bias_curent\"\nvalues = [1]\n",
+        )
+        .unwrap_err()
+        .to_string();
+        assert!(
+            unknown.contains("did you mean `competition.bias_current`"),
+            "{unknown}"
+        );
+        let text = load_text(
+            "[dataset]\nname = \"iris\"\n[[sweep.axis]]\npath = \"process.preset\"\nvalues = [1]\n",
+        )
+        .unwrap_err()
+        .to_string();
+        assert!(text.contains("only numeric parameters"), "{text}");
+        let empty = load_text(
+            "[dataset]\nname = \"iris\"\n[[sweep.axis]]\npath = \"competition.gain\"\nvalues = []\n",
+        )
+        .unwrap_err()
+        .to_string();
+        // competition.gain is absent by default, so it is unknown in the resolved tree.
+        assert!(empty.contains("competition.gain"), "{empty}");
+    }
+
+    #[test]
+    fn zero_chips_and_missing_dataset() {
+        let e = load_text("[dataset]\nname = \"iris\"\n[population]\nchips = 0\n")
+            .unwrap_err()
+            .to_string();
+        assert!(
+            e.contains("population.chips") && e.contains("line 4"),
+            "{e}"
+        );
+        let e = load_text("[dataset]\nname = \"irsi\"\n")
+            .unwrap_err()
+            .to_string();
+        assert!(e.contains("did you mean `iris`"), "{e}");
+    }
+}

@@ -1,0 +1,390 @@
+//! The Monte Carlo runner: for every sweep point not yet finished, evaluate a population of
+//! chips in parallel (rayon), save the point atomically, and regenerate the tables.
+//!
+//! Reproducibility: each chip's draws come from streams keyed by (seed, point, chip), and chip
+//! results are collected in chip order before any reduction, so the files are byte-identical
+//! whatever the thread count. Interruption: every finished point is on disk; a new run of the
+//! same resolved experiment into the same folder resumes from the first missing point.
+
+use std::path::{Path, PathBuf};
+use std::time::Instant;
+
+use rayon::prelude::*;
+use serde_json::json;
+use sha2::{Digest, Sha256};
+
+use super::build::{build_point, prepare_data};
+use super::config::Resolved;
+use super::results::{ChipRow, PointRecord, ResultsDir, ResultsError, FORMAT_NAME, FORMAT_VERSION};
+use crate::io::write_atomic;
+use crate::pipeline::{evaluate_chip, Prepared};
+
+/// Errors of a run; each says which point or file.
+#[derive(Debug, thiserror::Error)]
+pub enum RunError {
+    #[error(transparent)]
+    Results(#[from] ResultsError),
+    #[error("sweep point {point} ({settings}): {message}")]
+    Point {
+        point: usize,
+        settings: String,
+        message: String,
+    },
+    #[error("cannot start {threads} worker threads: {message}")]
+    Threads { threads: usize, message: String },
+    #[error(
+        "the run was stopped after {done} of {total} points; run the same command again to resume"
+    )]
+    Stopped { done: usize, total: usize },
+}
+
+/// What the runner reports while it works (the CLI draws progress bars from it).
+pub trait Observer: Sync {
+    /// A run starts: `total` points, `done` of them already finished (resume), chips per point.
+    fn start(&self, _total: usize, _done: usize, _chips: u64) {}
+    /// One chip of the current point finished.
+    fn chip_done(&self) {}
+    /// A point finished (its summary line).
+    fn point_done(&self, _point: usize, _line: &str) {}
+    /// Should the run stop after the current point?
+    fn should_stop(&self) -> bool {
+        false
+    }
+}
+
+/// An observer that reports nothing.
+pub struct Silent;
+impl Observer for Silent {}
+
+/// Options of a run.
+#[derive(Clone, Debug)]
+pub struct RunOptions {
+    pub out: PathBuf,
+    /// Worker threads (None = all cores).
+    pub threads: Option<usize>,
+    /// Replace results of another experiment in `out`.
+    pub fresh: bool,
+    /// Skip the plots and HTML report.
+    pub no_report: bool,
+    /// The command line, recorded in the manifest.
+    pub command: String,
+}
+
+/// What a finished (or resumed) run did.
+#[derive(Clone, Debug)]
+pub struct RunSummary {
+    pub out: PathBuf,
+    pub points_total: usize,
+    pub points_run: usize,
+    pub points_resumed: usize,
+    pub elapsed_s: f64,
+    pub records: Vec<PointRecord>,
+}
+
+/// Hash of the resolved experiment and tool version: identifies a results folder's content.
+pub fn experiment_hash(resolved: &Resolved) -> String {
+    let mut h = Sha256::new();
+    h.update(FORMAT_NAME.as_bytes());
+    h.update(env!("CARGO_PKG_VERSION").as_bytes());
+    h.update(resolved.to_toml().as_bytes());
+    h.finalize().iter().map(|b| format!("{b:02x}")).collect()
+}
+
+/// Read the manifest status of a results folder: Some(true) complete, Some(false) partial.
+pub fn folder_status(out: &Path, hash: &str) -> Option<bool> {
+    let m: serde_json::Value =
+        serde_json::from_slice(&std::fs::read(out.join("manifest.json")).ok()?).ok()?;
+    if m.get("experiment_hash")?.as_str()? != hash {
+        return None;
+    }
+    Some(m.get("status")?.as_str()? == "complete")
+}
+
+/// Run (or resume) an experiment into `opts.out`.
+pub fn run(
+    resolved: &Resolved,
+    opts: &RunOptions,
+    observer: &dyn Observer,
+) -> Result<RunSummary, RunError> {
+    let t0 = Instant::now();
+    let started_unix_s = std::time::SystemTime::now()
+        .duration_since(std::time::UNIX_EPOCH)
+        .map(|d| d.as_secs())
+        .unwrap_or(0);
+    let hash = experiment_hash(resolved);
+    let base_dir = resolved
+        .file
+        .parent()
+        .map(Path::to_path_buf)
+        .unwrap_or_default();
+
+    // Everything that can fail on the inputs is checked before the folder is touched: the
+    // dataset and training of every point are prepared first.
+    let mut prepared: Vec<(usize, std::sync::Arc<Prepared>)> = Vec::new();
+    let mut cache: Vec<(String, std::sync::Arc<Prepared>)> = Vec::new();
+    for (k, e) in resolved.at_point.iter().enumerate() {
+        let key = format!(
+            "{}|{}",
+            toml::to_string(&e.dataset).unwrap_or_default(),
+            toml::to_string(&e.training).unwrap_or_default()
+        );
+        let prep = match cache.iter().find(|(ck, _)| *ck == key) {
+            Some((_, p)) => p.clone(),
+            None => {
+                let p = std::sync::Arc::new(prepare_data(e, &base_dir).map_err(|m| {
+                    RunError::Point {
+                        point: k,
+                        settings: resolved.describe_point(&resolved.points[k]),
+                        message: m,
+                    }
+                })?);
+                cache.push((key, p.clone()));
+                p
+            }
+        };
+        prepared.push((k, prep));
+    }
+    let setups = resolved
+        .at_point
+        .iter()
+        .enumerate()
+        .map(|(k, e)| {
+            build_point(e, &prepared[k].1).map_err(|m| RunError::Point {
+                point: k,
+                settings: resolved.describe_point(&resolved.points[k]),
+                message: m,
+            })
+        })
+        .collect::<Result<Vec<_>, _>>()?;
+
+    let (dir, _resumed) = ResultsDir::open(&opts.out, &hash, opts.fresh)?;
+    write_atomic(
+        &opts.out.join("experiment.toml"),
+        resolved.to_toml().as_bytes(),
+    )
+    .map_err(ResultsError::from)?;
+    let mut records: Vec<PointRecord> = dir
+        .load_points()
+        .into_iter()
+        .filter(|r| r.point < resolved.points.len())
+        .collect();
+    let resumed = records.len();
+    let axis_paths: Vec<String> = resolved.axes.iter().map(|a| a.path.clone()).collect();
+    let class_names = prepared
+        .first()
+        .map(|(_, p)| p.class_names.clone())
+        .unwrap_or_default();
+    let base = &resolved.base;
+    let chips = base.population.chips;
+    let seed = base.population.seed;
+    let z = normal_quantile_two_sided(base.target.confidence);
+
+    let pool = {
+        let mut b = rayon::ThreadPoolBuilder::new();
+        if let Some(t) = opts.threads {
+            b = b.num_threads(t.max(1));
+        }
+        b.build().map_err(|e| RunError::Threads {
+            threads: opts.threads.unwrap_or(0),
+            message: e.to_string(),
+        })?
+    };
+    let threads = pool.current_num_threads();
+
+    let manifest = |records: &[PointRecord], complete: bool| {
+        let m = json!({
+            "format": FORMAT_NAME,
+            "format_version": FORMAT_VERSION,
+            "tool_version": env!("CARGO_PKG_VERSION"),
+            "experiment_name": base.name,
+            "description": base.description,
+            "experiment_hash": hash,
+            "seed": seed,
+            "status": if complete { "complete" } else { "partial" },
+            "points_total": resolved.points.len(),
+            "points_done": records.len(),
+            "chips_per_point": chips,
+            "target_accuracy": base.target.accuracy,
+            "threads": threads,
+            "transient": base.competition.evaluation == super::config::EvaluationKind::Transient,
+            "dataset": prepared.first().map(|(_, p)| json!({
+                "name": p.dataset_name,
+                "classes": p.class_names,
+                "features": p.n_features,
+                "train_samples": p.n_train,
+                "test_samples": p.test_y.len(),
+            })),
+            "competition": setups.first().map(|s| s.describe()).unwrap_or_default(),
+            "sweep": {
+                "mode": match base.sweep.combine { super::sweep::Combine::Grid => "grid", super::sweep::Combine::Zip => "zip" },
+                "parameters": resolved.axes.iter().map(|a| json!({
+                    "path": a.path,
+                    "unit": a.unit,
+                    "scale": match a.spacing { super::sweep::Spacing::Log => "log", super::sweep::Spacing::Linear => "linear" },
+                    "values": a.values,
+                })).collect::<Vec<_>>(),
+            },
+            "command": opts.command,
+            "host": {
+                "os": std::env::consts::OS,
+                "arch": std::env::consts::ARCH,
+                "cpus": std::thread::available_parallelism().map(|n| n.get()).unwrap_or(1),
+                "hostname": hostname(),
+            },
+            "started_unix_s": started_unix_s,
+            "elapsed_s": t0.elapsed().as_secs_f64(),
+        });
+        let bytes = serde_json::to_vec_pretty(&m).unwrap_or_default();
+        write_atomic(&opts.out.join("manifest.json"), &bytes)
+    };
+    manifest(&records, records.len() == resolved.points.len()).map_err(ResultsError::from)?;
+    observer.start(resolved.points.len(), resumed, chips);
+
+    let mut ran = 0;
+    for p in &resolved.points {
+        if records.iter().any(|r| r.point == p.point) {
+            continue;
+        }
+        if observer.should_stop() {
+            return Err(RunError::Stopped {
+                done: records.len(),
+                total: resolved.points.len(),
+            });
+        }
+        let tp = Instant::now();
+        let prep = &prepared[p.point].1;
+        let setup = &setups[p.point];
+        let outcomes = pool.install(|| {
+            (0..chips)
+                .into_par_iter()
+                .map(|c| {
+                    let o = evaluate_chip(setup, prep, seed, p.point as u64, c);
+                    observer.chip_done();
+                    o
+                })
+                .collect::<Vec<_>>()
+        });
+        let n_classes = prep.class_names.len();
+        let mut confusion = vec![vec![0u64; n_classes + 2]; n_classes];
+        let mut rows = Vec::with_capacity(outcomes.len());
+        for o in outcomes {
+            for (t, row) in o.confusion.iter().enumerate() {
+                for (j, &c) in row.iter().enumerate() {
+                    confusion[t][j] += c;
+                }
+            }
+            rows.push(ChipRow {
+                chip: o.chip,
+                accuracy: o.accuracy(),
+                agreement: o.agreement(),
+                ambiguous: o.ambiguous,
+                nonconverged: o.nonconverged,
+                samples: o.samples,
+                decision_time_mean_s: (o.timed > 0).then(|| o.decision_time_sum / o.timed as f64),
+                energy_mean_j: (o.timed > 0).then(|| o.energy_sum / o.timed as f64),
+            });
+        }
+        let params = resolved
+            .axes
+            .iter()
+            .zip(&p.value_index)
+            .map(|(a, &i)| a.values[i])
+            .collect();
+        let rec = PointRecord {
+            point: p.point,
+            params,
+            chips: rows,
+            confusion,
+            ideal_acc: prep.ideal_acc,
+            baseline_acc: prep.baseline_acc,
+            target: resolved.at_point[p.point].target.accuracy,
+            z,
+            elapsed_s: 0.0,
+        };
+        dir.save_point(&rec)?;
+        let s = rec.summary();
+        records.push(rec);
+        records.sort_by_key(|r| r.point);
+        dir.write_tables(&records, &axis_paths, &class_names)?;
+        manifest(&records, records.len() == resolved.points.len()).map_err(ResultsError::from)?;
+        ran += 1;
+        observer.point_done(
+            p.point,
+            &format!(
+                "point {}/{} [{}] accuracy mean {:.4} (p05 {:.4}), yield {:.3} [{:.3}, {:.3}], {} non-converged, {:.1} s",
+                p.point + 1,
+                resolved.points.len(),
+                resolved.describe_point(p),
+                s.acc_mean,
+                s.acc_p05,
+                s.yield_,
+                s.yield_lo,
+                s.yield_hi,
+                s.nonconverged,
+                tp.elapsed().as_secs_f64()
+            ),
+        );
+    }
+    // Tables also exist when every point was resumed.
+    dir.write_tables(&records, &axis_paths, &class_names)?;
+    manifest(&records, true).map_err(ResultsError::from)?;
+    Ok(RunSummary {
+        out: opts.out.clone(),
+        points_total: resolved.points.len(),
+        points_run: ran,
+        points_resumed: resumed,
+        elapsed_s: t0.elapsed().as_secs_f64(),
+        records,
+    })
+}
+
+fn hostname() -> String {
+    std::fs::read_to_string("/etc/hostname")
+        .map(|s| s.trim().to_string())
+        .unwrap_or_default()
+}
+
+/// Two-sided normal quantile for a confidence level (0.95 -> 1.959964), by bisection on the
+/// complementary error function (Abramowitz & Stegun 7.1.26 rational approximation of erf,
+/// |error| < 1.5e-7, is enough for interval widths).
+pub fn normal_quantile_two_sided(confidence: f64) -> f64 {
+    fn erf(x: f64) -> f64 {
+        let t = 1.0 / (1.0 + 0.327_591_1 * x.abs());
+        let y = 1.0
+            - (((((1.061_405_429 * t - 1.453_152_027) * t) + 1.421_413_741) * t - 0.284_496_736)
+                * t
+                + 0.254_829_592)
+                * t
+                * (-x * x).exp();
+        if x >= 0.0 {
+            y
+        } else {
+            -y
+        }
+    }
+    let target = confidence.clamp(1e-9, 1.0 - 1e-12);
+    let (mut lo, mut hi) = (0.0f64, 10.0f64);
+    for _ in 0..100 {
+        let mid = 0.5 * (lo + hi);
+        if erf(mid / std::f64::consts::SQRT_2) < target {
+            lo = mid;
+        } else {
+            hi = mid;
+        }
+    }
+    0.5 * (lo + hi)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// Standard normal two-sided quantiles (Abramowitz & Stegun, Table 26.1): 95 % -> 1.959964,
+    /// 99 % -> 2.575829, 90 % -> 1.644854.
+    #[test]
+    fn normal_quantiles() {
+        assert!((normal_quantile_two_sided(0.95) - 1.959964).abs() < 1e-5);
+        assert!((normal_quantile_two_sided(0.99) - 2.575829).abs() < 1e-5);
+        assert!((normal_quantile_two_sided(0.90) - 1.644854).abs() < 1e-5);
+    }
+}
