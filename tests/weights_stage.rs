@@ -541,7 +541,7 @@ fn read_noise_only_when_enabled_and_with_the_right_variance() {
     let mut clean = [0.0; 2];
     e.forward_noiseless(&x, &mut clean).unwrap();
     let n = 20000;
-    let mut dev = vec![Vec::with_capacity(n); 2];
+    let mut dev: Vec<Vec<f64>> = (0..2).map(|_| Vec::with_capacity(n)).collect();
     for _ in 0..n {
         e.forward(&x, &mut out, &mut r).unwrap();
         for j in 0..2 {

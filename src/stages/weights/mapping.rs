@@ -30,22 +30,17 @@ use super::input::InputDesign;
 use crate::device::{Polarity, Transistor};
 
 /// How signed weights are placed on non-negative elements.
-#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+#[derive(Clone, Debug, Default, PartialEq, Serialize, Deserialize)]
 #[serde(rename_all = "snake_case")]
 pub enum SignedEncoding {
     /// Per input column, subtract the column's smallest weight (common mode to every class).
+    #[default]
     Shifted,
     /// Two elements per weight, subtracted by a current mirror per output line.
     Differential {
         /// Size of each mirror transistor (both devices of the pair have this size).
         mirror: Transistor,
     },
-}
-
-impl Default for SignedEncoding {
-    fn default() -> Self {
-        SignedEncoding::Shifted
-    }
 }
 
 /// Offset (common-mode) current added to every output line.
