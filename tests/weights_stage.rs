@@ -688,3 +688,71 @@ fn design_round_trips() {
     let t = toml::to_string(&c).unwrap();
     assert_eq!(toml::from_str::<ChainDesign>(&t).unwrap(), c);
 }
+
+/// Mirror mismatch enters the effective matrix as I_u (w+ - m_j w-) with m_j the line's mirror
+/// gain (current-mirror subtraction, DESIGN.md section 5); with Pelgrom draws the gains spread
+/// around 1 by about sqrt(2) sigma_device (two devices) in weak inversion (Pelgrom 1989).
+#[test]
+fn differential_mirror_mismatch_enters_as_gain() {
+    let p = process(5e-9, 0.0);
+    let mut d = design(ElementDesign::Linear(LinearElement {
+        w_min: 0.05,
+        ..linear(None)
+    }));
+    let small = Transistor {
+        polarity: Polarity::Nmos,
+        w: 1e-6,
+        l: 1e-6,
+    };
+    d.encoding = SignedEncoding::Differential { mirror: small };
+    let classes = 400;
+    let mut r = stream(2, &[domain::DESIGN]);
+    let w = Array2::from_shape_simple_fn((classes, 3), || r.gen_range(-1.0..1.0));
+    let b = Array1::zeros(classes);
+    let m = d.map(w.view(), b.view()).unwrap();
+    let chip = m.sample_chip(&p, &mut stream(21, &[domain::CHIP, 0, 0, 0]));
+    let c = at(300.0, 1.0);
+    let e = chip.effective(&c).unwrap();
+    let (plus, minus) = (m.targets_plus(), m.targets_minus().unwrap());
+    let mut logs = Vec::new();
+    for j in 0..classes {
+        let g = chip.mirror_gain(j, &c).unwrap();
+        logs.push(g.ln());
+        for i in 0..3 {
+            let want = 1e-9 * (plus[(j, i)] - g * minus[(j, i)]);
+            assert_relative_eq!(
+                e.matrix()[i * classes + j],
+                want,
+                epsilon = 1e-24,
+                max_relative = 1e-9
+            );
+        }
+    }
+    // Representative currents are ~1 nA on a 1 µm^2 device (I_S ~ 0.5 µA): weak inversion, so
+    // ln m = -kappa (dVT_out - dVT_in)/U_T, sd = kappa sqrt(2) A_VT/sqrt(2WL) / U_T.
+    let want = (1.0 / 1.3) * 2f64.sqrt() * 5e-9 / (2.0f64 * 1e-12).sqrt() / thermal_voltage(300.0);
+    let (_, s) = sd(&logs);
+    let tol = 4.0 * want / (2.0 * classes as f64).sqrt() + 0.01 * want;
+    assert!((s - want).abs() < tol, "mirror ln-gain sd {s} vs {want}");
+}
+
+/// Input-line DAC gain errors: sample sd of (gain - 1) matches gain_sigma_rel within 4 standard
+/// errors (normal-theory standard error of a standard deviation).
+#[test]
+fn dac_gain_mismatch_spread() {
+    let p = process(0.0, 0.0);
+    let mut d = design(ElementDesign::Linear(linear(None)));
+    d.input.gain_sigma_rel = 0.02;
+    let f = 3000;
+    let w = Array2::from_elem((2, f), 0.5);
+    let m = d.map(w.view(), Array1::zeros(2).view()).unwrap();
+    let chip = m.sample_chip(&p, &mut stream(22, &[domain::CHIP, 0, 0, 0]));
+    let e: Vec<f64> = chip.line_gain().iter().map(|g| g - 1.0).collect();
+    assert_eq!(e.len(), f + 1);
+    let (mean, s) = sd(&e);
+    assert!(
+        (s - 0.02).abs() < 4.0 * 0.02 / (2.0 * e.len() as f64).sqrt(),
+        "sd {s}"
+    );
+    assert!(mean.abs() < 4.0 * 0.02 / (e.len() as f64).sqrt());
+}

@@ -96,6 +96,9 @@ impl DriftSpec {
 }
 
 /// A linear programmable element (conductance or current-weight).
+///
+/// No temperature dependence is modelled for this element (its weight is a programmed ratio);
+/// time since programming acts through [`DriftSpec`].
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
 #[serde(deny_unknown_fields)]
 pub struct LinearElement {
@@ -141,7 +144,8 @@ impl Default for LinearElement {
 /// reference (they are matched); the stored dV does not, hence w(T) = w(T0)^(T0/T). The
 /// reference device is shared by an input line, so its own deviation is a line gain error
 /// (modelled by [`super::InputDesign::gain_sigma_rel`]); each element's own transistor carries
-/// its Pelgrom draw: w = (1 + dbeta) exp(kappa (dV - dV_T0) / U_T).
+/// its Pelgrom draw: w = (1 + dbeta) exp(kappa (dV - dV_T0) / U_T). Charge loss over time is
+/// not modelled (time since programming does not act on this element).
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
 #[serde(deny_unknown_fields)]
 pub struct SubthresholdElement {
