@@ -4,7 +4,8 @@
 //! `x -> stage 0 -> hidden 0 -> stage 1 -> ... -> stage n-1 -> output currents`. A hidden
 //! nonlinearity turns the previous stage's output currents into shares in [0, 1], which the next
 //! stage takes as its inputs (a current hand-off: share times the next stage's full-scale
-//! current).
+//! current). Hidden-fed stages normally use an ideal input DAC (`dac_bits: None`): the hand-off
+//! is analog; a set `dac_bits` quantises the shares like any input.
 
 use ndarray::{Array1, Array2, ArrayView1, ArrayView2};
 use rand::Rng;

@@ -181,3 +181,34 @@ impl EffectiveStage {
         best.map(|(j, _)| j)
     }
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn argmax_first_on_ties_and_none_on_nan() {
+        assert_eq!(EffectiveStage::argmax(&[1.0, 3.0, 3.0, 2.0]), Some(1));
+        assert_eq!(EffectiveStage::argmax(&[]), None);
+        assert_eq!(EffectiveStage::argmax(&[1.0, f64::NAN]), None);
+    }
+
+    /// Hand-computed 2 x 2 product: out = offset + M^T q(x), clamped at zero.
+    #[test]
+    fn forward_matches_hand_computation() {
+        let e = EffectiveStage::new(
+            2,
+            2,
+            Quantiser::new(None),
+            vec![1.0, -2.0, 0.5, 0.25],
+            vec![0.1, 0.2],
+            None,
+            vec![0.0; 2],
+            true,
+        );
+        let mut out = [0.0; 2];
+        e.forward_noiseless(&[1.0, 0.4], &mut out).unwrap();
+        assert!((out[0] - (0.1 + 1.0 + 0.2)).abs() < 1e-15);
+        assert_eq!(out[1], 0.0); // 0.2 - 2 + 0.1 < 0 -> clamped
+    }
+}

@@ -96,6 +96,9 @@ impl DriftSpec {
 }
 
 /// A linear programmable element (conductance or current-weight).
+///
+/// No temperature dependence is modelled for this element (its weight is a programmed ratio);
+/// time since programming acts through [`DriftSpec`].
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
 #[serde(deny_unknown_fields)]
 pub struct LinearElement {
@@ -141,7 +144,8 @@ impl Default for LinearElement {
 /// reference (they are matched); the stored dV does not, hence w(T) = w(T0)^(T0/T). The
 /// reference device is shared by an input line, so its own deviation is a line gain error
 /// (modelled by [`super::InputDesign::gain_sigma_rel`]); each element's own transistor carries
-/// its Pelgrom draw: w = (1 + dbeta) exp(kappa (dV - dV_T0) / U_T).
+/// its Pelgrom draw: w = (1 + dbeta) exp(kappa (dV - dV_T0) / U_T). Charge loss over time is
+/// not modelled (time since programming does not act on this element).
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
 #[serde(deny_unknown_fields)]
 pub struct SubthresholdElement {
@@ -495,5 +499,59 @@ impl ElementDesign {
             ElementDesign::Linear(e) => (e.w_min, e.w_max),
             ElementDesign::Subthreshold(e) => (e.w_min, e.w_max),
         }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// Rounding to the nearest of L evenly spaced levels (uniform quantiser; B. Widrow,
+    /// I. Kollár, "Quantization Noise", 2008): error at most half a step, levels hit exactly.
+    #[test]
+    fn level_quantiser() {
+        let step = 1.0 / 3.0;
+        for k in 0..=300 {
+            let t = k as f64 / 300.0;
+            let q = quantise_level(t, 0.0, 1.0, Some(4));
+            assert!((q - t).abs() <= 0.5 * step + 1e-15);
+            let code = q / step;
+            assert!((code - code.round()).abs() < 1e-12);
+        }
+        assert_eq!(quantise_level(0.37, 0.0, 1.0, None), 0.37);
+        assert_eq!(quantise_level(1.5, 0.2, 1.0, Some(2)), 1.0);
+    }
+
+    /// Drift factor (t/t0)^(-nu) (power law, common practice), 1 before t0.
+    #[test]
+    fn drift_factor() {
+        assert_eq!(DriftSpec::factor(1.0, 0.1, 0.5), 1.0);
+        assert!((DriftSpec::factor(1.0, 0.1, 10.0) - 10f64.powf(-0.1)).abs() < 1e-15);
+    }
+
+    #[test]
+    fn validation_names_parameters() {
+        let e = LinearElement {
+            stuck_at_min_fraction: 0.7,
+            stuck_at_max_fraction: 0.6,
+            ..LinearElement::default()
+        };
+        let m = e.validate("element.linear").unwrap_err().to_string();
+        assert!(
+            m.contains("stuck_at_min_fraction + stuck_at_max_fraction"),
+            "{m}"
+        );
+        let e = LinearElement {
+            drift: DriftSpec {
+                t0_s: 0.0,
+                ..DriftSpec::NONE
+            },
+            ..LinearElement::default()
+        };
+        assert!(e
+            .validate("x")
+            .unwrap_err()
+            .to_string()
+            .contains("x.drift.t0_s"));
     }
 }

@@ -81,6 +81,8 @@ impl InputDesign {
 pub struct Quantiser {
     /// 2^B - 1, or 0 for an ideal DAC.
     steps: f64,
+    /// 1 / steps (0 for the ideal DAC).
+    lsb: f64,
 }
 
 impl Quantiser {
@@ -90,7 +92,8 @@ impl Quantiser {
             Some(b) if (1..=MAX_DAC_BITS).contains(&b) => ((1u64 << b) - 1) as f64,
             _ => 0.0,
         };
-        Self { steps }
+        let lsb = if steps > 0.0 { 1.0 / steps } else { 0.0 };
+        Self { steps, lsb }
     }
 
     /// Is this the ideal (pass-through) DAC?
@@ -100,11 +103,7 @@ impl Quantiser {
 
     /// The LSB in units of full scale (0 for the ideal DAC).
     pub fn lsb(&self) -> f64 {
-        if self.steps == 0.0 {
-            0.0
-        } else {
-            1.0 / self.steps
-        }
+        self.lsb
     }
 
     /// Clip `x` to [0, 1] and round it to the nearest code. NaN is not handled here (callers
@@ -115,7 +114,10 @@ impl Quantiser {
         if self.steps == 0.0 {
             c
         } else {
-            (c * self.steps).round() / self.steps
+            // c * steps is in [0, 2^24 - 1]: adding 0.5 and truncating is round-half-up, the
+            // same as `round()` for non-negative values, and compiles to one conversion
+            // instead of a library call on baseline x86-64.
+            ((c * self.steps + 0.5) as u32) as f64 * self.lsb
         }
     }
 }

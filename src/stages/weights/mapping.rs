@@ -43,7 +43,6 @@ pub enum SignedEncoding {
     },
 }
 
-
 /// Offset (common-mode) current added to every output line.
 #[derive(Clone, Copy, Debug, PartialEq, Serialize, Deserialize)]
 #[serde(rename_all = "snake_case")]

@@ -43,12 +43,9 @@ impl MappedStage {
                 1.0 + d.offset_sigma_rel * z
             })
             .collect();
-        let plus = ElementArrayChip::program(
-            &d.element,
-            process,
-            self.plus.as_slice().unwrap_or(&[]),
-            rng,
-        );
+        // Row-major copies (whatever the arrays' memory layout): element k = j * lines + i.
+        let flat_plus: Vec<f64> = self.plus.iter().copied().collect();
+        let plus = ElementArrayChip::program(&d.element, process, &flat_plus, rng);
         let minus = self.minus.as_ref().map(|m| {
             let flat: Vec<f64> = m.iter().copied().collect();
             ElementArrayChip::program(&d.element, process, &flat, rng)
