@@ -386,3 +386,34 @@ proptest! {
         prop_assert!(max_kcl(&c, &x, &out.unwrap()) < 1e-8);
     }
 }
+
+/// The bracketing solve (nested monotone scalar solves) and the arrowhead Newton solve find the
+/// same operating point: two independent algorithms on the same KCL equations.
+#[test]
+fn bracketing_fallback_agrees_with_newton() {
+    let mut rng = hardmax::rng::stream(5, &[hardmax::rng::domain::CHIP]);
+    let chip = gaussian_chip(wide_range_design(6), 3e-3, 0.01, &mut rng);
+    let newton = circuit(&chip);
+    let mut bracket = newton.clone();
+    bracket.max_newton = 0;
+    for x in [
+        vec![1e-9, 2e-9, 0.0, 1.5e-9, 1e-12, 1e-6],
+        vec![1e-15, 1e-3, 1e-9, 1e-9, 0.0, 1e-3],
+        vec![3e-9; 6],
+    ] {
+        let a = solve(&newton, &x);
+        let b = solve(&bracket, &x);
+        assert_eq!(
+            b.info.method,
+            hardmax::stages::competition::SolveMethod::Bracketing
+        );
+        for k in 0..7 {
+            let (va, vb) = (a.node_voltages[k], b.node_voltages[k]);
+            assert!(
+                (va - vb).abs() <= 1e-9 + 1e-6 * va.abs(),
+                "{k}: {va} vs {vb}"
+            );
+        }
+        assert!(max_kcl(&bracket, &x, &b) < 1e-8);
+    }
+}

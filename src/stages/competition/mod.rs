@@ -14,7 +14,9 @@
 //! Numerical core: no I/O, no printing.
 
 pub mod decision;
+pub mod diffpair;
 pub mod mos;
+pub mod noise;
 pub mod wta;
 
 use std::fmt;
@@ -22,6 +24,8 @@ use std::fmt;
 use thiserror::Error;
 
 pub use decision::{Decision, DecisionRule};
+pub use diffpair::{DiffPairChip, DiffPairCircuit, DiffPairDesign, DiffPairInput, TailSource};
+pub use noise::{InputShotNoise, NoiseBandwidth};
 pub use wta::{WtaBias, WtaChip, WtaCircuit, WtaDesign};
 
 /// Which algorithm produced a solution.
