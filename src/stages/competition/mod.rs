@@ -1,1 +1,310 @@
 //! Competition stages: current-mode WTA, multi-input differential pair, decisions.
+//!
+//! Every stage follows the design / chip / conditions split of the developers' guide:
+//! a `*Design` holds the nominal parameters, a `*Chip` one sampled instance (a
+//! [`MosMismatch`](crate::device::MosMismatch) per transistor), and `*Chip::at(temperature)`
+//! gives the circuit ready to solve (one folded EKV device per transistor).
+//!
+//! Solving ([`CompetitionStage::solve`]) takes one input per class line and fills a
+//! caller-owned [`StageSolution`] using a caller-owned [`Workspace`]; both are reused across
+//! decisions, so the hot path does not allocate. A solve that does not converge, or whose
+//! operating point the supply cannot carry, returns a [`CompetitionError`] saying how far it got:
+//! never a silent answer.
+//!
+//! Numerical core: no I/O, no printing.
+
+pub mod decision;
+pub mod diffpair;
+pub mod mos;
+pub mod noise;
+pub mod wta;
+
+use std::fmt;
+
+use thiserror::Error;
+
+pub use decision::{Decision, DecisionRule};
+pub use diffpair::{DiffPairChip, DiffPairCircuit, DiffPairDesign, DiffPairInput, TailSource};
+pub use noise::{InputShotNoise, NoiseBandwidth};
+pub use wta::{WtaBias, WtaChip, WtaCircuit, WtaDesign};
+
+/// Which algorithm produced a solution.
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq)]
+pub enum SolveMethod {
+    /// Nothing solved yet.
+    #[default]
+    None,
+    /// Damped Newton on the full node set (arrowhead Jacobian for the WTA).
+    Newton,
+    /// Monotone bracketing solve (nested scalar solves).
+    Bracketing,
+}
+
+/// How a solve went.
+#[derive(Clone, Copy, Debug, Default, PartialEq)]
+pub struct SolveInfo {
+    /// Iterations of the method that produced the answer (Newton steps, or outer bracketing
+    /// evaluations); when the fallback ran, the Newton steps spent before it are included.
+    pub iterations: usize,
+    /// Largest relative KCL residual at the returned point, |sum of currents| / (current scale
+    /// of that node) over every node.
+    pub residual: f64,
+    /// True when the returned point meets the tolerance (always true on `Ok`).
+    pub converged: bool,
+    /// The algorithm that produced the answer.
+    pub method: SolveMethod,
+}
+
+/// The result of one DC solve, owned by the caller and reused.
+#[derive(Clone, Debug, Default, PartialEq)]
+pub struct StageSolution {
+    /// Output current of every class line, A.
+    pub outputs: Vec<f64>,
+    /// `outputs[k] / sum(outputs)`.
+    pub shares: Vec<f64>,
+    /// Node voltages, V (bulk = ground referred); the order is the stage's
+    /// [`CompetitionStage::node_names`].
+    pub node_voltages: Vec<f64>,
+    /// Solver report.
+    pub info: SolveInfo,
+}
+
+impl StageSolution {
+    /// Buffers sized for a stage.
+    pub fn for_stage<S: CompetitionStage + ?Sized>(stage: &S) -> StageSolution {
+        StageSolution {
+            outputs: vec![0.0; stage.n()],
+            shares: vec![0.0; stage.n()],
+            node_voltages: vec![0.0; stage.node_count()],
+            info: SolveInfo::default(),
+        }
+    }
+
+    /// Resize the buffers (allocates only when they grow).
+    pub fn resize(&mut self, n: usize, nodes: usize) {
+        self.outputs.resize(n, 0.0);
+        self.shares.resize(n, 0.0);
+        self.node_voltages.resize(nodes, 0.0);
+    }
+
+    /// Apply a decision rule to the shares.
+    pub fn decide(&self, rule: &DecisionRule) -> Decision {
+        rule.decide(&self.shares)
+    }
+}
+
+/// Scratch space reused across solves (grows on first use, never shrinks).
+#[derive(Clone, Debug, Default)]
+pub struct Workspace {
+    pub(crate) a: Vec<f64>,
+    pub(crate) b: Vec<f64>,
+    pub(crate) c: Vec<f64>,
+    pub(crate) d: Vec<f64>,
+    pub(crate) e: Vec<f64>,
+    pub(crate) v: Vec<f64>,
+}
+
+impl Workspace {
+    /// An empty workspace.
+    pub fn new() -> Workspace {
+        Workspace::default()
+    }
+
+    pub(crate) fn ensure(&mut self, n: usize) {
+        for b in [
+            &mut self.a,
+            &mut self.b,
+            &mut self.c,
+            &mut self.d,
+            &mut self.e,
+            &mut self.v,
+        ] {
+            if b.len() < n {
+                b.resize(n, 0.0);
+            }
+        }
+    }
+}
+
+/// Summary of an input vector for error messages (no allocation when built).
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct InputSummary {
+    pub n: usize,
+    pub min: f64,
+    pub max: f64,
+    pub sum: f64,
+    /// Index of the largest input.
+    pub argmax: usize,
+}
+
+impl InputSummary {
+    /// Summarise `x` (non-finite entries propagate into the fields).
+    pub fn of(x: &[f64]) -> InputSummary {
+        let mut s = InputSummary {
+            n: x.len(),
+            min: f64::INFINITY,
+            max: f64::NEG_INFINITY,
+            sum: 0.0,
+            argmax: 0,
+        };
+        for (i, &v) in x.iter().enumerate() {
+            s.min = s.min.min(v);
+            if v > s.max {
+                s.max = v;
+                s.argmax = i;
+            }
+            s.sum += v;
+        }
+        s
+    }
+}
+
+impl fmt::Display for InputSummary {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        write!(
+            f,
+            "{} inputs, min {:.4e}, max {:.4e} (input {}), sum {:.4e}",
+            self.n, self.min, self.max, self.argmax, self.sum
+        )
+    }
+}
+
+/// Errors of the competition stages.
+#[derive(Clone, Debug, PartialEq, Error)]
+pub enum CompetitionError {
+    /// A design parameter is out of its valid range.
+    #[error("{stage}: parameter `{parameter}` = {value:e} is invalid: {reason}")]
+    InvalidParameter {
+        stage: &'static str,
+        parameter: &'static str,
+        value: f64,
+        reason: &'static str,
+    },
+    /// The number of per-transistor mismatch draws does not match the design.
+    #[error("{stage}: {what} has {got} entries, the design needs {expected}")]
+    WrongLength {
+        stage: &'static str,
+        what: &'static str,
+        expected: usize,
+        got: usize,
+    },
+    /// An input is negative or not finite.
+    #[error("{stage}: input {index} is {value:e} {unit}; inputs must be finite{}", if *.nonnegative { " and >= 0" } else { "" })]
+    InvalidInput {
+        stage: &'static str,
+        index: usize,
+        value: f64,
+        unit: &'static str,
+        nonnegative: bool,
+    },
+    /// No operating point within the supply: a bias or input the circuit cannot carry.
+    #[error(
+        "{stage}: `{parameter}` cannot be carried within the supply: {reason} ({inputs}); {fix}"
+    )]
+    Compliance {
+        stage: &'static str,
+        parameter: &'static str,
+        reason: &'static str,
+        fix: &'static str,
+        inputs: InputSummary,
+    },
+    /// The solver stopped without meeting its tolerance.
+    #[error("{stage}: DC solve did not converge after {iterations} iterations (relative KCL residual {residual:.3e}, tolerance {tolerance:.1e}) for {inputs}")]
+    NotConverged {
+        stage: &'static str,
+        iterations: usize,
+        residual: f64,
+        tolerance: f64,
+        inputs: InputSummary,
+    },
+}
+
+/// A competition stage evaluated at its conditions, ready to solve.
+pub trait CompetitionStage {
+    /// Number of class lines (inputs = outputs).
+    fn n(&self) -> usize;
+
+    /// Number of node voltages reported in [`StageSolution::node_voltages`].
+    fn node_count(&self) -> usize;
+
+    /// Name of node `i` (e.g. `"V_3"`, `"V_C"`), for reports.
+    fn node_name(&self, i: usize) -> String;
+
+    /// Short name of the stage for messages.
+    fn stage_name(&self) -> &'static str;
+
+    /// Unit of the inputs: `"A"` for currents, `"V"` for voltages.
+    fn input_unit(&self) -> &'static str;
+
+    /// DC operating point for `inputs` (one per class line). Fills `out` (resized if needed;
+    /// no allocation when it already has the right size) using `ws` as scratch.
+    fn solve(
+        &self,
+        inputs: &[f64],
+        ws: &mut Workspace,
+        out: &mut StageSolution,
+    ) -> Result<(), CompetitionError>;
+}
+
+/// Fill `shares` from `outputs`; all-zero outputs give equal shares.
+pub(crate) fn fill_shares(outputs: &[f64], shares: &mut [f64]) {
+    let sum: f64 = outputs.iter().sum();
+    if sum > 0.0 && sum.is_finite() {
+        for (s, o) in shares.iter_mut().zip(outputs) {
+            *s = o / sum;
+        }
+    } else {
+        let n = shares.len().max(1) as f64;
+        for s in shares.iter_mut() {
+            *s = 1.0 / n;
+        }
+    }
+}
+
+/// Check input count and that every input is finite (and non-negative when required).
+pub(crate) fn validate_inputs(
+    stage: &'static str,
+    n: usize,
+    inputs: &[f64],
+    unit: &'static str,
+    nonnegative: bool,
+) -> Result<(), CompetitionError> {
+    if inputs.len() != n {
+        return Err(CompetitionError::WrongLength {
+            stage,
+            what: "the input vector",
+            expected: n,
+            got: inputs.len(),
+        });
+    }
+    for (index, &value) in inputs.iter().enumerate() {
+        if !value.is_finite() || (nonnegative && value < 0.0) {
+            return Err(CompetitionError::InvalidInput {
+                stage,
+                index,
+                value,
+                unit,
+                nonnegative,
+            });
+        }
+    }
+    Ok(())
+}
+
+/// Check a design value: finite and strictly positive.
+pub(crate) fn positive(
+    stage: &'static str,
+    parameter: &'static str,
+    value: f64,
+) -> Result<(), CompetitionError> {
+    if value.is_finite() && value > 0.0 {
+        Ok(())
+    } else {
+        Err(CompetitionError::InvalidParameter {
+            stage,
+            parameter,
+            value,
+            reason: "must be finite and > 0",
+        })
+    }
+}

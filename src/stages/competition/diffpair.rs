@@ -1,0 +1,627 @@
+//! Multi-input differential pair: a voltage-mode soft WTA.
+//!
+//! N NMOS transistors share their source (node V_S); transistor i has its gate at V_i and its
+//! drain at a fixed output voltage; a tail (an ideal current I_b, or an NMOS with its gate at a
+//! bias voltage, drain V_S, source ground) drains V_S. Every bulk is at ground (body effect via
+//! the bulk-referred EKV model). In weak-inversion saturation
+//! `I_i = I_b e^(kappa V_i/U_T) / Σ_j e^(kappa V_j/U_T)`: a softmax with temperature U_T/kappa;
+//! for N = 2, `I_1 - I_2 = I_b tanh(kappa (V_1 - V_2)/(2 U_T))` (C. Mead, "Analog VLSI and Neural
+//! Systems", 1989; S.-C. Liu et al., "Analog VLSI: Circuits and Principles", 2002).
+//!
+//! Inputs are gate voltages, or currents converted to gate voltages by a diode-connected NMOS
+//! (gate = drain = V_i, source ground: then the pair is a plain normaliser, `I_i ∝ I_in,i` in weak
+//! inversion) or by a resistor (`V_i = V_ref + R I_in,i`: a softmax with gain `kappa R / U_T`).
+//!
+//! Solve: each diode's gate voltage by a monotone 1-D solve, then the common source V_S by a
+//! monotone scalar solve of `ln Σ I_i(V_S) = ln I_tail(V_S)` (the left side falls and the right
+//! side rises with V_S), started from the weak-inversion closed form.
+
+// Index loops run over parallel per-input arrays.
+#![allow(clippy::needless_range_loop)]
+
+use crate::device::{DrainCoupling, Ekv, MosMismatch, Polarity, Process, Transistor};
+use crate::physics::thermal_voltage;
+use crate::solvers::{solve_monotone, ScalarError, ScalarTolerance};
+
+use super::mos::Mos;
+use super::{
+    fill_shares, positive, validate_inputs, CompetitionError, CompetitionStage, InputSummary,
+    SolveInfo, SolveMethod, StageSolution, Workspace,
+};
+
+const STAGE: &str = "multi-input differential pair";
+
+/// Relative KCL tolerance of the DC solve.
+pub const DIFFPAIR_RELATIVE_TOLERANCE: f64 = 1e-10;
+
+/// How the inputs reach the gates.
+#[derive(Clone, Copy, Debug, PartialEq, serde::Serialize, serde::Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum DiffPairInput {
+    /// Inputs are the gate voltages, V.
+    Voltage,
+    /// Inputs are currents (A) into diode-connected NMOS `device` (gate = drain, source ground).
+    Diode { device: Transistor },
+    /// Inputs are currents (A) through a resistor: `V_i = reference + resistance * I_i`.
+    Resistor { resistance: f64, reference: f64 },
+}
+
+/// The tail that drains the common source.
+#[derive(Clone, Copy, Debug, PartialEq, serde::Serialize, serde::Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum TailSource {
+    /// Ideal current sink, A.
+    Ideal { current: f64 },
+    /// NMOS (drain V_S, source ground) with its gate at `gate_voltage`.
+    Transistor {
+        device: Transistor,
+        gate_voltage: f64,
+    },
+}
+
+/// Nominal design of a multi-input differential pair.
+#[derive(Clone, Debug, PartialEq, serde::Serialize, serde::Deserialize)]
+pub struct DiffPairDesign {
+    /// Number of inputs, at least 2.
+    pub n: usize,
+    pub process: Process,
+    /// The N pair transistors.
+    pub pair: Transistor,
+    pub tail: TailSource,
+    pub input: DiffPairInput,
+    /// Supply, V (upper limit of every node).
+    pub supply: f64,
+    /// Drain voltage of the pair transistors, V.
+    pub output_voltage: f64,
+    /// Overrides the process drain coupling of every transistor.
+    pub drain_coupling: Option<DrainCoupling>,
+    /// Capacitance on the common source node, F (for transient evaluation).
+    pub source_capacitance: f64,
+    /// Capacitance on each gate node, F (for transient evaluation with current inputs).
+    pub input_capacitance: f64,
+}
+
+impl DiffPairDesign {
+    /// Supply and output voltage at the process V_dd, process drain coupling, 50 fF on gates and
+    /// 200 fF on the common source (placeholders of ours; set them from your layout).
+    pub fn new(
+        n: usize,
+        process: Process,
+        pair: Transistor,
+        tail: TailSource,
+        input: DiffPairInput,
+    ) -> DiffPairDesign {
+        let vdd = process.vdd;
+        DiffPairDesign {
+            n,
+            process,
+            pair,
+            tail,
+            input,
+            supply: vdd,
+            output_voltage: vdd,
+            drain_coupling: None,
+            source_capacitance: 200e-15,
+            input_capacitance: 50e-15,
+        }
+    }
+
+    /// Check every parameter; the error names the first bad one.
+    pub fn validate(&self) -> Result<(), CompetitionError> {
+        if self.n < 2 {
+            return Err(CompetitionError::InvalidParameter {
+                stage: STAGE,
+                parameter: "n",
+                value: self.n as f64,
+                reason: "a competition needs at least 2 inputs",
+            });
+        }
+        let nmos = |name: &'static str, t: &Transistor| -> Result<(), CompetitionError> {
+            if t.polarity != Polarity::Nmos {
+                return Err(CompetitionError::InvalidParameter {
+                    stage: STAGE,
+                    parameter: name,
+                    value: -1.0,
+                    reason: "this differential pair is built from NMOS transistors",
+                });
+            }
+            Ok(())
+        };
+        nmos("pair", &self.pair)?;
+        positive(STAGE, "pair.w", self.pair.w)?;
+        positive(STAGE, "pair.l", self.pair.l)?;
+        positive(STAGE, "supply", self.supply)?;
+        if !(self.output_voltage.is_finite() && self.output_voltage >= 0.0) {
+            return Err(CompetitionError::InvalidParameter {
+                stage: STAGE,
+                parameter: "output_voltage",
+                value: self.output_voltage,
+                reason: "must be finite and >= 0",
+            });
+        }
+        match self.tail {
+            TailSource::Ideal { current } => positive(STAGE, "tail.current", current)?,
+            TailSource::Transistor {
+                device,
+                gate_voltage,
+            } => {
+                nmos("tail.device", &device)?;
+                positive(STAGE, "tail.device.w", device.w)?;
+                positive(STAGE, "tail.device.l", device.l)?;
+                if !gate_voltage.is_finite() {
+                    return Err(CompetitionError::InvalidParameter {
+                        stage: STAGE,
+                        parameter: "tail.gate_voltage",
+                        value: gate_voltage,
+                        reason: "must be finite",
+                    });
+                }
+            }
+        }
+        match self.input {
+            DiffPairInput::Voltage => {}
+            DiffPairInput::Diode { device } => {
+                nmos("input.device", &device)?;
+                positive(STAGE, "input.device.w", device.w)?;
+                positive(STAGE, "input.device.l", device.l)?;
+            }
+            DiffPairInput::Resistor {
+                resistance,
+                reference,
+            } => {
+                positive(STAGE, "input.resistance", resistance)?;
+                if !reference.is_finite() {
+                    return Err(CompetitionError::InvalidParameter {
+                        stage: STAGE,
+                        parameter: "input.reference",
+                        value: reference,
+                        reason: "must be finite",
+                    });
+                }
+            }
+        }
+        for (p, v) in [
+            ("source_capacitance", self.source_capacitance),
+            ("input_capacitance", self.input_capacitance),
+        ] {
+            if !(v.is_finite() && v >= 0.0) {
+                return Err(CompetitionError::InvalidParameter {
+                    stage: STAGE,
+                    parameter: p,
+                    value: v,
+                    reason: "must be finite and >= 0",
+                });
+            }
+        }
+        Ok(())
+    }
+
+    /// Number of input diodes (N with diode inputs, else 0).
+    pub fn diode_count(&self) -> usize {
+        match self.input {
+            DiffPairInput::Diode { .. } => self.n,
+            _ => 0,
+        }
+    }
+
+    fn device(&self, t: &Transistor, temperature: f64, mm: MosMismatch) -> Ekv {
+        let mut d = self.process.ekv(t, temperature, mm);
+        if let Some(dc) = self.drain_coupling {
+            d.eta = dc.eta(d.n, t.l, thermal_voltage(self.process.t_nom));
+        }
+        d
+    }
+}
+
+/// One sampled differential-pair chip.
+#[derive(Clone, Debug, PartialEq)]
+pub struct DiffPairChip {
+    pub design: DiffPairDesign,
+    /// Mismatch of the N pair transistors.
+    pub pair: Vec<MosMismatch>,
+    /// Mismatch of the N input diodes (empty unless the input is `Diode`).
+    pub diodes: Vec<MosMismatch>,
+    /// Mismatch of the tail transistor (ignored for an ideal tail).
+    pub tail: MosMismatch,
+}
+
+impl DiffPairChip {
+    /// A chip without mismatch.
+    pub fn nominal(design: DiffPairDesign) -> Result<DiffPairChip, CompetitionError> {
+        let (n, nd) = (design.n, design.diode_count());
+        DiffPairChip::from_mismatch(
+            design,
+            vec![MosMismatch::default(); n],
+            vec![MosMismatch::default(); nd],
+            MosMismatch::default(),
+        )
+    }
+
+    /// A chip from given draws (N pair transistors, N diodes or none, one tail).
+    pub fn from_mismatch(
+        design: DiffPairDesign,
+        pair: Vec<MosMismatch>,
+        diodes: Vec<MosMismatch>,
+        tail: MosMismatch,
+    ) -> Result<DiffPairChip, CompetitionError> {
+        design.validate()?;
+        if pair.len() != design.n {
+            return Err(CompetitionError::WrongLength {
+                stage: STAGE,
+                what: "pair mismatch",
+                expected: design.n,
+                got: pair.len(),
+            });
+        }
+        if diodes.len() != design.diode_count() {
+            return Err(CompetitionError::WrongLength {
+                stage: STAGE,
+                what: "diode mismatch",
+                expected: design.diode_count(),
+                got: diodes.len(),
+            });
+        }
+        for m in pair
+            .iter()
+            .chain(diodes.iter())
+            .chain(std::iter::once(&tail))
+        {
+            if !(m.dvt0.is_finite() && m.dbeta_rel.is_finite() && m.dbeta_rel > -1.0) {
+                return Err(CompetitionError::InvalidParameter {
+                    stage: STAGE,
+                    parameter: "mismatch",
+                    value: m.dbeta_rel,
+                    reason: "dvt0 must be finite and dbeta_rel finite and > -1",
+                });
+            }
+        }
+        Ok(DiffPairChip {
+            design,
+            pair,
+            diodes,
+            tail,
+        })
+    }
+
+    /// Sample a chip with `draw` per transistor in a fixed order: pair 0..N-1, then the diodes
+    /// 0..N-1 (diode inputs only), then the tail transistor (transistor tail only).
+    pub fn sample<F>(design: DiffPairDesign, mut draw: F) -> Result<DiffPairChip, CompetitionError>
+    where
+        F: FnMut(&Transistor) -> MosMismatch,
+    {
+        design.validate()?;
+        let pair = (0..design.n).map(|_| draw(&design.pair)).collect();
+        let diodes = match design.input {
+            DiffPairInput::Diode { device } => (0..design.n).map(|_| draw(&device)).collect(),
+            _ => Vec::new(),
+        };
+        let tail = match design.tail {
+            TailSource::Transistor { device, .. } => draw(&device),
+            TailSource::Ideal { .. } => MosMismatch::default(),
+        };
+        DiffPairChip::from_mismatch(design, pair, diodes, tail)
+    }
+
+    /// The chip at a temperature (K), ready to solve.
+    pub fn at(&self, temperature: f64) -> Result<DiffPairCircuit, CompetitionError> {
+        positive(STAGE, "temperature", temperature)?;
+        let d = &self.design;
+        let pair: Vec<Ekv> = self
+            .pair
+            .iter()
+            .map(|m| d.device(&d.pair, temperature, *m))
+            .collect();
+        let diodes: Vec<Ekv> = match d.input {
+            DiffPairInput::Diode { device } => self
+                .diodes
+                .iter()
+                .map(|m| d.device(&device, temperature, *m))
+                .collect(),
+            _ => Vec::new(),
+        };
+        let tail = match d.tail {
+            TailSource::Ideal { current } => Tail::Ideal(current),
+            TailSource::Transistor {
+                device,
+                gate_voltage,
+            } => Tail::Mos(
+                Mos::new(&d.device(&device, temperature, self.tail)),
+                gate_voltage,
+            ),
+        };
+        Ok(DiffPairCircuit {
+            n: d.n,
+            pair_fast: pair.iter().map(Mos::new).collect(),
+            diode_fast: diodes.iter().map(Mos::new).collect(),
+            pair,
+            diodes,
+            tail,
+            input: d.input,
+            supply: d.supply,
+            output_voltage: d.output_voltage,
+            vs_min: 0.0,
+            temperature,
+            tolerance: DIFFPAIR_RELATIVE_TOLERANCE,
+        })
+    }
+}
+
+#[derive(Clone, Copy, Debug, PartialEq)]
+enum Tail {
+    Ideal(f64),
+    Mos(Mos, f64),
+}
+
+impl Tail {
+    #[inline]
+    fn eval(&self, vs: f64) -> (f64, f64) {
+        match *self {
+            Tail::Ideal(i) => (i, 0.0),
+            Tail::Mos(m, vg) => {
+                let e = m.eval(vg, vs, 0.0);
+                (e.id, e.d_vd)
+            }
+        }
+    }
+}
+
+/// A differential-pair chip at a temperature, ready to solve.
+#[derive(Clone, Debug, PartialEq)]
+pub struct DiffPairCircuit {
+    n: usize,
+    pair: Vec<Ekv>,
+    diodes: Vec<Ekv>,
+    pair_fast: Vec<Mos>,
+    diode_fast: Vec<Mos>,
+    tail: Tail,
+    input: DiffPairInput,
+    /// Supply, V.
+    pub supply: f64,
+    /// Drain voltage of the pair, V.
+    pub output_voltage: f64,
+    /// Lowest common-source voltage (ground), V.
+    pub vs_min: f64,
+    /// Temperature, K.
+    pub temperature: f64,
+    /// Relative KCL tolerance.
+    pub tolerance: f64,
+}
+
+/// Inverse of the EKV forward function: x with F(x) = i (`x = 2 ln(e^sqrt(i) - 1)`).
+#[inline]
+fn ekv_f_inverse(i: f64) -> f64 {
+    2.0 * i.sqrt().exp_m1().ln()
+}
+
+impl DiffPairCircuit {
+    /// Pair transistor i.
+    pub fn pair(&self, i: usize) -> Option<&Ekv> {
+        self.pair.get(i)
+    }
+
+    /// Input diode i (diode inputs only).
+    pub fn diode(&self, i: usize) -> Option<&Ekv> {
+        self.diodes.get(i)
+    }
+
+    /// Tail current at a common-source voltage.
+    pub fn tail_current(&self, vs: f64) -> f64 {
+        self.tail.eval(vs).0
+    }
+
+    /// Gate voltage of a diode carrying `i` amperes (monotone 1-D solve).
+    fn diode_voltage(&self, k: usize, i: f64, inputs: &[f64]) -> Result<f64, CompetitionError> {
+        if i <= 0.0 {
+            return Ok(0.0);
+        }
+        let m = &self.diode_fast[k];
+        let eta = m.eta;
+        let x0 = (m.n() * m.ut() * ekv_f_inverse(i / m.is) + m.vt0) / (1.0 + eta);
+        let f = |v: f64| {
+            let e = m.eval(v, v, 0.0);
+            if e.id > 0.0 {
+                ((e.id / i).ln(), (e.d_vg + e.d_vd) / e.id)
+            } else {
+                (f64::NEG_INFINITY, f64::INFINITY)
+            }
+        };
+        let tol = ScalarTolerance {
+            ftol: 0.1 * self.tolerance,
+            xtol: 0.0,
+            max_iter: 300,
+        };
+        match solve_monotone(f, 0.0, self.supply, x0, true, tol) {
+            Ok(r) => Ok(r.x),
+            Err(ScalarError::NotBracketed { below: false, .. }) => {
+                Err(CompetitionError::Compliance {
+                    stage: STAGE,
+                    parameter: "inputs",
+                    reason: "an input diode would need a gate voltage above the supply",
+                    fix: "widen the input diodes or lower the input currents",
+                    inputs: InputSummary::of(inputs),
+                })
+            }
+            Err(ScalarError::NotBracketed { f, .. })
+            | Err(ScalarError::NoConvergence { f, .. }) => Err(CompetitionError::NotConverged {
+                stage: STAGE,
+                iterations: tol.max_iter,
+                residual: f.exp_m1().abs(),
+                tolerance: self.tolerance,
+                inputs: InputSummary::of(inputs),
+            }),
+        }
+    }
+
+    /// Weak-inversion closed-form start for V_S.
+    fn closed_form_vs(&self, gates: &[f64]) -> f64 {
+        let vout = self.output_voltage;
+        let mut max_e = f64::NEG_INFINITY;
+        for (m, &vg) in self.pair_fast.iter().zip(gates) {
+            max_e = max_e.max(m.is.ln() + (vg - m.vt0 + m.eta * vout) * m.inv_n * m.inv_ut);
+        }
+        let mut s = 0.0;
+        for (m, &vg) in self.pair_fast.iter().zip(gates) {
+            s += (m.is.ln() + (vg - m.vt0 + m.eta * vout) * m.inv_n * m.inv_ut - max_e).exp();
+        }
+        let ln_ib = match self.tail {
+            Tail::Ideal(i) => i.ln(),
+            Tail::Mos(m, vg) => m.is.ln() + (vg - m.vt0) * m.inv_n * m.inv_ut,
+        };
+        let m0 = &self.pair_fast[0];
+        let slope = (1.0 + m0.eta * m0.inv_n) * m0.inv_ut;
+        let vs = (max_e + s.ln() - ln_ib) / slope;
+        if vs.is_finite() {
+            vs.clamp(self.vs_min, self.supply)
+        } else {
+            0.5 * (self.vs_min + self.supply)
+        }
+    }
+
+    /// Relative KCL residual at the common source for gate voltages and V_S.
+    pub fn source_residual(&self, gates: &[f64], vs: f64) -> f64 {
+        let s: f64 = self
+            .pair_fast
+            .iter()
+            .zip(gates)
+            .map(|(m, &vg)| m.id(vg, self.output_voltage, vs))
+            .sum();
+        let it = self.tail.eval(vs).0;
+        (s - it) / it
+    }
+}
+
+impl CompetitionStage for DiffPairCircuit {
+    fn n(&self) -> usize {
+        self.n
+    }
+
+    fn node_count(&self) -> usize {
+        self.n + 1
+    }
+
+    fn node_name(&self, i: usize) -> String {
+        if i == self.n {
+            "V_S".to_string()
+        } else {
+            format!("V_G{i}")
+        }
+    }
+
+    fn stage_name(&self) -> &'static str {
+        STAGE
+    }
+
+    fn input_unit(&self) -> &'static str {
+        match self.input {
+            DiffPairInput::Voltage => "V",
+            _ => "A",
+        }
+    }
+
+    fn solve(
+        &self,
+        inputs: &[f64],
+        ws: &mut Workspace,
+        out: &mut StageSolution,
+    ) -> Result<(), CompetitionError> {
+        let n = self.n;
+        let unit = self.input_unit();
+        validate_inputs(STAGE, n, inputs, unit, unit == "A")?;
+        ws.ensure(n);
+        out.resize(n, n + 1);
+        let gates = &mut ws.v[..n];
+        match self.input {
+            DiffPairInput::Voltage => gates.copy_from_slice(inputs),
+            DiffPairInput::Resistor {
+                resistance,
+                reference,
+            } => {
+                for k in 0..n {
+                    gates[k] = reference + resistance * inputs[k];
+                }
+            }
+            DiffPairInput::Diode { .. } => {
+                for k in 0..n {
+                    gates[k] = self.diode_voltage(k, inputs[k], inputs)?;
+                }
+            }
+        }
+        let gates = &ws.v[..n];
+        let vs0 = self.closed_form_vs(gates);
+        let vout = self.output_voltage;
+        let f = |vs: f64| {
+            let mut s = 0.0;
+            let mut ds = 0.0;
+            for (m, &vg) in self.pair_fast.iter().zip(gates) {
+                let e = m.eval(vg, vout, vs);
+                s += e.id;
+                ds += e.d_vs;
+            }
+            let (it, dit) = self.tail.eval(vs);
+            (s.ln() - it.ln(), ds / s - dit / it)
+        };
+        let tol = ScalarTolerance {
+            ftol: 0.5 * self.tolerance,
+            xtol: 1e-15,
+            max_iter: 300,
+        };
+        let summary = || InputSummary::of(inputs);
+        let root = solve_monotone(f, self.vs_min, self.supply, vs0, false, tol);
+        let (vs, iterations) = match root {
+            Ok(r) => (r.x, r.iterations),
+            Err(ScalarError::NotBracketed { below: true, .. }) => {
+                return Err(CompetitionError::Compliance {
+                    stage: STAGE,
+                    parameter: match self.tail {
+                        Tail::Ideal(_) => "tail.current",
+                        Tail::Mos(..) => "tail.gate_voltage",
+                    },
+                    reason: "the common source would have to fall below ground to carry the tail current",
+                    fix: "raise the input (gate) voltages or lower the tail current",
+                    inputs: summary(),
+                })
+            }
+            Err(ScalarError::NotBracketed { below: false, .. }) => {
+                return Err(CompetitionError::Compliance {
+                    stage: STAGE,
+                    parameter: "supply",
+                    reason: "the common source would have to rise above the supply",
+                    fix: "lower the input (gate) voltages or raise the supply",
+                    inputs: summary(),
+                })
+            }
+            Err(ScalarError::NoConvergence { f, iterations, .. }) => {
+                return Err(CompetitionError::NotConverged {
+                    stage: STAGE,
+                    iterations,
+                    residual: f.exp_m1().abs(),
+                    tolerance: self.tolerance,
+                    inputs: summary(),
+                })
+            }
+        };
+        for k in 0..n {
+            out.outputs[k] = self.pair_fast[k].id(gates[k], vout, vs);
+        }
+        let residual = self.source_residual(gates, vs).abs();
+        if residual.is_nan() || residual > self.tolerance {
+            return Err(CompetitionError::NotConverged {
+                stage: STAGE,
+                iterations,
+                residual,
+                tolerance: self.tolerance,
+                inputs: summary(),
+            });
+        }
+        out.node_voltages[..n].copy_from_slice(gates);
+        out.node_voltages[n] = vs;
+        fill_shares(&out.outputs, &mut out.shares);
+        out.info = SolveInfo {
+            iterations,
+            residual,
+            converged: true,
+            method: SolveMethod::Bracketing,
+        };
+        Ok(())
+    }
+}

@@ -1,0 +1,865 @@
+//! Current-mode winner-take-all circuit of N cells (J. Lazzaro, S. Ryckebusch, M. Mahowald,
+//! C. Mead, "Winner-take-all networks of O(N) complexity", Advances in Neural Information
+//! Processing Systems 1, 1989).
+//!
+//! Cell k: the input current I_k flows into node V_k; NMOS A_k (gate V_C, drain V_k, source
+//! ground) sinks it; NMOS B_k (gate V_k, source V_C, drain at the fixed output voltage) carries
+//! the output current; one bias (an ideal current I_b, or an NMOS with its gate at a bias voltage,
+//! drain V_C, source ground) drains the common node V_C. Every bulk is at ground, so B_k sees its
+//! body effect through the bulk-referred EKV model. Unknowns V_0..V_{N-1}, V_C; equations: KCL at
+//! each V_k (I_k = I_A,k) and at V_C (Σ I_B,k = I_bias).
+//!
+//! ## Gain (our derivation, checked numerically by the tests)
+//!
+//! In weak-inversion saturation with EKV (`I = I_S e^{v_p - v_s}`, `v_p = (V_G - V_T0 +
+//! eta (V_D - V_S))/(n U_T)`), KCL at V_k gives `V_k = (n U_T ln(I_k/I_S,A) + V_T0,A - V_C)/eta_A`
+//! and B_k then carries `I_B,k ∝ exp(V_k/(n_B U_T)) · (terms common to all cells)`, so
+//! `I_B,k ∝ I_k^g` with `g = n_A / (n_B eta_A)` (`= kappa/sigma_A` for equal slope factors) and
+//! KCL at V_C normalises them: `I_out,k = I_b I_k^g / Σ_j I_j^g`. The same algebra refers
+//! mismatch to the input: a threshold shift dV_T on A_k multiplies I_k by `exp(dV_T/(n U_T))`;
+//! a shift on B_k multiplies I_out,k by `exp(-dV_T/(n U_T))`, i.e. acts on the input divided by g.
+//! The closed form gives the solver's starting point; the full EKV solve is the answer.
+//!
+//! ## Solver
+//!
+//! Damped Newton on all N+1 node voltages with the KCL residuals taken in log form
+//! (`ln(I_A,k/I_k)`, `ln(Σ I_B/I_bias)`, which are close to linear in the voltages in weak
+//! inversion). The Jacobian is an arrowhead (each V_k couples only to V_C), so each step
+//! eliminates the V_k and solves one scalar equation for V_C: O(N) per step, no allocation.
+//! When Newton has not converged within its budget, a bracketing solve takes over: an outer
+//! monotone scalar solve on V_C (h(V_C) = ln Σ I_B,k(V_k(V_C), V_C) - ln I_bias(V_C) is
+//! decreasing, because each V_k(V_C) decreases and each I_B,k falls with its source voltage)
+//! with an inner monotone 1-D solve of each V_k on [0, V_dd]. The bracketing solve converges
+//! whenever an operating point exists inside the supply, and otherwise says which parameter the
+//! supply cannot carry.
+
+// Index loops run over parallel per-cell arrays; iterators would zip five of them.
+#![allow(clippy::needless_range_loop)]
+
+use crate::device::{DrainCoupling, Ekv, MosMismatch, Polarity, Process, Transistor};
+use crate::physics::thermal_voltage;
+use crate::solvers::{solve_monotone, ScalarError, ScalarTolerance};
+
+use super::mos::Mos;
+use super::{
+    fill_shares, positive, validate_inputs, CompetitionError, CompetitionStage, InputSummary,
+    SolveInfo, SolveMethod, StageSolution, Workspace,
+};
+
+const STAGE: &str = "current-mode WTA";
+
+/// Relative KCL tolerance of the DC solve (at every node, relative to that node's current).
+pub const WTA_RELATIVE_TOLERANCE: f64 = 1e-10;
+
+/// The current that drains the common node V_C.
+#[derive(Clone, Copy, Debug, PartialEq, serde::Serialize, serde::Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum WtaBias {
+    /// An ideal current sink of `current` amperes (needs V_C above ground to work).
+    Ideal { current: f64 },
+    /// An NMOS (drain V_C, source and bulk at ground) with its gate at `gate_voltage` volts.
+    Transistor {
+        device: Transistor,
+        gate_voltage: f64,
+    },
+}
+
+/// Nominal design of a current-mode WTA (every quantity SI).
+#[derive(Clone, Debug, PartialEq, serde::Serialize, serde::Deserialize)]
+pub struct WtaDesign {
+    /// Number of cells (class lines), at least 2.
+    pub n: usize,
+    /// Process parameters (NMOS used for every transistor).
+    pub process: Process,
+    /// Sink transistor A_k (gate V_C, drain V_k, source ground).
+    pub sink: Transistor,
+    /// Output transistor B_k (gate V_k, source V_C, drain at `output_voltage`).
+    pub output: Transistor,
+    /// Bias of the common node.
+    pub bias: WtaBias,
+    /// Supply V_dd, V: upper limit of every node (the input sources' compliance).
+    pub supply: f64,
+    /// Voltage at which the output drains are held (a current read-out), V.
+    pub output_voltage: f64,
+    /// Overrides the process's drain coupling for A_k and B_k (sets the gain g = 1/eta of the
+    /// sink for equal slope factors); `None` uses the process value.
+    pub drain_coupling: Option<DrainCoupling>,
+    /// Capacitance on each input node V_k, F (for transient evaluation).
+    pub input_capacitance: f64,
+    /// Capacitance on the common node V_C, F (for transient evaluation).
+    pub common_capacitance: f64,
+}
+
+impl WtaDesign {
+    /// A design with the supply and output voltage at the process's V_dd, the process's drain
+    /// coupling, and node capacitances of 50 fF (inputs) and 200 fF (common node): placeholders
+    /// of ours, set them from your layout.
+    pub fn new(
+        n: usize,
+        process: Process,
+        sink: Transistor,
+        output: Transistor,
+        bias: WtaBias,
+    ) -> WtaDesign {
+        let vdd = process.vdd;
+        WtaDesign {
+            n,
+            process,
+            sink,
+            output,
+            bias,
+            supply: vdd,
+            output_voltage: vdd,
+            drain_coupling: None,
+            input_capacitance: 50e-15,
+            common_capacitance: 200e-15,
+        }
+    }
+
+    /// Check every parameter; the error names the first bad one.
+    pub fn validate(&self) -> Result<(), CompetitionError> {
+        if self.n < 2 {
+            return Err(CompetitionError::InvalidParameter {
+                stage: STAGE,
+                parameter: "n",
+                value: self.n as f64,
+                reason: "a competition needs at least 2 cells",
+            });
+        }
+        for (name, t) in [("sink", &self.sink), ("output", &self.output)] {
+            if t.polarity != Polarity::Nmos {
+                return Err(CompetitionError::InvalidParameter {
+                    stage: STAGE,
+                    parameter: name,
+                    value: -1.0,
+                    reason: "this WTA is built from NMOS transistors",
+                });
+            }
+        }
+        positive(STAGE, "sink.w", self.sink.w)?;
+        positive(STAGE, "sink.l", self.sink.l)?;
+        positive(STAGE, "output.w", self.output.w)?;
+        positive(STAGE, "output.l", self.output.l)?;
+        positive(STAGE, "supply", self.supply)?;
+        if !(self.output_voltage.is_finite() && self.output_voltage >= 0.0) {
+            return Err(CompetitionError::InvalidParameter {
+                stage: STAGE,
+                parameter: "output_voltage",
+                value: self.output_voltage,
+                reason: "must be finite and >= 0",
+            });
+        }
+        if !(self.input_capacitance.is_finite() && self.input_capacitance >= 0.0) {
+            return Err(CompetitionError::InvalidParameter {
+                stage: STAGE,
+                parameter: "input_capacitance",
+                value: self.input_capacitance,
+                reason: "must be finite and >= 0",
+            });
+        }
+        if !(self.common_capacitance.is_finite() && self.common_capacitance >= 0.0) {
+            return Err(CompetitionError::InvalidParameter {
+                stage: STAGE,
+                parameter: "common_capacitance",
+                value: self.common_capacitance,
+                reason: "must be finite and >= 0",
+            });
+        }
+        match self.bias {
+            WtaBias::Ideal { current } => positive(STAGE, "bias.current", current)?,
+            WtaBias::Transistor {
+                device,
+                gate_voltage,
+            } => {
+                positive(STAGE, "bias.device.w", device.w)?;
+                positive(STAGE, "bias.device.l", device.l)?;
+                if device.polarity != Polarity::Nmos {
+                    return Err(CompetitionError::InvalidParameter {
+                        stage: STAGE,
+                        parameter: "bias.device",
+                        value: -1.0,
+                        reason: "the bias transistor is an NMOS",
+                    });
+                }
+                if !gate_voltage.is_finite() {
+                    return Err(CompetitionError::InvalidParameter {
+                        stage: STAGE,
+                        parameter: "bias.gate_voltage",
+                        value: gate_voltage,
+                        reason: "must be finite",
+                    });
+                }
+            }
+        }
+        if let Some(dc) = self.drain_coupling {
+            let v = match dc {
+                DrainCoupling::Eta(x)
+                | DrainCoupling::Sigma(x)
+                | DrainCoupling::EarlyVoltage(x)
+                | DrainCoupling::EarlyVoltagePerLength(x) => x,
+            };
+            let ok = match dc {
+                DrainCoupling::Eta(_) | DrainCoupling::Sigma(_) => v.is_finite() && v >= 0.0,
+                _ => v.is_finite() && v > 0.0,
+            };
+            if !ok {
+                return Err(CompetitionError::InvalidParameter {
+                    stage: STAGE,
+                    parameter: "drain_coupling",
+                    value: v,
+                    reason: "eta/sigma must be >= 0, an Early voltage > 0",
+                });
+            }
+        }
+        if !(self.process.t_nom > 0.0 && self.process.nmos.n > 0.0) {
+            return Err(CompetitionError::InvalidParameter {
+                stage: STAGE,
+                parameter: "process.nmos.n",
+                value: self.process.nmos.n,
+                reason: "slope factor and nominal temperature must be > 0",
+            });
+        }
+        Ok(())
+    }
+
+    /// Number of transistors per chip: N sinks, N outputs, and the bias transistor if any.
+    pub fn transistor_count(&self) -> usize {
+        2 * self.n + usize::from(matches!(self.bias, WtaBias::Transistor { .. }))
+    }
+
+    fn device(&self, t: &Transistor, temperature: f64, mm: MosMismatch) -> Ekv {
+        let mut d = self.process.ekv(t, temperature, mm);
+        if let Some(dc) = self.drain_coupling {
+            d.eta = dc.eta(d.n, t.l, thermal_voltage(self.process.t_nom));
+        }
+        d
+    }
+}
+
+/// One sampled WTA chip: the design plus every transistor's static mismatch.
+#[derive(Clone, Debug, PartialEq)]
+pub struct WtaChip {
+    pub design: WtaDesign,
+    /// Mismatch of A_0..A_{N-1}.
+    pub sink: Vec<MosMismatch>,
+    /// Mismatch of B_0..B_{N-1}.
+    pub output: Vec<MosMismatch>,
+    /// Mismatch of the bias transistor (ignored for an ideal bias).
+    pub bias: MosMismatch,
+}
+
+impl WtaChip {
+    /// A chip without mismatch.
+    pub fn nominal(design: WtaDesign) -> Result<WtaChip, CompetitionError> {
+        let n = design.n;
+        WtaChip::from_mismatch(
+            design,
+            vec![MosMismatch::default(); n],
+            vec![MosMismatch::default(); n],
+            MosMismatch::default(),
+        )
+    }
+
+    /// A chip from given mismatch draws (N sinks, N outputs, one bias).
+    pub fn from_mismatch(
+        design: WtaDesign,
+        sink: Vec<MosMismatch>,
+        output: Vec<MosMismatch>,
+        bias: MosMismatch,
+    ) -> Result<WtaChip, CompetitionError> {
+        design.validate()?;
+        for (what, v) in [("sink mismatch", &sink), ("output mismatch", &output)] {
+            if v.len() != design.n {
+                return Err(CompetitionError::WrongLength {
+                    stage: STAGE,
+                    what,
+                    expected: design.n,
+                    got: v.len(),
+                });
+            }
+        }
+        for m in sink
+            .iter()
+            .chain(output.iter())
+            .chain(std::iter::once(&bias))
+        {
+            if !(m.dvt0.is_finite() && m.dbeta_rel.is_finite() && m.dbeta_rel > -1.0) {
+                return Err(CompetitionError::InvalidParameter {
+                    stage: STAGE,
+                    parameter: "mismatch",
+                    value: m.dbeta_rel,
+                    reason: "dvt0 must be finite and dbeta_rel finite and > -1",
+                });
+            }
+        }
+        Ok(WtaChip {
+            design,
+            sink,
+            output,
+            bias,
+        })
+    }
+
+    /// Sample a chip, drawing each transistor's mismatch with `draw` in a fixed order:
+    /// A_0..A_{N-1}, then B_0..B_{N-1}, then the bias transistor (only if the bias is one).
+    /// Wire `draw` to Pelgrom sampling on the chip's stream.
+    pub fn sample<F>(design: WtaDesign, mut draw: F) -> Result<WtaChip, CompetitionError>
+    where
+        F: FnMut(&Transistor) -> MosMismatch,
+    {
+        design.validate()?;
+        let sink = (0..design.n).map(|_| draw(&design.sink)).collect();
+        let output = (0..design.n).map(|_| draw(&design.output)).collect();
+        let bias = match design.bias {
+            WtaBias::Transistor { device, .. } => draw(&device),
+            WtaBias::Ideal { .. } => MosMismatch::default(),
+        };
+        WtaChip::from_mismatch(design, sink, output, bias)
+    }
+
+    /// The chip at a temperature (K), ready to solve.
+    pub fn at(&self, temperature: f64) -> Result<WtaCircuit, CompetitionError> {
+        positive(STAGE, "temperature", temperature)?;
+        let d = &self.design;
+        let sink: Vec<Ekv> = self
+            .sink
+            .iter()
+            .map(|m| d.device(&d.sink, temperature, *m))
+            .collect();
+        let output: Vec<Ekv> = self
+            .output
+            .iter()
+            .map(|m| d.device(&d.output, temperature, *m))
+            .collect();
+        let bias = match d.bias {
+            WtaBias::Ideal { current } => CircuitBias::Ideal(current),
+            WtaBias::Transistor {
+                device,
+                gate_voltage,
+            } => CircuitBias::Transistor {
+                device: d.device(&device, temperature, self.bias),
+                gate_voltage,
+            },
+        };
+        let bias_fast = match bias {
+            CircuitBias::Ideal(i) => FastBias::Ideal(i),
+            CircuitBias::Transistor {
+                device,
+                gate_voltage,
+            } => FastBias::Mos(Mos::new(&device), gate_voltage),
+        };
+        Ok(WtaCircuit {
+            n: d.n,
+            sink_fast: sink.iter().map(Mos::new).collect(),
+            output_fast: output.iter().map(Mos::new).collect(),
+            sink,
+            output,
+            bias,
+            bias_fast,
+            supply: d.supply,
+            output_voltage: d.output_voltage,
+            vc_min: 0.0,
+            temperature,
+            input_capacitance: d.input_capacitance,
+            common_capacitance: d.common_capacitance,
+            tolerance: WTA_RELATIVE_TOLERANCE,
+            max_newton: 60,
+        })
+    }
+}
+
+/// The bias of an evaluated circuit.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub enum CircuitBias {
+    /// Ideal sink current, A.
+    Ideal(f64),
+    /// Bias NMOS (drain V_C, source ground) and its gate voltage.
+    Transistor { device: Ekv, gate_voltage: f64 },
+}
+
+#[derive(Clone, Copy, Debug, PartialEq)]
+enum FastBias {
+    Ideal(f64),
+    Mos(Mos, f64),
+}
+
+impl FastBias {
+    /// Bias current and its derivative in V_C.
+    #[inline]
+    fn eval(&self, vc: f64) -> (f64, f64) {
+        match *self {
+            FastBias::Ideal(i) => (i, 0.0),
+            FastBias::Mos(m, vg) => {
+                let e = m.eval(vg, vc, 0.0);
+                (e.id, e.d_vd)
+            }
+        }
+    }
+}
+
+/// A WTA chip at a temperature: one EKV device per transistor, ready to solve.
+#[derive(Clone, Debug, PartialEq)]
+pub struct WtaCircuit {
+    n: usize,
+    sink: Vec<Ekv>,
+    output: Vec<Ekv>,
+    bias: CircuitBias,
+    sink_fast: Vec<Mos>,
+    output_fast: Vec<Mos>,
+    bias_fast: FastBias,
+    /// Supply V_dd, V.
+    pub supply: f64,
+    /// Output drain voltage, V.
+    pub output_voltage: f64,
+    /// Lowest voltage the common node may take (ground), V.
+    pub vc_min: f64,
+    /// Temperature, K.
+    pub temperature: f64,
+    /// Input node capacitance, F.
+    pub input_capacitance: f64,
+    /// Common node capacitance, F.
+    pub common_capacitance: f64,
+    /// Relative KCL tolerance at every node.
+    pub tolerance: f64,
+    /// Newton steps before the bracketing solve takes over.
+    pub max_newton: usize,
+}
+
+/// Where the Newton phase ended.
+enum NewtonEnd {
+    Converged(usize, f64),
+    Gave(usize),
+}
+
+impl WtaCircuit {
+    /// Sink transistor A_k.
+    pub fn sink(&self, k: usize) -> Option<&Ekv> {
+        self.sink.get(k)
+    }
+
+    /// Output transistor B_k.
+    pub fn output(&self, k: usize) -> Option<&Ekv> {
+        self.output.get(k)
+    }
+
+    /// The bias.
+    pub fn bias(&self) -> &CircuitBias {
+        &self.bias
+    }
+
+    /// Weak-inversion gain g = n_A/(n_B eta_A) of cell k (= kappa/sigma of the sink for equal
+    /// slope factors); infinite without drain coupling. See the module docs for the derivation.
+    pub fn gain(&self, k: usize) -> Option<f64> {
+        let a = self.sink.get(k)?;
+        let b = self.output.get(k)?;
+        Some(a.n / (b.n * a.eta))
+    }
+
+    /// Relative KCL residual at each node for given node voltages `[V_0..V_{N-1}, V_C]`:
+    /// entry k is `(I_k - I_A,k)/max(I_k, I_A,k)` (0 when both are 0), entry N is
+    /// `(Σ I_B,k - I_bias)/I_bias`. Evaluated with the folded EKV form of [`Mos`], which keeps
+    /// full relative precision when a sink's V_DS is a tiny fraction of U_T (where a plain
+    /// difference of EKV F values cannot). Returns `None` on a length mismatch.
+    pub fn kcl_residuals(&self, inputs: &[f64], voltages: &[f64], out: &mut [f64]) -> Option<()> {
+        let n = self.n;
+        if inputs.len() != n || voltages.len() != n + 1 || out.len() != n + 1 {
+            return None;
+        }
+        let vc = voltages[n];
+        let mut s = 0.0;
+        for k in 0..n {
+            let vk = voltages[k];
+            let ia = self.sink_fast[k].id(vc, vk, 0.0);
+            let scale = inputs[k].abs().max(ia.abs());
+            out[k] = if scale > 0.0 {
+                (inputs[k] - ia) / scale
+            } else {
+                0.0
+            };
+            s += self.output_fast[k].id(vk, self.output_voltage, vc);
+        }
+        let (ib, _) = self.bias_fast.eval(vc);
+        out[n] = (s - ib) / ib.abs().max(f64::MIN_POSITIVE);
+        Some(())
+    }
+
+    /// Starting V_C from the weak-inversion closed form (module docs), clamped to the supply.
+    fn closed_form_vc(&self, inputs: &[f64]) -> f64 {
+        let vout = self.output_voltage;
+        // log of the bias current the closed form has to match.
+        let ln_ib = match self.bias_fast {
+            FastBias::Ideal(i) => i.ln(),
+            FastBias::Mos(m, vg) => m.is.ln() + (vg - m.vt0) * m.inv_n * m.inv_ut,
+        };
+        let mut max_e = f64::NEG_INFINITY;
+        let mut s = 0.0;
+        let mut slope = 0.0;
+        for (pass, _) in [(0, ()), (1, ())] {
+            for k in 0..self.n {
+                let i = inputs[k];
+                if i <= 0.0 {
+                    continue;
+                }
+                let a = &self.sink_fast[k];
+                let b = &self.output_fast[k];
+                let eta_a = a.eta.max(1e-3);
+                let alpha = (a.n() * a.ut() * (i / a.is).ln() + a.vt0) / eta_a;
+                let e = b.is.ln() + (alpha - b.vt0 + b.eta * vout) * b.inv_n * b.inv_ut;
+                if pass == 0 {
+                    max_e = max_e.max(e);
+                    slope = (1.0 / eta_a + b.eta) * b.inv_n * b.inv_ut + b.inv_ut;
+                } else {
+                    s += (e - max_e).exp();
+                }
+            }
+        }
+        if !(max_e.is_finite() && slope > 0.0) {
+            return self.vc_min;
+        }
+        let vc = (max_e + s.ln() - ln_ib) / slope;
+        if vc.is_finite() {
+            vc.clamp(self.vc_min, self.supply)
+        } else {
+            self.vc_min
+        }
+    }
+
+    /// Starting V_k for a given V_C: triode when the input is below the sink's saturation
+    /// current, else the weak-inversion saturated value.
+    #[inline]
+    fn cell_guess(&self, k: usize, i: f64, vc: f64) -> f64 {
+        if i <= 0.0 {
+            return 0.0;
+        }
+        let a = &self.sink_fast[k];
+        let x = (vc - a.vt0) * a.inv_n * a.inv_ut;
+        let h = 0.5 * x;
+        let sp = h.max(0.0) + (-h.abs()).exp().ln_1p();
+        let isat = a.is * sp * sp;
+        let r = i / isat;
+        let ut = a.ut();
+        let v = if r < 0.5 {
+            -ut * (-r).ln_1p()
+        } else {
+            let eta = a.eta.max(1e-3);
+            (0.7 * ut).max(3.0 * ut + a.n() * ut * r.ln().max(0.0) / eta)
+        };
+        if v.is_finite() && v > 0.0 {
+            v.min(0.999 * self.supply)
+        } else {
+            0.5 * self.supply
+        }
+    }
+
+    fn newton(&self, inputs: &[f64], ws: &mut Workspace, out: &mut StageSolution) -> NewtonEnd {
+        let n = self.n;
+        let vout = self.output_voltage;
+        let vmax = self.supply;
+        let mut vc = self.closed_form_vc(inputs);
+        {
+            let v = &mut ws.v[..n];
+            for k in 0..n {
+                v[k] = self.cell_guess(k, inputs[k], vc);
+            }
+        }
+        let Workspace { a, b, c, d, v, .. } = ws;
+        let (a, b, c, d, v) = (
+            &mut a[..n],
+            &mut b[..n],
+            &mut c[..n],
+            &mut d[..n],
+            &mut v[..n],
+        );
+        for it in 1..=self.max_newton {
+            out.node_voltages[n] = vc;
+            let mut s_sum = 0.0;
+            let mut e_sum = 0.0;
+            let mut bca = 0.0;
+            let mut bqa = 0.0;
+            let mut res: f64 = 0.0;
+            for k in 0..n {
+                let i = inputs[k];
+                let vk = v[k];
+                let eb = self.output_fast[k].eval(vk, vout, vc);
+                out.outputs[k] = eb.id;
+                s_sum += eb.id;
+                e_sum += eb.d_vs;
+                if i <= 0.0 {
+                    a[k] = 0.0;
+                    continue;
+                }
+                let ea = self.sink_fast[k].eval(vc, vk, 0.0);
+                if !(ea.id > 0.0 && ea.d_vd > 0.0 && ea.id.is_finite()) {
+                    return NewtonEnd::Gave(it);
+                }
+                let rho = (ea.id / i).ln();
+                res = res.max(rho.exp_m1().abs());
+                let q = rho * ea.id;
+                a[k] = ea.d_vd;
+                b[k] = eb.d_vg;
+                c[k] = ea.d_vg;
+                d[k] = q;
+                bca += eb.d_vg * ea.d_vg / ea.d_vd;
+                bqa += eb.d_vg * q / ea.d_vd;
+            }
+            let (ib, p) = self.bias_fast.eval(vc);
+            if !(s_sum > 0.0 && ib > 0.0 && s_sum.is_finite()) {
+                return NewtonEnd::Gave(it);
+            }
+            let r = (s_sum / ib).ln();
+            res = res.max(r.exp_m1().abs());
+            if res <= self.tolerance {
+                return NewtonEnd::Converged(it, res);
+            }
+            let den = e_sum / s_sum - p / ib - bca / s_sum;
+            let mut dvc = (-r + bqa / s_sum) / den;
+            if !dvc.is_finite() {
+                return NewtonEnd::Gave(it);
+            }
+            dvc = dvc.clamp(-0.1, 0.1);
+            for k in 0..n {
+                if a[k] == 0.0 {
+                    continue;
+                }
+                let dv = (-(d[k] + c[k] * dvc) / a[k]).clamp(-0.3, 0.3);
+                let vk = v[k];
+                let mut nv = vk + dv;
+                if nv <= 0.0 {
+                    nv = 0.1 * vk;
+                } else if nv >= vmax {
+                    nv = 0.5 * (vk + vmax);
+                }
+                v[k] = nv;
+            }
+            let mut nvc = vc + dvc;
+            if nvc < self.vc_min {
+                nvc = 0.5 * (vc + self.vc_min);
+            } else if nvc > self.supply {
+                nvc = 0.5 * (vc + self.supply);
+            }
+            vc = nvc;
+        }
+        NewtonEnd::Gave(self.max_newton)
+    }
+
+    /// Inner solve of cell k at a given V_C: V_k with I_A,k(V_C, V_k) = I_k on [0, V_dd].
+    /// Returns (V_k, clamped at the supply).
+    fn solve_cell(&self, k: usize, i: f64, vc: f64, start: f64) -> (f64, bool) {
+        if i <= 0.0 {
+            return (0.0, false);
+        }
+        let a = &self.sink_fast[k];
+        let vmax = self.supply;
+        let top = a.id(vc, vmax, 0.0);
+        if top < i {
+            return (vmax, true);
+        }
+        let f = |vk: f64| {
+            let e = a.eval(vc, vk, 0.0);
+            if e.id > 0.0 {
+                ((e.id / i).ln(), e.d_vd / e.id)
+            } else {
+                (f64::NEG_INFINITY, f64::INFINITY)
+            }
+        };
+        let tol = ScalarTolerance {
+            ftol: 1e-13,
+            xtol: 0.0,
+            max_iter: 300,
+        };
+        match solve_monotone(f, 0.0, vmax, start, true, tol) {
+            Ok(r) => (r.x, false),
+            Err(ScalarError::NotBracketed { below: false, .. }) => (vmax, true),
+            Err(ScalarError::NotBracketed { lo, .. }) => (lo, false),
+            Err(ScalarError::NoConvergence { x, .. }) => (x, false),
+        }
+    }
+
+    /// h(V_C) = ln Σ I_B - ln I_bias and its derivative, solving every cell at V_C.
+    fn outer(&self, inputs: &[f64], vc: f64, v: &mut [f64], clamped: &mut [f64]) -> (f64, f64) {
+        let vout = self.output_voltage;
+        let mut s = 0.0;
+        let mut ds = 0.0;
+        for k in 0..self.n {
+            let (vk, cl) = self.solve_cell(k, inputs[k], vc, v[k]);
+            v[k] = vk;
+            clamped[k] = if cl { 1.0 } else { 0.0 };
+            let eb = self.output_fast[k].eval(vk, vout, vc);
+            s += eb.id;
+            let dvk = if inputs[k] > 0.0 && !cl {
+                let ea = self.sink_fast[k].eval(vc, vk, 0.0);
+                -ea.d_vg / ea.d_vd
+            } else {
+                0.0
+            };
+            ds += eb.d_vs + eb.d_vg * if dvk.is_finite() { dvk } else { 0.0 };
+        }
+        let (ib, p) = self.bias_fast.eval(vc);
+        let h = s.ln() - ib.ln();
+        let dh = ds / s - p / ib;
+        (h, dh)
+    }
+
+    fn bracketing(
+        &self,
+        inputs: &[f64],
+        ws: &mut Workspace,
+        spent: usize,
+    ) -> Result<(f64, usize), CompetitionError> {
+        let n = self.n;
+        let vc0 = self.closed_form_vc(inputs);
+        let Workspace { v, e, .. } = ws;
+        let (v, clamped) = (&mut v[..n], &mut e[..n]);
+        for k in 0..n {
+            v[k] = self.cell_guess(k, inputs[k], vc0);
+        }
+        let tol = ScalarTolerance {
+            ftol: 0.1 * self.tolerance,
+            xtol: 1e-15,
+            max_iter: 400,
+        };
+        let summary = || InputSummary::of(inputs);
+        let root = solve_monotone(
+            |vc| self.outer(inputs, vc, v, clamped),
+            self.vc_min,
+            self.supply,
+            vc0,
+            false,
+            tol,
+        );
+        let vc = match root {
+            Ok(r) => {
+                // Leave the cells solved at the root.
+                self.outer(inputs, r.x, v, clamped);
+                (r.x, spent + r.iterations)
+            }
+            Err(ScalarError::NotBracketed { below: true, .. }) => {
+                return Err(CompetitionError::Compliance {
+                    stage: STAGE,
+                    parameter: match self.bias {
+                        CircuitBias::Ideal(_) => "bias.current",
+                        CircuitBias::Transistor { .. } => "bias.gate_voltage",
+                    },
+                    reason: "the inputs cannot carry the bias current with the common node V_C \
+                             at or above ground",
+                    fix: "raise the input currents or lower the bias current",
+                    inputs: summary(),
+                })
+            }
+            Err(ScalarError::NotBracketed { below: false, .. }) => {
+                return Err(CompetitionError::Compliance {
+                    stage: STAGE,
+                    parameter: "supply",
+                    reason: "the common node V_C would have to rise above the supply",
+                    fix:
+                        "raise the supply, widen the sink transistors, or lower the input currents",
+                    inputs: summary(),
+                })
+            }
+            Err(ScalarError::NoConvergence { f, iterations, .. }) => {
+                return Err(CompetitionError::NotConverged {
+                    stage: STAGE,
+                    iterations: spent + iterations,
+                    residual: f.exp_m1().abs(),
+                    tolerance: self.tolerance,
+                    inputs: summary(),
+                })
+            }
+        };
+        if clamped.iter().any(|&c| c > 0.0) {
+            return Err(CompetitionError::Compliance {
+                stage: STAGE,
+                parameter: "inputs",
+                reason: "an input node would have to rise above the supply: its sink transistor \
+                         cannot carry the input current",
+                fix: "widen the sink transistors (W/L), lower the input currents, or raise the supply",
+                inputs: summary(),
+            });
+        }
+        Ok(vc)
+    }
+
+    /// Evaluate outputs and the relative residual at the voltages in `ws.v`, `vc`.
+    fn finish(&self, inputs: &[f64], vc: f64, ws: &Workspace, out: &mut StageSolution) -> f64 {
+        let n = self.n;
+        let mut res: f64 = 0.0;
+        let mut s = 0.0;
+        for k in 0..n {
+            let vk = ws.v[k];
+            let ib = self.output_fast[k].id(vk, self.output_voltage, vc);
+            out.outputs[k] = ib;
+            s += ib;
+            if inputs[k] > 0.0 {
+                let ia = self.sink_fast[k].id(vc, vk, 0.0);
+                res = res.max(((ia - inputs[k]) / inputs[k]).abs());
+            }
+        }
+        let (ibias, _) = self.bias_fast.eval(vc);
+        res.max(((s - ibias) / ibias).abs())
+    }
+}
+
+impl CompetitionStage for WtaCircuit {
+    fn n(&self) -> usize {
+        self.n
+    }
+
+    fn node_count(&self) -> usize {
+        self.n + 1
+    }
+
+    fn node_name(&self, i: usize) -> String {
+        if i == self.n {
+            "V_C".to_string()
+        } else {
+            format!("V_{i}")
+        }
+    }
+
+    fn stage_name(&self) -> &'static str {
+        STAGE
+    }
+
+    fn input_unit(&self) -> &'static str {
+        "A"
+    }
+
+    fn solve(
+        &self,
+        inputs: &[f64],
+        ws: &mut Workspace,
+        out: &mut StageSolution,
+    ) -> Result<(), CompetitionError> {
+        let n = self.n;
+        validate_inputs(STAGE, n, inputs, "A", true)?;
+        ws.ensure(n);
+        out.resize(n, n + 1);
+        let (vc, iterations, residual, method) = match self.newton(inputs, ws, out) {
+            NewtonEnd::Converged(it, res) => (out.node_voltages[n], it, res, SolveMethod::Newton),
+            NewtonEnd::Gave(spent) => {
+                let (vc, it) = self.bracketing(inputs, ws, spent)?;
+                let res = self.finish(inputs, vc, ws, out);
+                if res.is_nan() || res > self.tolerance {
+                    return Err(CompetitionError::NotConverged {
+                        stage: STAGE,
+                        iterations: it,
+                        residual: res,
+                        tolerance: self.tolerance,
+                        inputs: InputSummary::of(inputs),
+                    });
+                }
+                (vc, it, res, SolveMethod::Bracketing)
+            }
+        };
+        out.node_voltages[..n].copy_from_slice(&ws.v[..n]);
+        out.node_voltages[n] = vc;
+        fill_shares(&out.outputs, &mut out.shares);
+        out.info = SolveInfo {
+            iterations,
+            residual,
+            converged: true,
+            method,
+        };
+        Ok(())
+    }
+}
