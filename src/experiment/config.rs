@@ -24,12 +24,8 @@ use crate::units::{quantity_from_toml, Dimension};
 /// when the key is in the file), and says what to write instead.
 #[derive(Debug, thiserror::Error)]
 pub enum ConfigError {
-    #[error("cannot read experiment file `{path}`: {source}. Check the path")]
-    Read {
-        path: PathBuf,
-        #[source]
-        source: std::io::Error,
-    },
+    #[error("cannot read experiment file `{path}`: {err}. Check the path")]
+    Read { path: PathBuf, err: std::io::Error },
     #[error("`{path}` is not valid TOML: {message}")]
     Syntax { path: PathBuf, message: String },
     #[error("`{path}`{line}: key `{key}`: {message}{hint}")]
@@ -42,12 +38,8 @@ pub enum ConfigError {
     },
     #[error("command-line override `{text}`: {message}. Write it as key.path=value, e.g. competition.bias_current=\"50 nA\"")]
     Override { text: String, message: String },
-    #[error("`{path}`: sweep: {source}")]
-    Sweep {
-        path: PathBuf,
-        #[source]
-        source: SweepError,
-    },
+    #[error("`{path}`: sweep: {err}")]
+    Sweep { path: PathBuf, err: SweepError },
     #[error("`{path}`: sweep point {point} ({settings}): {message}")]
     Point {
         path: PathBuf,
@@ -502,6 +494,55 @@ pub struct Experiment {
 #[allow(dead_code)]
 type _Unused = (Q<Current>,);
 
+impl Experiment {
+    /// An experiment with every optional key present (values are placeholders): the reference
+    /// for which keys exist and what type and unit each has.
+    pub fn schema_example() -> Experiment {
+        let mut e = Experiment {
+            name: "example".into(),
+            description: String::new(),
+            dataset: DatasetCfg {
+                name: Some("iris".into()),
+                file: Some("data.csv".into()),
+                label_column: default_label(),
+                ignore_columns: vec![],
+                test_fraction: default_test_fraction(),
+                split_seed: 1,
+            },
+            training: TrainingCfg::default(),
+            process: ProcessCfg::default(),
+            input: InputCfg::default(),
+            weights: WeightsCfg::default(),
+            competition: CompetitionCfg::default(),
+            conditions: ConditionsCfg::default(),
+            population: PopulationCfg::default(),
+            target: TargetCfg::default(),
+            sweep: SweepSpec::default(),
+        };
+        e.process.vdd = Some(Q::new(1.8));
+        for d in [&mut e.process.nmos, &mut e.process.pmos] {
+            *d = DeviceCfg {
+                vt0: Some(Q::new(0.4)),
+                n: Some(1.3),
+                mu_cox: Some(Q::new(1e-4)),
+                a_vt: Some(Q::new(5e-9)),
+                a_beta: Some(Q::new(1e-8)),
+                vt0_tempco: Some(Q::new(-1e-3)),
+                beta_temp_exponent: Some(-1.5),
+                early_voltage_per_length: Some(1e7),
+                kf: Some(1e-25),
+            };
+        }
+        e.weights.offset_current = Some(Q::new(1e-9));
+        e.weights.w_min = Some(0.0);
+        e.competition.gain = Some(300.0);
+        e.competition.output_voltage = Some(Q::new(1.8));
+        e.competition.read_time = Some(Q::new(1e-6));
+        e.competition.input_resistance = Some(Q::new(1e6));
+        e
+    }
+}
+
 // ---------------------------------------------------------------------------------------------
 // Loading
 // ---------------------------------------------------------------------------------------------
@@ -549,9 +590,9 @@ fn describe_point(axes: &[Axis], p: &PointIndex) -> String {
 
 /// Load, override, check and resolve an experiment file.
 pub fn load(file: &Path, overrides: &[String]) -> Result<Resolved, ConfigError> {
-    let text = std::fs::read_to_string(file).map_err(|source| ConfigError::Read {
+    let text = std::fs::read_to_string(file).map_err(|err| ConfigError::Read {
         path: file.into(),
-        source,
+        err,
     })?;
     load_str(&text, file, overrides)
 }
@@ -589,9 +630,9 @@ pub fn load_str(text: &str, file: &Path, overrides: &[String]) -> Result<Resolve
     })?;
     let axes = resolve_axes(&base, &resolved_tree, file)?;
     let points =
-        super::sweep::points(&axes, base.sweep.combine).map_err(|source| ConfigError::Sweep {
+        super::sweep::points(&axes, base.sweep.combine).map_err(|err| ConfigError::Sweep {
             path: file.into(),
-            source,
+            err,
         })?;
     let mut at_point = Vec::with_capacity(points.len());
     for p in &points {
@@ -933,12 +974,18 @@ fn check(e: &Experiment, text: &str, file: &Path) -> Result<(), ConfigError> {
 /// Resolve the sweep axes against the resolved tree: the path must exist and hold a number
 /// or a quantity; its unit comes from the resolved value.
 fn resolve_axes(e: &Experiment, resolved: &Value, file: &Path) -> Result<Vec<Axis>, ConfigError> {
-    let leaves = tree::leaf_paths(resolved);
+    // Optional keys absent from the resolved tree are still sweepable: their type and unit come
+    // from an example with every optional key present.
+    let schema = Value::try_from(Experiment::schema_example()).unwrap_or(Value::Boolean(false));
+    let mut leaves = tree::leaf_paths(resolved);
+    leaves.extend(tree::leaf_paths(&schema));
+    leaves.sort();
+    leaves.dedup();
     let mut axes = Vec::new();
     for spec in &e.sweep.axis {
         let sweep_err = |message: String| ConfigError::Sweep {
             path: file.into(),
-            source: SweepError::Value {
+            err: SweepError::Value {
                 path: spec.path.clone(),
                 message,
             },
@@ -946,7 +993,8 @@ fn resolve_axes(e: &Experiment, resolved: &Value, file: &Path) -> Result<Vec<Axi
         if spec.path.starts_with("sweep") {
             return Err(sweep_err("the sweep cannot sweep itself".into()));
         }
-        let Some(current) = tree::get(resolved, &spec.path) else {
+        let current = tree::get(resolved, &spec.path).or_else(|| tree::get(&schema, &spec.path));
+        let Some(current) = current else {
             let hint = tree::closest(&spec.path, leaves.iter().map(|s| s.as_str()))
                 .map(|s| format!("; did you mean `{s}`?"))
                 .unwrap_or_default();
@@ -1001,9 +1049,9 @@ fn resolve_axes(e: &Experiment, resolved: &Value, file: &Path) -> Result<Vec<Axi
         };
         let axis = spec
             .resolve(&unit, integer, &parse)
-            .map_err(|source| ConfigError::Sweep {
+            .map_err(|err| ConfigError::Sweep {
                 path: file.into(),
-                source,
+                err,
             })?;
         axes.push(axis);
     }

@@ -19,8 +19,8 @@ use rand_distr::StandardNormal;
 use serde::{Deserialize, Serialize};
 
 use super::error::{check_nonneg, check_pos, invalid, Result};
-use super::mismatch_standin::sample_mismatch;
 use super::Conditions;
+use crate::device::mismatch::sample_mismatch;
 use crate::device::{MosMismatch, Process, Transistor};
 use crate::physics::thermal_voltage;
 

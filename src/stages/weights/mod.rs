@@ -27,7 +27,6 @@ pub mod element;
 pub mod error;
 pub mod input;
 pub mod mapping;
-mod mismatch_standin;
 pub mod stage;
 
 use serde::{Deserialize, Serialize};

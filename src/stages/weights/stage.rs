@@ -7,8 +7,8 @@ use super::effective::EffectiveStage;
 use super::element::ElementArrayChip;
 use super::error::{Result, WeightStageError};
 use super::mapping::{MappedStage, SignedEncoding};
-use super::mismatch_standin::sample_mismatch;
 use super::Conditions;
+use crate::device::mismatch::sample_mismatch;
 use crate::device::{MosMismatch, Process, Transistor};
 
 /// One chip's static draws for one weight stage: programmed elements (with programming error,

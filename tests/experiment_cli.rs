@@ -1,0 +1,324 @@
+//! The experiment runner through the binary: reproducibility across thread counts, resume after
+//! a kill, batch runs, and every bad-input case of an experiment file (messages checked).
+
+use std::path::{Path, PathBuf};
+use std::process::Command;
+use std::time::{Duration, Instant};
+
+use assert_cmd::prelude::*;
+use predicates::prelude::*;
+
+fn hardmax() -> Command {
+    Command::cargo_bin("hardmax").expect("binary built")
+}
+
+fn write(dir: &Path, name: &str, text: &str) -> PathBuf {
+    let p = dir.join(name);
+    std::fs::write(&p, text).expect("write experiment");
+    p
+}
+
+const SMALL: &str = r#"
+description = "iris, two bias currents (test)"
+[dataset]
+name = "iris"
+[population]
+chips = 24
+seed = 5
+[[sweep.axis]]
+path = "competition.bias_current"
+values = ["20 nA", "200 nA"]
+"#;
+
+fn read(p: &Path) -> Vec<u8> {
+    std::fs::read(p).unwrap_or_else(|e| panic!("{}: {e}", p.display()))
+}
+
+/// Same seed, 1 thread and 2 threads: byte-identical tables.
+#[test]
+fn thread_count_does_not_change_results() {
+    let dir = tempfile::tempdir().unwrap();
+    let exp = write(dir.path(), "small.toml", SMALL);
+    for (t, out) in [("1", "a"), ("2", "b")] {
+        hardmax()
+            .args(["run", "--quiet", "--no-report", "--threads", t, "--out"])
+            .arg(dir.path().join(out))
+            .arg(&exp)
+            .assert()
+            .success();
+    }
+    for f in [
+        "points.csv",
+        "chips.csv",
+        "confusion.csv",
+        "experiment.toml",
+    ] {
+        assert!(
+            read(&dir.path().join("a").join(f)) == read(&dir.path().join("b").join(f)),
+            "{f} differs between 1 and 2 threads"
+        );
+    }
+    // And the tables are not trivial: 2 points x 24 chips.
+    let chips = String::from_utf8(read(&dir.path().join("a/chips.csv"))).unwrap();
+    assert_eq!(chips.lines().count(), 1 + 2 * 24);
+}
+
+/// Kill a run part-way (SIGKILL), resume it, and compare with an uninterrupted run.
+#[test]
+fn killed_run_resumes_to_identical_files() {
+    let dir = tempfile::tempdir().unwrap();
+    let exp = write(
+        dir.path(),
+        "resume.toml",
+        r#"
+[dataset]
+name = "digits"
+[population]
+chips = 12
+[[sweep.axis]]
+path = "competition.gain"
+values = [50, 100, 200, 400, 800, 1600]
+"#,
+    );
+    let full = dir.path().join("full");
+    hardmax()
+        .args(["run", "--quiet", "--no-report", "--out"])
+        .arg(&full)
+        .arg(&exp)
+        .assert()
+        .success();
+
+    let cut = dir.path().join("cut");
+    let mut killed_mid_run = false;
+    for _attempt in 0..3 {
+        let _ = std::fs::remove_dir_all(&cut);
+        let mut child = hardmax()
+            .args(["run", "--quiet", "--no-report", "--threads", "1", "--out"])
+            .arg(&cut)
+            .arg(&exp)
+            .spawn()
+            .unwrap();
+        let t0 = Instant::now();
+        loop {
+            let done = std::fs::read_dir(cut.join("points"))
+                .map(|d| d.count())
+                .unwrap_or(0);
+            if done >= 1 || t0.elapsed() > Duration::from_secs(120) {
+                break;
+            }
+            std::thread::sleep(Duration::from_millis(5));
+        }
+        let still_running = child.try_wait().unwrap().is_none();
+        let _ = child.kill();
+        let _ = child.wait();
+        let done = std::fs::read_dir(cut.join("points"))
+            .map(|d| d.count())
+            .unwrap_or(0);
+        if still_running && done < 6 {
+            killed_mid_run = true;
+            break;
+        }
+    }
+    assert!(killed_mid_run, "could not interrupt the run part-way");
+    let manifest = String::from_utf8(read(&cut.join("manifest.json"))).unwrap();
+    assert!(manifest.contains("\"partial\""), "{manifest}");
+    hardmax()
+        .args(["run", "--no-report", "--out"])
+        .arg(&cut)
+        .arg(&exp)
+        .assert()
+        .success()
+        .stdout(predicate::str::contains("resumed"));
+    for f in ["points.csv", "chips.csv", "confusion.csv"] {
+        assert!(
+            read(&full.join(f)) == read(&cut.join(f)),
+            "{f} differs after resume:\n{}\n---\n{}",
+            String::from_utf8_lossy(&read(&full.join(f))),
+            String::from_utf8_lossy(&read(&cut.join(f)))
+        );
+    }
+    let manifest = String::from_utf8(read(&cut.join("manifest.json"))).unwrap();
+    assert!(manifest.contains("\"complete\""), "{manifest}");
+}
+
+/// Batch: runs what is new, skips what is up to date, goes on past a failure, exits non-zero.
+#[test]
+fn batch_skips_up_to_date_and_reports_failures() {
+    let dir = tempfile::tempdir().unwrap();
+    let exps = dir.path().join("exps");
+    std::fs::create_dir_all(&exps).unwrap();
+    write(&exps, "a_good.toml", SMALL);
+    write(
+        &exps,
+        "b_bad.toml",
+        "[dataset]\nname = \"iris\"\n[population]\nchips = 0\n",
+    );
+    let root = dir.path().join("results");
+    let run = || {
+        let mut c = hardmax();
+        c.args(["batch", "--quiet", "--no-report", "--out-root"])
+            .arg(&root)
+            .arg(&exps);
+        c
+    };
+    run()
+        .assert()
+        .failure()
+        .stdout(predicate::str::contains("ran").and(predicate::str::contains("FAILED")))
+        .stderr(predicate::str::contains("1 of 2 experiments failed"));
+    assert!(root.join("a_good/points.csv").exists());
+    run()
+        .assert()
+        .failure()
+        .stdout(predicate::str::contains("up to date"));
+}
+
+fn expect_error(dir: &Path, text: &str, needles: &[&str]) {
+    let exp = write(dir, "bad.toml", text);
+    let out = dir.join("out-bad");
+    let assert = hardmax()
+        .args(["run", "--quiet", "--no-report", "--out"])
+        .arg(&out)
+        .arg(&exp)
+        .assert()
+        .failure();
+    let stderr = String::from_utf8_lossy(&assert.get_output().stderr).to_string();
+    for n in needles {
+        assert!(stderr.contains(n), "expected {n:?} in:\n{stderr}");
+    }
+    assert!(!stderr.contains("panicked"), "{stderr}");
+    assert!(!out.exists(), "a failing run created its output folder");
+}
+
+#[test]
+fn bad_experiment_files_get_clear_errors() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    // Unknown key, with the closest valid key suggested and the line.
+    expect_error(
+        d,
+        "[dataset]\nname = \"iris\"\n[competition]\nbias_curent = \"10 nA\"\n",
+        &[
+            "competition.bias_curent",
+            "line 4",
+            "did you mean `bias_current`",
+        ],
+    );
+    // A value with the wrong unit.
+    expect_error(
+        d,
+        "[dataset]\nname = \"iris\"\n[competition]\nbias_current = \"10 nV\"\n",
+        &["competition.bias_current", "10 nV", "current"],
+    );
+    // A sweep over a non-numeric path.
+    expect_error(
+        d,
+        "[dataset]\nname = \"iris\"\n[[sweep.axis]]\npath = \"process.preset\"\nvalues = [1, 2]\n",
+        &["process.preset", "only numeric parameters"],
+    );
+    // A sweep over an unknown path.
+    expect_error(
+        d,
+        "[dataset]\nname = \"iris\"\n[[sweep.axis]]\npath = \"competition.bias_curent\"\nvalues = [1e-9]\n",
+        &["competition.bias_curent", "did you mean `competition.bias_current`"],
+    );
+    // An empty sweep list.
+    expect_error(
+        d,
+        "[dataset]\nname = \"iris\"\n[[sweep.axis]]\npath = \"competition.bias_current\"\nvalues = []\n",
+        &["competition.bias_current", "empty"],
+    );
+    // Zero chips.
+    expect_error(
+        d,
+        "[dataset]\nname = \"iris\"\n[population]\nchips = 0\n",
+        &["population.chips", "at least 1 chip"],
+    );
+    // A dataset that does not exist (shipped name, then a file).
+    expect_error(
+        d,
+        "[dataset]\nname = \"irsi\"\n",
+        &["dataset.name", "did you mean `iris`"],
+    );
+    expect_error(
+        d,
+        "[dataset]\nfile = \"no-such-file.csv\"\n",
+        &["no-such-file.csv"],
+    );
+    // Not TOML at all.
+    expect_error(d, "[dataset\nname = 1\n", &["not valid TOML"]);
+}
+
+#[test]
+fn unwritable_output_and_foreign_folders_are_refused_without_damage() {
+    let dir = tempfile::tempdir().unwrap();
+    let exp = write(dir.path(), "small.toml", SMALL);
+    // Output "folder" that is a file: cannot be created.
+    let file = dir.path().join("a-file");
+    std::fs::write(&file, "keep me").unwrap();
+    hardmax()
+        .args(["run", "--quiet", "--no-report", "--out"])
+        .arg(file.join("sub"))
+        .arg(&exp)
+        .assert()
+        .failure()
+        .stderr(predicate::str::contains("cannot be created or written"));
+    assert_eq!(std::fs::read_to_string(&file).unwrap(), "keep me");
+    // A folder holding someone else's files.
+    let foreign = dir.path().join("mine");
+    std::fs::create_dir_all(&foreign).unwrap();
+    std::fs::write(foreign.join("notes.txt"), "keep").unwrap();
+    hardmax()
+        .args(["run", "--quiet", "--no-report", "--out"])
+        .arg(&foreign)
+        .arg(&exp)
+        .assert()
+        .failure()
+        .stderr(predicate::str::contains("not a hardmax results folder"));
+    assert_eq!(
+        std::fs::read_to_string(foreign.join("notes.txt")).unwrap(),
+        "keep"
+    );
+    // Results of another experiment are not overwritten by a different one.
+    let out = dir.path().join("res");
+    hardmax()
+        .args(["run", "--quiet", "--no-report", "--out"])
+        .arg(&out)
+        .arg(&exp)
+        .assert()
+        .success();
+    let before = read(&out.join("points.csv"));
+    hardmax()
+        .args([
+            "run",
+            "--quiet",
+            "--no-report",
+            "--set",
+            "population.chips=3",
+            "--out",
+        ])
+        .arg(&out)
+        .arg(&exp)
+        .assert()
+        .failure()
+        .stderr(predicate::str::contains("different experiment"));
+    assert_eq!(read(&out.join("points.csv")), before);
+}
+
+#[test]
+fn resolve_prints_every_default_and_overrides() {
+    let dir = tempfile::tempdir().unwrap();
+    let exp = write(dir.path(), "small.toml", SMALL);
+    hardmax()
+        .args(["resolve", "--points", "--set", "population.chips=7"])
+        .arg(&exp)
+        .assert()
+        .success()
+        .stdout(
+            predicate::str::contains("chips = 7")
+                .and(predicate::str::contains("a_vt"))
+                .and(predicate::str::contains(
+                    "# point 1: competition.bias_current = 200 nA",
+                )),
+        );
+}
