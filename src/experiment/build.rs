@@ -7,9 +7,9 @@ use super::config::{CircuitKind, ElementKind, EncodingKind, Experiment, SigmaKin
 use crate::data::{load_csv, CsvOptions, Dataset};
 use crate::device::presets::preset;
 use crate::device::{DrainCoupling, Polarity, Process, Transistor};
-use crate::pipeline::{
-    prepare, ClassifierDesign, CompetitionDesign, InputNoise, PointSetup, Prepared,
-};
+use crate::pipeline::{prepare, ClassifierDesign, CompetitionDesign, PointSetup, Prepared};
+use crate::stages::competition::diffpair::{DiffPairDesign, DiffPairInput, TailSource};
+use crate::stages::competition::noise::{InputShotNoise, NoiseBandwidth};
 use crate::stages::competition::wta::{WtaBias, WtaDesign};
 use crate::stages::competition::DecisionRule;
 use crate::stages::weights::{
@@ -173,7 +173,36 @@ pub fn design(e: &Experiment, n_classes: usize) -> Result<ClassifierDesign, Stri
     let c = &e.competition;
     let competition = match c.circuit {
         CircuitKind::Argmax => CompetitionDesign::Argmax,
-        CircuitKind::CurrentWta | CircuitKind::DiffPair => {
+        CircuitKind::DiffPair => {
+            let input = match c.input_resistance {
+                Some(r) => DiffPairInput::Resistor {
+                    resistance: r.si(),
+                    reference: c.resistor_reference.si(),
+                },
+                None => DiffPairInput::Diode {
+                    device: transistor(&c.sink),
+                },
+            };
+            let mut w = DiffPairDesign::new(
+                n_classes,
+                process.clone(),
+                transistor(&c.output),
+                TailSource::Ideal {
+                    current: c.bias_current.si(),
+                },
+                input,
+            );
+            if let Some(v) = c.output_voltage {
+                w.output_voltage = v.si();
+            }
+            if let Some(g) = c.gain {
+                w.drain_coupling = Some(DrainCoupling::Eta(1.0 / g));
+            }
+            w.input_capacitance = c.node_capacitance.si();
+            w.source_capacitance = c.common_capacitance.si();
+            CompetitionDesign::DiffPair(Box::new(w))
+        }
+        CircuitKind::CurrentWta => {
             let mut w = WtaDesign::new(
                 n_classes,
                 process.clone(),
@@ -195,6 +224,16 @@ pub fn design(e: &Experiment, n_classes: usize) -> Result<ClassifierDesign, Stri
             CompetitionDesign::CurrentWta(Box::new(w))
         }
     };
+    let input_noise = c.noise.then(|| InputShotNoise {
+        bandwidth: match c.noise_bandwidth {
+            Some(b) => NoiseBandwidth::Fixed(b.si()),
+            None => NoiseBandwidth::SinglePole {
+                capacitance: c.node_capacitance.si(),
+                kappa: 1.0 / process.nmos.n,
+            },
+        },
+        temperature: e.conditions.temperature.si(),
+    });
     Ok(ClassifierDesign {
         process,
         weights: weight_stage(e),
@@ -203,9 +242,7 @@ pub fn design(e: &Experiment, n_classes: usize) -> Result<ClassifierDesign, Stri
             min_winner_share: c.min_winner_share,
             max_runner_up_share: c.max_runner_up_share,
         },
-        input_noise: c.noise.then_some(InputNoise {
-            bandwidth: c.noise_bandwidth.si(),
-        }),
+        input_noise,
         conditions: Conditions {
             temperature_k: e.conditions.temperature.si(),
             time_since_programming_s: e.conditions.time_since_programming.si(),

@@ -367,7 +367,10 @@ pub struct CompetitionCfg {
     pub output_voltage: Option<Q<Voltage>>,
     /// Per-decision shot noise of the input currents over `noise_bandwidth`.
     pub noise: bool,
-    pub noise_bandwidth: Q<Frequency>,
+    /// Noise bandwidth; absent = each input node's single-pole equivalent noise bandwidth
+    /// kappa I / (4 C U_T) with C = `node_capacitance`.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub noise_bandwidth: Option<Q<Frequency>>,
     /// A decision is ambiguous when the winner's share is below this ...
     pub min_winner_share: f64,
     /// ... or the runner-up's share is above this.
@@ -383,6 +386,8 @@ pub struct CompetitionCfg {
     /// Diff pair fed through resistors instead of diode-connected devices: the resistance.
     #[serde(skip_serializing_if = "Option::is_none")]
     pub input_resistance: Option<Q<Resistance>>,
+    /// Diff pair with resistor inputs: the voltage at zero input current.
+    pub resistor_reference: Q<Voltage>,
 }
 
 impl Default for CompetitionCfg {
@@ -395,7 +400,7 @@ impl Default for CompetitionCfg {
             gain: None,
             output_voltage: None,
             noise: false,
-            noise_bandwidth: Q::new(10e3),
+            noise_bandwidth: None,
             min_winner_share: crate::stages::competition::DecisionRule::default().min_winner_share,
             max_runner_up_share: crate::stages::competition::DecisionRule::default()
                 .max_runner_up_share,
@@ -404,6 +409,7 @@ impl Default for CompetitionCfg {
             common_capacitance: Q::new(200e-15),
             read_time: None,
             input_resistance: None,
+            resistor_reference: Q::new(0.4),
         }
     }
 }
@@ -539,6 +545,7 @@ impl Experiment {
         e.competition.output_voltage = Some(Q::new(1.8));
         e.competition.read_time = Some(Q::new(1e-6));
         e.competition.input_resistance = Some(Q::new(1e6));
+        e.competition.noise_bandwidth = Some(Q::new(1e4));
         e
     }
 }
@@ -935,7 +942,7 @@ fn check(e: &Experiment, text: &str, file: &Path) -> Result<(), ConfigError> {
         ("competition.bias_current", e.competition.bias_current.si()),
         (
             "competition.noise_bandwidth",
-            e.competition.noise_bandwidth.si(),
+            e.competition.noise_bandwidth.map_or(1.0, |b| b.si()),
         ),
         (
             "competition.node_capacitance",

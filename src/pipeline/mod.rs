@@ -10,14 +10,13 @@
 //! So a chip's outcome depends only on (seed, point, chip), never on thread scheduling.
 
 use ndarray::Array2;
-use rand::Rng;
-use rand_distr::StandardNormal;
 
 use crate::data::{stratified_split, Dataset};
 use crate::device::mismatch::sample_mismatch;
 use crate::device::Process;
-use crate::physics::ELEMENTARY_CHARGE;
 use crate::rng::{domain, stream};
+use crate::stages::competition::diffpair::{DiffPairChip, DiffPairDesign};
+use crate::stages::competition::noise::InputShotNoise;
 use crate::stages::competition::wta::{WtaChip, WtaDesign};
 use crate::stages::competition::{
     CompetitionError, CompetitionStage, DecisionRule, StageSolution, Workspace,
@@ -93,16 +92,10 @@ pub fn prepare(
 pub enum CompetitionDesign {
     /// Current-mode WTA (full EKV DC solve per decision).
     CurrentWta(Box<WtaDesign>),
+    /// Multi-input differential pair fed with the weight-stage currents.
+    DiffPair(Box<DiffPairDesign>),
     /// Exact argmax of the weight stage's output currents (no circuit).
     Argmax,
-}
-
-/// Per-decision input-referred noise of the competition stage.
-#[derive(Debug, Clone, Copy, PartialEq)]
-pub struct InputNoise {
-    /// Noise bandwidth B, Hz: each input current I gets a Gaussian of sigma sqrt(2 q I B)
-    /// (shot noise, R. Sarpeshkar, T. Delbrück, C. Mead, IEEE Circuits & Devices 9(6), 1993).
-    pub bandwidth: f64,
 }
 
 /// Everything nominal about one design point.
@@ -112,7 +105,8 @@ pub struct ClassifierDesign {
     pub weights: WeightStageDesign,
     pub competition: CompetitionDesign,
     pub decision: DecisionRule,
-    pub input_noise: Option<InputNoise>,
+    /// Per-decision input-referred shot noise of the competition stage's inputs.
+    pub input_noise: Option<InputShotNoise>,
     pub conditions: Conditions,
 }
 
@@ -128,8 +122,13 @@ impl PointSetup {
     pub fn new(design: ClassifierDesign, prep: &Prepared) -> Result<Self, PipelineError> {
         design.weights.validate()?;
         design.conditions.validate()?;
-        if let CompetitionDesign::CurrentWta(w) = &design.competition {
-            w.validate()?;
+        match &design.competition {
+            CompetitionDesign::CurrentWta(w) => w.validate()?,
+            CompetitionDesign::DiffPair(w) => w.validate()?,
+            CompetitionDesign::Argmax => {}
+        }
+        if let Some(n) = &design.input_noise {
+            n.validate()?;
         }
         let mapped = design.weights.map(prep.weights.view(), prep.bias.view())?;
         Ok(Self { design, mapped })
@@ -139,6 +138,13 @@ impl PointSetup {
     pub fn describe(&self) -> String {
         match &self.design.competition {
             CompetitionDesign::Argmax => "exact argmax of the weight-stage currents".into(),
+            CompetitionDesign::DiffPair(w) => format!(
+                "multi-input differential pair, {} inputs, pair devices {} x {}, {:?} inputs",
+                w.n,
+                crate::units::format_si(w.pair.w, "m", 3),
+                crate::units::format_si(w.pair.l, "m", 3),
+                w.input
+            ),
             CompetitionDesign::CurrentWta(w) => format!(
                 "current-mode WTA, {} cells, sink {} x {}, output {} x {}, {}",
                 w.n,
@@ -181,6 +187,8 @@ pub struct ChipOutcome {
     pub timed: u64,
     /// A chip that could not be built at all (e.g. a sampled device out of range).
     pub chip_error: Option<String>,
+    /// The first failed decision's reason (solver or compliance), if any.
+    pub first_failure: Option<String>,
 }
 
 impl ChipOutcome {
@@ -197,6 +205,7 @@ impl ChipOutcome {
             energy_sum: 0.0,
             timed: 0,
             chip_error: None,
+            first_failure: None,
         }
     }
 
@@ -222,6 +231,7 @@ impl ChipOutcome {
 
 enum Decider {
     Wta(Box<crate::stages::competition::wta::WtaCircuit>),
+    DiffPair(Box<crate::stages::competition::diffpair::DiffPairCircuit>),
     Argmax,
 }
 
@@ -248,6 +258,13 @@ pub fn evaluate_chip(
                     WtaChip::sample((**w).clone(), |t| sample_mismatch(&mut chip_rng, &tech, t))?;
                 Decider::Wta(Box::new(cchip.at(d.conditions.temperature_k)?))
             }
+            CompetitionDesign::DiffPair(w) => {
+                let tech = d.process.nmos.clone();
+                let cchip = DiffPairChip::sample((**w).clone(), |t| {
+                    sample_mismatch(&mut chip_rng, &tech, t)
+                })?;
+                Decider::DiffPair(Box::new(cchip.at(d.conditions.temperature_k)?))
+            }
         };
         Ok((eff, decider))
     })();
@@ -266,6 +283,7 @@ pub fn evaluate_chip(
     };
     let mut noise_rng = stream(seed, &[domain::SAMPLE_NOISE, point, chip]);
     let mut currents = vec![0.0; eff.outputs()];
+    let mut noisy = vec![0.0; eff.outputs()];
     let mut ws = Workspace::new();
     let mut sol = StageSolution::default();
     let noisy_weights = eff.has_read_noise();
@@ -285,22 +303,35 @@ pub fn evaluate_chip(
             out.confusion[truth][n_classes + 1] += 1;
             continue;
         }
-        if let Some(n) = d.input_noise {
-            for c in currents.iter_mut() {
-                let sigma = (2.0 * ELEMENTARY_CHARGE * c.max(0.0) * n.bandwidth).sqrt();
-                let z: f64 = noise_rng.sample(StandardNormal);
-                *c = (*c + sigma * z).max(0.0);
-            }
-        }
-        let decided = match &decider {
-            Decider::Argmax => crate::training::argmax(&currents).map(|w| (w, false)),
-            Decider::Wta(c) => match c.solve(&currents, &mut ws, &mut sol) {
-                Ok(()) => {
-                    let dcs = sol.decide(&d.decision);
-                    Some((dcs.winner, dcs.ambiguous))
+        let inputs: &[f64] = match &d.input_noise {
+            Some(n) => {
+                if n.apply(&currents, &mut noisy, &mut noise_rng).is_err() {
+                    out.nonconverged += 1;
+                    out.confusion[truth][n_classes + 1] += 1;
+                    continue;
                 }
-                Err(_) => None,
-            },
+                &noisy
+            }
+            None => &currents,
+        };
+        let decided = match &decider {
+            Decider::Argmax => crate::training::argmax(inputs).map(|w| (w, false)),
+            Decider::Wta(c) => solve_decide(
+                c.as_ref(),
+                inputs,
+                &mut ws,
+                &mut sol,
+                &d.decision,
+                &mut out.first_failure,
+            ),
+            Decider::DiffPair(c) => solve_decide(
+                c.as_ref(),
+                inputs,
+                &mut ws,
+                &mut sol,
+                &d.decision,
+                &mut out.first_failure,
+            ),
         };
         match decided {
             None => {
@@ -325,4 +356,27 @@ pub fn evaluate_chip(
         }
     }
     out
+}
+
+/// One DC solve and decision; `None` when the solve failed (counted as non-converged).
+fn solve_decide<S: CompetitionStage + ?Sized>(
+    stage: &S,
+    inputs: &[f64],
+    ws: &mut Workspace,
+    sol: &mut StageSolution,
+    rule: &DecisionRule,
+    first_failure: &mut Option<String>,
+) -> Option<(usize, bool)> {
+    match stage.solve(inputs, ws, sol) {
+        Ok(()) => {
+            let d = sol.decide(rule);
+            Some((d.winner, d.ambiguous))
+        }
+        Err(e) => {
+            if first_failure.is_none() {
+                *first_failure = Some(e.to_string());
+            }
+            None
+        }
+    }
 }
