@@ -61,19 +61,19 @@ fn render_with_transfer_curve_and_point() {
         .arg(d.path())
         .assert()
         .success()
-        .stdout(predicate::str::contains("transfer_transfer_wta.svg"));
+        .stdout(predicate::str::contains("transfer_wta.svg"));
     let html = fs::read_to_string(d.path().join("report.html")).unwrap();
     assert!(html.contains("input current of output 0"));
     assert!(html.contains(r#"<tr class="focus" id="point-3">"#));
     // The stored curve stays: a plain re-render still draws it.
-    fs::remove_file(d.path().join("plots/transfer_transfer_wta.svg")).unwrap();
+    fs::remove_file(d.path().join("plots/transfer_wta.svg")).unwrap();
     Command::cargo_bin("hardmax")
         .unwrap()
         .arg("render")
         .arg(d.path())
         .assert()
         .success();
-    assert!(d.path().join("plots/transfer_transfer_wta.svg").is_file());
+    assert!(d.path().join("plots/transfer_wta.svg").is_file());
 }
 
 #[test]

@@ -408,7 +408,7 @@ fn every_svg_parses_and_has_axis_labels() {
             &["mean decision time of one chip (s)", "chips"],
         ),
         (
-            "transfer_transfer_wta.svg",
+            "transfer_wta.svg",
             &["input current of output 0 (A)", "output share", "10 nA"],
         ),
     ];
@@ -463,4 +463,72 @@ fn confusion_figure_shows_the_counts_of_confusion_csv() {
     let numbers: Vec<u64> = texts.iter().filter_map(|t| t.parse().ok()).collect();
     let expected: Vec<u64> = m.iter().flatten().copied().collect();
     assert_eq!(numbers, expected);
+}
+
+/// Keep only some columns (by name) and the rows whose `point` passes `keep`.
+fn filter_csv(path: &Path, drop_cols: &[&str], keep: impl Fn(&str) -> bool) {
+    let mut rdr = csv::Reader::from_path(path).unwrap();
+    let header: Vec<String> = rdr.headers().unwrap().iter().map(String::from).collect();
+    let idx: Vec<usize> = (0..header.len())
+        .filter(|&i| !drop_cols.contains(&header[i].as_str()))
+        .collect();
+    let mut out = csv::Writer::from_writer(Vec::new());
+    out.write_record(idx.iter().map(|&i| header[i].as_str()))
+        .unwrap();
+    for rec in rdr.records() {
+        let rec = rec.unwrap();
+        if keep(&rec[0]) {
+            out.write_record(idx.iter().map(|&i| &rec[i])).unwrap();
+        }
+    }
+    fs::write(path, out.into_inner().unwrap()).unwrap();
+}
+
+#[test]
+fn a_partial_run_with_no_finished_point_still_renders() {
+    let d = copy_of("partial");
+    for f in ["points.csv", "chips.csv", "confusion.csv"] {
+        filter_csv(&d.path().join(f), &[], |_| false);
+    }
+    let p = d.path().join("manifest.json");
+    let text = fs::read_to_string(&p)
+        .unwrap()
+        .replace("\"points_done\": 4", "\"points_done\": 0");
+    fs::write(&p, text).unwrap();
+    let s = hardmax::report::render(d.path()).unwrap();
+    assert!(s.partial && s.plots.is_empty() && s.focus_point.is_none());
+    let html = fs::read_to_string(&s.report).unwrap();
+    assert!(html.contains(r#"id="partial-mark""#));
+    assert!(html.contains("No sweep point has finished yet"));
+    check_traceability(d.path());
+}
+
+#[test]
+fn a_single_design_point_without_sweep_renders() {
+    let d = copy_of("complete");
+    let params = ["competition.bias_current", "weights.bits"];
+    for f in ["points.csv", "chips.csv", "confusion.csv"] {
+        filter_csv(&d.path().join(f), &params, |p| p == "0");
+    }
+    let p = d.path().join("manifest.json");
+    let mut m: serde_json::Value = serde_json::from_str(&fs::read_to_string(&p).unwrap()).unwrap();
+    m["sweep"]["parameters"] = serde_json::json!([]);
+    m["points_total"] = 1.into();
+    m["points_done"] = 1.into();
+    fs::write(&p, serde_json::to_string(&m).unwrap()).unwrap();
+    let s = hardmax::report::render(d.path()).unwrap();
+    assert_eq!(s.focus_point, Some(0));
+    // No parameter to plot against: the per-point figures only.
+    let names: Vec<String> = s
+        .plots
+        .iter()
+        .map(|p| p.file_name().unwrap().to_string_lossy().into_owned())
+        .collect();
+    assert_eq!(
+        names,
+        ["chip_accuracy.svg", "confusion.svg", "decision_time.svg"]
+    );
+    let html = fs::read_to_string(&s.report).unwrap();
+    assert!(html.contains("a single design point (no sweep)"));
+    check_traceability(d.path());
 }

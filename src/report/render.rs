@@ -438,8 +438,14 @@ pub fn build_figures(
             x_unit: t.meta.x_unit.clone(),
         };
         let s = slug(&t.name);
+        // `transfer/NAME.csv` -> `plots/transfer_NAME.svg` (no doubled prefix).
+        let file = if s.starts_with("transfer") {
+            format!("{s}.svg")
+        } else {
+            format!("transfer_{s}.svg")
+        };
         figs.push(Figure {
-            file: format!("transfer_{s}.svg"),
+            file,
             id: format!("fig-transfer-{s}"),
             caption: format!(
                 "Output share of each competitor against {} (transfer curve `transfer/{}.csv`).",
