@@ -741,6 +741,27 @@ fn draw_accuracy(plot: &AccuracyPlot, buf: &mut String) -> Result<(), String> {
                     })
                     .collect()
             };
+        // Curves that share the same reference line (e.g. ideal argmax depends only on the
+        // x parameter) get it drawn once, in the reference colour.
+        let same = lines.windows(2).all(|w| match w {
+            [a, b] => {
+                a.1.len() == b.1.len()
+                    && a.1
+                        .iter()
+                        .zip(&b.1)
+                        .all(|(p, q)| (p.0 - q.0).abs() < 1e-12 && (p.1 - q.1).abs() < 1e-12)
+            }
+            _ => true,
+        });
+        let lines = if same {
+            lines
+                .into_iter()
+                .take(1)
+                .map(|(_, pts)| (col, pts))
+                .collect()
+        } else {
+            lines
+        };
         for (c, pts) in &lines {
             draw_styled(&mut chart, pts.clone(), *c, dash)?;
         }
