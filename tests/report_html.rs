@@ -532,3 +532,27 @@ fn a_single_design_point_without_sweep_renders() {
     assert!(html.contains("a single design point (no sweep)"));
     check_traceability(d.path());
 }
+
+#[test]
+fn zip_sweeps_draw_one_curve_and_grids_one_per_other_value() {
+    let mut f = hardmax::report::ResultsFolder::read(&fixture("complete")).unwrap();
+    let grid = hardmax::report::build_figures(&f, Some(0)).unwrap();
+    let acc = &grid
+        .iter()
+        .find(|g| g.file == "accuracy_vs_competition-bias_current.svg")
+        .unwrap()
+        .svg;
+    // Grid: one legend entry per value of weights.bits (4 and 6), read from points.csv.
+    let texts = svg_texts(acc);
+    assert!(texts.iter().any(|t| t == "bits = 4") && texts.iter().any(|t| t == "bits = 6"));
+    f.manifest.sweep.mode = hardmax::report::SweepMode::Zip;
+    let zip = hardmax::report::build_figures(&f, Some(0)).unwrap();
+    let acc = &zip
+        .iter()
+        .find(|g| g.file == "accuracy_vs_competition-bias_current.svg")
+        .unwrap()
+        .svg;
+    let texts = svg_texts(acc);
+    assert!(!texts.iter().any(|t| t.starts_with("bits =")));
+    assert!(texts.iter().any(|t| t == "mean over chips"));
+}
