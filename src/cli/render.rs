@@ -63,7 +63,9 @@ pub fn run(args: RenderArgs) -> anyhow::Result<()> {
     Ok(())
 }
 
-/// Render the plots and report of a results folder (placeholder until the report lands).
-pub fn render_folder(_dir: &std::path::Path) -> anyhow::Result<()> {
-    Ok(())
+/// Render the plots and report of a results folder (used by `run` and `batch` at the end).
+pub fn render_folder(dir: &std::path::Path) -> anyhow::Result<PathBuf> {
+    let summary = report::render(dir)
+        .with_context(|| format!("cannot render the results folder `{}`", dir.display()))?;
+    Ok(summary.report)
 }
