@@ -90,7 +90,7 @@ pub fn process(e: &Experiment) -> Result<Process, String> {
             tech.beta_temp_exponent = v;
         }
         if let Some(v) = cfg.early_voltage_per_length {
-            tech.drain_coupling = DrainCoupling::EarlyVoltagePerLength(v);
+            tech.drain_coupling = DrainCoupling::EarlyVoltagePerLength(v.si());
         }
         if let Some(v) = cfg.kf {
             tech.kf = v;

@@ -14,7 +14,7 @@ use toml::Value;
 
 use super::quantity::{
     Capacitance, Current, FractionLength, Frequency, Length, Resistance, Temperature, Time,
-    Transconductance, Voltage, VoltageLength, VoltagePerKelvin, Q,
+    Transconductance, Voltage, VoltageLength, VoltagePerKelvin, VoltagePerLength, Q,
 };
 use super::sweep::{Axis, PointIndex, SweepError, SweepSpec};
 use super::tree;
@@ -151,9 +151,9 @@ pub struct DeviceCfg {
     pub vt0_tempco: Option<Q<VoltagePerKelvin>>,
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub beta_temp_exponent: Option<f64>,
-    /// Early voltage per channel length in V/m ("10 V/um"); sets the drain coupling.
+    /// Early voltage per channel length ("10 V/um"); sets the drain coupling.
     #[serde(default, skip_serializing_if = "Option::is_none")]
-    pub early_voltage_per_length: Option<f64>,
+    pub early_voltage_per_length: Option<Q<VoltagePerLength>>,
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub kf: Option<f64>,
 }
@@ -535,7 +535,7 @@ impl Experiment {
                 a_beta: Some(Q::new(1e-8)),
                 vt0_tempco: Some(Q::new(-1e-3)),
                 beta_temp_exponent: Some(-1.5),
-                early_voltage_per_length: Some(1e7),
+                early_voltage_per_length: Some(Q::new(1e7)),
                 kf: Some(1e-25),
             };
         }
@@ -788,7 +788,7 @@ fn fill_process_defaults(e: &mut Experiment, text: &str, file: &Path) -> Result<
             .get_or_insert(tech.beta_temp_exponent);
         cfg.kf.get_or_insert(tech.kf);
         if let crate::device::DrainCoupling::EarlyVoltagePerLength(v) = tech.drain_coupling {
-            cfg.early_voltage_per_length.get_or_insert(v);
+            cfg.early_voltage_per_length.get_or_insert(Q::new(v));
         }
     }
     if e.weights.w_min.is_none() {
