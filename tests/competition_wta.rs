@@ -89,7 +89,7 @@ fn weak_inversion_closed_form_log_ratios() {
     }
     // The outputs sum to the bias current (KCL at V_C).
     let s: f64 = out.outputs.iter().sum();
-    assert!((s - base).abs() <= 1e-9 * base);
+    assert!((s - base).abs() <= 1e-8 * base);
     // Shares of the closed form I_k^g / Σ I_j^g (same source): the log-share error is bounded
     // by the same few per cent of the largest log-ratio g ln(I_i/I_j) in play.
     let zs: Vec<f64> = ratios.iter().map(|r: &f64| r.powf(g)).collect();

@@ -30,7 +30,8 @@ pub struct Mos {
 #[inline]
 fn softplus_logistic(h: f64) -> (f64, f64) {
     let e = (-h.abs()).exp();
-    let s = h.max(0.0) + e.ln_1p();
+    // ln(1 + e) = e - e^2/2 + O(e^3): exact to double precision for e < 1e-8, and cheaper.
+    let s = h.max(0.0) + if e < 1e-8 { e - 0.5 * e * e } else { e.ln_1p() };
     let l = if h >= 0.0 {
         1.0 / (1.0 + e)
     } else {
