@@ -600,16 +600,15 @@ impl WtaCircuit {
             let ib = ln_ib.exp();
             let (v, share) = (&mut ws.v[..n], &ws.e[..n]);
             for k in 0..n {
-                let from_a = self.cell_guess(k, inputs[k], vc);
-                v[k] = if inputs[k] > 0.0 && share[k] > 1e-3 {
-                    let g = self.cell_guess_from_output(k, share[k] * ib, vc);
-                    if g.is_finite() && g > 0.0 {
-                        g.min(0.999 * vmax)
-                    } else {
-                        from_a
-                    }
+                let from_b = if inputs[k] > 0.0 && share[k] > 1e-3 {
+                    self.cell_guess_from_output(k, share[k] * ib, vc)
                 } else {
-                    from_a
+                    f64::NAN
+                };
+                v[k] = if from_b.is_finite() && from_b > 0.0 {
+                    from_b.min(0.999 * vmax)
+                } else {
+                    self.cell_guess(k, inputs[k], vc)
                 };
             }
         }
