@@ -24,6 +24,7 @@ use crate::physics::thermal_voltage;
 use crate::solvers::{solve_monotone, ScalarError, ScalarTolerance};
 
 use super::mos::Mos;
+use super::wta::CircuitBias;
 use super::{
     fill_shares, positive, validate_inputs, CompetitionError, CompetitionStage, InputSummary,
     SolveInfo, SolveMethod, StageSolution, Workspace,
@@ -319,15 +320,22 @@ impl DiffPairChip {
                 .collect(),
             _ => Vec::new(),
         };
-        let tail = match d.tail {
-            TailSource::Ideal { current } => Tail::Ideal(current),
+        let tail_desc = match d.tail {
+            TailSource::Ideal { current } => CircuitBias::Ideal(current),
             TailSource::Transistor {
                 device,
                 gate_voltage,
-            } => Tail::Mos(
-                Mos::new(&d.device(&device, temperature, self.tail)),
+            } => CircuitBias::Transistor {
+                device: d.device(&device, temperature, self.tail),
                 gate_voltage,
-            ),
+            },
+        };
+        let tail = match tail_desc {
+            CircuitBias::Ideal(i) => Tail::Ideal(i),
+            CircuitBias::Transistor {
+                device,
+                gate_voltage,
+            } => Tail::Mos(Mos::new(&device), gate_voltage),
         };
         Ok(DiffPairCircuit {
             n: d.n,
@@ -336,6 +344,7 @@ impl DiffPairChip {
             pair,
             diodes,
             tail,
+            tail_desc,
             input: d.input,
             supply: d.supply,
             output_voltage: d.output_voltage,
@@ -374,6 +383,7 @@ pub struct DiffPairCircuit {
     pair_fast: Vec<Mos>,
     diode_fast: Vec<Mos>,
     tail: Tail,
+    tail_desc: CircuitBias,
     input: DiffPairInput,
     /// Supply, V.
     pub supply: f64,
@@ -402,6 +412,16 @@ impl DiffPairCircuit {
     /// Input diode i (diode inputs only).
     pub fn diode(&self, i: usize) -> Option<&Ekv> {
         self.diodes.get(i)
+    }
+
+    /// The tail (ideal current or evaluated transistor with its gate voltage).
+    pub fn tail(&self) -> &CircuitBias {
+        &self.tail_desc
+    }
+
+    /// How inputs reach the gates.
+    pub fn input(&self) -> &DiffPairInput {
+        &self.input
     }
 
     /// Tail current at a common-source voltage.
