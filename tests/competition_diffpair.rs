@@ -92,6 +92,13 @@ fn diode_inputs_normalise() {
             out.shares
         );
     }
+    // KCL at every node (diodes and common source) holds at the solution: node currents vanish
+    // relative to the currents involved.
+    let mut r = vec![0.0; 5];
+    c.node_currents(&x, &out.node_voltages, &mut r).unwrap();
+    for (k, v) in r.iter().enumerate() {
+        assert!(v.abs() < 1e-8 * 1e-10, "node {k}: {v} A");
+    }
     // A zero input gives a zero gate voltage; that pair transistor still leaks like an input
     // of about I_S e^(-V_T0/(n U_T)) ≈ 1.5e-12 A (EKV weak inversion), a share of ~1.5 %.
     let out = solve(&c, &[0.0, 1e-10, 1e-10, 1e-10]);

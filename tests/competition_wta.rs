@@ -245,6 +245,11 @@ fn n_1024_converges() {
         .collect();
     let out = solve(&c, &inputs);
     assert!(max_kcl(&c, &inputs, &out) < 1e-8);
+    // Net node currents vanish relative to the currents involved (KCL).
+    let mut r = vec![0.0; n + 1];
+    c.node_currents(&inputs, &out.node_voltages, &mut r)
+        .unwrap();
+    assert!(r.iter().all(|x| x.abs() < 1e-8 * 1e-4 * is));
     let arg = |v: &[f64]| {
         v.iter()
             .enumerate()
@@ -349,6 +354,24 @@ proptest! {
             let b = outy.shares[k];
             prop_assert!((a - b).abs() <= 1e-7 * a.max(b) + 1e-300, "{} vs {}", a, b);
         }
+    }
+
+    /// The bracketing solve (nested monotone scalar solves) reaches the same operating point as
+    /// Newton over random inputs from 1 fA to 1 mA with zeros: two algorithms, one set of KCL
+    /// equations.
+    #[test]
+    fn bracketing_matches_newton(
+        x in proptest::collection::vec(log_uniform_input(), 2..8),
+    ) {
+        let c = circuit(&WtaChip::nominal(wide_range_design(x.len())).unwrap());
+        let mut b = c.clone();
+        b.max_newton = 0;
+        let (p, q) = (solve(&c, &x), solve(&b, &x));
+        for k in 0..=x.len() {
+            let (u, v) = (p.node_voltages[k], q.node_voltages[k]);
+            prop_assert!((u - v).abs() <= 1e-9 + 1e-6 * u.abs(), "{}: {} vs {}", k, u, v);
+        }
+        prop_assert!(max_kcl(&b, &x, &q) < 1e-8);
     }
 
     /// Raising one input never lowers its share (monotone competition, Lazzaro et al. 1989).

@@ -497,6 +497,29 @@ impl DiffPairCircuit {
         }
     }
 
+    /// Net current (A) into each node for node voltages `[V_G0..V_G{N-1}, V_S]` and the
+    /// inputs: with diode inputs entry i is `I_in,i - I_diode,i`, otherwise 0 (the gate is
+    /// driven); entry N is `Σ I_i - I_tail`. Zero at a DC solution; with the node capacitances
+    /// it gives the right-hand side of the ODE. Returns `None` on a length mismatch.
+    pub fn node_currents(&self, inputs: &[f64], voltages: &[f64], out: &mut [f64]) -> Option<()> {
+        let n = self.n;
+        if inputs.len() != n || voltages.len() != n + 1 || out.len() != n + 1 {
+            return None;
+        }
+        let vs = voltages[n];
+        let mut s = 0.0;
+        for k in 0..n {
+            let vg = voltages[k];
+            out[k] = match self.input {
+                DiffPairInput::Diode { .. } => inputs[k] - self.diode_fast[k].id(vg, vg, 0.0),
+                _ => 0.0,
+            };
+            s += self.pair_fast[k].id(vg, self.output_voltage, vs);
+        }
+        out[n] = s - self.tail.eval(vs).0;
+        Some(())
+    }
+
     /// Relative KCL residual at the common source for gate voltages and V_S.
     pub fn source_residual(&self, gates: &[f64], vs: f64) -> f64 {
         let s: f64 = self

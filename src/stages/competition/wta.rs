@@ -485,6 +485,26 @@ impl WtaCircuit {
         Some(())
     }
 
+    /// Net current (A) flowing into each node for node voltages `[V_0..V_{N-1}, V_C]`:
+    /// entry k is `I_k - I_A,k`, entry N is `Σ I_B,k - I_bias`. Zero at a DC solution; with the
+    /// node capacitances it gives the right-hand side of the circuit's ODE,
+    /// `C dV/dt = node current`. Returns `None` on a length mismatch.
+    pub fn node_currents(&self, inputs: &[f64], voltages: &[f64], out: &mut [f64]) -> Option<()> {
+        let n = self.n;
+        if inputs.len() != n || voltages.len() != n + 1 || out.len() != n + 1 {
+            return None;
+        }
+        let vc = voltages[n];
+        let mut s = 0.0;
+        for k in 0..n {
+            let vk = voltages[k];
+            out[k] = inputs[k] - self.sink_fast[k].id(vc, vk, 0.0);
+            s += self.output_fast[k].id(vk, self.output_voltage, vc);
+        }
+        out[n] = s - self.bias_fast.eval(vc).0;
+        Some(())
+    }
+
     /// Starting V_C from the weak-inversion closed form (module docs), clamped to the supply.
     /// Writes each cell's closed-form share `I_k^g / Σ I_j^g` into `shares` and returns
     /// `(V_C, ln I_b)` (for a bias transistor, I_b is its weak-inversion saturation current).
