@@ -440,3 +440,19 @@ fn bracketing_fallback_agrees_with_newton() {
         assert!(max_kcl(&bracket, &x, &b) < 1e-8);
     }
 }
+
+/// The decision rule on WTA outputs (DESIGN.md §4.4): an exact tie is ambiguous under the
+/// default rule, a 2 % lead at gain 100 (share ratio e^(100 ln 1.02) ≈ 7) is a clear decision.
+#[test]
+fn decisions_from_wta_outputs() {
+    use hardmax::stages::competition::DecisionRule;
+    let is = is_nmos(2.0);
+    let c = circuit(&WtaChip::nominal(wta_design(3, 0.01, 1e-4 * is)).unwrap());
+    let rule = DecisionRule::default();
+    let tie = solve(&c, &[1e-4 * is; 3]);
+    assert!(tie.decide(&rule).ambiguous);
+    let clear = solve(&c, &[1e-4 * is, 1.02e-4 * is, 1e-4 * is]);
+    let d = clear.decide(&rule);
+    assert_eq!(d.winner, 1);
+    assert!(!d.ambiguous, "{d:?}");
+}
