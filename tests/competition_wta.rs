@@ -456,3 +456,31 @@ fn decisions_from_wta_outputs() {
     assert_eq!(d.winner, 1);
     assert!(!d.ambiguous, "{d:?}");
 }
+
+/// Without drain coupling (eta = 0) the weak-inversion gain kappa/sigma is infinite: the
+/// winner carries the whole bias (Lazzaro et al. 1989: the ideal WTA limit) and the solve still
+/// converges. A drain-coupling override given as an Early voltage sets eta = n U_T / V_A
+/// (sigma = U_T / V_A, DESIGN.md §3), so the gain kappa/sigma becomes V_A / (n U_T).
+#[test]
+fn drain_coupling_extremes_and_override() {
+    let is = is_nmos(2.0);
+    let c = circuit(&WtaChip::nominal(wta_design(3, 0.0, 1e-4 * is)).unwrap());
+    let x = [1e-4 * is, 1.01e-4 * is, 0.99e-4 * is];
+    let out = solve(&c, &x);
+    assert!(out.shares[1] > 0.99, "{:?}", out.shares);
+    assert!(max_kcl(&c, &x, &out) < 1e-8);
+    let mut d = wta_design(2, 0.01, 1e-4 * is);
+    let va = 5.0;
+    d.drain_coupling = Some(hardmax::device::DrainCoupling::EarlyVoltage(va));
+    let c = circuit(&WtaChip::nominal(d).unwrap());
+    let g = va / (N_SLOPE * thermal_voltage(300.0));
+    assert!((c.gain(0).unwrap() - g).abs() < 1e-9 * g);
+    let dx = 1e-5;
+    let out = solve(
+        &c,
+        &[1e-4 * is * (1.0 + dx / 2.0), 1e-4 * is * (1.0 - dx / 2.0)],
+    );
+    let avg = 0.5 * (out.outputs[0] + out.outputs[1]);
+    let gain = (out.outputs[0] - out.outputs[1]) / avg / dx;
+    assert!((gain - g).abs() < 0.05 * g, "{gain} vs {g}");
+}
