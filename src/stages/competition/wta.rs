@@ -590,7 +590,7 @@ impl WtaCircuit {
             return 0.5 * self.supply;
         }
         v = v.min(self.supply);
-        for _ in 0..3 {
+        for _ in 0..4 {
             let e = (v * a.inv_ut).exp_m1();
             // ln(1 - e^(-V/U_T)) = ln(e^(V/U_T) - 1) - V/U_T
             let g = alpha * v + e.ln() - v * a.inv_ut - ln_r;
