@@ -7,14 +7,17 @@ use super::config::{CircuitKind, ElementKind, EncodingKind, Experiment, SigmaKin
 use crate::data::{load_csv, CsvOptions, Dataset};
 use crate::device::presets::preset;
 use crate::device::{DrainCoupling, Polarity, Process, Transistor};
-use crate::pipeline::{prepare, ClassifierDesign, CompetitionDesign, PointSetup, Prepared};
+use crate::pipeline::{
+    prepare, ClassifierDesign, CompetitionDesign, HiddenSpec, PointSetup, Prepared,
+};
 use crate::stages::competition::diffpair::{DiffPairDesign, DiffPairInput, TailSource};
 use crate::stages::competition::noise::{InputShotNoise, NoiseBandwidth};
 use crate::stages::competition::wta::{WtaBias, WtaDesign};
 use crate::stages::competition::DecisionRule;
 use crate::stages::weights::{
-    Conditions, DriftSpec, ElementDesign, ErrorSpec, InputDesign, LinearElement, OffsetSetting,
-    SigmaKind, SignedEncoding, SubthresholdElement, WeightStageDesign,
+    Conditions, DriftSpec, ElementDesign, ErrorSpec, HiddenNonlinearity, InputDesign,
+    LinearElement, OffsetSetting, SigmaKind, SignedEncoding, SubthresholdElement,
+    WeightStageDesign,
 };
 use crate::training::LogisticOptions;
 
@@ -47,7 +50,23 @@ pub fn prepare_data(e: &Experiment, base_dir: &Path) -> Result<Prepared, String>
         standardize: e.training.standardize,
         ..LogisticOptions::default()
     };
-    prepare(&ds, e.dataset.test_fraction, e.dataset.split_seed, &trainer).map_err(|x| x.to_string())
+    let hidden = (e.hidden.units > 0).then(|| HiddenSpec {
+        units: e.hidden.units as usize,
+        nonlinearity: HiddenNonlinearity::PowerLawNormaliser {
+            exponent: e.hidden.exponent,
+            bias_current_a: e.hidden.bias_current.si(),
+        },
+        seed: e.hidden.seed,
+        stage: weight_stage(e),
+    });
+    prepare(
+        &ds,
+        e.dataset.test_fraction,
+        e.dataset.split_seed,
+        &trainer,
+        hidden.as_ref(),
+    )
+    .map_err(|x| x.to_string())
 }
 
 fn transistor(s: &SizeCfg) -> Transistor {

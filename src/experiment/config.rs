@@ -325,6 +325,33 @@ impl Default for WeightsCfg {
     }
 }
 
+/// `[hidden]`: an optional hidden stage: a drawn weight layer whose output lines pass through a
+/// soft competition (power-law normaliser, the weak-inversion behaviour of a current-mode WTA)
+/// before the trained read-out layer. Both layers use the `[weights]` elements.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields, default)]
+pub struct HiddenCfg {
+    /// Number of hidden lines; 0 = no hidden stage.
+    pub units: u32,
+    /// Normaliser exponent g (1 = linear normaliser, large = hard WTA).
+    pub exponent: f64,
+    /// Bias current of the hidden normaliser.
+    pub bias_current: Q<Current>,
+    /// Seed of the drawn hidden weights (the same for every chip).
+    pub seed: u64,
+}
+
+impl Default for HiddenCfg {
+    fn default() -> Self {
+        Self {
+            units: 0,
+            exponent: 2.0,
+            bias_current: Q::new(100e-9),
+            seed: 1,
+        }
+    }
+}
+
 /// Which competition circuit decides.
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize)]
 #[serde(rename_all = "snake_case")]
@@ -485,6 +512,8 @@ pub struct Experiment {
     #[serde(default)]
     pub weights: WeightsCfg,
     #[serde(default)]
+    pub hidden: HiddenCfg,
+    #[serde(default)]
     pub competition: CompetitionCfg,
     #[serde(default)]
     pub conditions: ConditionsCfg,
@@ -519,6 +548,7 @@ impl Experiment {
             process: ProcessCfg::default(),
             input: InputCfg::default(),
             weights: WeightsCfg::default(),
+            hidden: HiddenCfg::default(),
             competition: CompetitionCfg::default(),
             conditions: ConditionsCfg::default(),
             population: PopulationCfg::default(),
@@ -968,6 +998,21 @@ fn check(e: &Experiment, text: &str, file: &Path) -> Result<(), ConfigError> {
         if !(v.is_finite() && v > 0.0) {
             return Err(bad(key, format!("{v}: expected a finite value > 0")));
         }
+    }
+    if e.hidden.units > 4096 {
+        return Err(bad(
+            "hidden.units",
+            format!("{} hidden lines: use 0 (none) to 4096", e.hidden.units),
+        ));
+    }
+    if !(e.hidden.exponent.is_finite() && e.hidden.exponent > 0.0) {
+        return Err(bad(
+            "hidden.exponent",
+            format!("{}: the normaliser exponent must be > 0", e.hidden.exponent),
+        ));
+    }
+    if !(e.hidden.bias_current.si().is_finite() && e.hidden.bias_current.si() > 0.0) {
+        return Err(bad("hidden.bias_current", "must be > 0".into()));
     }
     if e.training.max_iterations == 0 {
         return Err(bad(

@@ -123,10 +123,22 @@ pub fn run(
     let mut prepared: Vec<(usize, std::sync::Arc<Prepared>)> = Vec::new();
     let mut cache: Vec<(String, std::sync::Arc<Prepared>)> = Vec::new();
     for (k, e) in resolved.at_point.iter().enumerate() {
+        // Training depends on the dataset and training sections; with a hidden stage also on
+        // the weight stage that shapes the hidden shares.
         let key = format!(
-            "{}|{}",
+            "{}|{}|{}",
             toml::to_string(&e.dataset).unwrap_or_default(),
-            toml::to_string(&e.training).unwrap_or_default()
+            toml::to_string(&e.training).unwrap_or_default(),
+            if e.hidden.units > 0 {
+                format!(
+                    "{}|{}|{}",
+                    toml::to_string(&e.hidden).unwrap_or_default(),
+                    toml::to_string(&e.weights).unwrap_or_default(),
+                    toml::to_string(&e.input).unwrap_or_default()
+                )
+            } else {
+                String::new()
+            }
         );
         let prep = match cache.iter().find(|(ck, _)| *ck == key) {
             Some((_, p)) => p.clone(),
