@@ -46,7 +46,7 @@ impl Progress {
 
 impl Observer for Progress {
     fn start(&self, total: usize, done: usize, chips: u64) {
-        let todo = (total - done) as u64 * chips;
+        let todo = total.saturating_sub(done) as u64 * chips;
         self.total_chips.store(todo, Ordering::Relaxed);
         if let Some(b) = &self.bar {
             b.set_draw_target(indicatif::ProgressDrawTarget::stderr());

@@ -9,7 +9,7 @@ pub enum DataError {
     #[error("unknown dataset `{name}`; the shipped datasets are: {known}. For your own data use a CSV file instead")]
     UnknownDataset { name: String, known: String },
 
-    #[error("{path}: file does not exist; check the path (relative paths start from the folder you run hardmax in)")]
+    #[error("{path}: file does not exist; check the path (a relative `dataset.file` in an experiment is relative to the experiment file's folder; on the command line, to the current folder)")]
     FileNotFound { path: String },
 
     #[error("{path}: cannot read the file ({message})")]
@@ -50,7 +50,7 @@ pub enum DataError {
         expected: usize,
     },
 
-    #[error("{origin}: no label column `{label}`; the columns are: {available}. Name the label column with the label-column option (e.g. `--label-column NAME`)")]
+    #[error("{origin}: no label column `{label}`; the columns are: {available}. Name the label column: `label_column = \"NAME\"` in the experiment's [dataset], or `--label-column NAME` for `hardmax baseline`")]
     MissingLabelColumn {
         origin: String,
         label: String,

@@ -4,9 +4,11 @@
 use std::path::Path;
 
 use super::config::{CircuitKind, ElementKind, EncodingKind, Experiment, SigmaKindCfg, SizeCfg};
-use crate::data::{load_csv, CsvOptions, Dataset};
+use crate::data::{load_csv, CsvOptions, DataError, Dataset};
 use crate::device::presets::preset;
+use crate::device::DeviceError;
 use crate::device::{DrainCoupling, Polarity, Process, Transistor};
+use crate::pipeline::PipelineError;
 use crate::pipeline::{
     prepare, ClassifierDesign, CompetitionDesign, HiddenSpec, PointSetup, Prepared,
 };
@@ -21,10 +23,23 @@ use crate::stages::weights::{
 };
 use crate::training::LogisticOptions;
 
+/// Errors while turning a checked experiment into core designs; each names the section.
+#[derive(Debug, thiserror::Error)]
+pub enum BuildError {
+    #[error("dataset: {0}")]
+    Dataset(#[from] DataError),
+    #[error("dataset: give `name` (iris, wine, digits) or `file` (a CSV file)")]
+    NoDataset,
+    #[error("process: {0}")]
+    Process(#[from] DeviceError),
+    #[error(transparent)]
+    Pipeline(#[from] PipelineError),
+}
+
 /// Load the dataset of an experiment (relative CSV paths are relative to the experiment file).
-pub fn load_dataset(e: &Experiment, base_dir: &Path) -> Result<Dataset, String> {
+pub fn load_dataset(e: &Experiment, base_dir: &Path) -> Result<Dataset, BuildError> {
     match (&e.dataset.name, &e.dataset.file) {
-        (Some(name), _) => Dataset::builtin(name).map_err(|x| x.to_string()),
+        (Some(name), _) => Ok(Dataset::builtin(name)?),
         (None, Some(file)) => {
             let path = if file.is_absolute() {
                 file.clone()
@@ -35,14 +50,14 @@ pub fn load_dataset(e: &Experiment, base_dir: &Path) -> Result<Dataset, String> 
                 label_column: e.dataset.label_column.clone(),
                 ignore_columns: e.dataset.ignore_columns.clone(),
             };
-            load_csv(&path, &opts).map_err(|x| format!("dataset.file: {x}"))
+            Ok(load_csv(&path, &opts)?)
         }
-        (None, None) => Err("dataset: give `name` or `file`".into()),
+        (None, None) => Err(BuildError::NoDataset),
     }
 }
 
 /// Load, split and train: the circuit-independent part of a point.
-pub fn prepare_data(e: &Experiment, base_dir: &Path) -> Result<Prepared, String> {
+pub fn prepare_data(e: &Experiment, base_dir: &Path) -> Result<Prepared, BuildError> {
     let ds = load_dataset(e, base_dir)?;
     let trainer = LogisticOptions {
         l2: e.training.l2,
@@ -66,7 +81,7 @@ pub fn prepare_data(e: &Experiment, base_dir: &Path) -> Result<Prepared, String>
         &trainer,
         hidden.as_ref(),
     )
-    .map_err(|x| x.to_string())
+    .map_err(BuildError::from)
 }
 
 fn transistor(s: &SizeCfg) -> Transistor {
@@ -78,8 +93,8 @@ fn transistor(s: &SizeCfg) -> Transistor {
 }
 
 /// The process of an experiment: the preset with every override applied.
-pub fn process(e: &Experiment) -> Result<Process, String> {
-    let mut p = preset(&e.process.preset).map_err(|x| format!("process.preset: {x}"))?;
+pub fn process(e: &Experiment) -> Result<Process, BuildError> {
+    let mut p = preset(&e.process.preset)?;
     if let Some(v) = e.process.vdd {
         p.vdd = v.si();
     }
@@ -117,7 +132,7 @@ pub fn process(e: &Experiment) -> Result<Process, String> {
         tech.a_vt_pair *= e.process.mismatch_scale;
         tech.a_beta_pair *= e.process.mismatch_scale;
     }
-    p.validate().map_err(|x| format!("process: {x}"))?;
+    p.validate()?;
     Ok(p)
 }
 
@@ -186,8 +201,16 @@ pub fn weight_stage(e: &Experiment) -> WeightStageDesign {
     }
 }
 
+/// The drain coupling that gives a current-mode WTA the gain `g`: g = kappa / sigma and
+/// sigma = eta / n, so g = 1 / eta (DESIGN.md section 4). For the differential pair the same
+/// key sets the same drain coupling of its transistors (its competition gain is set by the input
+/// conversion instead: a diode gives a plain normaliser, a resistor a softmax).
+pub fn drain_coupling_for_gain(g: f64) -> DrainCoupling {
+    DrainCoupling::Eta(1.0 / g)
+}
+
 /// The full design of one point.
-pub fn design(e: &Experiment, n_classes: usize) -> Result<ClassifierDesign, String> {
+pub fn design(e: &Experiment, n_classes: usize) -> Result<ClassifierDesign, BuildError> {
     let process = process(e)?;
     let c = &e.competition;
     let competition = match c.circuit {
@@ -214,9 +237,7 @@ pub fn design(e: &Experiment, n_classes: usize) -> Result<ClassifierDesign, Stri
             if let Some(v) = c.output_voltage {
                 w.output_voltage = v.si();
             }
-            if let Some(g) = c.gain {
-                w.drain_coupling = Some(DrainCoupling::Eta(1.0 / g));
-            }
+            w.drain_coupling = c.gain.map(drain_coupling_for_gain);
             w.input_capacitance = c.node_capacitance.si();
             w.source_capacitance = c.common_capacitance.si();
             CompetitionDesign::DiffPair(Box::new(w))
@@ -234,10 +255,7 @@ pub fn design(e: &Experiment, n_classes: usize) -> Result<ClassifierDesign, Stri
             if let Some(v) = c.output_voltage {
                 w.output_voltage = v.si();
             }
-            if let Some(g) = c.gain {
-                // g = kappa / sigma = 1 / eta for the sink (DESIGN.md section 4).
-                w.drain_coupling = Some(DrainCoupling::Eta(1.0 / g));
-            }
+            w.drain_coupling = c.gain.map(drain_coupling_for_gain);
             w.input_capacitance = c.node_capacitance.si();
             w.common_capacitance = c.common_capacitance.si();
             CompetitionDesign::CurrentWta(Box::new(w))
@@ -270,7 +288,7 @@ pub fn design(e: &Experiment, n_classes: usize) -> Result<ClassifierDesign, Stri
 }
 
 /// Build a point's setup (weights mapped) from its experiment and prepared classifier.
-pub fn build_point(e: &Experiment, prep: &Prepared) -> Result<PointSetup, String> {
+pub fn build_point(e: &Experiment, prep: &Prepared) -> Result<PointSetup, BuildError> {
     let d = design(e, prep.class_names.len())?;
-    PointSetup::new(d, prep).map_err(|x| x.to_string())
+    Ok(PointSetup::new(d, prep)?)
 }

@@ -147,7 +147,7 @@ pub fn run(
                     RunError::Point {
                         point: k,
                         settings: resolved.describe_point(&resolved.points[k]),
-                        message: m,
+                        message: m.to_string(),
                     }
                 })?);
                 cache.push((key, p.clone()));
@@ -164,7 +164,7 @@ pub fn run(
             build_point(e, &prepared[k].1).map_err(|m| RunError::Point {
                 point: k,
                 settings: resolved.describe_point(&resolved.points[k]),
-                message: m,
+                message: m.to_string(),
             })
         })
         .collect::<Result<Vec<_>, _>>()?;

@@ -34,9 +34,12 @@ pub struct Summary {
 
 /// Percentile by linear interpolation between closest ranks (the "linear" method, type 7 of
 /// R. J. Hyndman, Y. Fan, "Sample quantiles in statistical packages", The American Statistician
-/// 50(4), 1996; the default of numpy.percentile). `sorted` must be ascending and non-empty.
+/// 50(4), 1996; the default of numpy.percentile). `sorted` must be ascending; an empty slice
+/// gives NaN.
 pub fn percentile_sorted(sorted: &[f64], q: f64) -> f64 {
-    debug_assert!(!sorted.is_empty());
+    if sorted.is_empty() {
+        return f64::NAN;
+    }
     let h = (sorted.len() - 1) as f64 * q.clamp(0.0, 1.0);
     let lo = h.floor() as usize;
     let hi = h.ceil() as usize;

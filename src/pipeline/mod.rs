@@ -38,6 +38,8 @@ pub enum PipelineError {
     Weights(#[from] crate::stages::weights::WeightStageError),
     #[error("competition stage: {0}")]
     Competition(#[from] CompetitionError),
+    #[error("{what} is not a finite number; check the dataset and the weight-stage settings")]
+    NonFinite { what: &'static str },
 }
 
 /// The dataset split, trained float model, and reference accuracies: everything about the
@@ -218,7 +220,11 @@ fn prepare_hidden(
     let mut ideal_pred = Vec::with_capacity(test.y.len());
     for row in test_u.axis_iter(Axis(0)) {
         chain.forward_noiseless(&row.to_vec(), &mut scratch, &mut out)?;
-        ideal_pred.push(crate::training::argmax(&out).unwrap_or(0));
+        ideal_pred.push(
+            crate::training::argmax(&out).ok_or(PipelineError::NonFinite {
+                what: "an ideal output of the hidden chain",
+            })?,
+        );
     }
     Ok(Prepared {
         dataset_name: dataset.name.clone(),

@@ -185,6 +185,13 @@ mod tests {
         let vds = 1e-12;
         let at0 = m.eval(0.3, 0.0, 0.0);
         let g = at0.d_vd;
-        assert_relative_eq!(m.id(0.3, vds, 0.0), g * vds, max_relative = 1e-6);
+        // Both sides are ~1e-19 A: compare with epsilon = 0 so approx's absolute floor (2.2e-16)
+        // cannot make the check pass trivially.
+        assert_relative_eq!(
+            m.id(0.3, vds, 0.0),
+            g * vds,
+            max_relative = 1e-6,
+            epsilon = 0.0
+        );
     }
 }

@@ -167,18 +167,9 @@ impl EffectiveStage {
     }
 
     /// Index of the largest output (first one on ties); `None` for an empty slice or NaN.
+    /// The same rule as the reference argmax, [`crate::training::argmax`].
     pub fn argmax(out: &[f64]) -> Option<usize> {
-        let mut best: Option<(usize, f64)> = None;
-        for (j, &v) in out.iter().enumerate() {
-            if v.is_nan() {
-                return None;
-            }
-            match best {
-                Some((_, b)) if v <= b => {}
-                _ => best = Some((j, v)),
-            }
-        }
-        best.map(|(j, _)| j)
+        crate::training::argmax(out)
     }
 }
 
