@@ -146,10 +146,20 @@ pub struct StageArgs {
     #[arg(long, value_name = "WHAT")]
     pub sweep: Option<String>,
     /// First sweep value (a current).
-    #[arg(long, value_name = "CURRENT", allow_hyphen_values = true, requires = "sweep")]
+    #[arg(
+        long,
+        value_name = "CURRENT",
+        allow_hyphen_values = true,
+        requires = "sweep"
+    )]
     pub from: Option<String>,
     /// Last sweep value (a current).
-    #[arg(long, value_name = "CURRENT", allow_hyphen_values = true, requires = "sweep")]
+    #[arg(
+        long,
+        value_name = "CURRENT",
+        allow_hyphen_values = true,
+        requires = "sweep"
+    )]
     pub to: Option<String>,
     /// Number of sweep points (at least 2).
     #[arg(long, default_value_t = 41)]
@@ -276,9 +286,8 @@ fn read_file(path: &Path, spec: &mut Spec) -> anyhow::Result<()> {
     let q = |key: &str, v: &toml::Value, dim| -> anyhow::Result<f64> {
         quantity_from_toml(v, dim).map_err(|e| anyhow!("stage file {file}: key `{key}`: {e}"))
     };
-    let num = |key: &str, v: &toml::Value| -> anyhow::Result<f64> {
-        q(key, v, Dimension::Dimensionless)
-    };
+    let num =
+        |key: &str, v: &toml::Value| -> anyhow::Result<f64> { q(key, v, Dimension::Dimensionless) };
     let string = |key: &str, v: &toml::Value| -> anyhow::Result<String> {
         v.as_str()
             .map(str::to_string)
@@ -663,7 +672,12 @@ pub fn run(args: StageArgs) -> anyhow::Result<()> {
     let report = Report::new(&spec, &stage, &process);
     let mut results: Vec<Row> = Vec::new();
     for i in 0..st.node_count() {
-        results.push(Row::new("node", &st.node_name(i), sol.node_voltages[i], "V"));
+        results.push(Row::new(
+            "node",
+            &st.node_name(i),
+            sol.node_voltages[i],
+            "V",
+        ));
     }
     for (k, (&o, &s)) in sol.outputs.iter().zip(&sol.shares).enumerate() {
         results.push(Row::new("output", &format!("out_{k}"), o, "A"));
@@ -736,11 +750,16 @@ pub fn run(args: StageArgs) -> anyhow::Result<()> {
             println!("{}", serde_json::to_string_pretty(&v)?);
         }
         Format::Csv => {
+            results.push(Row::text("note", "caution", crate::CAUTION));
             print!("{}", rows_csv(report.rows.iter().chain(&results)));
         }
         Format::Table => {
             let mut s = report.table();
-            let _ = writeln!(s, "\nOperating point (DC, {method}, {} iterations, relative KCL residual {:.2e})", sol.info.iterations, sol.info.residual);
+            let _ = writeln!(
+                s,
+                "\nOperating point (DC, {method}, {} iterations, relative KCL residual {:.2e})",
+                sol.info.iterations, sol.info.residual
+            );
             let _ = writeln!(
                 s,
                 "  {:<6} {:>12} {:>12} {:>12} {:>9}",
@@ -809,7 +828,7 @@ impl Row {
         Row {
             section: section.into(),
             name: name.into(),
-            value: format!("{value}"),
+            value: format!("{value:e}"),
             unit: unit.into(),
         }
     }
@@ -976,7 +995,10 @@ fn sweep(args: &StageArgs, spec: &Spec, stage: &Stage, what: &str) -> anyhow::Re
             .parse()
             .map_err(|_| anyhow!("--sweep {what:?}: write input:K with K an input index"))?;
         if k >= n {
-            bail!("--sweep {what:?}: input index {k} is out of range (there are {n} inputs, 0 to {})", n - 1);
+            bail!(
+                "--sweep {what:?}: input index {k} is out of range (there are {n} inputs, 0 to {})",
+                n - 1
+            );
         }
         (k, false)
     } else {
@@ -1003,7 +1025,8 @@ fn sweep(args: &StageArgs, spec: &Spec, stage: &Stage, what: &str) -> anyhow::Re
         bail!("--scale log needs --from and --to of the same sign and not zero (got {from:e} A, {to:e} A)");
     }
     let quantity = if diff {
-        "x = I_0 - I_1 in A (I_0, I_1 = their given mean +/- x/2; other inputs as given)".to_string()
+        "x = I_0 - I_1 in A (I_0, I_1 = their given mean +/- x/2; other inputs as given)"
+            .to_string()
     } else {
         format!("x = I_{index} in A (other inputs as given)")
     };
@@ -1037,9 +1060,9 @@ fn sweep(args: &StageArgs, spec: &Spec, stage: &Stage, what: &str) -> anyhow::Re
         }
         st.solve(&x_in, &mut ws, &mut sol)
             .with_context(|| format!("sweep point {i} (x = {x:e} A)"))?;
-        let mut rec = vec![format!("{x}")];
-        rec.extend(sol.outputs.iter().map(|v| format!("{v}")));
-        rec.extend(sol.shares.iter().map(|v| format!("{v}")));
+        let mut rec = vec![format!("{x:e}")];
+        rec.extend(sol.outputs.iter().map(|v| format!("{v:e}")));
+        rec.extend(sol.shares.iter().map(|v| format!("{v:e}")));
         w.write_record(&rec)?;
     }
     let bytes = w.into_inner().map_err(|e| anyhow!("{e}"))?;
@@ -1097,18 +1120,22 @@ fn transient(
         header.extend((0..n).map(|k| format!("out_{k}")));
         w.write_record(&header)?;
         for pt in ws.waveform() {
-            let mut rec = vec![format!("{}", pt.time)];
-            rec.extend(pt.voltages.iter().map(|v| format!("{v}")));
-            rec.extend(pt.outputs.iter().map(|v| format!("{v}")));
+            let mut rec = vec![format!("{:e}", pt.time)];
+            rec.extend(pt.voltages.iter().map(|v| format!("{v:e}")));
+            rec.extend(pt.outputs.iter().map(|v| format!("{v:e}")));
             w.write_record(&rec)?;
         }
         write_atomic(p, &w.into_inner().map_err(|e| anyhow!("{e}"))?)?;
     }
     let report = Report::new(spec, stage, process);
-    let opt = |x: Option<f64>| x.map_or(String::new(), |v| format!("{v}"));
+    let opt = |x: Option<f64>| x.map_or(String::new(), |v| format!("{v:e}"));
     let mut rows = vec![
         Row::text("transient", "decision_time", &opt(s.decision_time)),
-        Row::text("transient", "energy_to_decision", &opt(s.energy_to_decision)),
+        Row::text(
+            "transient",
+            "energy_to_decision",
+            &opt(s.energy_to_decision),
+        ),
         Row::new("transient", "energy", s.energy, "J"),
         Row::new("transient", "end_time", s.end_time, "s"),
         Row::new("transient", "time_scale", s.time_scale, "s"),
@@ -1147,15 +1174,13 @@ fn transient(
         ));
     }
     for k in 0..n {
-        rows.push(Row::new(
-            "final",
-            &format!("out_{k}"),
-            sol.outputs[k],
-            "A",
-        ));
+        rows.push(Row::new("final", &format!("out_{k}"), sol.outputs[k], "A"));
     }
     match args.format {
-        Format::Csv => print!("{}", rows_csv(report.rows.iter().chain(&rows))),
+        Format::Csv => {
+            rows.push(Row::text("note", "caution", crate::CAUTION));
+            print!("{}", rows_csv(report.rows.iter().chain(&rows)))
+        }
         Format::Json => {
             let v = json!({
                 "parameters": report.json(),
@@ -1204,7 +1229,10 @@ fn transient(
                     );
                 }
                 _ => {
-                    let _ = writeln!(t, "  decision time        none (no decision held to the end of the run)");
+                    let _ = writeln!(
+                        t,
+                        "  decision time        none (no decision held to the end of the run)"
+                    );
                 }
             }
             if let Some(e) = s.energy_to_decision {
