@@ -7,7 +7,6 @@
 //! U_T(300 K) = 25.852 mV (CODATA 2018 k and q; DESIGN.md §3).
 
 use assert_cmd::Command;
-use predicates::prelude::*;
 
 fn hardmax() -> Command {
     Command::cargo_bin("hardmax").unwrap()

@@ -1021,7 +1021,7 @@ fn sweep(args: &StageArgs, spec: &Spec, stage: &Stage, what: &str) -> anyhow::Re
     if args.points < 2 {
         bail!("--points = {} must be at least 2", args.points);
     }
-    if args.scale == Scale::Log && !(from * to > 0.0) {
+    if args.scale == Scale::Log && from * to <= 0.0 {
         bail!("--scale log needs --from and --to of the same sign and not zero (got {from:e} A, {to:e} A)");
     }
     let quantity = if diff {
