@@ -1247,7 +1247,13 @@ fn transient(
                 "  run                  {} to {} ({})",
                 format_si(s.energy, "J", 4),
                 format_si(s.end_time, "s", 4),
-                if s.settled { "settled" } else { "not settled" }
+                if s.settled {
+                    "settled"
+                } else if spec.read_time.is_some() {
+                    "ended at the read-out time"
+                } else {
+                    "not settled by t_max"
+                }
             );
             if let Some(d) = s.decision_at_read {
                 let _ = writeln!(

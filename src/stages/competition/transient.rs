@@ -942,6 +942,34 @@ mod tests {
         assert_eq!(s.decision.map(|d| d.winner), Some(1));
     }
 
+    /// A step that cannot meet its tolerance above the smallest step is an error value saying
+    /// where the run stopped, never a silent answer (DEVELOPERS.md invariant 4).
+    #[test]
+    fn failed_step_is_an_error() {
+        let c = circuit(100e-9);
+        let o = TransientOptions {
+            atol: 1e-15,
+            rtol: 1e-15,
+            min_step: 1e-2,
+            first_step: 2e-2,
+            ..Default::default()
+        };
+        let e = simulate(
+            &c,
+            &[10e-9, 11e-9, 9e-9],
+            &o,
+            None,
+            &mut TransientWorkspace::new(),
+        )
+        .unwrap_err();
+        assert!(matches!(e, TransientError::StepFailed { .. }), "{e}");
+        let msg = e.to_string();
+        assert!(
+            msg.contains("did not converge") && msg.contains("min_step"),
+            "{msg}"
+        );
+    }
+
     /// A bad option is an error naming it.
     #[test]
     fn bad_options_are_named() {
