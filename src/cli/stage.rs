@@ -828,7 +828,12 @@ impl Row {
         Row {
             section: section.into(),
             name: name.into(),
-            value: format!("{value:e}"),
+            // Counts and flags as integers; quantities in shortest round-trip scientific form.
+            value: if value.fract() == 0.0 && value.abs() < 1e15 {
+                format!("{value}")
+            } else {
+                format!("{value:e}")
+            },
             unit: unit.into(),
         }
     }
