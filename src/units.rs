@@ -52,6 +52,8 @@ pub enum Dimension {
     Transconductance,
     /// Voltage per kelvin, V/K: a threshold temperature coefficient.
     VoltagePerKelvin,
+    /// Voltage per length, V/m: an Early voltage per channel length ("10 V/um").
+    VoltagePerLength,
     /// Capacitance per area, F/m^2: the gate oxide capacitance C_ox.
     CapacitancePerArea,
     /// Energy, J.
@@ -67,7 +69,7 @@ const DIMS_NONE: Dims = [0, 0, 0, 0, 0];
 
 impl Dimension {
     /// Every dimension, in declaration order.
-    pub const ALL: [Dimension; 17] = [
+    pub const ALL: [Dimension; 18] = [
         Dimension::Current,
         Dimension::Voltage,
         Dimension::Length,
@@ -82,6 +84,7 @@ impl Dimension {
         Dimension::FractionLength,
         Dimension::Transconductance,
         Dimension::VoltagePerKelvin,
+        Dimension::VoltagePerLength,
         Dimension::CapacitancePerArea,
         Dimension::Energy,
         Dimension::Power,
@@ -104,6 +107,7 @@ impl Dimension {
             Dimension::FractionLength => "m",
             Dimension::Transconductance => "A/V²",
             Dimension::VoltagePerKelvin => "V/K",
+            Dimension::VoltagePerLength => "V/m",
             Dimension::CapacitancePerArea => "F/m²",
             Dimension::Energy => "J",
             Dimension::Power => "W",
@@ -127,6 +131,7 @@ impl Dimension {
             Dimension::FractionLength => "a fraction times length (A_beta)",
             Dimension::Transconductance => "a current per volt squared (mu C_ox, beta)",
             Dimension::VoltagePerKelvin => "a voltage per kelvin",
+            Dimension::VoltagePerLength => "a voltage per length (Early voltage per L)",
             Dimension::CapacitancePerArea => "a capacitance per area",
             Dimension::Energy => "an energy",
             Dimension::Power => "a power",
@@ -150,6 +155,7 @@ impl Dimension {
             Dimension::FractionLength => "\"1 %um\" or \"0.01 um\"",
             Dimension::Transconductance => "\"300 uA/V^2\"",
             Dimension::VoltagePerKelvin => "\"-1.5 mV/K\"",
+            Dimension::VoltagePerLength => "\"10 V/um\"",
             Dimension::CapacitancePerArea => "\"8.5 fF/um^2\"",
             Dimension::Energy => "\"1 pJ\"",
             Dimension::Power => "\"10 uW\"",
@@ -171,6 +177,7 @@ impl Dimension {
             Dimension::VoltageLength => [3, 1, -3, -1, 0],
             Dimension::Transconductance => [-4, -2, 6, 3, 0],
             Dimension::VoltagePerKelvin => [2, 1, -3, -1, -1],
+            Dimension::VoltagePerLength => [1, 1, -3, -1, 0],
             Dimension::CapacitancePerArea => [-4, -1, 4, 2, 0],
             Dimension::Energy => [2, 1, -2, 0, 0],
             Dimension::Power => [2, 1, -3, 0, 0],
@@ -255,6 +262,27 @@ const SYMBOLS: [(&str, f64, Dims); 16] = [
 ];
 
 /// Length in bytes of the leading number of `s` (sign, digits, point, exponent), 0 if none.
+/// `number * scale`, correctly rounded when `scale` is a power of ten: "50 nA" gives exactly the
+/// double nearest 5e-8 (not 50 * 1e-9, which is one unit in the last place off).
+fn scale_exact(num_text: &str, number: f64, scale: f64) -> f64 {
+    if scale > 0.0 && scale.is_finite() {
+        let k = scale.log10().round() as i32;
+        if 10f64.powi(k) == scale || (10f64.powi(k) - scale).abs() <= scale * 4.0 * f64::EPSILON {
+            let t = num_text.trim();
+            let (mantissa, exp) = match t.find(['e', 'E']) {
+                Some(i) => (&t[..i], t[i + 1..].parse::<i32>().ok()),
+                None => (t, Some(0)),
+            };
+            if let Some(e) = exp {
+                if let Ok(v) = format!("{mantissa}e{}", e + k).parse::<f64>() {
+                    return v;
+                }
+            }
+        }
+    }
+    number * scale
+}
+
 fn number_len(s: &str) -> usize {
     let b = s.as_bytes();
     let mut i = 0;
@@ -469,7 +497,7 @@ fn parse_inner(text: &str, dim: Dimension) -> Result<f64, UnitProblem> {
                 found: describe_dims(dims),
             });
         }
-        number * scale
+        scale_exact(num, number, scale)
     };
     check_value(value, dim)
 }
@@ -622,6 +650,7 @@ mod tests {
             ("300 uA/V²", Transconductance, 300e-6),
             ("300 uA/V/V", Transconductance, 300e-6),
             ("-1.5 mV/K", VoltagePerKelvin, -1.5e-3),
+            ("10 V/um", VoltagePerLength, 1e7),
             ("-1.5 mV/degC", VoltagePerKelvin, -1.5e-3),
             ("-1.5 mV/°C", VoltagePerKelvin, -1.5e-3),
             ("8.5 fF/um^2", CapacitancePerArea, 8.5e-3),

@@ -41,18 +41,24 @@ fn solve(c: &DiffPairCircuit, x: &[f64]) -> StageSolution {
     try_solve(c, x).unwrap()
 }
 
-/// N = 2: I_1 - I_2 = I_b tanh(kappa ΔV / (2 U_T)) (Mead 1989), weak inversion (I/I_S ≈ 1e-4).
+/// N = 2: I_1 - I_2 = I_b tanh(kappa ΔV / (2 U_T)) (Mead 1989), weak inversion (I/I_S ≈ 1e-4),
+/// at 300 K and at 360 K (U_T = kT/q, CODATA 2018 constants: the softmax temperature follows T).
 #[test]
 fn two_input_tanh() {
     let ib = 1e-10;
-    let ut = thermal_voltage(300.0);
-    let c = circuit(design(2, ib, DiffPairInput::Voltage));
-    for &dv in &[-0.12, -0.03, 0.0, 0.01, 0.05, 0.2] {
-        let out = solve(&c, &[0.5 + dv / 2.0, 0.5 - dv / 2.0]);
-        let want = ib * (KAPPA * dv / (2.0 * ut)).tanh();
-        let got = out.outputs[0] - out.outputs[1];
-        assert!((got - want).abs() < 5e-3 * ib, "dv {dv}: {got} vs {want}");
-        assert!((out.outputs[0] + out.outputs[1] - ib).abs() < 1e-9 * ib);
+    for &t in &[300.0, 360.0] {
+        let ut = thermal_voltage(t);
+        let c = DiffPairChip::nominal(design(2, ib, DiffPairInput::Voltage))
+            .unwrap()
+            .at(t)
+            .unwrap();
+        for &dv in &[-0.12, -0.03, 0.0, 0.01, 0.05, 0.2] {
+            let out = solve(&c, &[0.5 + dv / 2.0, 0.5 - dv / 2.0]);
+            let want = ib * (KAPPA * dv / (2.0 * ut)).tanh();
+            let got = out.outputs[0] - out.outputs[1];
+            assert!((got - want).abs() < 5e-3 * ib, "dv {dv}: {got} vs {want}");
+            assert!((out.outputs[0] + out.outputs[1] - ib).abs() < 1e-9 * ib);
+        }
     }
 }
 
@@ -91,6 +97,13 @@ fn diode_inputs_normalise() {
             "{:?}",
             out.shares
         );
+    }
+    // KCL at every node (diodes and common source) holds at the solution: node currents vanish
+    // relative to the currents involved.
+    let mut r = vec![0.0; 5];
+    c.node_currents(&x, &out.node_voltages, &mut r).unwrap();
+    for (k, v) in r.iter().enumerate() {
+        assert!(v.abs() < 1e-8 * 1e-10, "node {k}: {v} A");
     }
     // A zero input gives a zero gate voltage; that pair transistor still leaks like an input
     // of about I_S e^(-V_T0/(n U_T)) ≈ 1.5e-12 A (EKV weak inversion), a share of ~1.5 %.

@@ -50,13 +50,17 @@ pub fn run(args: RunArgs) -> anyhow::Result<()> {
     let summary = run_experiment(&resolved, &opts, &progress)
         .with_context(|| format!("running `{}`", args.file.display()))?;
     progress.finish();
-    if !args.no_report {
-        super::render::render_folder(&out)
-            .with_context(|| format!("rendering the report of `{}`", out.display()))?;
-    }
+    let report = if args.no_report {
+        None
+    } else {
+        Some(super::render::render_folder(&out)?)
+    };
     if !args.quiet {
         print_summary(&summary);
         println!("results: {}", out.display());
+        if let Some(r) = report {
+            println!("report:  {}", r.display());
+        }
         println!("{}", crate::CAUTION);
     }
     Ok(())

@@ -59,11 +59,11 @@ fn tech(
         n,
         mu_cox,
         drain_coupling: DrainCoupling::EarlyVoltagePerLength(va_per_um * 1e6),
-        a_vt_pair: a_vt_mv_um * 1e-9,
-        a_beta_pair: a_beta_pct_um * 1e-8,
+        a_vt_pair: a_vt_mv_um / 1e9,
+        a_beta_pair: a_beta_pct_um / 1e8,
         vt0_tempco,
         beta_temp_exponent: beta_exp,
-        cox: EPS_OX / (tox_nm * 1e-9),
+        cox: EPS_OX / (tox_nm / 1e9),
         kf,
     }
 }

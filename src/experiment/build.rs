@@ -8,13 +8,16 @@ use crate::data::{load_csv, CsvOptions, Dataset};
 use crate::device::presets::preset;
 use crate::device::{DrainCoupling, Polarity, Process, Transistor};
 use crate::pipeline::{
-    prepare, ClassifierDesign, CompetitionDesign, InputNoise, PointSetup, Prepared,
+    prepare, ClassifierDesign, CompetitionDesign, HiddenSpec, PointSetup, Prepared,
 };
+use crate::stages::competition::diffpair::{DiffPairDesign, DiffPairInput, TailSource};
+use crate::stages::competition::noise::{InputShotNoise, NoiseBandwidth};
 use crate::stages::competition::wta::{WtaBias, WtaDesign};
 use crate::stages::competition::DecisionRule;
 use crate::stages::weights::{
-    Conditions, DriftSpec, ElementDesign, ErrorSpec, InputDesign, LinearElement, OffsetSetting,
-    SigmaKind, SignedEncoding, SubthresholdElement, WeightStageDesign,
+    Conditions, DriftSpec, ElementDesign, ErrorSpec, HiddenNonlinearity, InputDesign,
+    LinearElement, OffsetSetting, SigmaKind, SignedEncoding, SubthresholdElement,
+    WeightStageDesign,
 };
 use crate::training::LogisticOptions;
 
@@ -47,7 +50,23 @@ pub fn prepare_data(e: &Experiment, base_dir: &Path) -> Result<Prepared, String>
         standardize: e.training.standardize,
         ..LogisticOptions::default()
     };
-    prepare(&ds, e.dataset.test_fraction, e.dataset.split_seed, &trainer).map_err(|x| x.to_string())
+    let hidden = (e.hidden.units > 0).then(|| HiddenSpec {
+        units: e.hidden.units as usize,
+        nonlinearity: HiddenNonlinearity::PowerLawNormaliser {
+            exponent: e.hidden.exponent,
+            bias_current_a: e.hidden.bias_current.si(),
+        },
+        seed: e.hidden.seed,
+        stage: weight_stage(e),
+    });
+    prepare(
+        &ds,
+        e.dataset.test_fraction,
+        e.dataset.split_seed,
+        &trainer,
+        hidden.as_ref(),
+    )
+    .map_err(|x| x.to_string())
 }
 
 fn transistor(s: &SizeCfg) -> Transistor {
@@ -90,7 +109,7 @@ pub fn process(e: &Experiment) -> Result<Process, String> {
             tech.beta_temp_exponent = v;
         }
         if let Some(v) = cfg.early_voltage_per_length {
-            tech.drain_coupling = DrainCoupling::EarlyVoltagePerLength(v);
+            tech.drain_coupling = DrainCoupling::EarlyVoltagePerLength(v.si());
         }
         if let Some(v) = cfg.kf {
             tech.kf = v;
@@ -173,7 +192,36 @@ pub fn design(e: &Experiment, n_classes: usize) -> Result<ClassifierDesign, Stri
     let c = &e.competition;
     let competition = match c.circuit {
         CircuitKind::Argmax => CompetitionDesign::Argmax,
-        CircuitKind::CurrentWta | CircuitKind::DiffPair => {
+        CircuitKind::DiffPair => {
+            let input = match c.input_resistance {
+                Some(r) => DiffPairInput::Resistor {
+                    resistance: r.si(),
+                    reference: c.resistor_reference.si(),
+                },
+                None => DiffPairInput::Diode {
+                    device: transistor(&c.sink),
+                },
+            };
+            let mut w = DiffPairDesign::new(
+                n_classes,
+                process.clone(),
+                transistor(&c.output),
+                TailSource::Ideal {
+                    current: c.bias_current.si(),
+                },
+                input,
+            );
+            if let Some(v) = c.output_voltage {
+                w.output_voltage = v.si();
+            }
+            if let Some(g) = c.gain {
+                w.drain_coupling = Some(DrainCoupling::Eta(1.0 / g));
+            }
+            w.input_capacitance = c.node_capacitance.si();
+            w.source_capacitance = c.common_capacitance.si();
+            CompetitionDesign::DiffPair(Box::new(w))
+        }
+        CircuitKind::CurrentWta => {
             let mut w = WtaDesign::new(
                 n_classes,
                 process.clone(),
@@ -195,6 +243,16 @@ pub fn design(e: &Experiment, n_classes: usize) -> Result<ClassifierDesign, Stri
             CompetitionDesign::CurrentWta(Box::new(w))
         }
     };
+    let input_noise = c.noise.then(|| InputShotNoise {
+        bandwidth: match c.noise_bandwidth {
+            Some(b) => NoiseBandwidth::Fixed(b.si()),
+            None => NoiseBandwidth::SinglePole {
+                capacitance: c.node_capacitance.si(),
+                kappa: 1.0 / process.nmos.n,
+            },
+        },
+        temperature: e.conditions.temperature.si(),
+    });
     Ok(ClassifierDesign {
         process,
         weights: weight_stage(e),
@@ -203,9 +261,7 @@ pub fn design(e: &Experiment, n_classes: usize) -> Result<ClassifierDesign, Stri
             min_winner_share: c.min_winner_share,
             max_runner_up_share: c.max_runner_up_share,
         },
-        input_noise: c.noise.then_some(InputNoise {
-            bandwidth: c.noise_bandwidth.si(),
-        }),
+        input_noise,
         conditions: Conditions {
             temperature_k: e.conditions.temperature.si(),
             time_since_programming_s: e.conditions.time_since_programming.si(),

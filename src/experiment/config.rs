@@ -14,7 +14,7 @@ use toml::Value;
 
 use super::quantity::{
     Capacitance, Current, FractionLength, Frequency, Length, Resistance, Temperature, Time,
-    Transconductance, Voltage, VoltageLength, VoltagePerKelvin, Q,
+    Transconductance, Voltage, VoltageLength, VoltagePerKelvin, VoltagePerLength, Q,
 };
 use super::sweep::{Axis, PointIndex, SweepError, SweepSpec};
 use super::tree;
@@ -151,9 +151,9 @@ pub struct DeviceCfg {
     pub vt0_tempco: Option<Q<VoltagePerKelvin>>,
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub beta_temp_exponent: Option<f64>,
-    /// Early voltage per channel length in V/m ("10 V/um"); sets the drain coupling.
+    /// Early voltage per channel length ("10 V/um"); sets the drain coupling.
     #[serde(default, skip_serializing_if = "Option::is_none")]
-    pub early_voltage_per_length: Option<f64>,
+    pub early_voltage_per_length: Option<Q<VoltagePerLength>>,
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub kf: Option<f64>,
 }
@@ -325,6 +325,33 @@ impl Default for WeightsCfg {
     }
 }
 
+/// `[hidden]`: an optional hidden stage: a drawn weight layer whose output lines pass through a
+/// soft competition (power-law normaliser, the weak-inversion behaviour of a current-mode WTA)
+/// before the trained read-out layer. Both layers use the `[weights]` elements.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields, default)]
+pub struct HiddenCfg {
+    /// Number of hidden lines; 0 = no hidden stage.
+    pub units: u32,
+    /// Normaliser exponent g (1 = linear normaliser, large = hard WTA).
+    pub exponent: f64,
+    /// Bias current of the hidden normaliser.
+    pub bias_current: Q<Current>,
+    /// Seed of the drawn hidden weights (the same for every chip).
+    pub seed: u64,
+}
+
+impl Default for HiddenCfg {
+    fn default() -> Self {
+        Self {
+            units: 0,
+            exponent: 2.0,
+            bias_current: Q::new(100e-9),
+            seed: 1,
+        }
+    }
+}
+
 /// Which competition circuit decides.
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize)]
 #[serde(rename_all = "snake_case")]
@@ -367,7 +394,10 @@ pub struct CompetitionCfg {
     pub output_voltage: Option<Q<Voltage>>,
     /// Per-decision shot noise of the input currents over `noise_bandwidth`.
     pub noise: bool,
-    pub noise_bandwidth: Q<Frequency>,
+    /// Noise bandwidth; absent = each input node's single-pole equivalent noise bandwidth
+    /// kappa I / (4 C U_T) with C = `node_capacitance`.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub noise_bandwidth: Option<Q<Frequency>>,
     /// A decision is ambiguous when the winner's share is below this ...
     pub min_winner_share: f64,
     /// ... or the runner-up's share is above this.
@@ -383,6 +413,8 @@ pub struct CompetitionCfg {
     /// Diff pair fed through resistors instead of diode-connected devices: the resistance.
     #[serde(skip_serializing_if = "Option::is_none")]
     pub input_resistance: Option<Q<Resistance>>,
+    /// Diff pair with resistor inputs: the voltage at zero input current.
+    pub resistor_reference: Q<Voltage>,
 }
 
 impl Default for CompetitionCfg {
@@ -395,7 +427,7 @@ impl Default for CompetitionCfg {
             gain: None,
             output_voltage: None,
             noise: false,
-            noise_bandwidth: Q::new(10e3),
+            noise_bandwidth: None,
             min_winner_share: crate::stages::competition::DecisionRule::default().min_winner_share,
             max_runner_up_share: crate::stages::competition::DecisionRule::default()
                 .max_runner_up_share,
@@ -404,6 +436,7 @@ impl Default for CompetitionCfg {
             common_capacitance: Q::new(200e-15),
             read_time: None,
             input_resistance: None,
+            resistor_reference: Q::new(0.4),
         }
     }
 }
@@ -479,6 +512,8 @@ pub struct Experiment {
     #[serde(default)]
     pub weights: WeightsCfg,
     #[serde(default)]
+    pub hidden: HiddenCfg,
+    #[serde(default)]
     pub competition: CompetitionCfg,
     #[serde(default)]
     pub conditions: ConditionsCfg,
@@ -513,6 +548,7 @@ impl Experiment {
             process: ProcessCfg::default(),
             input: InputCfg::default(),
             weights: WeightsCfg::default(),
+            hidden: HiddenCfg::default(),
             competition: CompetitionCfg::default(),
             conditions: ConditionsCfg::default(),
             population: PopulationCfg::default(),
@@ -529,7 +565,7 @@ impl Experiment {
                 a_beta: Some(Q::new(1e-8)),
                 vt0_tempco: Some(Q::new(-1e-3)),
                 beta_temp_exponent: Some(-1.5),
-                early_voltage_per_length: Some(1e7),
+                early_voltage_per_length: Some(Q::new(1e7)),
                 kf: Some(1e-25),
             };
         }
@@ -539,6 +575,7 @@ impl Experiment {
         e.competition.output_voltage = Some(Q::new(1.8));
         e.competition.read_time = Some(Q::new(1e-6));
         e.competition.input_resistance = Some(Q::new(1e6));
+        e.competition.noise_bandwidth = Some(Q::new(1e4));
         e
     }
 }
@@ -781,7 +818,7 @@ fn fill_process_defaults(e: &mut Experiment, text: &str, file: &Path) -> Result<
             .get_or_insert(tech.beta_temp_exponent);
         cfg.kf.get_or_insert(tech.kf);
         if let crate::device::DrainCoupling::EarlyVoltagePerLength(v) = tech.drain_coupling {
-            cfg.early_voltage_per_length.get_or_insert(v);
+            cfg.early_voltage_per_length.get_or_insert(Q::new(v));
         }
     }
     if e.weights.w_min.is_none() {
@@ -935,7 +972,7 @@ fn check(e: &Experiment, text: &str, file: &Path) -> Result<(), ConfigError> {
         ("competition.bias_current", e.competition.bias_current.si()),
         (
             "competition.noise_bandwidth",
-            e.competition.noise_bandwidth.si(),
+            e.competition.noise_bandwidth.map_or(1.0, |b| b.si()),
         ),
         (
             "competition.node_capacitance",
@@ -961,6 +998,21 @@ fn check(e: &Experiment, text: &str, file: &Path) -> Result<(), ConfigError> {
         if !(v.is_finite() && v > 0.0) {
             return Err(bad(key, format!("{v}: expected a finite value > 0")));
         }
+    }
+    if e.hidden.units > 4096 {
+        return Err(bad(
+            "hidden.units",
+            format!("{} hidden lines: use 0 (none) to 4096", e.hidden.units),
+        ));
+    }
+    if !(e.hidden.exponent.is_finite() && e.hidden.exponent > 0.0) {
+        return Err(bad(
+            "hidden.exponent",
+            format!("{}: the normaliser exponent must be > 0", e.hidden.exponent),
+        ));
+    }
+    if !(e.hidden.bias_current.si().is_finite() && e.hidden.bias_current.si() > 0.0) {
+        return Err(bad("hidden.bias_current", "must be > 0".into()));
     }
     if e.training.max_iterations == 0 {
         return Err(bad(

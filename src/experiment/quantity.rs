@@ -37,6 +37,7 @@ markers!(
     FractionLength,
     Transconductance,
     VoltagePerKelvin,
+    VoltagePerLength,
     CapacitancePerArea
 );
 
@@ -77,7 +78,8 @@ impl<D: Dim> Serialize for Q<D> {
         if unit.is_empty() {
             s.serialize_f64(self.0)
         } else {
-            s.serialize_str(&format!("{:e} {unit}", self.0))
+            // Debug formatting is the shortest text that reads back to the same double.
+            s.serialize_str(&format!("{:?} {unit}", self.0))
         }
     }
 }
@@ -115,8 +117,9 @@ mod tests {
 
     #[test]
     fn round_trips_exactly() {
-        let t: T = toml::from_str("i = \"10 nA\"\na = \"5 mV um\"").unwrap();
-        assert!((t.i.si() - 1e-8).abs() < 1e-20);
+        let t: T = toml::from_str("i = \"50 nA\"\na = \"5 mV um\"").unwrap();
+        // Correctly rounded: exactly the double nearest 5e-8.
+        assert_eq!(t.i.si(), 5e-8);
         let text = toml::to_string(&t).unwrap();
         let back: T = toml::from_str(&text).unwrap();
         assert_eq!(t, back, "{text}");

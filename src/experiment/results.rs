@@ -51,6 +51,9 @@ pub struct PointRecord {
     /// Normal quantile for the yield interval (1.96 for 95 %).
     pub z: f64,
     pub elapsed_s: f64,
+    /// Why the first failed decision (in chip order) failed, if any decision failed.
+    #[serde(default)]
+    pub first_failure: Option<String>,
 }
 
 /// Population statistics of one point (a `points.csv` row).
@@ -411,6 +414,7 @@ mod tests {
             target: 0.8,
             z: 1.96,
             elapsed_s: 0.1,
+            first_failure: None,
         }
     }
 

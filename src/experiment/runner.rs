@@ -123,10 +123,22 @@ pub fn run(
     let mut prepared: Vec<(usize, std::sync::Arc<Prepared>)> = Vec::new();
     let mut cache: Vec<(String, std::sync::Arc<Prepared>)> = Vec::new();
     for (k, e) in resolved.at_point.iter().enumerate() {
+        // Training depends on the dataset and training sections; with a hidden stage also on
+        // the weight stage that shapes the hidden shares.
         let key = format!(
-            "{}|{}",
+            "{}|{}|{}",
             toml::to_string(&e.dataset).unwrap_or_default(),
-            toml::to_string(&e.training).unwrap_or_default()
+            toml::to_string(&e.training).unwrap_or_default(),
+            if e.hidden.units > 0 {
+                format!(
+                    "{}|{}|{}",
+                    toml::to_string(&e.hidden).unwrap_or_default(),
+                    toml::to_string(&e.weights).unwrap_or_default(),
+                    toml::to_string(&e.input).unwrap_or_default()
+                )
+            } else {
+                String::new()
+            }
         );
         let prep = match cache.iter().find(|(ck, _)| *ck == key) {
             Some((_, p)) => p.clone(),
@@ -267,6 +279,9 @@ pub fn run(
         let n_classes = prep.class_names.len();
         let mut confusion = vec![vec![0u64; n_classes + 2]; n_classes];
         let mut rows = Vec::with_capacity(outcomes.len());
+        let first_failure = outcomes
+            .iter()
+            .find_map(|o| o.chip_error.clone().or_else(|| o.first_failure.clone()));
         for o in outcomes {
             for (t, row) in o.confusion.iter().enumerate() {
                 for (j, &c) in row.iter().enumerate() {
@@ -300,6 +315,7 @@ pub fn run(
             target: resolved.at_point[p.point].target.accuracy,
             z,
             elapsed_s: 0.0,
+            first_failure,
         };
         dir.save_point(&rec)?;
         let s = rec.summary();
@@ -308,9 +324,10 @@ pub fn run(
         dir.write_tables(&records, &axis_paths, &class_names)?;
         manifest(&records, records.len() == resolved.points.len()).map_err(ResultsError::from)?;
         ran += 1;
+        let failure_note = rec_failure_note(&records, p.point);
         observer.point_done(
             p.point,
-            &format!(
+            &(format!(
                 "point {}/{} [{}] accuracy mean {:.4} (p05 {:.4}), yield {:.3} [{:.3}, {:.3}], {} non-converged, {:.1} s",
                 p.point + 1,
                 resolved.points.len(),
@@ -322,7 +339,7 @@ pub fn run(
                 s.yield_hi,
                 s.nonconverged,
                 tp.elapsed().as_secs_f64()
-            ),
+            ) + &failure_note),
         );
     }
     // Tables also exist when every point was resumed.
@@ -336,6 +353,15 @@ pub fn run(
         elapsed_s: t0.elapsed().as_secs_f64(),
         records,
     })
+}
+
+fn rec_failure_note(records: &[PointRecord], point: usize) -> String {
+    records
+        .iter()
+        .find(|r| r.point == point)
+        .and_then(|r| r.first_failure.as_ref())
+        .map(|f| format!("\n    first failed decision: {f}"))
+        .unwrap_or_default()
 }
 
 fn hostname() -> String {

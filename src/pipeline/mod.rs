@@ -9,20 +9,22 @@
 //!
 //! So a chip's outcome depends only on (seed, point, chip), never on thread scheduling.
 
-use ndarray::Array2;
-use rand::Rng;
-use rand_distr::StandardNormal;
+use ndarray::{Array1, Array2, Axis};
 
-use crate::data::{stratified_split, Dataset};
+use crate::data::{stratified_split, Dataset, MinMaxScaler};
 use crate::device::mismatch::sample_mismatch;
 use crate::device::Process;
-use crate::physics::ELEMENTARY_CHARGE;
 use crate::rng::{domain, stream};
+use crate::stages::competition::diffpair::{DiffPairChip, DiffPairDesign};
+use crate::stages::competition::noise::InputShotNoise;
 use crate::stages::competition::wta::{WtaChip, WtaDesign};
 use crate::stages::competition::{
     CompetitionError, CompetitionStage, DecisionRule, StageSolution, Workspace,
 };
-use crate::stages::weights::{Conditions, MappedStage, WeightStageDesign};
+use crate::stages::weights::{
+    random_hidden_weights, ChainDesign, ChainScratch, Conditions, HiddenNonlinearity, MappedChain,
+    WeightStageDesign,
+};
 use crate::training::{accuracy, Trainer};
 
 /// Errors while preparing a classifier or a design point; each says what to change.
@@ -49,9 +51,12 @@ pub struct Prepared {
     /// Test inputs min-max scaled to [0, 1] (clipped) with the training split's scaler.
     pub test_u: Array2<f64>,
     pub test_y: Vec<usize>,
-    /// Float weights on [0, 1] inputs (classes x features) and biases.
-    pub weights: Array2<f64>,
-    pub bias: ndarray::Array1<f64>,
+    /// Float weights and biases of every layer, in chain order: one layer (classes x features,
+    /// acting on [0, 1] inputs) without a hidden stage; with one, the drawn hidden layer
+    /// (units x features) then the trained read-out (classes x units, acting on hidden shares).
+    pub layers: Vec<(Array2<f64>, Array1<f64>)>,
+    /// The hidden stage, when the classifier has one.
+    pub hidden: Option<HiddenSpec>,
     /// Ideal argmax of the mapped weights, per test sample.
     pub ideal_pred: Vec<usize>,
     /// The linfa model's own predictions, per test sample.
@@ -60,14 +65,77 @@ pub struct Prepared {
     pub baseline_acc: f64,
 }
 
-/// Split, train and evaluate the references.
+/// A hidden stage: a drawn weight layer and a soft competition (normaliser) between the input
+/// and the trained read-out layer.
+#[derive(Debug, Clone, PartialEq)]
+pub struct HiddenSpec {
+    /// Number of hidden lines.
+    pub units: usize,
+    /// The normaliser between the two weight stages.
+    pub nonlinearity: HiddenNonlinearity,
+    /// Seed of the drawn hidden weights (part of the design: the same for every chip).
+    pub seed: u64,
+    /// The analog stage that carries the hidden layer (its mapping shapes the hidden shares).
+    pub stage: WeightStageDesign,
+}
+
+/// The chain of `layers` stages built from one stage design. Stages after the first take the
+/// previous normaliser's output currents directly (analog lines: no input DAC, no line gain
+/// error of a DAC).
+pub fn chain_design(
+    stage: &WeightStageDesign,
+    layers: usize,
+    hidden: Option<&HiddenSpec>,
+) -> ChainDesign {
+    let mut later = stage.clone();
+    later.input.dac_bits = None;
+    later.input.gain_sigma_rel = 0.0;
+    let mut stages = vec![stage.clone()];
+    stages.extend(std::iter::repeat_n(later, layers.saturating_sub(1)));
+    ChainDesign {
+        stages,
+        hidden: hidden.iter().map(|h| h.nonlinearity).collect(),
+    }
+}
+
+/// Hidden shares of every row of `u` through the ideal hidden stage.
+fn hidden_features(
+    spec: &HiddenSpec,
+    w1: &Array2<f64>,
+    b1: &Array1<f64>,
+    u: &Array2<f64>,
+) -> Result<Array2<f64>, PipelineError> {
+    let head = ChainDesign {
+        stages: vec![spec.stage.clone()],
+        hidden: vec![],
+    }
+    .map(&[(w1.view(), b1.view())])?
+    .ideal();
+    let mut out = Array2::zeros((u.nrows(), spec.units));
+    let mut scratch = head.scratch();
+    let mut buf = vec![0.0; spec.units];
+    for (row, mut o) in u.outer_iter().zip(out.outer_iter_mut()) {
+        head.forward_noiseless(&row.to_vec(), &mut scratch, &mut buf)?;
+        spec.nonlinearity.normalise_in_place(&mut buf);
+        o.assign(&ndarray::ArrayView1::from(&buf[..]));
+    }
+    Ok(out)
+}
+
+/// Split, train and evaluate the references. With a hidden stage, the hidden layer is drawn
+/// from `rng::stream(spec.seed, [DESIGN, 0])` and the read-out is trained on the hidden shares
+/// the ideal hidden stage produces.
 pub fn prepare(
     dataset: &Dataset,
     test_fraction: f64,
     split_seed: u64,
     trainer: &dyn Trainer,
+    hidden: Option<&HiddenSpec>,
 ) -> Result<Prepared, PipelineError> {
     let (train, test) = stratified_split(dataset, test_fraction, split_seed)?;
+    if let Some(spec) = hidden {
+        return prepare_hidden(dataset, &train, &test, trainer, spec);
+    }
     let model = trainer.train(&train)?;
     let test_u = model.scale(test.x.view())?;
     let ideal_pred = model.predict_ideal(test.x.view())?;
@@ -81,8 +149,88 @@ pub fn prepare(
         baseline_acc: accuracy(&baseline_pred, &test.y),
         test_u,
         test_y: test.y.clone(),
-        weights: model.linear.weights.clone(),
-        bias: model.linear.bias.clone(),
+        layers: vec![(model.linear.weights.clone(), model.linear.bias.clone())],
+        hidden: None,
+        ideal_pred,
+        baseline_pred,
+    })
+}
+
+fn prepare_hidden(
+    dataset: &Dataset,
+    train: &Dataset,
+    test: &Dataset,
+    trainer: &dyn Trainer,
+    spec: &HiddenSpec,
+) -> Result<Prepared, PipelineError> {
+    let scaler = MinMaxScaler::fit(train.x.view())?;
+    let u_train = scaler.transform(train.x.view())?;
+    let test_u = scaler.transform(test.x.view())?;
+    let mut rng = stream(spec.seed, &[domain::DESIGN, 0]);
+    let (w1, b1) = random_hidden_weights(&mut rng, spec.units, dataset.n_features());
+    let h_train = hidden_features(spec, &w1, &b1, &u_train)?;
+    let h_test = hidden_features(spec, &w1, &b1, &test_u)?;
+    let names: Vec<String> = (0..spec.units).map(|k| format!("hidden_{k}")).collect();
+    let hidden_train = Dataset::new(
+        format!("{}-hidden", dataset.name),
+        names.clone(),
+        dataset.class_names.clone(),
+        h_train,
+        train.y.clone(),
+    )?;
+    let model = trainer.train(&hidden_train)?;
+    // The read-out acts on min-max-scaled hidden shares; fold that map into its weights so the
+    // chip's second stage takes the shares directly: W' = W / range, b' = b - W min / range.
+    let (min, max) = (&model.scaler.min, &model.scaler.max);
+    let range = max - min;
+    let w2 = &model.linear.weights;
+    let mut w2f = w2.clone();
+    let mut b2f = model.linear.bias.clone();
+    for (j, r) in range.iter().enumerate() {
+        let mut col = w2f.column_mut(j);
+        if *r > 0.0 {
+            col.mapv_inplace(|w| w / r);
+        } else {
+            col.fill(0.0);
+        }
+    }
+    for (c, mut b) in b2f.iter_mut().enumerate() {
+        let shift: f64 = (0..spec.units)
+            .filter(|&j| range[j] > 0.0)
+            .map(|j| w2[[c, j]] * min[j] / range[j])
+            .sum();
+        *b -= shift;
+        let _ = &mut b;
+    }
+    let baseline_pred = model.predict_baseline(h_test.view())?;
+    let layers = vec![(w1, b1), (w2f, b2f)];
+    // Ideal argmax: the whole mapped chain in exact weights, noiseless.
+    let chain = chain_design(&spec.stage, 2, Some(spec))
+        .map(
+            &layers
+                .iter()
+                .map(|(w, b)| (w.view(), b.view()))
+                .collect::<Vec<_>>(),
+        )?
+        .ideal();
+    let mut scratch = chain.scratch();
+    let mut out = vec![0.0; dataset.n_classes()];
+    let mut ideal_pred = Vec::with_capacity(test.y.len());
+    for row in test_u.axis_iter(Axis(0)) {
+        chain.forward_noiseless(&row.to_vec(), &mut scratch, &mut out)?;
+        ideal_pred.push(crate::training::argmax(&out).unwrap_or(0));
+    }
+    Ok(Prepared {
+        dataset_name: dataset.name.clone(),
+        class_names: dataset.class_names.clone(),
+        n_features: dataset.n_features(),
+        n_train: train.n_samples(),
+        ideal_acc: accuracy(&ideal_pred, &test.y),
+        baseline_acc: accuracy(&baseline_pred, &test.y),
+        test_u,
+        test_y: test.y.clone(),
+        layers,
+        hidden: Some(spec.clone()),
         ideal_pred,
         baseline_pred,
     })
@@ -93,26 +241,22 @@ pub fn prepare(
 pub enum CompetitionDesign {
     /// Current-mode WTA (full EKV DC solve per decision).
     CurrentWta(Box<WtaDesign>),
+    /// Multi-input differential pair fed with the weight-stage currents.
+    DiffPair(Box<DiffPairDesign>),
     /// Exact argmax of the weight stage's output currents (no circuit).
     Argmax,
-}
-
-/// Per-decision input-referred noise of the competition stage.
-#[derive(Debug, Clone, Copy, PartialEq)]
-pub struct InputNoise {
-    /// Noise bandwidth B, Hz: each input current I gets a Gaussian of sigma sqrt(2 q I B)
-    /// (shot noise, R. Sarpeshkar, T. Delbrück, C. Mead, IEEE Circuits & Devices 9(6), 1993).
-    pub bandwidth: f64,
 }
 
 /// Everything nominal about one design point.
 #[derive(Debug, Clone)]
 pub struct ClassifierDesign {
     pub process: Process,
+    /// The weight stage design used for every layer of the chain.
     pub weights: WeightStageDesign,
     pub competition: CompetitionDesign,
     pub decision: DecisionRule,
-    pub input_noise: Option<InputNoise>,
+    /// Per-decision input-referred shot noise of the competition stage's inputs.
+    pub input_noise: Option<InputShotNoise>,
     pub conditions: Conditions,
 }
 
@@ -120,7 +264,7 @@ pub struct ClassifierDesign {
 #[derive(Debug, Clone)]
 pub struct PointSetup {
     pub design: ClassifierDesign,
-    pub mapped: MappedStage,
+    pub mapped: MappedChain,
 }
 
 impl PointSetup {
@@ -128,10 +272,21 @@ impl PointSetup {
     pub fn new(design: ClassifierDesign, prep: &Prepared) -> Result<Self, PipelineError> {
         design.weights.validate()?;
         design.conditions.validate()?;
-        if let CompetitionDesign::CurrentWta(w) = &design.competition {
-            w.validate()?;
+        match &design.competition {
+            CompetitionDesign::CurrentWta(w) => w.validate()?,
+            CompetitionDesign::DiffPair(w) => w.validate()?,
+            CompetitionDesign::Argmax => {}
         }
-        let mapped = design.weights.map(prep.weights.view(), prep.bias.view())?;
+        if let Some(n) = &design.input_noise {
+            n.validate()?;
+        }
+        let chain = chain_design(&design.weights, prep.layers.len(), prep.hidden.as_ref());
+        let layers: Vec<_> = prep
+            .layers
+            .iter()
+            .map(|(w, b)| (w.view(), b.view()))
+            .collect();
+        let mapped = chain.map(&layers)?;
         Ok(Self { design, mapped })
     }
 
@@ -139,6 +294,13 @@ impl PointSetup {
     pub fn describe(&self) -> String {
         match &self.design.competition {
             CompetitionDesign::Argmax => "exact argmax of the weight-stage currents".into(),
+            CompetitionDesign::DiffPair(w) => format!(
+                "multi-input differential pair, {} inputs, pair devices {} x {}, {:?} inputs",
+                w.n,
+                crate::units::format_si(w.pair.w, "m", 3),
+                crate::units::format_si(w.pair.l, "m", 3),
+                w.input
+            ),
             CompetitionDesign::CurrentWta(w) => format!(
                 "current-mode WTA, {} cells, sink {} x {}, output {} x {}, {}",
                 w.n,
@@ -181,6 +343,8 @@ pub struct ChipOutcome {
     pub timed: u64,
     /// A chip that could not be built at all (e.g. a sampled device out of range).
     pub chip_error: Option<String>,
+    /// The first failed decision's reason (solver or compliance), if any.
+    pub first_failure: Option<String>,
 }
 
 impl ChipOutcome {
@@ -197,6 +361,7 @@ impl ChipOutcome {
             energy_sum: 0.0,
             timed: 0,
             chip_error: None,
+            first_failure: None,
         }
     }
 
@@ -220,8 +385,12 @@ impl ChipOutcome {
     }
 }
 
+/// Stream index of the competition stage's chip draws (after the weight stages' 0, 1, ...).
+pub const COMPETITION_STREAM: u64 = 1000;
+
 enum Decider {
     Wta(Box<crate::stages::competition::wta::WtaCircuit>),
+    DiffPair(Box<crate::stages::competition::diffpair::DiffPairCircuit>),
     Argmax,
 }
 
@@ -236,8 +405,12 @@ pub fn evaluate_chip(
     let n_classes = prep.class_names.len();
     let mut out = ChipOutcome::empty(chip, n_classes);
     let d = &setup.design;
-    let mut chip_rng = stream(seed, &[domain::CHIP, point, chip]);
-    let wchip = setup.mapped.sample_chip(&d.process, &mut chip_rng);
+    // Weight stage k draws from [CHIP, point, chip, k]; the competition stage from
+    // [CHIP, point, chip, COMPETITION_STREAM].
+    let wchip = setup.mapped.sample_chip(&d.process, |k| {
+        stream(seed, &[domain::CHIP, point, chip, k as u64])
+    });
+    let mut chip_rng = stream(seed, &[domain::CHIP, point, chip, COMPETITION_STREAM]);
     let built = (|| -> Result<_, PipelineError> {
         let eff = wchip.effective(&d.conditions)?;
         let decider = match &d.competition {
@@ -247,6 +420,13 @@ pub fn evaluate_chip(
                 let cchip =
                     WtaChip::sample((**w).clone(), |t| sample_mismatch(&mut chip_rng, &tech, t))?;
                 Decider::Wta(Box::new(cchip.at(d.conditions.temperature_k)?))
+            }
+            CompetitionDesign::DiffPair(w) => {
+                let tech = d.process.nmos.clone();
+                let cchip = DiffPairChip::sample((**w).clone(), |t| {
+                    sample_mismatch(&mut chip_rng, &tech, t)
+                })?;
+                Decider::DiffPair(Box::new(cchip.at(d.conditions.temperature_k)?))
             }
         };
         Ok((eff, decider))
@@ -266,9 +446,11 @@ pub fn evaluate_chip(
     };
     let mut noise_rng = stream(seed, &[domain::SAMPLE_NOISE, point, chip]);
     let mut currents = vec![0.0; eff.outputs()];
+    let mut noisy = vec![0.0; eff.outputs()];
+    let mut scratch: ChainScratch = eff.scratch();
+    let noisy_weights = eff.stages().iter().any(|s| s.has_read_noise());
     let mut ws = Workspace::new();
     let mut sol = StageSolution::default();
-    let noisy_weights = eff.has_read_noise();
     for (i, (row, &truth)) in prep.test_u.outer_iter().zip(&prep.test_y).enumerate() {
         out.samples += 1;
         let x = row
@@ -276,31 +458,44 @@ pub fn evaluate_chip(
             .map(|s| s.to_vec())
             .unwrap_or_else(|| row.to_vec());
         let r = if noisy_weights {
-            eff.forward(&x, &mut currents, &mut noise_rng)
+            eff.forward(&x, &mut scratch, &mut currents, &mut noise_rng)
         } else {
-            eff.forward_noiseless(&x, &mut currents)
+            eff.forward_noiseless(&x, &mut scratch, &mut currents)
         };
         if r.is_err() {
             out.nonconverged += 1;
             out.confusion[truth][n_classes + 1] += 1;
             continue;
         }
-        if let Some(n) = d.input_noise {
-            for c in currents.iter_mut() {
-                let sigma = (2.0 * ELEMENTARY_CHARGE * c.max(0.0) * n.bandwidth).sqrt();
-                let z: f64 = noise_rng.sample(StandardNormal);
-                *c = (*c + sigma * z).max(0.0);
-            }
-        }
-        let decided = match &decider {
-            Decider::Argmax => crate::training::argmax(&currents).map(|w| (w, false)),
-            Decider::Wta(c) => match c.solve(&currents, &mut ws, &mut sol) {
-                Ok(()) => {
-                    let dcs = sol.decide(&d.decision);
-                    Some((dcs.winner, dcs.ambiguous))
+        let inputs: &[f64] = match &d.input_noise {
+            Some(n) => {
+                if n.apply(&currents, &mut noisy, &mut noise_rng).is_err() {
+                    out.nonconverged += 1;
+                    out.confusion[truth][n_classes + 1] += 1;
+                    continue;
                 }
-                Err(_) => None,
-            },
+                &noisy
+            }
+            None => &currents,
+        };
+        let decided = match &decider {
+            Decider::Argmax => crate::training::argmax(inputs).map(|w| (w, false)),
+            Decider::Wta(c) => solve_decide(
+                c.as_ref(),
+                inputs,
+                &mut ws,
+                &mut sol,
+                &d.decision,
+                &mut out.first_failure,
+            ),
+            Decider::DiffPair(c) => solve_decide(
+                c.as_ref(),
+                inputs,
+                &mut ws,
+                &mut sol,
+                &d.decision,
+                &mut out.first_failure,
+            ),
         };
         match decided {
             None => {
@@ -325,4 +520,27 @@ pub fn evaluate_chip(
         }
     }
     out
+}
+
+/// One DC solve and decision; `None` when the solve failed (counted as non-converged).
+fn solve_decide<S: CompetitionStage + ?Sized>(
+    stage: &S,
+    inputs: &[f64],
+    ws: &mut Workspace,
+    sol: &mut StageSolution,
+    rule: &DecisionRule,
+    first_failure: &mut Option<String>,
+) -> Option<(usize, bool)> {
+    match stage.solve(inputs, ws, sol) {
+        Ok(()) => {
+            let d = sol.decide(rule);
+            Some((d.winner, d.ambiguous))
+        }
+        Err(e) => {
+            if first_failure.is_none() {
+                *first_failure = Some(e.to_string());
+            }
+            None
+        }
+    }
 }

@@ -24,6 +24,7 @@ use crate::physics::thermal_voltage;
 use crate::solvers::{solve_monotone, ScalarError, ScalarTolerance};
 
 use super::mos::Mos;
+use super::wta::CircuitBias;
 use super::{
     fill_shares, positive, validate_inputs, CompetitionError, CompetitionStage, InputSummary,
     SolveInfo, SolveMethod, StageSolution, Workspace,
@@ -319,15 +320,22 @@ impl DiffPairChip {
                 .collect(),
             _ => Vec::new(),
         };
-        let tail = match d.tail {
-            TailSource::Ideal { current } => Tail::Ideal(current),
+        let tail_desc = match d.tail {
+            TailSource::Ideal { current } => CircuitBias::Ideal(current),
             TailSource::Transistor {
                 device,
                 gate_voltage,
-            } => Tail::Mos(
-                Mos::new(&d.device(&device, temperature, self.tail)),
+            } => CircuitBias::Transistor {
+                device: d.device(&device, temperature, self.tail),
                 gate_voltage,
-            ),
+            },
+        };
+        let tail = match tail_desc {
+            CircuitBias::Ideal(i) => Tail::Ideal(i),
+            CircuitBias::Transistor {
+                device,
+                gate_voltage,
+            } => Tail::Mos(Mos::new(&device), gate_voltage),
         };
         Ok(DiffPairCircuit {
             n: d.n,
@@ -336,6 +344,7 @@ impl DiffPairChip {
             pair,
             diodes,
             tail,
+            tail_desc,
             input: d.input,
             supply: d.supply,
             output_voltage: d.output_voltage,
@@ -374,6 +383,7 @@ pub struct DiffPairCircuit {
     pair_fast: Vec<Mos>,
     diode_fast: Vec<Mos>,
     tail: Tail,
+    tail_desc: CircuitBias,
     input: DiffPairInput,
     /// Supply, V.
     pub supply: f64,
@@ -402,6 +412,16 @@ impl DiffPairCircuit {
     /// Input diode i (diode inputs only).
     pub fn diode(&self, i: usize) -> Option<&Ekv> {
         self.diodes.get(i)
+    }
+
+    /// The tail (ideal current or evaluated transistor with its gate voltage).
+    pub fn tail(&self) -> &CircuitBias {
+        &self.tail_desc
+    }
+
+    /// How inputs reach the gates.
+    pub fn input(&self) -> &DiffPairInput {
+        &self.input
     }
 
     /// Tail current at a common-source voltage.
@@ -475,6 +495,29 @@ impl DiffPairCircuit {
         } else {
             0.5 * (self.vs_min + self.supply)
         }
+    }
+
+    /// Net current (A) into each node for node voltages `[V_G0..V_G{N-1}, V_S]` and the
+    /// inputs: with diode inputs entry i is `I_in,i - I_diode,i`, otherwise 0 (the gate is
+    /// driven); entry N is `Σ I_i - I_tail`. Zero at a DC solution; with the node capacitances
+    /// it gives the right-hand side of the ODE. Returns `None` on a length mismatch.
+    pub fn node_currents(&self, inputs: &[f64], voltages: &[f64], out: &mut [f64]) -> Option<()> {
+        let n = self.n;
+        if inputs.len() != n || voltages.len() != n + 1 || out.len() != n + 1 {
+            return None;
+        }
+        let vs = voltages[n];
+        let mut s = 0.0;
+        for k in 0..n {
+            let vg = voltages[k];
+            out[k] = match self.input {
+                DiffPairInput::Diode { .. } => inputs[k] - self.diode_fast[k].id(vg, vg, 0.0),
+                _ => 0.0,
+            };
+            s += self.pair_fast[k].id(vg, self.output_voltage, vs);
+        }
+        out[n] = s - self.tail.eval(vs).0;
+        Some(())
     }
 
     /// Relative KCL residual at the common source for gate voltages and V_S.

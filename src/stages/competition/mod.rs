@@ -309,3 +309,60 @@ pub(crate) fn positive(
         })
     }
 }
+
+/// Any competition stage evaluated at its conditions (for code that picks the stage at run
+/// time, e.g. from an experiment file).
+#[derive(Clone, Debug, PartialEq)]
+pub enum CompetitionCircuit {
+    Wta(WtaCircuit),
+    DiffPair(DiffPairCircuit),
+}
+
+impl CompetitionStage for CompetitionCircuit {
+    fn n(&self) -> usize {
+        match self {
+            CompetitionCircuit::Wta(c) => c.n(),
+            CompetitionCircuit::DiffPair(c) => c.n(),
+        }
+    }
+
+    fn node_count(&self) -> usize {
+        match self {
+            CompetitionCircuit::Wta(c) => c.node_count(),
+            CompetitionCircuit::DiffPair(c) => c.node_count(),
+        }
+    }
+
+    fn node_name(&self, i: usize) -> String {
+        match self {
+            CompetitionCircuit::Wta(c) => c.node_name(i),
+            CompetitionCircuit::DiffPair(c) => c.node_name(i),
+        }
+    }
+
+    fn stage_name(&self) -> &'static str {
+        match self {
+            CompetitionCircuit::Wta(c) => c.stage_name(),
+            CompetitionCircuit::DiffPair(c) => c.stage_name(),
+        }
+    }
+
+    fn input_unit(&self) -> &'static str {
+        match self {
+            CompetitionCircuit::Wta(c) => c.input_unit(),
+            CompetitionCircuit::DiffPair(c) => c.input_unit(),
+        }
+    }
+
+    fn solve(
+        &self,
+        inputs: &[f64],
+        ws: &mut Workspace,
+        out: &mut StageSolution,
+    ) -> Result<(), CompetitionError> {
+        match self {
+            CompetitionCircuit::Wta(c) => c.solve(inputs, ws, out),
+            CompetitionCircuit::DiffPair(c) => c.solve(inputs, ws, out),
+        }
+    }
+}

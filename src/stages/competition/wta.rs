@@ -49,7 +49,9 @@ use super::{
 const STAGE: &str = "current-mode WTA";
 
 /// Relative KCL tolerance of the DC solve (at every node, relative to that node's current).
-pub const WTA_RELATIVE_TOLERANCE: f64 = 1e-10;
+/// At 1e-8 the node voltages are within about `1e-8 n U_T / eta` (≈ 30 nV at eta = 0.01) of the
+/// exact solution, far below any mismatch or noise effect.
+pub const WTA_RELATIVE_TOLERANCE: f64 = 1e-8;
 
 /// The current that drains the common node V_C.
 #[derive(Clone, Copy, Debug, PartialEq, serde::Serialize, serde::Deserialize)]
@@ -483,49 +485,88 @@ impl WtaCircuit {
         Some(())
     }
 
+    /// Net current (A) flowing into each node for node voltages `[V_0..V_{N-1}, V_C]`:
+    /// entry k is `I_k - I_A,k`, entry N is `Σ I_B,k - I_bias`. Zero at a DC solution; with the
+    /// node capacitances it gives the right-hand side of the circuit's ODE,
+    /// `C dV/dt = node current`. Returns `None` on a length mismatch.
+    pub fn node_currents(&self, inputs: &[f64], voltages: &[f64], out: &mut [f64]) -> Option<()> {
+        let n = self.n;
+        if inputs.len() != n || voltages.len() != n + 1 || out.len() != n + 1 {
+            return None;
+        }
+        let vc = voltages[n];
+        let mut s = 0.0;
+        for k in 0..n {
+            let vk = voltages[k];
+            out[k] = inputs[k] - self.sink_fast[k].id(vc, vk, 0.0);
+            s += self.output_fast[k].id(vk, self.output_voltage, vc);
+        }
+        out[n] = s - self.bias_fast.eval(vc).0;
+        Some(())
+    }
+
     /// Starting V_C from the weak-inversion closed form (module docs), clamped to the supply.
-    fn closed_form_vc(&self, inputs: &[f64]) -> f64 {
+    /// Writes each cell's closed-form share `I_k^g / Σ I_j^g` into `shares` and returns
+    /// `(V_C, ln I_b)` (for a bias transistor, I_b is its weak-inversion saturation current).
+    fn closed_form_vc(&self, inputs: &[f64], shares: &mut [f64]) -> (f64, f64) {
         let vout = self.output_voltage;
-        // log of the bias current the closed form has to match.
         let ln_ib = match self.bias_fast {
             FastBias::Ideal(i) => i.ln(),
             FastBias::Mos(m, vg) => m.is.ln() + (vg - m.vt0) * m.inv_n * m.inv_ut,
         };
         let mut max_e = f64::NEG_INFINITY;
-        let mut s = 0.0;
         let mut slope = 0.0;
-        for (pass, _) in [(0, ()), (1, ())] {
-            for k in 0..self.n {
-                let i = inputs[k];
-                if i <= 0.0 {
-                    continue;
-                }
-                let a = &self.sink_fast[k];
-                let b = &self.output_fast[k];
-                let eta_a = a.eta.max(1e-3);
-                let alpha = (a.n() * a.ut() * (i / a.is).ln() + a.vt0) / eta_a;
-                let e = b.is.ln() + (alpha - b.vt0 + b.eta * vout) * b.inv_n * b.inv_ut;
-                if pass == 0 {
-                    max_e = max_e.max(e);
-                    slope = (1.0 / eta_a + b.eta) * b.inv_n * b.inv_ut + b.inv_ut;
-                } else {
-                    s += (e - max_e).exp();
-                }
+        for k in 0..self.n {
+            let i = inputs[k];
+            if i <= 0.0 {
+                shares[k] = f64::NEG_INFINITY;
+                continue;
             }
+            let a = &self.sink_fast[k];
+            let b = &self.output_fast[k];
+            let eta_a = a.eta.max(1e-3);
+            // EKV forward law inverted (x = 2 ln(e^sqrt(i) - 1), ≈ ln i in weak inversion):
+            // keeps the start close where the pure exponential is off by a few per cent.
+            let x = 2.0 * (i / a.is).sqrt().exp_m1().ln();
+            let alpha = (a.n() * a.ut() * x + a.vt0) / eta_a;
+            let e = b.is.ln() + (alpha - b.vt0 + b.eta * vout) * b.inv_n * b.inv_ut;
+            shares[k] = e;
+            max_e = max_e.max(e);
+            slope = (1.0 / eta_a + b.eta) * b.inv_n * b.inv_ut + b.inv_ut;
+        }
+        let mut s = 0.0;
+        for x in shares[..self.n].iter_mut() {
+            *x = (*x - max_e).exp();
+            s += *x;
+        }
+        for x in shares[..self.n].iter_mut() {
+            *x /= s;
         }
         if !(max_e.is_finite() && slope > 0.0) {
-            return self.vc_min;
+            return (self.vc_min, ln_ib);
         }
         let vc = (max_e + s.ln() - ln_ib) / slope;
-        if vc.is_finite() {
+        let vc = if vc.is_finite() {
             vc.clamp(self.vc_min, self.supply)
         } else {
             self.vc_min
-        }
+        };
+        (vc, ln_ib)
     }
 
-    /// Starting V_k for a given V_C: triode when the input is below the sink's saturation
-    /// current, else the weak-inversion saturated value.
+    /// Starting V_k of a cell expected to carry `i_out` through its output transistor B_k at
+    /// a given V_C (saturated B_k, inverted EKV forward law `x = 2 ln(e^sqrt(i) - 1)`).
+    #[inline]
+    fn cell_guess_from_output(&self, k: usize, i_out: f64, vc: f64) -> f64 {
+        let b = &self.output_fast[k];
+        let x = 2.0 * (i_out / b.is).sqrt().exp_m1().ln();
+        b.n() * (b.ut() * x + vc) + b.vt0 - b.eta * (self.output_voltage - vc)
+    }
+
+    /// Starting V_k for a given V_C: the sink's weak-inversion law with drain coupling,
+    /// `I_k = I_sat e^(eta V_k/(n U_T)) (1 - e^(-V_k/U_T))` with `I_sat = I_S F(v_p(V_k = 0))`,
+    /// solved by a few cheap Newton steps in ln V_k (the law is concave in V_k, near-linear in
+    /// ln V_k in triode and convex in saturation).
     #[inline]
     fn cell_guess(&self, k: usize, i: f64, vc: f64) -> f64 {
         if i <= 0.0 {
@@ -538,12 +579,28 @@ impl WtaCircuit {
         let isat = a.is * sp * sp;
         let r = i / isat;
         let ut = a.ut();
-        let v = if r < 0.5 {
+        let alpha = a.eta.max(1e-4) * a.inv_n * a.inv_ut;
+        let ln_r = r.ln();
+        let mut v = if r < 0.5 {
             -ut * (-r).ln_1p()
         } else {
-            let eta = a.eta.max(1e-3);
-            (0.7 * ut).max(3.0 * ut + a.n() * ut * r.ln().max(0.0) / eta)
+            ut + ln_r.max(0.0) / alpha
         };
+        if !(v.is_finite() && v > 0.0) {
+            return 0.5 * self.supply;
+        }
+        v = v.min(self.supply);
+        for _ in 0..4 {
+            let e = (v * a.inv_ut).exp_m1();
+            // ln(1 - e^(-V/U_T)) = ln(e^(V/U_T) - 1) - V/U_T
+            let g = alpha * v + e.ln() - v * a.inv_ut - ln_r;
+            let dg = v * (alpha + a.inv_ut / e);
+            let dy = (-g / dg).clamp(-5.0, 2.0);
+            v = (v * dy.exp()).min(self.supply);
+            if dy.abs() < 1e-2 {
+                break;
+            }
+        }
         if v.is_finite() && v > 0.0 {
             v.min(0.999 * self.supply)
         } else {
@@ -555,11 +612,24 @@ impl WtaCircuit {
         let n = self.n;
         let vout = self.output_voltage;
         let vmax = self.supply;
-        let mut vc = self.closed_form_vc(inputs);
+        let (mut vc, ln_ib) = self.closed_form_vc(inputs, &mut ws.e[..n]);
         {
-            let v = &mut ws.v[..n];
+            // Cells expected to carry a visible share of the bias start from their output
+            // transistor's law (the closed form makes V_C and these consistent with KCL at V_C);
+            // the others from their sink's law.
+            let ib = ln_ib.exp();
+            let (v, share) = (&mut ws.v[..n], &ws.e[..n]);
             for k in 0..n {
-                v[k] = self.cell_guess(k, inputs[k], vc);
+                let from_b = if inputs[k] > 0.0 && share[k] > 1e-3 {
+                    self.cell_guess_from_output(k, share[k] * ib, vc)
+                } else {
+                    f64::NAN
+                };
+                v[k] = if from_b.is_finite() && from_b > 0.0 {
+                    from_b.min(0.999 * vmax)
+                } else {
+                    self.cell_guess(k, inputs[k], vc)
+                };
             }
         }
         let Workspace { a, b, c, d, v, .. } = ws;
@@ -593,7 +663,7 @@ impl WtaCircuit {
                     return NewtonEnd::Gave(it);
                 }
                 let rho = (ea.id / i).ln();
-                res = res.max(rho.exp_m1().abs());
+                res = res.max(rho.abs());
                 let q = rho * ea.id;
                 a[k] = ea.d_vd;
                 b[k] = eb.d_vg;
@@ -607,9 +677,10 @@ impl WtaCircuit {
                 return NewtonEnd::Gave(it);
             }
             let r = (s_sum / ib).ln();
-            res = res.max(r.exp_m1().abs());
-            if res <= self.tolerance {
-                return NewtonEnd::Converged(it, res);
+            res = res.max(r.abs());
+            // |ln(x)| <= tol implies |x - 1| <= tol (1 + tol): report the relative residual.
+            if res <= 0.5 * self.tolerance {
+                return NewtonEnd::Converged(it, res.exp_m1());
             }
             let den = e_sum / s_sum - p / ib - bca / s_sum;
             let mut dvc = (-r + bqa / s_sum) / den;
@@ -621,12 +692,14 @@ impl WtaCircuit {
                 if a[k] == 0.0 {
                     continue;
                 }
-                let dv = (-(d[k] + c[k] * dvc) / a[k]).clamp(-0.3, 0.3);
+                // Newton in y_k = ln V_k: the linear step is the same (the Jacobian's columns
+                // scale by V_k), only the update is multiplicative. ln I_A is close to linear in
+                // ln V_k in triode and convex in saturation, so Newton does not overshoot into
+                // negative voltages the way it does in V_k, where ln I_A is concave.
                 let vk = v[k];
-                let mut nv = vk + dv;
-                if nv <= 0.0 {
-                    nv = 0.1 * vk;
-                } else if nv >= vmax {
+                let dy = (-(d[k] + c[k] * dvc) / (a[k] * vk)).clamp(-20.0, 2.0);
+                let mut nv = vk * dy.exp();
+                if nv >= vmax {
                     nv = 0.5 * (vk + vmax);
                 }
                 v[k] = nv;
@@ -707,7 +780,7 @@ impl WtaCircuit {
         spent: usize,
     ) -> Result<(f64, usize), CompetitionError> {
         let n = self.n;
-        let vc0 = self.closed_form_vc(inputs);
+        let (vc0, _) = self.closed_form_vc(inputs, &mut ws.d[..n]);
         let Workspace { v, e, .. } = ws;
         let (v, clamped) = (&mut v[..n], &mut e[..n]);
         for k in 0..n {

@@ -1,0 +1,80 @@
+//! The DC solves do not allocate once the caller's workspace and solution buffers exist
+//! (checked with a counting global allocator; a property of our code, no outside source needed
+//! beyond the std `GlobalAlloc` contract).
+
+mod competition_support;
+
+use std::alloc::{GlobalAlloc, Layout, System};
+use std::sync::atomic::{AtomicUsize, Ordering};
+
+use competition_support::*;
+use hardmax::stages::competition::{
+    CompetitionStage, DiffPairChip, DiffPairDesign, DiffPairInput, StageSolution, TailSource,
+    Workspace, WtaChip,
+};
+
+struct Counting;
+
+static ALLOCATIONS: AtomicUsize = AtomicUsize::new(0);
+
+unsafe impl GlobalAlloc for Counting {
+    unsafe fn alloc(&self, layout: Layout) -> *mut u8 {
+        ALLOCATIONS.fetch_add(1, Ordering::SeqCst);
+        System.alloc(layout)
+    }
+    unsafe fn dealloc(&self, ptr: *mut u8, layout: Layout) {
+        System.dealloc(ptr, layout)
+    }
+    unsafe fn realloc(&self, ptr: *mut u8, layout: Layout, new_size: usize) -> *mut u8 {
+        ALLOCATIONS.fetch_add(1, Ordering::SeqCst);
+        System.realloc(ptr, layout, new_size)
+    }
+}
+
+#[global_allocator]
+static GLOBAL: Counting = Counting;
+
+#[test]
+fn solves_do_not_allocate() {
+    let c = WtaChip::nominal(wide_range_design(10))
+        .unwrap()
+        .at(300.0)
+        .unwrap();
+    let mut bracket = c.clone();
+    bracket.max_newton = 0;
+    let d = DiffPairChip::nominal(DiffPairDesign::new(
+        4,
+        generic_process(0.01),
+        nmos(2e-6, 1e-6),
+        TailSource::Ideal { current: 1e-9 },
+        DiffPairInput::Diode {
+            device: nmos(2e-6, 1e-6),
+        },
+    ))
+    .unwrap()
+    .at(300.0)
+    .unwrap();
+    let inputs: Vec<Vec<f64>> = vec![
+        vec![1e-9, 2e-9, 0.0, 1e-12, 5e-9, 1e-3, 1e-15, 3e-9, 3e-9, 1e-6],
+        vec![1e-9; 10],
+    ];
+    let dx = [1e-9, 2e-9, 0.0, 1e-10];
+    let mut ws = Workspace::new();
+    let mut out = StageSolution::for_stage(&c);
+    let mut out_d = StageSolution::for_stage(&d);
+    // Warm-up: the workspace grows once.
+    c.solve(&inputs[0], &mut ws, &mut out).unwrap();
+    d.solve(&dx, &mut ws, &mut out_d).unwrap();
+    let before = ALLOCATIONS.load(Ordering::SeqCst);
+    for _ in 0..100 {
+        for x in &inputs {
+            c.solve(x, &mut ws, &mut out).unwrap();
+            bracket.solve(x, &mut ws, &mut out).unwrap();
+        }
+        d.solve(&dx, &mut ws, &mut out_d).unwrap();
+        // Error paths do not allocate either.
+        assert!(c.solve(&[f64::NAN; 10], &mut ws, &mut out).is_err());
+    }
+    let after = ALLOCATIONS.load(Ordering::SeqCst);
+    assert_eq!(after - before, 0, "allocations in the hot path");
+}
