@@ -31,7 +31,7 @@ pub enum Command {
     /// Print an experiment file with every default filled in, after overrides; check it.
     Resolve(resolve::ResolveArgs),
     /// Evaluate one competition stage on given inputs, or sweep one input (transfer curve).
-    Stage(stage::StageArgs),
+    Stage(Box<stage::StageArgs>),
     /// Re-render plots and the HTML report of an existing results folder from its CSV files.
     Render(render::RenderArgs),
     /// Train the float classifier on a dataset; print the linfa baseline and ideal-argmax accuracy.
@@ -45,7 +45,7 @@ pub fn main_entry() -> anyhow::Result<()> {
         Command::Run(a) => run::run(a),
         Command::Batch(a) => batch::run(a),
         Command::Resolve(a) => resolve::run(a),
-        Command::Stage(a) => stage::run(a),
+        Command::Stage(a) => stage::run(*a),
         Command::Render(a) => render::run(a),
         Command::Baseline(a) => baseline::run(a),
     }

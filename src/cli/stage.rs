@@ -1,10 +1,1281 @@
-//! `hardmax stage` (placeholder until its issue lands; it reports that it is not available yet).
+//! `hardmax stage`: evaluate one competition stage (a nominal chip, no mismatch) on given input
+//! currents and print everything a designer needs to compare it with a circuit simulator solving
+//! the same equations: every parameter actually used, node voltages, output currents, shares,
+//! the small-signal gain, the decision and the solver report. `--sweep` writes a transfer curve
+//! (CSV `x, out_0.., share_0..`, the format fixed in DEVELOPERS.md); `--transient` integrates the
+//! node capacitances (current-mode WTA) for decision time and energy.
+//!
+//! Parameters come from a stage file (`--stage FILE`, TOML, schema below) and from flags;
+//! a flag overrides the file. Quantities take SI prefixes and units ("10 nA", "2 um").
+//!
+//! Stage file keys (all optional): `circuit` ("current-wta" | "diff-pair"), `preset`,
+//! `temperature`, `inputs` (array), `bias`, `supply`, `output_voltage`, one of `gain` /
+//! `eta` / `early_voltage`, `input_capacitance`, `common_capacitance`, `read_time`,
+//! `[sink]` and `[output]` with `w`, `l`; `[nmos]` with `vt0`, `n`, one of `mu_cox` / `is`;
+//! `[decision]` with `min_winner_share`, `max_runner_up_share`. Unknown keys are errors.
 
-use clap::Args;
+use std::fmt::Write as _;
+use std::path::{Path, PathBuf};
+
+use anyhow::{anyhow, bail, Context};
+use clap::{Args, ValueEnum};
+use serde_json::json;
+
+use crate::device::{preset, DrainCoupling, Ekv, Polarity, Transistor};
+use crate::io::write_atomic;
+use crate::physics::thermal_voltage;
+use crate::stages::competition::transient::{
+    simulate, InitialState, NoiseOptions, TransientOptions, TransientWorkspace,
+};
+use crate::stages::competition::wta::CircuitBias;
+use crate::stages::competition::{
+    CompetitionStage, DecisionRule, DiffPairChip, DiffPairCircuit, DiffPairDesign, DiffPairInput,
+    StageSolution, TailSource, Workspace, WtaBias, WtaChip, WtaCircuit, WtaDesign,
+};
+use crate::units::{format_si, parse_quantity, quantity_from_toml, Dimension};
+
+/// Which competition circuit.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, ValueEnum)]
+pub enum CircuitArg {
+    /// Current-mode WTA (two transistors per cell, one common node).
+    CurrentWta,
+    /// Multi-input differential pair fed through diode-connected NMOS (sink size).
+    DiffPair,
+}
+
+/// Output format.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, ValueEnum)]
+pub enum Format {
+    Table,
+    Json,
+    Csv,
+}
+
+/// Spacing of the sweep points.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, ValueEnum)]
+pub enum Scale {
+    Linear,
+    Log,
+}
+
+/// Start of the transient.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, ValueEnum)]
+pub enum InitialArg {
+    /// Every node at 0 V, inputs switched on at t = 0.
+    Ground,
+    /// The DC state of the mean input on every line.
+    CommonMode,
+}
 
 #[derive(Debug, Args)]
-pub struct StageArgs {}
+#[command(after_help = crate::CAUTION)]
+pub struct StageArgs {
+    /// Stage file (TOML) with the parameters; flags override it.
+    #[arg(long, value_name = "FILE")]
+    pub stage: Option<PathBuf>,
+    /// Competition circuit [default: current-wta].
+    #[arg(long, value_enum)]
+    pub circuit: Option<CircuitArg>,
+    /// Input currents, comma separated, e.g. "10nA,12nA,9nA" (at least 2).
+    #[arg(long, value_name = "LIST", allow_hyphen_values = true)]
+    pub inputs: Option<String>,
+    /// Bias (tail) current [default: 100 nA].
+    #[arg(long, value_name = "CURRENT", allow_hyphen_values = true)]
+    pub bias: Option<String>,
+    /// Temperature [default: 300 K].
+    #[arg(long, value_name = "T", allow_hyphen_values = true)]
+    pub temperature: Option<String>,
+    /// Process preset (generic-350nm, generic-180nm, generic-65nm) [default: generic-180nm].
+    #[arg(long, value_name = "NAME")]
+    pub preset: Option<String>,
+    /// Competition gain kappa/sigma: sets the drain coupling eta = 1/gain of the stage's devices.
+    #[arg(long, allow_hyphen_values = true)]
+    pub gain: Option<f64>,
+    /// Drain coupling eta of the stage's devices.
+    #[arg(long, allow_hyphen_values = true)]
+    pub eta: Option<f64>,
+    /// Early voltage of the stage's devices (sigma = U_T / V_A).
+    #[arg(long, value_name = "VOLTAGE", allow_hyphen_values = true)]
+    pub early_voltage: Option<String>,
+    /// Sink (WTA) or input-diode (diff pair) width [default: 2 um].
+    #[arg(long, value_name = "LENGTH", allow_hyphen_values = true)]
+    pub sink_w: Option<String>,
+    /// Sink or input-diode length [default: 2 um].
+    #[arg(long, value_name = "LENGTH", allow_hyphen_values = true)]
+    pub sink_l: Option<String>,
+    /// Output (WTA) or pair (diff pair) transistor width [default: 2 um].
+    #[arg(long, value_name = "LENGTH", allow_hyphen_values = true)]
+    pub output_w: Option<String>,
+    /// Output or pair transistor length [default: 2 um].
+    #[arg(long, value_name = "LENGTH", allow_hyphen_values = true)]
+    pub output_l: Option<String>,
+    /// NMOS threshold V_T0 at the process's nominal temperature.
+    #[arg(long, value_name = "VOLTAGE", allow_hyphen_values = true)]
+    pub vt0: Option<String>,
+    /// NMOS slope factor n.
+    #[arg(long, allow_hyphen_values = true)]
+    pub n: Option<f64>,
+    /// NMOS mu C_ox, e.g. "300 uA/V^2".
+    #[arg(long, value_name = "A/V^2", allow_hyphen_values = true)]
+    pub mu_cox: Option<String>,
+    /// Specific current I_S of the sink at the nominal temperature (sets mu C_ox instead).
+    #[arg(long = "is", value_name = "CURRENT", allow_hyphen_values = true)]
+    pub specific_current: Option<String>,
+    /// Supply V_dd [default: the preset's].
+    #[arg(long, value_name = "VOLTAGE", allow_hyphen_values = true)]
+    pub supply: Option<String>,
+    /// Voltage of the output drains [default: the supply].
+    #[arg(long, value_name = "VOLTAGE", allow_hyphen_values = true)]
+    pub output_voltage: Option<String>,
+    /// Capacitance of each input node [default: 50 fF].
+    #[arg(long, value_name = "CAP", allow_hyphen_values = true)]
+    pub input_capacitance: Option<String>,
+    /// Capacitance of the common node [default: 200 fF].
+    #[arg(long, value_name = "CAP", allow_hyphen_values = true)]
+    pub common_capacitance: Option<String>,
+    /// Ambiguous when the winner's share is below this [default: 0.6].
+    #[arg(long, allow_hyphen_values = true)]
+    pub min_winner_share: Option<f64>,
+    /// Ambiguous when the runner-up's share is above this [default: 0.3].
+    #[arg(long, allow_hyphen_values = true)]
+    pub max_runner_up_share: Option<f64>,
+    /// Output format.
+    #[arg(long, value_enum, default_value = "table")]
+    pub format: Format,
+    /// Sweep mode: "diff" (x = I_0 - I_1 around their mean) or "input:K" (x = I_K).
+    #[arg(long, value_name = "WHAT")]
+    pub sweep: Option<String>,
+    /// First sweep value (a current).
+    #[arg(
+        long,
+        value_name = "CURRENT",
+        allow_hyphen_values = true,
+        requires = "sweep"
+    )]
+    pub from: Option<String>,
+    /// Last sweep value (a current).
+    #[arg(
+        long,
+        value_name = "CURRENT",
+        allow_hyphen_values = true,
+        requires = "sweep"
+    )]
+    pub to: Option<String>,
+    /// Number of sweep points (at least 2).
+    #[arg(long, default_value_t = 41)]
+    pub points: usize,
+    /// Spacing of the sweep points (log needs from and to of the same sign, not zero).
+    #[arg(long, value_enum, default_value = "linear")]
+    pub scale: Scale,
+    /// Write the sweep CSV here (default: standard output).
+    #[arg(long, value_name = "FILE")]
+    pub out: Option<PathBuf>,
+    /// Run the transient (current-mode WTA): decision time and energy.
+    #[arg(long, conflicts_with = "sweep")]
+    pub transient: bool,
+    /// Read the decision at this time (transient); default: run until settled.
+    #[arg(long, value_name = "TIME", allow_hyphen_values = true)]
+    pub read_time: Option<String>,
+    /// Start of the transient.
+    #[arg(long, value_enum, default_value = "ground")]
+    pub initial: InitialArg,
+    /// Write the transient waveform CSV (t, V_0.., V_C, out_0..) here.
+    #[arg(long, value_name = "FILE", requires = "transient")]
+    pub waveform: Option<PathBuf>,
+    /// Integrate shot noise in the transient (SDE).
+    #[arg(long, requires = "transient")]
+    pub noise: bool,
+    /// Seed of the noise stream.
+    #[arg(long, default_value_t = 1)]
+    pub seed: u64,
+}
 
-pub fn run(_args: StageArgs) -> anyhow::Result<()> {
-    anyhow::bail!("`hardmax stage` is not available in this build yet")
+/// Every parameter of the stage, after file and flags (SI units).
+#[derive(Clone, Debug)]
+struct Spec {
+    circuit: CircuitArg,
+    preset: String,
+    temperature: f64,
+    inputs: Vec<f64>,
+    bias: f64,
+    supply: Option<f64>,
+    output_voltage: Option<f64>,
+    coupling: Option<(&'static str, DrainCoupling)>,
+    sink: (f64, f64),
+    output: (f64, f64),
+    vt0: Option<f64>,
+    n: Option<f64>,
+    mu_cox: Option<f64>,
+    specific_current: Option<f64>,
+    input_capacitance: f64,
+    common_capacitance: f64,
+    rule: DecisionRule,
+    read_time: Option<f64>,
+}
+
+impl Default for Spec {
+    fn default() -> Self {
+        Spec {
+            circuit: CircuitArg::CurrentWta,
+            preset: "generic-180nm".into(),
+            temperature: 300.0,
+            inputs: Vec::new(),
+            bias: 100e-9,
+            supply: None,
+            output_voltage: None,
+            coupling: None,
+            sink: (2e-6, 2e-6),
+            output: (2e-6, 2e-6),
+            vt0: None,
+            n: None,
+            mu_cox: None,
+            specific_current: None,
+            input_capacitance: 50e-15,
+            common_capacitance: 200e-15,
+            rule: DecisionRule::default(),
+            read_time: None,
+        }
+    }
+}
+
+fn flag(name: &str, text: &str, dim: Dimension) -> anyhow::Result<f64> {
+    parse_quantity(text, dim).map_err(|e| anyhow!("--{name}: {e}"))
+}
+
+fn parse_inputs(what: &str, items: &[String]) -> anyhow::Result<Vec<f64>> {
+    let mut v = Vec::with_capacity(items.len());
+    for (i, t) in items.iter().enumerate() {
+        let x = parse_quantity(t, Dimension::Current).map_err(|e| anyhow!("{what}[{i}]: {e}"))?;
+        if x < 0.0 {
+            bail!("{what}[{i}] = {t:?} is negative; input currents must be >= 0");
+        }
+        v.push(x);
+    }
+    if v.len() < 2 {
+        bail!(
+            "{what}: a competition needs at least 2 inputs, got {}; give e.g. --inputs \"10nA,12nA,9nA\"",
+            v.len()
+        );
+    }
+    Ok(v)
+}
+
+fn set_coupling(
+    spec: &mut Spec,
+    key: &'static str,
+    dc: DrainCoupling,
+    source: &str,
+) -> anyhow::Result<()> {
+    if let Some((prev, _)) = spec.coupling {
+        if prev != key {
+            bail!("{source}: give only one of gain, eta and early_voltage (`{prev}` is already set, then `{key}`)");
+        }
+    }
+    spec.coupling = Some((key, dc));
+    Ok(())
+}
+
+/// Read a stage file into `spec`.
+fn read_file(path: &Path, spec: &mut Spec) -> anyhow::Result<()> {
+    let text = std::fs::read_to_string(path)
+        .with_context(|| format!("cannot read stage file {}", path.display()))?;
+    let root: toml::Table = text
+        .parse()
+        .map_err(|e| anyhow!("stage file {}: {e}", path.display()))?;
+    let file = path.display().to_string();
+    let q = |key: &str, v: &toml::Value, dim| -> anyhow::Result<f64> {
+        quantity_from_toml(v, dim).map_err(|e| anyhow!("stage file {file}: key `{key}`: {e}"))
+    };
+    let num =
+        |key: &str, v: &toml::Value| -> anyhow::Result<f64> { q(key, v, Dimension::Dimensionless) };
+    let string = |key: &str, v: &toml::Value| -> anyhow::Result<String> {
+        v.as_str()
+            .map(str::to_string)
+            .ok_or_else(|| anyhow!("stage file {file}: key `{key}` must be a string"))
+    };
+    let size = |key: &str, v: &toml::Value, into: &mut (f64, f64)| -> anyhow::Result<()> {
+        let t = v
+            .as_table()
+            .ok_or_else(|| anyhow!("stage file {file}: `{key}` must be a table with w, l"))?;
+        for (k, x) in t {
+            match k.as_str() {
+                "w" => into.0 = q(&format!("{key}.w"), x, Dimension::Length)?,
+                "l" => into.1 = q(&format!("{key}.l"), x, Dimension::Length)?,
+                _ => bail!("stage file {file}: unknown key `{key}.{k}`; known keys: w, l"),
+            }
+        }
+        Ok(())
+    };
+    for (key, v) in &root {
+        match key.as_str() {
+            "circuit" => {
+                let s = string(key, v)?;
+                spec.circuit = CircuitArg::from_str(&s, false).map_err(|_| {
+                    anyhow!("stage file {file}: key `circuit` = {s:?}; valid: current-wta, diff-pair")
+                })?;
+            }
+            "preset" => spec.preset = string(key, v)?,
+            "temperature" => spec.temperature = q(key, v, Dimension::Temperature)?,
+            "inputs" => {
+                let arr = v
+                    .as_array()
+                    .ok_or_else(|| anyhow!("stage file {file}: key `inputs` must be an array of currents, e.g. [\"10 nA\", \"12 nA\"]"))?;
+                let mut items = Vec::new();
+                for (i, x) in arr.iter().enumerate() {
+                    let val = q(&format!("inputs[{i}]"), x, Dimension::Current)?;
+                    items.push(format!("{val:e}"));
+                }
+                spec.inputs = parse_inputs(&format!("stage file {file}: key `inputs`"), &items)?;
+            }
+            "bias" => spec.bias = q(key, v, Dimension::Current)?,
+            "supply" => spec.supply = Some(q(key, v, Dimension::Voltage)?),
+            "output_voltage" => spec.output_voltage = Some(q(key, v, Dimension::Voltage)?),
+            "gain" => {
+                let g = num(key, v)?;
+                set_coupling(spec, "gain", DrainCoupling::Eta(1.0 / g), &file)?;
+            }
+            "eta" => {
+                let e = num(key, v)?;
+                set_coupling(spec, "eta", DrainCoupling::Eta(e), &file)?;
+            }
+            "early_voltage" => {
+                let va = q(key, v, Dimension::Voltage)?;
+                set_coupling(spec, "early_voltage", DrainCoupling::EarlyVoltage(va), &file)?;
+            }
+            "input_capacitance" => spec.input_capacitance = q(key, v, Dimension::Capacitance)?,
+            "common_capacitance" => spec.common_capacitance = q(key, v, Dimension::Capacitance)?,
+            "read_time" => spec.read_time = Some(q(key, v, Dimension::Time)?),
+            "sink" => size("sink", v, &mut spec.sink)?,
+            "output" => size("output", v, &mut spec.output)?,
+            "nmos" => {
+                let t = v
+                    .as_table()
+                    .ok_or_else(|| anyhow!("stage file {file}: `nmos` must be a table"))?;
+                for (k, x) in t {
+                    let path = format!("nmos.{k}");
+                    match k.as_str() {
+                        "vt0" => spec.vt0 = Some(q(&path, x, Dimension::Voltage)?),
+                        "n" => spec.n = Some(num(&path, x)?),
+                        "mu_cox" => spec.mu_cox = Some(q(&path, x, Dimension::Transconductance)?),
+                        "is" => spec.specific_current = Some(q(&path, x, Dimension::Current)?),
+                        _ => bail!("stage file {file}: unknown key `{path}`; known keys: vt0, n, mu_cox, is"),
+                    }
+                }
+            }
+            "decision" => {
+                let t = v
+                    .as_table()
+                    .ok_or_else(|| anyhow!("stage file {file}: `decision` must be a table"))?;
+                for (k, x) in t {
+                    let path = format!("decision.{k}");
+                    match k.as_str() {
+                        "min_winner_share" => spec.rule.min_winner_share = num(&path, x)?,
+                        "max_runner_up_share" => spec.rule.max_runner_up_share = num(&path, x)?,
+                        _ => bail!("stage file {file}: unknown key `{path}`; known keys: min_winner_share, max_runner_up_share"),
+                    }
+                }
+            }
+            _ => bail!(
+                "stage file {file}: unknown key `{key}`; known keys: circuit, preset, temperature, inputs, bias, supply, output_voltage, gain, eta, early_voltage, input_capacitance, common_capacitance, read_time, [sink], [output], [nmos], [decision]"
+            ),
+        }
+    }
+    Ok(())
+}
+
+fn resolve(args: &StageArgs) -> anyhow::Result<Spec> {
+    let mut spec = Spec::default();
+    if let Some(p) = &args.stage {
+        read_file(p, &mut spec)?;
+    }
+    if let Some(c) = args.circuit {
+        spec.circuit = c;
+    }
+    if let Some(p) = &args.preset {
+        spec.preset = p.clone();
+    }
+    if let Some(t) = &args.inputs {
+        let items: Vec<String> = t.split(',').map(|s| s.trim().to_string()).collect();
+        spec.inputs = parse_inputs("--inputs", &items)?;
+    }
+    if spec.inputs.is_empty() {
+        bail!("no inputs: give --inputs \"10nA,12nA,9nA\" or `inputs` in the stage file");
+    }
+    let opt = |name: &str, v: &Option<String>, dim| -> anyhow::Result<Option<f64>> {
+        v.as_deref().map(|t| flag(name, t, dim)).transpose()
+    };
+    if let Some(x) = opt("bias", &args.bias, Dimension::Current)? {
+        spec.bias = x;
+    }
+    if let Some(x) = opt("temperature", &args.temperature, Dimension::Temperature)? {
+        spec.temperature = x;
+    }
+    if let Some(g) = args.gain {
+        set_coupling(&mut spec, "gain", DrainCoupling::Eta(1.0 / g), "flags")?;
+    }
+    if let Some(e) = args.eta {
+        set_coupling(&mut spec, "eta", DrainCoupling::Eta(e), "flags")?;
+    }
+    if let Some(va) = opt("early-voltage", &args.early_voltage, Dimension::Voltage)? {
+        set_coupling(
+            &mut spec,
+            "early_voltage",
+            DrainCoupling::EarlyVoltage(va),
+            "flags",
+        )?;
+    }
+    for (name, v, into) in [
+        ("sink-w", &args.sink_w, &mut spec.sink.0),
+        ("sink-l", &args.sink_l, &mut spec.sink.1),
+        ("output-w", &args.output_w, &mut spec.output.0),
+        ("output-l", &args.output_l, &mut spec.output.1),
+    ] {
+        if let Some(x) = opt(name, v, Dimension::Length)? {
+            *into = x;
+        }
+    }
+    if let Some(x) = opt("vt0", &args.vt0, Dimension::Voltage)? {
+        spec.vt0 = Some(x);
+    }
+    if let Some(n) = args.n {
+        spec.n = Some(n);
+    }
+    if let Some(x) = opt("mu-cox", &args.mu_cox, Dimension::Transconductance)? {
+        spec.mu_cox = Some(x);
+        spec.specific_current = None;
+    }
+    if let Some(x) = opt("is", &args.specific_current, Dimension::Current)? {
+        spec.specific_current = Some(x);
+        spec.mu_cox = None;
+    }
+    if spec.mu_cox.is_some() && spec.specific_current.is_some() {
+        bail!("give only one of mu_cox and is (the specific current sets mu C_ox)");
+    }
+    if let Some(x) = opt("supply", &args.supply, Dimension::Voltage)? {
+        spec.supply = Some(x);
+    }
+    if let Some(x) = opt("output-voltage", &args.output_voltage, Dimension::Voltage)? {
+        spec.output_voltage = Some(x);
+    }
+    if let Some(x) = opt(
+        "input-capacitance",
+        &args.input_capacitance,
+        Dimension::Capacitance,
+    )? {
+        spec.input_capacitance = x;
+    }
+    if let Some(x) = opt(
+        "common-capacitance",
+        &args.common_capacitance,
+        Dimension::Capacitance,
+    )? {
+        spec.common_capacitance = x;
+    }
+    if let Some(x) = args.min_winner_share {
+        spec.rule.min_winner_share = x;
+    }
+    if let Some(x) = args.max_runner_up_share {
+        spec.rule.max_runner_up_share = x;
+    }
+    for (name, v) in [
+        ("min-winner-share", spec.rule.min_winner_share),
+        ("max-runner-up-share", spec.rule.max_runner_up_share),
+    ] {
+        if !(0.0..=1.0).contains(&v) {
+            bail!("--{name} = {v} must be a share in [0, 1]");
+        }
+    }
+    if let Some(x) = opt("read-time", &args.read_time, Dimension::Time)? {
+        spec.read_time = Some(x);
+    }
+    if !(spec.bias.is_finite() && spec.bias > 0.0) {
+        bail!("bias = {:e} A must be > 0", spec.bias);
+    }
+    Ok(spec)
+}
+
+/// The evaluated stage.
+enum Stage {
+    Wta(WtaCircuit),
+    Pair(DiffPairCircuit),
+}
+
+impl Stage {
+    fn dyn_stage(&self) -> &dyn CompetitionStage {
+        match self {
+            Stage::Wta(c) => c,
+            Stage::Pair(c) => c,
+        }
+    }
+}
+
+/// Build the process and the circuit; returns it with the process description lines.
+fn build(spec: &Spec) -> anyhow::Result<(Stage, crate::device::Process)> {
+    let mut process = preset(&spec.preset).map_err(|e| anyhow!("--preset: {e}"))?;
+    if let Some(v) = spec.vt0 {
+        process.nmos.vt0 = v;
+    }
+    if let Some(n) = spec.n {
+        process.nmos.n = n;
+    }
+    if let Some(m) = spec.mu_cox {
+        process.nmos.mu_cox = m;
+    }
+    if let Some(is) = spec.specific_current {
+        // I_S = 2 n mu C_ox (W/L) U_T^2 of the sink at the nominal temperature.
+        let ut = thermal_voltage(process.t_nom);
+        process.nmos.mu_cox = is / (2.0 * process.nmos.n * spec.sink.0 / spec.sink.1 * ut * ut);
+    }
+    if let Some(s) = spec.supply {
+        process.vdd = s;
+    }
+    process
+        .validate()
+        .map_err(|e| anyhow!("process parameters: {e}"))?;
+    let nmos = |(w, l): (f64, f64), name: &str| -> anyhow::Result<Transistor> {
+        let t = Transistor {
+            polarity: Polarity::Nmos,
+            w,
+            l,
+        };
+        t.validate().map_err(|e| anyhow!("{name}: {e}"))?;
+        Ok(t)
+    };
+    let sink = nmos(spec.sink, "sink (--sink-w/--sink-l)")?;
+    let output = nmos(spec.output, "output (--output-w/--output-l)")?;
+    if let Some((key, dc)) = spec.coupling {
+        dc.validate(key).map_err(|e| anyhow!("{e}"))?;
+    }
+    let n = spec.inputs.len();
+    let stage = match spec.circuit {
+        CircuitArg::CurrentWta => {
+            let mut d = WtaDesign::new(
+                n,
+                process.clone(),
+                sink,
+                output,
+                WtaBias::Ideal { current: spec.bias },
+            );
+            d.output_voltage = spec.output_voltage.unwrap_or(d.supply);
+            d.drain_coupling = spec.coupling.map(|(_, c)| c);
+            d.input_capacitance = spec.input_capacitance;
+            d.common_capacitance = spec.common_capacitance;
+            Stage::Wta(WtaChip::nominal(d)?.at(spec.temperature)?)
+        }
+        CircuitArg::DiffPair => {
+            let mut d = DiffPairDesign::new(
+                n,
+                process.clone(),
+                output,
+                TailSource::Ideal { current: spec.bias },
+                DiffPairInput::Diode { device: sink },
+            );
+            d.output_voltage = spec.output_voltage.unwrap_or(d.supply);
+            d.drain_coupling = spec.coupling.map(|(_, c)| c);
+            d.input_capacitance = spec.input_capacitance;
+            d.source_capacitance = spec.common_capacitance;
+            Stage::Pair(DiffPairChip::nominal(d)?.at(spec.temperature)?)
+        }
+    };
+    Ok((stage, process))
+}
+
+/// Every transistor of the stage with its role.
+fn devices(stage: &Stage, n: usize) -> Vec<(String, Ekv)> {
+    let mut v = Vec::new();
+    match stage {
+        Stage::Wta(c) => {
+            for k in 0..n {
+                if let Some(d) = c.sink(k) {
+                    v.push((format!("A_{k} (sink)"), *d));
+                }
+            }
+            for k in 0..n {
+                if let Some(d) = c.output(k) {
+                    v.push((format!("B_{k} (output)"), *d));
+                }
+            }
+            if let CircuitBias::Transistor { device, .. } = c.bias() {
+                v.push(("bias".into(), *device));
+            }
+        }
+        Stage::Pair(c) => {
+            for k in 0..n {
+                if let Some(d) = c.diode(k) {
+                    v.push((format!("D_{k} (input diode)"), *d));
+                }
+            }
+            for k in 0..n {
+                if let Some(d) = c.pair(k) {
+                    v.push((format!("M_{k} (pair)"), *d));
+                }
+            }
+        }
+    }
+    v
+}
+
+/// Numerical gain d ln(out_a/out_b) / d ln(in_a/in_b) between the largest input a and the
+/// next b: the relative output difference over the relative input difference for small
+/// differences (DESIGN.md §4.1).
+fn numerical_gain(stage: &dyn CompetitionStage, inputs: &[f64]) -> anyhow::Result<Option<f64>> {
+    let mut order: Vec<usize> = (0..inputs.len()).collect();
+    order.sort_by(|&x, &y| inputs[y].total_cmp(&inputs[x]));
+    let (a, b) = (order[0], order[1]);
+    if inputs[a] <= 0.0 || inputs[b] <= 0.0 {
+        return Ok(None);
+    }
+    let mut ws = Workspace::new();
+    let mut sol = StageSolution::for_stage(stage);
+    let mut eval = |delta: f64| -> anyhow::Result<(f64, f64)> {
+        let mut x = inputs.to_vec();
+        x[a] *= 1.0 + delta;
+        x[b] *= 1.0 - delta;
+        stage.solve(&x, &mut ws, &mut sol)?;
+        Ok(((sol.outputs[a] / sol.outputs[b]).ln(), (x[a] / x[b]).ln()))
+    };
+    let d = 1e-5;
+    let (op, ip) = eval(d)?;
+    let (om, im) = eval(-d)?;
+    let g = (op - om) / (ip - im);
+    Ok(g.is_finite().then_some(g))
+}
+
+fn closed_form_gain(stage: &Stage) -> (f64, &'static str) {
+    match stage {
+        Stage::Wta(c) => (
+            c.gain(0).unwrap_or(f64::NAN),
+            "kappa/sigma = n_A/(n_B eta_A), weak-inversion closed form (DESIGN.md §4.1)",
+        ),
+        Stage::Pair(_) => (
+            1.0,
+            "1: diode-connected inputs make a plain normaliser in weak inversion (DESIGN.md §4.2)",
+        ),
+    }
+}
+
+pub fn run(args: StageArgs) -> anyhow::Result<()> {
+    let spec = resolve(&args)?;
+    let (stage, process) = build(&spec)?;
+    if let Some(what) = &args.sweep {
+        return sweep(&args, &spec, &stage, what);
+    }
+    if args.transient {
+        return transient(&args, &spec, &stage, &process);
+    }
+    let st = stage.dyn_stage();
+    let mut ws = Workspace::new();
+    let mut sol = StageSolution::for_stage(st);
+    st.solve(&spec.inputs, &mut ws, &mut sol)?;
+    let gain = numerical_gain(st, &spec.inputs)?;
+    let decision = sol.decide(&spec.rule);
+    let report = Report::new(&spec, &stage, &process);
+    let mut results: Vec<Row> = Vec::new();
+    for i in 0..st.node_count() {
+        results.push(Row::new(
+            "node",
+            &st.node_name(i),
+            sol.node_voltages[i],
+            "V",
+        ));
+    }
+    for (k, (&o, &s)) in sol.outputs.iter().zip(&sol.shares).enumerate() {
+        results.push(Row::new("output", &format!("out_{k}"), o, "A"));
+        results.push(Row::new("share", &format!("share_{k}"), s, ""));
+    }
+    let (g_cf, g_note) = closed_form_gain(&stage);
+    if let Some(g) = gain {
+        results.push(Row::new("gain", "numerical", g, ""));
+    }
+    results.push(Row::new("gain", "closed_form", g_cf, ""));
+    results.push(Row::new(
+        "decision",
+        "winner",
+        decision.winner as f64,
+        "index",
+    ));
+    results.push(Row::new(
+        "decision",
+        "winner_share",
+        decision.winner_share,
+        "",
+    ));
+    results.push(Row::new(
+        "decision",
+        "runner_up",
+        decision.runner_up as f64,
+        "index",
+    ));
+    results.push(Row::new(
+        "decision",
+        "runner_up_share",
+        decision.runner_up_share,
+        "",
+    ));
+    results.push(Row::new(
+        "decision",
+        "ambiguous",
+        f64::from(u8::from(decision.ambiguous)),
+        "bool",
+    ));
+    results.push(Row::new(
+        "solver",
+        "iterations",
+        sol.info.iterations as f64,
+        "",
+    ));
+    results.push(Row::new(
+        "solver",
+        "relative_kcl_residual",
+        sol.info.residual,
+        "",
+    ));
+    let method = format!("{:?}", sol.info.method).to_lowercase();
+    match args.format {
+        Format::Json => {
+            let v = json!({
+                "parameters": report.json(),
+                "node_voltages_v": (0..st.node_count()).map(|i| json!({"node": st.node_name(i), "value": sol.node_voltages[i]})).collect::<Vec<_>>(),
+                "outputs_a": sol.outputs,
+                "shares": sol.shares,
+                "gain": {"numerical": gain, "closed_form": g_cf, "closed_form_is": g_note,
+                          "numerical_is": "d ln(out_a/out_b) / d ln(in_a/in_b) between the two largest inputs"},
+                "decision": {"winner": decision.winner, "winner_share": decision.winner_share,
+                             "runner_up": decision.runner_up, "runner_up_share": decision.runner_up_share,
+                             "ambiguous": decision.ambiguous},
+                "solver": {"method": method, "iterations": sol.info.iterations,
+                           "relative_kcl_residual": sol.info.residual, "converged": sol.info.converged},
+                "caution": crate::CAUTION,
+            });
+            println!("{}", serde_json::to_string_pretty(&v)?);
+        }
+        Format::Csv => {
+            results.push(Row::text("note", "caution", crate::CAUTION));
+            print!("{}", rows_csv(report.rows.iter().chain(&results)));
+        }
+        Format::Table => {
+            let mut s = report.table();
+            let _ = writeln!(
+                s,
+                "\nOperating point (DC, {method}, {} iterations, relative KCL residual {:.2e})",
+                sol.info.iterations, sol.info.residual
+            );
+            let _ = writeln!(
+                s,
+                "  {:<6} {:>12} {:>12} {:>12} {:>9}",
+                "line", "input", "V_k", "output", "share"
+            );
+            for k in 0..st.n() {
+                let _ = writeln!(
+                    s,
+                    "  {:<6} {:>12} {:>12} {:>12} {:>9.5}",
+                    k,
+                    format_si(spec.inputs[k], "A", 4),
+                    format_si(sol.node_voltages[k], "V", 6),
+                    format_si(sol.outputs[k], "A", 5),
+                    sol.shares[k]
+                );
+            }
+            for i in st.n()..st.node_count() {
+                let _ = writeln!(
+                    s,
+                    "  {:<6} {:>12} {:>12}",
+                    st.node_name(i),
+                    "",
+                    format_si(sol.node_voltages[i], "V", 6)
+                );
+            }
+            let _ = writeln!(s, "\nGain");
+            match gain {
+                Some(g) => {
+                    let _ = writeln!(s, "  numerical   {g:.2}  (d ln(out_a/out_b) / d ln(in_a/in_b), two largest inputs)");
+                }
+                None => {
+                    let _ = writeln!(s, "  numerical   n/a (the two largest inputs must be > 0)");
+                }
+            }
+            let _ = writeln!(s, "  closed form {g_cf:.2}  ({g_note}; it holds for small input differences with every transistor saturated)");
+            let _ = writeln!(
+                s,
+                "\nDecision: winner {} (share {:.4}), runner-up {} (share {:.4}){}",
+                decision.winner,
+                decision.winner_share,
+                decision.runner_up,
+                decision.runner_up_share,
+                if decision.ambiguous {
+                    "  AMBIGUOUS under the rule"
+                } else {
+                    ""
+                }
+            );
+            let _ = writeln!(s, "\n{}", crate::CAUTION);
+            print!("{s}");
+        }
+    }
+    Ok(())
+}
+
+/// One value of the output (CSV row: section, name, value, unit).
+struct Row {
+    section: String,
+    name: String,
+    value: String,
+    unit: String,
+}
+
+impl Row {
+    fn new(section: &str, name: &str, value: f64, unit: &str) -> Row {
+        Row {
+            section: section.into(),
+            name: name.into(),
+            // Counts and flags as integers; quantities in shortest round-trip scientific form.
+            value: if value.fract() == 0.0 && value.abs() < 1e15 {
+                format!("{value}")
+            } else {
+                format!("{value:e}")
+            },
+            unit: unit.into(),
+        }
+    }
+    fn text(section: &str, name: &str, value: &str) -> Row {
+        Row {
+            section: section.into(),
+            name: name.into(),
+            value: value.into(),
+            unit: String::new(),
+        }
+    }
+}
+
+fn rows_csv<'a>(rows: impl Iterator<Item = &'a Row>) -> String {
+    let mut w = csv::Writer::from_writer(Vec::new());
+    let _ = w.write_record(["section", "name", "value", "unit"]);
+    for r in rows {
+        let _ = w.write_record([&r.section, &r.name, &r.value, &r.unit]);
+    }
+    String::from_utf8(w.into_inner().unwrap_or_default()).unwrap_or_default()
+}
+
+/// The parameters actually used.
+struct Report {
+    rows: Vec<Row>,
+    devices: Vec<(String, Ekv)>,
+    lines: Vec<(String, String)>,
+}
+
+impl Report {
+    fn new(spec: &Spec, stage: &Stage, process: &crate::device::Process) -> Report {
+        let n = spec.inputs.len();
+        let devs = devices(stage, n);
+        let mut rows = Vec::new();
+        let mut lines = Vec::new();
+        let circuit = match spec.circuit {
+            CircuitArg::CurrentWta => "current-wta",
+            CircuitArg::DiffPair => "diff-pair",
+        };
+        rows.push(Row::text("parameter", "circuit", circuit));
+        rows.push(Row::text("parameter", "preset", &spec.preset));
+        lines.push(("circuit".into(), circuit.to_string()));
+        lines.push((
+            "process".into(),
+            format!("{} ({})", spec.preset, crate::device::presets::PRESET_NOTE),
+        ));
+        let (supply, vout) = match stage {
+            Stage::Wta(c) => (c.supply, c.output_voltage),
+            Stage::Pair(c) => (c.supply, c.output_voltage),
+        };
+        let ut = thermal_voltage(spec.temperature);
+        let coupling = match spec.coupling {
+            None => format!("process value {:?}", process.nmos.drain_coupling),
+            Some((key, dc)) => format!("{key}: {dc:?}"),
+        };
+        let scalar = [
+            ("temperature", spec.temperature, "K"),
+            ("thermal_voltage", ut, "V"),
+            ("supply", supply, "V"),
+            ("output_voltage", vout, "V"),
+            ("bias", spec.bias, "A"),
+            ("input_capacitance", spec.input_capacitance, "F"),
+            ("common_capacitance", spec.common_capacitance, "F"),
+            ("sink.w", spec.sink.0, "m"),
+            ("sink.l", spec.sink.1, "m"),
+            ("output.w", spec.output.0, "m"),
+            ("output.l", spec.output.1, "m"),
+            ("nmos.mu_cox", process.nmos.mu_cox, "A/V^2"),
+            ("min_winner_share", spec.rule.min_winner_share, ""),
+            ("max_runner_up_share", spec.rule.max_runner_up_share, ""),
+        ];
+        for (k, v, u) in scalar {
+            rows.push(Row::new("parameter", k, v, u));
+            let shown = if u.is_empty() {
+                format!("{v}")
+            } else {
+                format_si(v, u, 5)
+            };
+            lines.push((k.to_string(), shown));
+        }
+        rows.push(Row::text("parameter", "drain_coupling", &coupling));
+        lines.push(("drain coupling".into(), coupling));
+        for (i, x) in spec.inputs.iter().enumerate() {
+            rows.push(Row::new("input", &format!("in_{i}"), *x, "A"));
+        }
+        for (name, d) in &devs {
+            for (k, v, u) in [
+                ("vt0", d.vt0, "V"),
+                ("n", d.n, ""),
+                ("beta", d.beta, "A/V^2"),
+                ("is", d.specific_current(), "A"),
+                ("eta", d.eta, ""),
+                ("sigma", d.sigma(), ""),
+            ] {
+                rows.push(Row::new("device", &format!("{name}.{k}"), v, u));
+            }
+        }
+        Report {
+            rows,
+            devices: devs,
+            lines,
+        }
+    }
+
+    fn table(&self) -> String {
+        let mut s = String::new();
+        let _ = writeln!(s, "Parameters used");
+        for (k, v) in &self.lines {
+            let _ = writeln!(s, "  {k:<20} {v}");
+        }
+        let _ = writeln!(
+            s,
+            "\n  {:<18} {:>10} {:>7} {:>13} {:>11} {:>10} {:>10}",
+            "device", "V_T0", "n", "beta", "I_S", "eta", "sigma"
+        );
+        for (name, d) in &self.devices {
+            let _ = writeln!(
+                s,
+                "  {:<18} {:>10} {:>7.4} {:>13} {:>11} {:>10.4e} {:>10.4e}",
+                name,
+                format_si(d.vt0, "V", 5),
+                d.n,
+                format_si(d.beta, "A/V²", 4),
+                format_si(d.specific_current(), "A", 4),
+                d.eta,
+                d.sigma()
+            );
+        }
+        s
+    }
+
+    fn json(&self) -> serde_json::Value {
+        let mut m = serde_json::Map::new();
+        for r in &self.rows {
+            let v = r
+                .value
+                .parse::<f64>()
+                .ok()
+                .and_then(|x| serde_json::Number::from_f64(x).map(serde_json::Value::Number))
+                .unwrap_or_else(|| serde_json::Value::String(r.value.clone()));
+            let key = if r.section == "parameter" {
+                r.name.clone()
+            } else {
+                format!("{}.{}", r.section, r.name)
+            };
+            let key = if r.unit.is_empty() {
+                key
+            } else {
+                format!("{key} [{}]", r.unit)
+            };
+            m.insert(key, v);
+        }
+        serde_json::Value::Object(m)
+    }
+}
+
+fn sweep(args: &StageArgs, spec: &Spec, stage: &Stage, what: &str) -> anyhow::Result<()> {
+    let n = spec.inputs.len();
+    let (index, diff) = if what == "diff" {
+        (0, true)
+    } else if let Some(k) = what.strip_prefix("input:") {
+        let k: usize = k
+            .trim()
+            .parse()
+            .map_err(|_| anyhow!("--sweep {what:?}: write input:K with K an input index"))?;
+        if k >= n {
+            bail!(
+                "--sweep {what:?}: input index {k} is out of range (there are {n} inputs, 0 to {})",
+                n - 1
+            );
+        }
+        (k, false)
+    } else {
+        bail!("--sweep {what:?}: write \"diff\" (x = I_0 - I_1) or \"input:K\" (x = I_K)");
+    };
+    let from = flag(
+        "from",
+        args.from
+            .as_deref()
+            .ok_or_else(|| anyhow!("--sweep needs --from and --to (currents)"))?,
+        Dimension::Current,
+    )?;
+    let to = flag(
+        "to",
+        args.to
+            .as_deref()
+            .ok_or_else(|| anyhow!("--sweep needs --from and --to (currents)"))?,
+        Dimension::Current,
+    )?;
+    if args.points < 2 {
+        bail!("--points = {} must be at least 2", args.points);
+    }
+    if args.scale == Scale::Log && from * to <= 0.0 {
+        bail!("--scale log needs --from and --to of the same sign and not zero (got {from:e} A, {to:e} A)");
+    }
+    let quantity = if diff {
+        "x = I_0 - I_1 in A (I_0, I_1 = their given mean +/- x/2; other inputs as given)"
+            .to_string()
+    } else {
+        format!("x = I_{index} in A (other inputs as given)")
+    };
+    let st = stage.dyn_stage();
+    let mut ws = Workspace::new();
+    let mut sol = StageSolution::for_stage(st);
+    let mut w = csv::Writer::from_writer(Vec::new());
+    let mut header = vec!["x".to_string()];
+    header.extend((0..n).map(|k| format!("out_{k}")));
+    header.extend((0..n).map(|k| format!("share_{k}")));
+    w.write_record(&header)?;
+    let mean01 = 0.5 * (spec.inputs[0] + spec.inputs[1]);
+    let mut x_in = spec.inputs.clone();
+    for i in 0..args.points {
+        let f = i as f64 / (args.points - 1) as f64;
+        let x = match args.scale {
+            Scale::Linear => from + (to - from) * f,
+            Scale::Log => from * (to / from).powf(f),
+        };
+        if diff {
+            x_in[0] = mean01 + 0.5 * x;
+            x_in[1] = mean01 - 0.5 * x;
+            if x_in[0] < 0.0 || x_in[1] < 0.0 {
+                bail!("--sweep diff: x = {x:e} A would make an input negative (I_0 and I_1 have mean {mean01:e} A); keep |x| <= {:e} A with --from/--to", 2.0 * mean01);
+            }
+        } else {
+            if x < 0.0 {
+                bail!("--sweep input:{index}: x = {x:e} A is negative; input currents must be >= 0 (--from/--to)");
+            }
+            x_in[index] = x;
+        }
+        st.solve(&x_in, &mut ws, &mut sol)
+            .with_context(|| format!("sweep point {i} (x = {x:e} A)"))?;
+        let mut rec = vec![format!("{x:e}")];
+        rec.extend(sol.outputs.iter().map(|v| format!("{v:e}")));
+        rec.extend(sol.shares.iter().map(|v| format!("{v:e}")));
+        w.write_record(&rec)?;
+    }
+    let bytes = w.into_inner().map_err(|e| anyhow!("{e}"))?;
+    match &args.out {
+        Some(p) => {
+            write_atomic(p, &bytes)?;
+            println!(
+                "wrote {} points to {}; {quantity}",
+                args.points,
+                p.display()
+            );
+            println!("{}", crate::CAUTION);
+        }
+        None => {
+            eprintln!("{quantity}");
+            print!("{}", String::from_utf8_lossy(&bytes));
+        }
+    }
+    Ok(())
+}
+
+fn transient(
+    args: &StageArgs,
+    spec: &Spec,
+    stage: &Stage,
+    process: &crate::device::Process,
+) -> anyhow::Result<()> {
+    let Stage::Wta(c) = stage else {
+        bail!("--transient is available for the current-mode WTA only (--circuit current-wta)");
+    };
+    let opts = TransientOptions {
+        initial: match args.initial {
+            InitialArg::Ground => InitialState::Ground,
+            InitialArg::CommonMode => InitialState::CommonMode,
+        },
+        rule: spec.rule,
+        read_time: spec.read_time,
+        record_waveform: args.waveform.is_some(),
+        ..Default::default()
+    };
+    let mut ws = TransientWorkspace::new();
+    let nopts = NoiseOptions::default();
+    let mut rng = crate::rng::stream(args.seed, &[crate::rng::domain::SAMPLE_NOISE]);
+    let noise = args
+        .noise
+        .then_some((&nopts, &mut rng as &mut dyn rand::RngCore));
+    let s = simulate(c, &spec.inputs, &opts, noise, &mut ws)?;
+    let sol = ws.solution();
+    let n = spec.inputs.len();
+    if let Some(p) = &args.waveform {
+        let mut w = csv::Writer::from_writer(Vec::new());
+        let mut header = vec!["t".to_string()];
+        header.extend((0..n).map(|k| format!("V_{k}")));
+        header.push("V_C".into());
+        header.extend((0..n).map(|k| format!("out_{k}")));
+        w.write_record(&header)?;
+        for pt in ws.waveform() {
+            let mut rec = vec![format!("{:e}", pt.time)];
+            rec.extend(pt.voltages.iter().map(|v| format!("{v:e}")));
+            rec.extend(pt.outputs.iter().map(|v| format!("{v:e}")));
+            w.write_record(&rec)?;
+        }
+        write_atomic(p, &w.into_inner().map_err(|e| anyhow!("{e}"))?)?;
+    }
+    let report = Report::new(spec, stage, process);
+    let opt = |x: Option<f64>| x.map_or(String::new(), |v| format!("{v:e}"));
+    let mut rows = vec![
+        Row::text("transient", "decision_time", &opt(s.decision_time)),
+        Row::text(
+            "transient",
+            "energy_to_decision",
+            &opt(s.energy_to_decision),
+        ),
+        Row::new("transient", "energy", s.energy, "J"),
+        Row::new("transient", "end_time", s.end_time, "s"),
+        Row::new("transient", "time_scale", s.time_scale, "s"),
+        Row::text(
+            "transient",
+            "decision_time_in_scales",
+            &opt(s.decision_time_in_scales()),
+        ),
+        Row::new(
+            "transient",
+            "settled",
+            f64::from(u8::from(s.settled)),
+            "bool",
+        ),
+        Row::new("transient", "steps", s.steps as f64, ""),
+        Row::new("transient", "rejected_steps", s.rejected_steps as f64, ""),
+        Row::new("transient", "final_residual", s.final_residual, ""),
+    ];
+    rows[0].unit = "s".into();
+    rows[1].unit = "J".into();
+    if let Some(d) = s.decision {
+        rows.push(Row::new("transient", "winner", d.winner as f64, "index"));
+    }
+    if let Some(d) = s.decision_at_read {
+        rows.push(Row::new(
+            "transient",
+            "winner_at_read",
+            d.winner as f64,
+            "index",
+        ));
+        rows.push(Row::new(
+            "transient",
+            "ambiguous_at_read",
+            f64::from(u8::from(d.ambiguous)),
+            "bool",
+        ));
+    }
+    for k in 0..n {
+        rows.push(Row::new("final", &format!("out_{k}"), sol.outputs[k], "A"));
+    }
+    match args.format {
+        Format::Csv => {
+            rows.push(Row::text("note", "caution", crate::CAUTION));
+            print!("{}", rows_csv(report.rows.iter().chain(&rows)))
+        }
+        Format::Json => {
+            let v = json!({
+                "parameters": report.json(),
+                "transient": {
+                    "initial": format!("{:?}", opts.initial).to_lowercase(),
+                    "decision_time_s": s.decision_time,
+                    "energy_to_decision_j": s.energy_to_decision,
+                    "energy_j": s.energy,
+                    "end_time_s": s.end_time,
+                    "settled": s.settled,
+                    "time_scale_s": s.time_scale,
+                    "decision_time_in_scales": s.decision_time_in_scales(),
+                    "winner": s.decision.map(|d| d.winner),
+                    "read_time_s": spec.read_time,
+                    "winner_at_read": s.decision_at_read.map(|d| d.winner),
+                    "ambiguous_at_read": s.decision_at_read.map(|d| d.ambiguous),
+                    "steps": s.steps, "rejected_steps": s.rejected_steps,
+                    "final_residual": s.final_residual,
+                    "final_outputs_a": sol.outputs,
+                    "final_node_voltages_v": sol.node_voltages,
+                    "noise": args.noise,
+                },
+                "caution": crate::CAUTION,
+            });
+            println!("{}", serde_json::to_string_pretty(&v)?);
+        }
+        Format::Table => {
+            let mut t = report.table();
+            let _ = writeln!(
+                t,
+                "\nTransient ({:?} start{}; backward Euler, {} steps, {} rejected)",
+                opts.initial,
+                if args.noise { ", shot noise" } else { "" },
+                s.steps,
+                s.rejected_steps
+            );
+            match (s.decision_time, s.decision) {
+                (Some(td), Some(d)) => {
+                    let _ = writeln!(
+                        t,
+                        "  decision time        {}  (winner {}; {:.3} x C_in U_T/(kappa I_mean) = {})",
+                        format_si(td, "s", 4),
+                        d.winner,
+                        td / s.time_scale,
+                        format_si(s.time_scale, "s", 4)
+                    );
+                }
+                _ => {
+                    let _ = writeln!(
+                        t,
+                        "  decision time        none (no decision held to the end of the run)"
+                    );
+                }
+            }
+            if let Some(e) = s.energy_to_decision {
+                let _ = writeln!(
+                    t,
+                    "  energy per decision  {}  (V_dd x (inputs + output currents) over the decision time)",
+                    format_si(e, "J", 4)
+                );
+            }
+            let _ = writeln!(
+                t,
+                "  run                  {} to {} ({})",
+                format_si(s.energy, "J", 4),
+                format_si(s.end_time, "s", 4),
+                if s.settled {
+                    "settled"
+                } else if spec.read_time.is_some() {
+                    "ended at the read-out time"
+                } else {
+                    "not settled by t_max"
+                }
+            );
+            if let Some(d) = s.decision_at_read {
+                let _ = writeln!(
+                    t,
+                    "  read at {}       winner {} (share {:.4}){}",
+                    format_si(spec.read_time.unwrap_or(0.0), "s", 3),
+                    d.winner,
+                    d.winner_share,
+                    if d.ambiguous { "  AMBIGUOUS" } else { "" }
+                );
+            }
+            if let Some(p) = &args.waveform {
+                let _ = writeln!(t, "  waveform written to {}", p.display());
+            }
+            let _ = writeln!(t, "\n{}", crate::CAUTION);
+            print!("{t}");
+        }
+    }
+    Ok(())
 }

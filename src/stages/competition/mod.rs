@@ -17,6 +17,7 @@ pub mod decision;
 pub mod diffpair;
 pub mod mos;
 pub mod noise;
+pub mod transient;
 pub mod wta;
 
 use std::fmt;
