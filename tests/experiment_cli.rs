@@ -322,3 +322,50 @@ fn resolve_prints_every_default_and_overrides() {
                 )),
         );
 }
+
+fn column(csv: &Path, name: &str) -> Vec<String> {
+    let text = std::fs::read_to_string(csv).unwrap();
+    let mut lines = text.lines();
+    let header: Vec<&str> = lines.next().unwrap().split(',').collect();
+    let k = header.iter().position(|h| *h == name).unwrap();
+    lines
+        .map(|l| l.split(',').nth(k).unwrap_or("").to_string())
+        .collect()
+}
+
+/// The transient evaluation settles to the DC operating point (DESIGN.md section 4.3: the
+/// transient's final state equals the DC solution), so with noise off its decisions, and hence
+/// the accuracy table, equal the DC run's; it also reports decision time and energy. Read out
+/// far before the decision time, decisions are ambiguous (time-limited decisions).
+#[test]
+fn transient_runs_match_dc_and_report_time_and_energy() {
+    let dir = tempfile::tempdir().unwrap();
+    let exp = write(
+        dir.path(),
+        "tr.toml",
+        "[dataset]\nname = \"iris\"\n[competition]\nevaluation = \"transient\"\n[population]\nchips = 6\n",
+    );
+    let run = |out: &str, extra: &[&str]| {
+        hardmax()
+            .args(["run", "--quiet", "--out"])
+            .arg(dir.path().join(out))
+            .args(extra)
+            .arg(&exp)
+            .assert()
+            .success();
+        dir.path().join(out).join("points.csv")
+    };
+    let tr = run("tr", &[]);
+    let dc = run("dc", &["--set", "competition.evaluation=dc"]);
+    assert_eq!(column(&tr, "acc_mean"), column(&dc, "acc_mean"));
+    let t: f64 = column(&tr, "decision_time_mean_s")[0].parse().unwrap();
+    let e: f64 = column(&tr, "energy_mean_j")[0].parse().unwrap();
+    assert!(t > 0.0 && t < 1e-3, "decision time {t}");
+    assert!(e > 0.0 && e < 1e-9, "energy {e}");
+    assert_eq!(column(&dc, "decision_time_mean_s")[0], "");
+    // The report shows the decision-time figure for a transient run.
+    assert!(dir.path().join("tr/report.html").exists());
+    let early = run("early", &["--set", "competition.read_time=\"1 ns\""]);
+    let amb: f64 = column(&early, "ambiguous_frac")[0].parse().unwrap();
+    assert!(amb > 0.5, "ambiguous share at a 1 ns read-out: {amb}");
+}

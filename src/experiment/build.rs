@@ -3,7 +3,9 @@
 
 use std::path::Path;
 
-use super::config::{CircuitKind, ElementKind, EncodingKind, Experiment, SigmaKindCfg, SizeCfg};
+use super::config::{
+    CircuitKind, ElementKind, EncodingKind, EvaluationKind, Experiment, SigmaKindCfg, SizeCfg,
+};
 use crate::data::{load_csv, CsvOptions, DataError, Dataset};
 use crate::device::presets::preset;
 use crate::device::DeviceError;
@@ -11,9 +13,11 @@ use crate::device::{DrainCoupling, Polarity, Process, Transistor};
 use crate::pipeline::PipelineError;
 use crate::pipeline::{
     prepare, ClassifierDesign, CompetitionDesign, HiddenSpec, PointSetup, Prepared,
+    TransientEvaluation,
 };
 use crate::stages::competition::diffpair::{DiffPairDesign, DiffPairInput, TailSource};
 use crate::stages::competition::noise::{InputShotNoise, NoiseBandwidth};
+use crate::stages::competition::transient::{NoiseOptions, TransientOptions};
 use crate::stages::competition::wta::{WtaBias, WtaDesign};
 use crate::stages::competition::DecisionRule;
 use crate::stages::weights::{
@@ -271,8 +275,24 @@ pub fn design(e: &Experiment, n_classes: usize) -> Result<ClassifierDesign, Buil
         },
         temperature: e.conditions.temperature.si(),
     });
+    let transient = (c.evaluation == EvaluationKind::Transient).then(|| TransientEvaluation {
+        options: TransientOptions {
+            rule: DecisionRule {
+                min_winner_share: c.min_winner_share,
+                max_runner_up_share: c.max_runner_up_share,
+            },
+            read_time: c.read_time.map(|t| t.si()),
+            ..TransientOptions::default()
+        },
+        noise: c.noise.then_some(NoiseOptions {
+            input_shot: true,
+            device_shot: true,
+            step: None,
+        }),
+    });
     Ok(ClassifierDesign {
         process,
+        transient,
         weights: weight_stage(e),
         competition,
         decision: DecisionRule {

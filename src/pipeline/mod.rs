@@ -17,6 +17,9 @@ use crate::device::Process;
 use crate::rng::{domain, stream};
 use crate::stages::competition::diffpair::{DiffPairChip, DiffPairDesign};
 use crate::stages::competition::noise::InputShotNoise;
+use crate::stages::competition::transient::{
+    simulate, NoiseOptions, TransientOptions, TransientWorkspace,
+};
 use crate::stages::competition::wta::{WtaChip, WtaDesign};
 use crate::stages::competition::{
     CompetitionError, CompetitionStage, DecisionRule, StageSolution, Workspace,
@@ -40,6 +43,8 @@ pub enum PipelineError {
     Competition(#[from] CompetitionError),
     #[error("{what} is not a finite number; check the dataset and the weight-stage settings")]
     NonFinite { what: &'static str },
+    #[error("{what}")]
+    Unsupported { what: &'static str },
 }
 
 /// The dataset split, trained float model, and reference accuracies: everything about the
@@ -253,6 +258,15 @@ pub enum CompetitionDesign {
     Argmax,
 }
 
+/// Transient evaluation of each decision (current-mode WTA only).
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct TransientEvaluation {
+    /// Integrator options; `read_time` = `Some(t)` gives time-limited decisions.
+    pub options: TransientOptions,
+    /// Shot noise integrated as an SDE; `None` = noiseless.
+    pub noise: Option<NoiseOptions>,
+}
+
 /// Everything nominal about one design point.
 #[derive(Debug, Clone)]
 pub struct ClassifierDesign {
@@ -261,8 +275,10 @@ pub struct ClassifierDesign {
     pub weights: WeightStageDesign,
     pub competition: CompetitionDesign,
     pub decision: DecisionRule,
-    /// Per-decision input-referred shot noise of the competition stage's inputs.
+    /// Per-decision input-referred shot noise of the competition stage's inputs (DC evaluation).
     pub input_noise: Option<InputShotNoise>,
+    /// Evaluate the current-mode WTA in time (decision time, energy) instead of at DC.
+    pub transient: Option<TransientEvaluation>,
     pub conditions: Conditions,
 }
 
@@ -285,6 +301,14 @@ impl PointSetup {
         }
         if let Some(n) = &design.input_noise {
             n.validate()?;
+        }
+        if design.transient.is_some()
+            && !matches!(design.competition, CompetitionDesign::CurrentWta(_))
+        {
+            return Err(PipelineError::Unsupported {
+                what: "the transient evaluation is available for the current-mode WTA only; \
+                       use evaluation = \"dc\" or circuit = \"current_wta\"",
+            });
         }
         let chain = chain_design(&design.weights, prep.layers.len(), prep.hidden.as_ref());
         let layers: Vec<_> = prep
@@ -456,6 +480,7 @@ pub fn evaluate_chip(
     let mut scratch: ChainScratch = eff.scratch();
     let noisy_weights = eff.stages().iter().any(|s| s.has_read_noise());
     let mut ws = Workspace::new();
+    let mut tws = TransientWorkspace::new();
     let mut sol = StageSolution::default();
     for (i, (row, &truth)) in prep.test_u.outer_iter().zip(&prep.test_y).enumerate() {
         out.samples += 1;
@@ -486,14 +511,49 @@ pub fn evaluate_chip(
         };
         let decided = match &decider {
             Decider::Argmax => crate::training::argmax(inputs).map(|w| (w, false)),
-            Decider::Wta(c) => solve_decide(
-                c.as_ref(),
-                inputs,
-                &mut ws,
-                &mut sol,
-                &d.decision,
-                &mut out.first_failure,
-            ),
+            Decider::Wta(c) => match &d.transient {
+                None => solve_decide(
+                    c.as_ref(),
+                    inputs,
+                    &mut ws,
+                    &mut sol,
+                    &d.decision,
+                    &mut out.first_failure,
+                ),
+                Some(t) => {
+                    let noise = t
+                        .noise
+                        .as_ref()
+                        .map(|o| (o, &mut noise_rng as &mut dyn rand::RngCore));
+                    match simulate(c.as_ref(), inputs, &t.options, noise, &mut tws) {
+                        Ok(s) => {
+                            // Time-limited: the decision at the read-out time; otherwise the
+                            // decision that held to the end of the run.
+                            let decision = if t.options.read_time.is_some() {
+                                s.decision_at_read
+                            } else {
+                                s.decision
+                            };
+                            if let (Some(td), Some(e)) = (s.decision_time, s.energy_to_decision) {
+                                out.decision_time_sum += td;
+                                out.energy_sum += e;
+                                out.timed += 1;
+                            }
+                            match decision {
+                                Some(dec) => Some((dec.winner, dec.ambiguous)),
+                                // No decision held: as ambiguous as a decision can be.
+                                None => Some((0, true)),
+                            }
+                        }
+                        Err(e) => {
+                            if out.first_failure.is_none() {
+                                out.first_failure = Some(e.to_string());
+                            }
+                            None
+                        }
+                    }
+                }
+            },
             Decider::DiffPair(c) => solve_decide(
                 c.as_ref(),
                 inputs,
