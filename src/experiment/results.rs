@@ -12,6 +12,8 @@ use serde::{Deserialize, Serialize};
 
 use super::stats::{summarize, wilson_interval};
 use crate::io::write_atomic;
+// One definition of the table schema, shared with the reader in `report`.
+use crate::report::folder::{CHIP_COLUMNS, CONFUSION_COLUMNS, POINT_STAT_COLUMNS};
 
 /// Version of the results-folder format (manifest `format_version`).
 pub const FORMAT_VERSION: u32 = 1;
@@ -266,29 +268,7 @@ fn to_bytes(rows: Vec<Vec<String>>) -> Vec<u8> {
 pub fn points_csv(records: &[PointRecord], axis_paths: &[String]) -> Vec<u8> {
     let mut header = vec!["point".to_string()];
     header.extend(axis_paths.iter().cloned());
-    header.extend(
-        [
-            "chips",
-            "samples",
-            "acc_mean",
-            "acc_std",
-            "acc_p05",
-            "acc_p50",
-            "acc_p95",
-            "ideal_acc",
-            "baseline_acc",
-            "target",
-            "yield",
-            "yield_lo",
-            "yield_hi",
-            "agreement_mean",
-            "ambiguous_frac",
-            "nonconverged",
-            "decision_time_mean_s",
-            "energy_mean_j",
-        ]
-        .map(String::from),
-    );
+    header.extend(POINT_STAT_COLUMNS.map(String::from));
     let mut rows = vec![header];
     for r in records {
         let s = r.summary();
@@ -323,19 +303,7 @@ pub fn points_csv(records: &[PointRecord], axis_paths: &[String]) -> Vec<u8> {
 pub fn chips_csv(records: &[PointRecord], axis_paths: &[String]) -> Vec<u8> {
     let mut header = vec!["point".to_string()];
     header.extend(axis_paths.iter().cloned());
-    header.extend(
-        [
-            "chip",
-            "accuracy",
-            "agreement",
-            "ambiguous",
-            "nonconverged",
-            "samples",
-            "decision_time_mean_s",
-            "energy_mean_j",
-        ]
-        .map(String::from),
-    );
+    header.extend(CHIP_COLUMNS.map(String::from));
     let mut rows = vec![header];
     for r in records {
         for c in &r.chips {
@@ -359,9 +327,7 @@ pub fn chips_csv(records: &[PointRecord], axis_paths: &[String]) -> Vec<u8> {
 
 /// The `confusion.csv` table (`point,true_class,predicted_class,count`, zero counts omitted).
 pub fn confusion_csv(records: &[PointRecord], class_names: &[String]) -> Vec<u8> {
-    let mut rows = vec![["point", "true_class", "predicted_class", "count"]
-        .map(String::from)
-        .to_vec()];
+    let mut rows = vec![CONFUSION_COLUMNS.map(String::from).to_vec()];
     let label = |j: usize| -> String {
         match j.checked_sub(class_names.len()) {
             None => class_names[j].clone(),
