@@ -123,3 +123,28 @@ fn chip_outcomes_are_keyed_by_seed_point_and_chip() {
     let differs = (6..16).any(|c| evaluate_chip(&setup, &prep, 3, 2, c).confusion != a.confusion);
     assert!(differs);
 }
+
+/// The hidden normaliser evaluated as circuits (diode-fed differential pair, current-mode WTA)
+/// runs end to end without failed solves; with mismatch off and an exact final argmax, the
+/// differential pair (a linear normaliser in weak inversion: I_i = I_b I_in,i / sum I_in, Mead
+/// 1989) reproduces the closed-form chain's decisions on nearly every sample (our tolerance: 2 %,
+/// for the moderate-inversion departure of the EKV devices from the closed form).
+#[test]
+fn hidden_stage_as_a_circuit() {
+    let text = |circuit: &str, exponent: f64| {
+        format!(
+            "[dataset]\nname = \"iris\"\n[hidden]\nunits = 12\nexponent = {exponent}\n\
+             bias_current = \"20 nA\"\ncircuit = \"{circuit}\"\n[input]\ndac_bits = 0\n\
+             [weights]\nlevels = 0\n[process]\nmismatch_scale = 0.0\n[competition]\ncircuit = \"argmax\"\n"
+        )
+    };
+    let (setup, prep) = point(&text("diff_pair", 1.0));
+    for o in chips(&setup, &prep, 2) {
+        assert_eq!(o.nonconverged, 0, "{:?}", o.first_failure);
+        assert!(o.agreement() >= 0.98, "agreement {}", o.agreement());
+    }
+    let (setup, prep) = point(&text("current_wta", 20.0));
+    for o in chips(&setup, &prep, 2) {
+        assert_eq!(o.nonconverged, 0, "{:?}", o.first_failure);
+    }
+}

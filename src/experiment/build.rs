@@ -4,7 +4,8 @@
 use std::path::Path;
 
 use super::config::{
-    CircuitKind, ElementKind, EncodingKind, EvaluationKind, Experiment, SigmaKindCfg, SizeCfg,
+    CircuitKind, CompetitionCfg, ElementKind, EncodingKind, EvaluationKind, Experiment,
+    HiddenCircuitKind, SigmaKindCfg, SizeCfg,
 };
 use crate::data::{load_csv, CsvOptions, DataError, Dataset};
 use crate::device::presets::preset;
@@ -77,6 +78,10 @@ pub fn prepare_data(e: &Experiment, base_dir: &Path) -> Result<Prepared, BuildEr
         },
         seed: e.hidden.seed,
         stage: weight_stage(e),
+        readout: LogisticOptions {
+            range_floor: Some(0.05),
+            ..trainer.clone()
+        },
     });
     prepare(
         &ds,
@@ -213,11 +218,17 @@ pub fn drain_coupling_for_gain(g: f64) -> DrainCoupling {
     DrainCoupling::Eta(1.0 / g)
 }
 
-/// The full design of one point.
-pub fn design(e: &Experiment, n_classes: usize) -> Result<ClassifierDesign, BuildError> {
-    let process = process(e)?;
-    let c = &e.competition;
-    let competition = match c.circuit {
+/// A competition circuit of `n` lines with the `[competition]` sizes, capacitances and output
+/// voltage, the given bias (tail) current and, if given, gain.
+fn circuit(
+    kind: CircuitKind,
+    n: usize,
+    process: &Process,
+    c: &CompetitionCfg,
+    bias: f64,
+    gain: Option<f64>,
+) -> CompetitionDesign {
+    match kind {
         CircuitKind::Argmax => CompetitionDesign::Argmax,
         CircuitKind::DiffPair => {
             let input = match c.input_resistance {
@@ -230,40 +241,70 @@ pub fn design(e: &Experiment, n_classes: usize) -> Result<ClassifierDesign, Buil
                 },
             };
             let mut w = DiffPairDesign::new(
-                n_classes,
+                n,
                 process.clone(),
                 transistor(&c.output),
-                TailSource::Ideal {
-                    current: c.bias_current.si(),
-                },
+                TailSource::Ideal { current: bias },
                 input,
             );
             if let Some(v) = c.output_voltage {
                 w.output_voltage = v.si();
             }
-            w.drain_coupling = c.gain.map(drain_coupling_for_gain);
+            w.drain_coupling = gain.map(drain_coupling_for_gain);
             w.input_capacitance = c.node_capacitance.si();
             w.source_capacitance = c.common_capacitance.si();
             CompetitionDesign::DiffPair(Box::new(w))
         }
         CircuitKind::CurrentWta => {
             let mut w = WtaDesign::new(
-                n_classes,
+                n,
                 process.clone(),
                 transistor(&c.sink),
                 transistor(&c.output),
-                WtaBias::Ideal {
-                    current: c.bias_current.si(),
-                },
+                WtaBias::Ideal { current: bias },
             );
             if let Some(v) = c.output_voltage {
                 w.output_voltage = v.si();
             }
-            w.drain_coupling = c.gain.map(drain_coupling_for_gain);
+            w.drain_coupling = gain.map(drain_coupling_for_gain);
             w.input_capacitance = c.node_capacitance.si();
             w.common_capacitance = c.common_capacitance.si();
             CompetitionDesign::CurrentWta(Box::new(w))
         }
+    }
+}
+
+/// The full design of one point.
+pub fn design(e: &Experiment, n_classes: usize) -> Result<ClassifierDesign, BuildError> {
+    let process = process(e)?;
+    let c = &e.competition;
+    let competition = circuit(
+        c.circuit,
+        n_classes,
+        &process,
+        c,
+        c.bias_current.si(),
+        c.gain,
+    );
+    let hidden_circuit = match e.hidden.circuit {
+        _ if e.hidden.units == 0 => None,
+        HiddenCircuitKind::ClosedForm => None,
+        HiddenCircuitKind::CurrentWta => Some(circuit(
+            CircuitKind::CurrentWta,
+            e.hidden.units as usize,
+            &process,
+            c,
+            e.hidden.bias_current.si(),
+            Some(e.hidden.exponent),
+        )),
+        HiddenCircuitKind::DiffPair => Some(circuit(
+            CircuitKind::DiffPair,
+            e.hidden.units as usize,
+            &process,
+            c,
+            e.hidden.bias_current.si(),
+            None,
+        )),
     };
     let input_noise = c.noise.then(|| InputShotNoise {
         bandwidth: match c.noise_bandwidth {
@@ -293,6 +334,7 @@ pub fn design(e: &Experiment, n_classes: usize) -> Result<ClassifierDesign, Buil
     Ok(ClassifierDesign {
         process,
         transient,
+        hidden_circuit,
         weights: weight_stage(e),
         competition,
         decision: DecisionRule {

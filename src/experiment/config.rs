@@ -339,6 +339,20 @@ pub struct HiddenCfg {
     pub bias_current: Q<Current>,
     /// Seed of the drawn hidden weights (the same for every chip).
     pub seed: u64,
+    /// How chips evaluate the normaliser: `closed_form` (the weak-inversion law used for
+    /// training), `current_wta` (full circuit with mismatch; gain kappa/sigma = `exponent`), or
+    /// `diff_pair` (diode-fed differential pair: a linear normaliser, needs `exponent = 1`).
+    /// Circuits use the `[competition]` transistor sizes and `hidden.bias_current`.
+    pub circuit: HiddenCircuitKind,
+}
+
+/// How chips evaluate the hidden normaliser.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum HiddenCircuitKind {
+    ClosedForm,
+    CurrentWta,
+    DiffPair,
 }
 
 impl Default for HiddenCfg {
@@ -348,6 +362,7 @@ impl Default for HiddenCfg {
             exponent: 2.0,
             bias_current: Q::new(100e-9),
             seed: 1,
+            circuit: HiddenCircuitKind::ClosedForm,
         }
     }
 }
@@ -1009,6 +1024,15 @@ fn check(e: &Experiment, text: &str, file: &Path) -> Result<(), ConfigError> {
         return Err(bad(
             "hidden.exponent",
             format!("{}: the normaliser exponent must be > 0", e.hidden.exponent),
+        ));
+    }
+    if e.hidden.circuit == HiddenCircuitKind::DiffPair && e.hidden.exponent != 1.0 {
+        return Err(bad(
+            "hidden.exponent",
+            format!(
+                "{}: a diode-fed differential pair is a linear normaliser; set exponent = 1 (or use circuit = \"current_wta\")",
+                e.hidden.exponent
+            ),
         ));
     }
     if !(e.hidden.bias_current.si().is_finite() && e.hidden.bias_current.si() > 0.0) {

@@ -84,6 +84,8 @@ pub struct HiddenSpec {
     pub seed: u64,
     /// The analog stage that carries the hidden layer (its mapping shapes the hidden shares).
     pub stage: WeightStageDesign,
+    /// Trainer of the read-out layer on the hidden shares (which already lie in [0, 1]).
+    pub readout: crate::training::LogisticOptions,
 }
 
 /// The chain of `layers` stages built from one stage design. Stages after the first take the
@@ -130,8 +132,8 @@ fn hidden_features(
 }
 
 /// Split, train and evaluate the references. With a hidden stage, the hidden layer is drawn
-/// from `rng::stream(spec.seed, [DESIGN, 0])` and the read-out is trained on the hidden shares
-/// the ideal hidden stage produces.
+/// from `rng::stream(spec.seed, [DESIGN, 0])` and the read-out is trained (with
+/// `spec.readout`, not `trainer`) on the hidden shares the ideal hidden stage produces.
 pub fn prepare(
     dataset: &Dataset,
     test_fraction: f64,
@@ -141,7 +143,7 @@ pub fn prepare(
 ) -> Result<Prepared, PipelineError> {
     let (train, test) = stratified_split(dataset, test_fraction, split_seed)?;
     if let Some(spec) = hidden {
-        return prepare_hidden(dataset, &train, &test, trainer, spec);
+        return prepare_hidden(dataset, &train, &test, spec);
     }
     let model = trainer.train(&train)?;
     let test_u = model.scale(test.x.view())?;
@@ -167,7 +169,6 @@ fn prepare_hidden(
     dataset: &Dataset,
     train: &Dataset,
     test: &Dataset,
-    trainer: &dyn Trainer,
     spec: &HiddenSpec,
 ) -> Result<Prepared, PipelineError> {
     let scaler = MinMaxScaler::fit(train.x.view())?;
@@ -185,8 +186,9 @@ fn prepare_hidden(
         h_train,
         train.y.clone(),
     )?;
-    let model = trainer.train(&hidden_train)?;
-    // The read-out acts on min-max-scaled hidden shares; fold that map into its weights so the
+    let model = spec.readout.train(&hidden_train)?;
+    // The read-out acts on min-max-scaled hidden shares (with a floor on each range, see
+    // `LogisticOptions::range_floor`); fold that map into its weights so the
     // chip's second stage takes the shares directly: W' = W / range, b' = b - W min / range.
     let (min, max) = (&model.scaler.min, &model.scaler.max);
     let range = max - min;
@@ -279,6 +281,9 @@ pub struct ClassifierDesign {
     pub input_noise: Option<InputShotNoise>,
     /// Evaluate the current-mode WTA in time (decision time, energy) instead of at DC.
     pub transient: Option<TransientEvaluation>,
+    /// With a hidden stage: evaluate its normaliser as this circuit (every transistor with its
+    /// own mismatch, DC solve) instead of the weak-inversion closed form used for training.
+    pub hidden_circuit: Option<CompetitionDesign>,
     pub conditions: Conditions,
 }
 
@@ -417,6 +422,29 @@ impl ChipOutcome {
 
 /// Stream index of the competition stage's chip draws (after the weight stages' 0, 1, ...).
 pub const COMPETITION_STREAM: u64 = 1000;
+/// Stream index of the hidden normaliser circuit's chip draws.
+pub const HIDDEN_CIRCUIT_STREAM: u64 = 1001;
+
+/// Sample and evaluate a competition circuit of a chip at its temperature.
+fn build_decider(
+    design: &CompetitionDesign,
+    process: &Process,
+    temperature: f64,
+    rng: &mut crate::rng::Stream,
+) -> Result<Decider, PipelineError> {
+    let tech = process.nmos.clone();
+    Ok(match design {
+        CompetitionDesign::Argmax => Decider::Argmax,
+        CompetitionDesign::CurrentWta(w) => {
+            let c = WtaChip::sample((**w).clone(), |t| sample_mismatch(rng, &tech, t))?;
+            Decider::Wta(Box::new(c.at(temperature)?))
+        }
+        CompetitionDesign::DiffPair(w) => {
+            let c = DiffPairChip::sample((**w).clone(), |t| sample_mismatch(rng, &tech, t))?;
+            Decider::DiffPair(Box::new(c.at(temperature)?))
+        }
+    })
+}
 
 enum Decider {
     Wta(Box<crate::stages::competition::wta::WtaCircuit>),
@@ -443,25 +471,18 @@ pub fn evaluate_chip(
     let mut chip_rng = stream(seed, &[domain::CHIP, point, chip, COMPETITION_STREAM]);
     let built = (|| -> Result<_, PipelineError> {
         let eff = wchip.effective(&d.conditions)?;
-        let decider = match &d.competition {
-            CompetitionDesign::Argmax => Decider::Argmax,
-            CompetitionDesign::CurrentWta(w) => {
-                let tech = d.process.nmos.clone();
-                let cchip =
-                    WtaChip::sample((**w).clone(), |t| sample_mismatch(&mut chip_rng, &tech, t))?;
-                Decider::Wta(Box::new(cchip.at(d.conditions.temperature_k)?))
+        let t = d.conditions.temperature_k;
+        let decider = build_decider(&d.competition, &d.process, t, &mut chip_rng)?;
+        let hidden = match &d.hidden_circuit {
+            Some(h) if eff.stages().len() == 2 => {
+                let mut r = stream(seed, &[domain::CHIP, point, chip, HIDDEN_CIRCUIT_STREAM]);
+                Some(build_decider(h, &d.process, t, &mut r)?)
             }
-            CompetitionDesign::DiffPair(w) => {
-                let tech = d.process.nmos.clone();
-                let cchip = DiffPairChip::sample((**w).clone(), |t| {
-                    sample_mismatch(&mut chip_rng, &tech, t)
-                })?;
-                Decider::DiffPair(Box::new(cchip.at(d.conditions.temperature_k)?))
-            }
+            _ => None,
         };
-        Ok((eff, decider))
+        Ok((eff, decider, hidden))
     })();
-    let (eff, decider) = match built {
+    let (eff, decider, hidden) = match built {
         Ok(x) => x,
         Err(e) => {
             // Every decision of an unbuildable chip is a failed one; the reason is kept.
@@ -482,16 +503,54 @@ pub fn evaluate_chip(
     let mut ws = Workspace::new();
     let mut tws = TransientWorkspace::new();
     let mut sol = StageSolution::default();
+    let mut hsol = StageSolution::default();
+    let mut hbuf = vec![0.0; eff.stages().first().map_or(0, |s| s.outputs())];
+    let mut xbuf: Vec<f64> = Vec::with_capacity(prep.test_u.ncols());
     for (i, (row, &truth)) in prep.test_u.outer_iter().zip(&prep.test_y).enumerate() {
         out.samples += 1;
-        let x = row
-            .as_slice()
-            .map(|s| s.to_vec())
-            .unwrap_or_else(|| row.to_vec());
-        let r = if noisy_weights {
-            eff.forward(&x, &mut scratch, &mut currents, &mut noise_rng)
-        } else {
-            eff.forward_noiseless(&x, &mut scratch, &mut currents)
+        let x: &[f64] = match row.as_slice() {
+            Some(s) => s,
+            None => {
+                xbuf.clear();
+                xbuf.extend(row.iter());
+                &xbuf
+            }
+        };
+        let r = match (&hidden, eff.stages()) {
+            (Some(h), [first, second]) => {
+                // Hidden stage evaluated as a circuit: first layer, normaliser circuit (its
+                // shares feed the read-out as they do in the closed form), read-out layer.
+                let a = if noisy_weights {
+                    first.forward(x, &mut hbuf, &mut noise_rng)
+                } else {
+                    first.forward_noiseless(x, &mut hbuf)
+                };
+                let hs = match h {
+                    Decider::Argmax => None,
+                    Decider::Wta(c) => Some(c.solve(&hbuf, &mut ws, &mut hsol)),
+                    Decider::DiffPair(c) => Some(c.solve(&hbuf, &mut ws, &mut hsol)),
+                };
+                if let Some(Err(e)) = &hs {
+                    if out.first_failure.is_none() {
+                        out.first_failure = Some(format!("hidden stage: {e}"));
+                    }
+                }
+                match (a, hs) {
+                    (Ok(()), Some(Ok(()))) => if noisy_weights {
+                        second.forward(&hsol.shares, &mut currents, &mut noise_rng)
+                    } else {
+                        second.forward_noiseless(&hsol.shares, &mut currents)
+                    }
+                    .map_err(|_| ()),
+                    _ => Err(()),
+                }
+            }
+            _ => if noisy_weights {
+                eff.forward(x, &mut scratch, &mut currents, &mut noise_rng)
+            } else {
+                eff.forward_noiseless(x, &mut scratch, &mut currents)
+            }
+            .map_err(|_| ()),
         };
         if r.is_err() {
             out.nonconverged += 1;

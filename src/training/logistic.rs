@@ -21,6 +21,11 @@ pub struct LogisticOptions {
     pub standardize: bool,
     /// Gradient-norm tolerance at which the optimiser stops.
     pub gradient_tolerance: f64,
+    /// Floor on each feature's min-max range, as a fraction of the widest feature's range
+    /// (`None`: plain min-max). A feature that hardly moves over the training set (e.g. a hidden
+    /// line that rarely wins a normaliser) would otherwise get a huge weight once the scaling is
+    /// folded into the weights, squeezing every other weight out of an element's range.
+    pub range_floor: Option<f64>,
 }
 
 impl Default for LogisticOptions {
@@ -36,6 +41,7 @@ impl Default for LogisticOptions {
             max_iterations: 500,
             standardize: false,
             gradient_tolerance: 1e-2,
+            range_floor: None,
         }
     }
 }
@@ -142,7 +148,16 @@ pub(super) fn train_logistic(
             "a classifier needs at least two classes".to_string(),
         ));
     }
-    let scaler = MinMaxScaler::fit(train.x.view())?;
+    let mut scaler = MinMaxScaler::fit(train.x.view())?;
+    if let Some(f) = opts.range_floor {
+        let widest = (&scaler.max - &scaler.min).fold(0.0f64, |a, &r| a.max(r));
+        let floor = f * widest;
+        for (lo, hi) in scaler.min.iter().zip(scaler.max.iter_mut()) {
+            if *hi - *lo < floor {
+                *hi = *lo + floor;
+            }
+        }
+    }
     let u = scaler.transform(train.x.view())?;
     let standardizer = if opts.standardize {
         Some(Standardizer::fit(u.view())?)
