@@ -9,7 +9,7 @@ use ndarray::{Array1, Array2};
 use rand::Rng;
 
 fn process() -> Process {
-    // Generic benchmark values (DESIGN.md section 3 ranges, from memory; not foundry data).
+    // Generic benchmark values (DEVELOPERS.md model notes section 3 ranges, from memory; not foundry data).
     let tech = DeviceTech {
         vt0: 0.45,
         n: 1.3,

@@ -24,7 +24,7 @@ pub mod stages;
 pub mod training;
 pub mod units;
 
-/// The caution every report and summary carries (DESIGN.md section 8).
+/// The caution every report and summary carries (DEVELOPERS.md model notes section 8).
 pub const CAUTION: &str = "hardmax gives architecture-stage estimates from compact models and generic \
 parameters; it is not sign-off. Final decisions need the foundry's characterised models, corner and \
 Monte Carlo simulation in your verification flow, and silicon measurement.";

@@ -1,5 +1,5 @@
 //! `hardmax baseline` end to end (assert_cmd). Accuracy values are checked against the reference
-//! figures of DESIGN.md section 6 (scikit-learn 1.9.1, iris 0.960) as a band; error messages
+//! figures of DEVELOPERS.md model notes section 6 (scikit-learn 1.9.1, iris 0.960) as a band; error messages
 //! against the rules of src/data (fixtures in tests/data/csv/, invented data).
 
 use assert_cmd::Command;
@@ -42,7 +42,7 @@ fn iris_run_prints_table_and_caution() {
     let s = String::from_utf8(out).unwrap();
     let base = value(&s, "linfa baseline");
     let ideal = value(&s, "ideal argmax");
-    // A 45-sample test split: within 0.05 of the 0.960 reference (DESIGN.md section 6).
+    // A 45-sample test split: within 0.05 of the 0.960 reference (DEVELOPERS.md model notes section 6).
     assert!((base - 0.960).abs() <= 0.05, "{s}");
     assert_eq!(base, ideal);
     assert_eq!(value(&s, "agreement"), 1.0);
@@ -139,7 +139,7 @@ fn bad_arguments_are_errors() {
 
 #[test]
 fn cross_validation_row_on_request() {
-    // DESIGN.md section 6: wine 0.983 (5-fold stratified CV, scikit-learn 1.9.1); band 0.03.
+    // DEVELOPERS.md model notes section 6: wine 0.983 (5-fold stratified CV, scikit-learn 1.9.1); band 0.03.
     let out = hardmax()
         .args(["baseline", "--dataset", "wine", "--folds", "5"])
         .assert()

@@ -1,6 +1,6 @@
 //! Transient of the current-mode WTA (J. Lazzaro, S. Ryckebusch, M. Mahowald, C. Mead,
 //! "Winner-take-all networks of O(N) complexity", NIPS 1, 1989) with node capacitances
-//! (DESIGN.md §4.3), EKV devices (Enz, Krummenacher, Vittoz 1995).
+//! (DEVELOPERS.md model notes §4.3), EKV devices (Enz, Krummenacher, Vittoz 1995).
 
 #![allow(clippy::needless_range_loop)]
 
@@ -81,7 +81,7 @@ fn steady_state_is_the_dc_solution() {
     }
 }
 
-/// Decision time scales like C U_T / (kappa I) (DESIGN.md §4.3): doubling every capacitance
+/// Decision time scales like C U_T / (kappa I) (DEVELOPERS.md model notes §4.3): doubling every capacitance
 /// doubles it (the ODE C dV/dt = f(V) in time t/C is unchanged: exact up to rounding and the
 /// step control, which works in units of the time scale); doubling every current (inputs and
 /// bias) halves it in deep weak inversion (I/I_S ≈ 1e-3, where every conductance is
@@ -150,7 +150,7 @@ fn energy_of_constant_currents() {
 }
 
 /// A time-limited decision: read before the circuit has decided it is ambiguous, read after
-/// the decision time it is the settled winner (definition of the read-out, DESIGN.md §4.3/4.4).
+/// the decision time it is the settled winner (definition of the read-out, DEVELOPERS.md model notes §4.3/4.4).
 #[test]
 fn time_limited_decisions() {
     let inputs = [10e-9, 11e-9, 9.5e-9];

@@ -1,6 +1,6 @@
 //! Current-mode WTA (J. Lazzaro, S. Ryckebusch, M. Mahowald, C. Mead, "Winner-take-all networks
 //! of O(N) complexity", NIPS 1, 1989): DC behaviour against the weak-inversion closed form
-//! I_out,k = I_b I_k^g / Σ I_j^g, g = kappa/sigma (derivation: DESIGN.md §4.1 and the docs of
+//! I_out,k = I_b I_k^g / Σ I_j^g, g = kappa/sigma (derivation: DEVELOPERS.md model notes §4.1 and the docs of
 //! `stages::competition::wta`), with the EKV model of Enz, Krummenacher, Vittoz (1995).
 
 #![allow(clippy::needless_range_loop)]
@@ -66,7 +66,7 @@ fn max_kcl(c: &WtaCircuit, inputs: &[f64], out: &StageSolution) -> f64 {
 const N_SLOPE: f64 = 1.3; // generic process slope factor (competition_support)
 
 /// Closed form in deep weak inversion, I/I_S ≈ 1e-4, g = kappa/sigma = 1/eta = 100: log output
-/// ratios within a few per cent of g ln(I_i/I_j) (DESIGN.md §4.1: "within a few per cent in
+/// ratios within a few per cent of g ln(I_i/I_j) (DEVELOPERS.md model notes §4.1: "within a few per cent in
 /// log-ratio at I/I_S ~ 1e-4 and g = 100").
 #[test]
 fn weak_inversion_closed_form_log_ratios() {
@@ -101,7 +101,7 @@ fn weak_inversion_closed_form_log_ratios() {
     }
 }
 
-/// Small-signal gain (Δout/out_avg)/(Δin/in_avg) ≈ kappa/sigma (DESIGN.md §4.1 derivation); in
+/// Small-signal gain (Δout/out_avg)/(Δin/in_avg) ≈ kappa/sigma (DEVELOPERS.md model notes §4.1 derivation); in
 /// the hundreds for typical drain coupling (common practice, no source): eta = 0.005 -> 200.
 #[test]
 fn small_signal_gain_is_kappa_over_sigma() {
@@ -122,7 +122,7 @@ fn small_signal_gain_is_kappa_over_sigma() {
     }
 }
 
-/// Common mode (follows from the closed form I_k^g / Σ I_j^g, DESIGN.md §4.1 and §5): scaling
+/// Common mode (follows from the closed form I_k^g / Σ I_j^g, DEVELOPERS.md model notes §4.1 and §5): scaling
 /// every input leaves weak-inversion shares unchanged; adding the same current to every input
 /// pulls the shares toward equal.
 #[test]
@@ -144,7 +144,7 @@ fn common_mode_behaviour() {
     assert!(s3[2] > s1[2]);
 }
 
-/// Mismatch referral (DESIGN.md §4.1 and module docs): a threshold shift dV_T on the sink A_k
+/// Mismatch referral (DEVELOPERS.md model notes §4.1 and module docs): a threshold shift dV_T on the sink A_k
 /// acts like multiplying I_k by exp(kappa dV_T/U_T); a shift on the output B_k changes the log
 /// share by -kappa dV_T/U_T, which referred to the input is divided by the gain g.
 #[test]
@@ -441,7 +441,7 @@ fn bracketing_fallback_agrees_with_newton() {
     }
 }
 
-/// The decision rule on WTA outputs (DESIGN.md §4.4): an exact tie is ambiguous under the
+/// The decision rule on WTA outputs (DEVELOPERS.md model notes §4.4): an exact tie is ambiguous under the
 /// default rule, a 2 % lead at gain 100 (share ratio e^(100 ln 1.02) ≈ 7) is a clear decision.
 #[test]
 fn decisions_from_wta_outputs() {
@@ -460,7 +460,7 @@ fn decisions_from_wta_outputs() {
 /// Without drain coupling (eta = 0) the weak-inversion gain kappa/sigma is infinite: the
 /// winner carries the whole bias (Lazzaro et al. 1989: the ideal WTA limit) and the solve still
 /// converges. A drain-coupling override given as an Early voltage sets eta = n U_T / V_A
-/// (sigma = U_T / V_A, DESIGN.md §3), so the gain kappa/sigma becomes V_A / (n U_T).
+/// (sigma = U_T / V_A, DEVELOPERS.md model notes §3), so the gain kappa/sigma becomes V_A / (n U_T).
 #[test]
 fn drain_coupling_extremes_and_override() {
     let is = is_nmos(2.0);

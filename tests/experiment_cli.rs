@@ -333,7 +333,7 @@ fn column(csv: &Path, name: &str) -> Vec<String> {
         .collect()
 }
 
-/// The transient evaluation settles to the DC operating point (DESIGN.md section 4.3: the
+/// The transient evaluation settles to the DC operating point (DEVELOPERS.md model notes section 4.3: the
 /// transient's final state equals the DC solution), so with noise off its decisions, and hence
 /// the accuracy table, equal the DC run's; it also reports decision time and energy. Read out
 /// far before the decision time, decisions are ambiguous (time-limited decisions).

@@ -48,7 +48,7 @@ max_runner_up_share = 1.0
     );
     // Reference library: the mapped weights' ideal argmax equals linfa's predictions.
     assert_eq!(prep.ideal_pred, prep.baseline_pred);
-    // DESIGN.md section 6 band (scikit-learn 1.9.1 reference figure 0.969 for digits).
+    // DEVELOPERS.md model notes section 6 band (scikit-learn 1.9.1 reference figure 0.969 for digits).
     assert!((prep.ideal_acc - 0.969).abs() < 0.03, "{}", prep.ideal_acc);
     for o in chips(&setup, &prep, 3) {
         assert_eq!(o.nonconverged, 0);

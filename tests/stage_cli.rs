@@ -2,9 +2,9 @@
 //! DEVELOPERS.md (`x, out_0.., share_0..`), the transient, and bad inputs. Values are checked
 //! against published closed forms: the current-mode WTA's weak-inversion normaliser
 //! I_out,k = I_b I_k^g / Σ I_j^g (Lazzaro, Ryckebusch, Mahowald, Mead, NIPS 1, 1989; gain
-//! analysis DESIGN.md §4.1), the diode-fed differential pair as a plain normaliser
-//! I_out,k = I_b I_k / Σ I_j (Mead, "Analog VLSI and Neural Systems", 1989; DESIGN.md §4.2), and
-//! U_T(300 K) = 25.852 mV (CODATA 2018 k and q; DESIGN.md §3).
+//! analysis DEVELOPERS.md model notes §4.1), the diode-fed differential pair as a plain normaliser
+//! I_out,k = I_b I_k / Σ I_j (Mead, "Analog VLSI and Neural Systems", 1989; DEVELOPERS.md model notes §4.2), and
+//! U_T(300 K) = 25.852 mV (CODATA 2018 k and q; DEVELOPERS.md model notes §3).
 
 use assert_cmd::Command;
 

@@ -1,7 +1,7 @@
 //! Float training and the two references on the open datasets (datasets/PROVENANCE.md).
 //!
 //! Sources: the linfa-logistic 0.8.1 model itself (reference library) for the sample-by-sample
-//! agreement and the score identity; DESIGN.md section 6 for the cross-validation figures
+//! agreement and the score identity; DEVELOPERS.md model notes section 6 for the cross-validation figures
 //! (scikit-learn 1.9.1 LogisticRegression, standardised features, 5-fold stratified CV:
 //! iris 0.960, wine 0.983, digits 0.969), used as bands of +-0.03 ("a few points").
 
@@ -84,7 +84,7 @@ fn unstandardised_weights_are_linfa_params() {
 /// 5-fold stratified CV of the float model within a few points of the reference figures.
 #[test]
 fn cross_validation_accuracy_in_reference_bands() {
-    // DESIGN.md section 6 (scikit-learn 1.9.1, measured for the design guide).
+    // DEVELOPERS.md model notes section 6 (scikit-learn 1.9.1, measured for the design guide).
     let references = [("iris", 0.960), ("wine", 0.983), ("digits", 0.969)];
     for (name, reference) in references {
         let ds = Dataset::builtin(name).unwrap();

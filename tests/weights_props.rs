@@ -8,7 +8,7 @@ use ndarray::{Array1, Array2};
 use proptest::prelude::*;
 
 fn process() -> Process {
-    // Generic test values inside DESIGN.md section 3's published ranges (from memory).
+    // Generic test values inside DEVELOPERS.md model notes section 3's published ranges (from memory).
     let tech = DeviceTech {
         vt0: 0.45,
         n: 1.3,
@@ -89,7 +89,7 @@ fn same_ranking(scores: &Array1<f64>, out: &[f64]) -> Result<(), TestCaseError> 
 proptest! {
     /// Shifted encoding: the added term sum_i (w_min - s c_i) x_i is the same for every class
     /// and s > 0, so the class ranking of the ideal outputs equals the float ranking (exact
-    /// algebra, DESIGN.md section 5); checked against ndarray's float scores.
+    /// algebra, DEVELOPERS.md model notes section 5); checked against ndarray's float scores.
     #[test]
     fn shifted_encoding_keeps_ranking((w, b, x) in case(), w_min in 0.0f64..0.5) {
         let m = ideal_design(SignedEncoding::Shifted, w_min).map(w.view(), b.view()).unwrap();
@@ -137,7 +137,7 @@ proptest! {
 }
 
 /// Power-law normaliser out_k = I_b x_k^g / sum_j x_j^g (Lazzaro et al., NIPS 1, 1989, closed
-/// form in weak inversion; DESIGN.md section 4), computed here naively for small g.
+/// form in weak inversion; DEVELOPERS.md model notes section 4), computed here naively for small g.
 #[test]
 fn hidden_normaliser_closed_form() {
     let h = HiddenNonlinearity::PowerLawNormaliser {

@@ -9,7 +9,7 @@ use hardmax::stages::weights::*;
 use ndarray::{array, Array1, Array2};
 use rand::Rng;
 
-/// Generic process for tests, values inside the published ranges quoted in DESIGN.md section 3
+/// Generic process for tests, values inside the published ranges quoted in DEVELOPERS.md model notes section 3
 /// (A_VT 5 mV·µm, A_beta 1 %·µm, n = 1.3; from memory, not a foundry's data).
 fn process(a_vt: f64, a_beta: f64) -> Process {
     let tech = DeviceTech {
@@ -167,7 +167,7 @@ fn input_dac_error_within_half_lsb() {
 }
 
 /// A subthreshold weight programmed at T0 and read at T with dV held follows
-/// w(T) = w(T0)^(T0/T) (DESIGN.md section 5: w = exp(kappa dV / U_T), U_T = kT/q, CODATA 2018).
+/// w(T) = w(T0)^(T0/T) (DEVELOPERS.md model notes section 5: w = exp(kappa dV / U_T), U_T = kT/q, CODATA 2018).
 #[test]
 fn subthreshold_weight_temperature_law() {
     let p = process(0.0, 0.0);
@@ -217,7 +217,7 @@ fn subthreshold_weight_temperature_law() {
 /// Enz, Krummenacher, Vittoz 1995). A_beta = 0 isolates the threshold term.
 #[test]
 fn subthreshold_pelgrom_spread() {
-    let a_vt = 5e-9; // 5 mV·µm (DESIGN.md section 3, 0.18 µm, from memory)
+    let a_vt = 5e-9; // 5 mV·µm (DEVELOPERS.md model notes section 3, 0.18 µm, from memory)
     let p = process(a_vt, 0.0);
     let dev = Transistor {
         polarity: Polarity::Nmos,
@@ -252,7 +252,7 @@ fn subthreshold_pelgrom_spread() {
     let tol = 4.0 * expect / (2.0 * n as f64).sqrt();
     assert!((s - expect).abs() < tol, "sd {s} vs {expect} (tol {tol})");
     assert!(mean.abs() < 4.0 * expect / (n as f64).sqrt(), "mean {mean}");
-    // About 14 % for A_VT = 5 mV·µm on 1 µm^2 (DESIGN.md section 3 worked value, pair: sqrt(2) x
+    // About 14 % for A_VT = 5 mV·µm on 1 µm^2 (DEVELOPERS.md model notes section 3 worked value, pair: sqrt(2) x
     // this device-level figure): kappa sigma / U_T with sigma = 3.54 mV.
     assert!(
         (expect - 0.105).abs() < 0.01,
@@ -690,7 +690,7 @@ fn design_round_trips() {
 }
 
 /// Mirror mismatch enters the effective matrix as I_u (w+ - m_j w-) with m_j the line's mirror
-/// gain (current-mirror subtraction, DESIGN.md section 5); with Pelgrom draws the gains spread
+/// gain (current-mirror subtraction, DEVELOPERS.md model notes section 5); with Pelgrom draws the gains spread
 /// around 1 by about sqrt(2) sigma_device (two devices) in weak inversion (Pelgrom 1989).
 #[test]
 fn differential_mirror_mismatch_enters_as_gain() {

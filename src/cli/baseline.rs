@@ -9,7 +9,7 @@ use clap::Args;
 use crate::data::{load_csv, stratified_split, CsvOptions, Dataset};
 use crate::training::{cross_validate, train_with_references, LogisticOptions};
 
-/// The caution every user-facing report carries (DESIGN.md section 8).
+/// The caution every user-facing report carries (DEVELOPERS.md model notes section 8).
 const CAUTION: &str = "hardmax gives architecture-stage estimates; final decisions need the foundry's characterised models and your team's verification flow.";
 
 #[derive(Debug, Args)]

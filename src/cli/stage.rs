@@ -617,7 +617,7 @@ fn devices(stage: &Stage, n: usize) -> Vec<(String, Ekv)> {
 
 /// Numerical gain d ln(out_a/out_b) / d ln(in_a/in_b) between the largest input a and the
 /// next b: the relative output difference over the relative input difference for small
-/// differences (DESIGN.md §4.1).
+/// differences (DEVELOPERS.md model notes §4.1).
 fn numerical_gain(stage: &dyn CompetitionStage, inputs: &[f64]) -> anyhow::Result<Option<f64>> {
     let mut order: Vec<usize> = (0..inputs.len()).collect();
     order.sort_by(|&x, &y| inputs[y].total_cmp(&inputs[x]));
@@ -645,11 +645,11 @@ fn closed_form_gain(stage: &Stage) -> (f64, &'static str) {
     match stage {
         Stage::Wta(c) => (
             c.gain(0).unwrap_or(f64::NAN),
-            "kappa/sigma = n_A/(n_B eta_A), weak-inversion closed form (DESIGN.md §4.1)",
+            "kappa/sigma = n_A/(n_B eta_A), weak-inversion closed form (DEVELOPERS.md model notes §4.1)",
         ),
         Stage::Pair(_) => (
             1.0,
-            "1: diode-connected inputs make a plain normaliser in weak inversion (DESIGN.md §4.2)",
+            "1: diode-connected inputs make a plain normaliser in weak inversion (DEVELOPERS.md model notes §4.2)",
         ),
     }
 }

@@ -188,7 +188,7 @@ mod tests {
         assert_relative_eq!(small / large, 2.0, epsilon = 0.0, max_relative = 1e-12);
     }
 
-    /// DESIGN.md worked value: A_VT = 5 mV·um on a 1 um^2 pair gives about 14 % in weak
+    /// DEVELOPERS.md model notes worked value: A_VT = 5 mV·um on a 1 um^2 pair gives about 14 % in weak
     /// inversion (sigma(dI/I) = sigma(dV_T) / (n U_T), Pelgrom 1989 with the EKV weak-inversion
     /// law). The 14 % assumes n ≈ 1.38 at 300 K with A_beta = 0: 5 mV / (1.38 * 25.852 mV) =
     /// 0.140; n = 1.3 gives 14.9 %, n = 1.5 gives 12.9 %.

@@ -18,7 +18,7 @@
 //! - K_F ≈ 1e-25 V²·F for NMOS and about half for PMOS (order of magnitude, from memory).
 //! - Drain coupling as an Early voltage per channel length, V_A = (V_A/L) * L, for long-channel
 //!   analog devices (from memory). The current-mode WTA gain is g = kappa/sigma = V_A/(n U_T)
-//!   (DESIGN.md section 4 with sigma ≈ U_T/V_A): at L = 1 µm and 27 °C about 550 (350 nm), 300
+//!   (DEVELOPERS.md model notes section 4 with sigma ≈ U_T/V_A): at L = 1 µm and 27 °C about 550 (350 nm), 300
 //!   (180 nm) and 170 (65 nm), growing in proportion to L.
 
 use super::error::DeviceError;
@@ -144,7 +144,7 @@ mod tests {
 
     /// A_VT ≈ 1 mV·µm per nm of oxide (Pelgrom, Tuinhout, Vertregt, IEDM 1998): the preset's
     /// A_VT over its oxide thickness (from C_ox = eps_ox / t_ox) is within 0.7 to 1.5 mV·µm/nm.
-    /// A_beta within 0.5-2 %·µm (DESIGN.md, same source, from memory).
+    /// A_beta within 0.5-2 %·µm (DEVELOPERS.md model notes, same source, from memory).
     #[test]
     fn matching_follows_oxide_rule() {
         for p in all() {
@@ -159,7 +159,7 @@ mod tests {
 
     /// Mobility mu = mu C_ox / C_ox in the usual bulk-silicon inversion-layer ranges (NMOS
     /// 150-600 cm²/Vs, PMOS 40-250 cm²/Vs: from memory), and the WTA gain at L = 1 µm,
-    /// V_A/(n U_T), in the hundreds (DESIGN.md section 4: hundreds to about a thousand, common
+    /// V_A/(n U_T), in the hundreds (DEVELOPERS.md model notes section 4: hundreds to about a thousand, common
     /// practice, no source; 65 nm lands just under 200 at 1 µm).
     #[test]
     fn mobility_and_wta_gain_ranges() {

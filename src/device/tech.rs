@@ -376,7 +376,7 @@ mod tests {
     }
 
     /// An Early voltage V_A means I_D / g_ds = V_A in weak-inversion saturation, where
-    /// I_D ∝ exp(sigma V_D / U_T) and sigma ≈ U_T / V_A (DESIGN.md section 3; EKV weak-inversion
+    /// I_D ∝ exp(sigma V_D / U_T) and sigma ≈ U_T / V_A (DEVELOPERS.md model notes section 3; EKV weak-inversion
     /// law, Enz, Krummenacher, Vittoz 1995); all four ways of giving the coupling agree.
     #[test]
     fn drain_coupling_forms() {

@@ -211,7 +211,7 @@ pub fn weight_stage(e: &Experiment) -> WeightStageDesign {
 }
 
 /// The drain coupling that gives a current-mode WTA the gain `g`: g = kappa / sigma and
-/// sigma = eta / n, so g = 1 / eta (DESIGN.md section 4). For the differential pair the same
+/// sigma = eta / n, so g = 1 / eta (DEVELOPERS.md model notes section 4). For the differential pair the same
 /// key sets the same drain coupling of its transistors (its competition gain is set by the input
 /// conversion instead: a diode gives a plain normaliser, a resistor a softmax).
 pub fn drain_coupling_for_gain(g: f64) -> DrainCoupling {

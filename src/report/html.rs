@@ -13,7 +13,7 @@ use super::folder::{PointRow, ResultsFolder, RunStatus, SweepMode};
 use super::format::{esc, fmt_duration, fmt_kind, fmt_unix_utc, raw_value, NumberKind};
 use super::render::{point_label, short_name, Figure};
 
-/// The caution every report carries (DESIGN.md section 8).
+/// The caution every report carries (DEVELOPERS.md model notes section 8).
 pub const CAUTION: &str = "hardmax gives architecture-stage estimates from compact models and \
 generic parameters. It is not sign-off: final decisions need the foundry's characterised \
 models, corner and Monte Carlo simulation in the team's verification flow, and silicon \

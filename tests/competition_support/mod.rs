@@ -2,7 +2,7 @@
 //!
 //! The process below is *generic*: round numbers inside the published ranges for a 0.18 µm-class
 //! bulk CMOS process (V_T0 ≈ 0.45 V, n ≈ 1.3, µC_ox ≈ 300 µA/V² for NMOS; A_VT ≈ 5 mV·µm, from
-//! memory; DESIGN.md §3), not any foundry's characterised values.
+//! memory; DEVELOPERS.md model notes §3), not any foundry's characterised values.
 #![allow(dead_code)]
 
 use hardmax::device::{DeviceTech, DrainCoupling, MosMismatch, Polarity, Process, Transistor};

@@ -2,7 +2,7 @@
 //!
 //! The winner is the largest output; the decision is *ambiguous* when the winner's share is
 //! below `min_winner_share` or the runner-up's share is above `max_runner_up_share`
-//! (DESIGN.md §4.4). Ambiguous decisions are counted apart from right and wrong ones.
+//! (DEVELOPERS.md model notes §4.4). Ambiguous decisions are counted apart from right and wrong ones.
 
 use serde::{Deserialize, Serialize};
 
@@ -98,7 +98,7 @@ impl DecisionRule {
 mod tests {
     use super::*;
 
-    /// The rule as stated in DESIGN.md §4.4 (our own definition), on hand-made shares.
+    /// The rule as stated in DEVELOPERS.md model notes §4.4 (our own definition), on hand-made shares.
     #[test]
     fn winner_and_ambiguity() {
         let rule = DecisionRule {

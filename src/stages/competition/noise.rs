@@ -1,7 +1,7 @@
 //! Static (per-decision) noise for a DC evaluation of a competition stage.
 //!
 //! A DC evaluation has no time axis, so noise enters as an input-referred random draw on each
-//! input current, integrated over the decision's bandwidth B (DESIGN.md §3): the shot noise of
+//! input current, integrated over the decision's bandwidth B (DEVELOPERS.md model notes §3): the shot noise of
 //! the input current, one-sided `S_I = 2 q I` (R. Sarpeshkar, T. Delbrück, C. Mead, "White noise
 //! in MOS transistors and resistors", IEEE Circuits & Devices 9(6), 1993), gives a Gaussian
 //! draw of standard deviation `sqrt(2 q I_k B)` on `I_k`.

@@ -1,4 +1,4 @@
-//! Transient evaluation of the current-mode WTA (DESIGN.md §4.3): node capacitances turn the
+//! Transient evaluation of the current-mode WTA (DEVELOPERS.md model notes §4.3): node capacitances turn the
 //! KCL equations of [`WtaCircuit`] into an ODE, integrated here from a reset state; optional
 //! shot noise makes it an SDE.
 //!
@@ -50,7 +50,7 @@
 //!
 //! - **Decision time**: the first time after which the decision rule's decision is
 //!   non-ambiguous with the same winner until the end of the run (winner share at or above
-//!   `min_winner_share` and runner-up at or below `max_runner_up_share`, DESIGN.md §4.4),
+//!   `min_winner_share` and runner-up at or below `max_runner_up_share`, DEVELOPERS.md model notes §4.4),
 //!   linearly interpolated inside the step where it last became so. `None` if the run ends
 //!   without such a decision.
 //! - **Energy per decision**: `V_dd ∫_0^{t_dec} (Σ_k I_in,k + Σ_k I_B,k) dt`, the current drawn
@@ -58,7 +58,7 @@
 //!   is the bias branch's current: Σ I_B = I_bias in steady state), trapezoidal rule over the
 //!   accepted steps. Currents drawn by the read-out or by bias generation are not included.
 //! - **Time-limited decision**: the rule's decision at the read-out time.
-//! - The decision time scales like `C U_T / (kappa I)` (DESIGN.md §4.3): [`TransientSummary`]
+//! - The decision time scales like `C U_T / (kappa I)` (DEVELOPERS.md model notes §4.3): [`TransientSummary`]
 //!   gives that scale (`C_in`, the sink's kappa, the mean input) so callers can report the
 //!   ratio.
 //!
@@ -227,7 +227,7 @@ pub struct TransientSummary {
     pub settled: bool,
     /// Largest relative KCL residual at the end (0 = exactly at a DC point).
     pub final_residual: f64,
-    /// Time scale `C_in U_T / (kappa I_mean)`, s (DESIGN.md §4.3).
+    /// Time scale `C_in U_T / (kappa I_mean)`, s (DEVELOPERS.md model notes §4.3).
     pub time_scale: f64,
     /// Accepted steps.
     pub steps: usize,

@@ -24,7 +24,7 @@ use crate::device::Process;
 pub enum HiddenNonlinearity {
     /// Weak-inversion closed form of the current-mode WTA, a power-law normaliser
     /// `out_k = I_b x_k^g / sum_j x_j^g` with g = kappa/sigma (J. Lazzaro, S. Ryckebusch,
-    /// M. Mahowald, C. Mead, NIPS 1, 1989; gain analysis in DESIGN.md section 4).
+    /// M. Mahowald, C. Mead, NIPS 1, 1989; gain analysis in DEVELOPERS.md model notes section 4).
     PowerLawNormaliser {
         /// Exponent g (> 0; 1 = linear normaliser, large = hard WTA).
         exponent: f64,

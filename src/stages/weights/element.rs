@@ -12,7 +12,7 @@
 //! - [`SubthresholdElement`]: a floating-gate or current-mirror element in weak inversion whose
 //!   weight is w = exp(kappa dV / U_T) relative to a matched reference device; the stored
 //!   quantity is the voltage dV. Its transistor carries Pelgrom mismatch, and because dV is held
-//!   while U_T = kT/q changes, w(T) = w(T0)^(T0/T) (DESIGN.md section 5).
+//!   while U_T = kT/q changes, w(T) = w(T0)^(T0/T) (DEVELOPERS.md model notes section 5).
 
 use rand::Rng;
 use rand_distr::StandardNormal;

@@ -1,7 +1,7 @@
 //! Weight stages: the vector-matrix multiply of the classifier, with its nonidealities.
 //!
 //! A stage turns an input row x in [0, 1]^n (features min-max scaled on the training split)
-//! into one current per output line, `I_j = sum_i w_ji x_i I_u (+ offset)` (DESIGN.md
+//! into one current per output line, `I_j = sum_i w_ji x_i I_u (+ offset)` (DEVELOPERS.md model notes
 //! section 5). The four kinds of thing are kept apart:
 //!
 //! - **design** (nominal, serialisable, SI): [`WeightStageDesign`] = [`InputDesign`] +

@@ -153,7 +153,7 @@ def write(folder, done, status):
 
 def transfer(path, n_out=3, g=12.0, bias=1e-8):
     # Invented sweep of the input of output 0 from 1 nA to 100 nA while the others sit at 10 nA,
-    # shaped with the power-law normaliser I_b I_k^g / sum_j I_j^g (DESIGN.md section 4).
+    # shaped with the power-law normaliser I_b I_k^g / sum_j I_j^g (DEVELOPERS.md model notes section 4).
     with open(path, "w", newline="") as f:
         wr = csv.writer(f, lineterminator="\n")
         wr.writerow(["x"] + [f"out_{k}" for k in range(n_out)] + [f"share_{k}" for k in range(n_out)])
