@@ -369,3 +369,43 @@ fn transient_runs_match_dc_and_report_time_and_energy() {
     let amb: f64 = column(&early, "ambiguous_frac")[0].parse().unwrap();
     assert!(amb > 0.5, "ambiguous share at a 1 ns read-out: {amb}");
 }
+
+/// A given hidden layer (CSV: one row per unit, weights then bias) is used instead of a drawn
+/// one; a malformed file is refused with its line and column, before anything is written.
+#[test]
+fn given_hidden_layer_is_used_and_checked() {
+    let dir = tempfile::tempdir().unwrap();
+    // Invented weights for the 4 iris features, 3 hidden units.
+    std::fs::write(
+        dir.path().join("hidden.csv"),
+        "1,0,0,0,0\n0,0,1,0,0\n0,0,0,1,0.1\n",
+    )
+    .unwrap();
+    let exp = write(
+        dir.path(),
+        "given.toml",
+        "[dataset]\nname = \"iris\"\n[hidden]\nunits = 3\nweights_file = \"hidden.csv\"\n\
+         [competition]\ncircuit = \"argmax\"\n[population]\nchips = 3\n",
+    );
+    hardmax()
+        .args(["run", "--quiet", "--no-report", "--out"])
+        .arg(dir.path().join("ok"))
+        .arg(&exp)
+        .assert()
+        .success();
+    let ideal: f64 = column(&dir.path().join("ok/points.csv"), "ideal_acc")[0]
+        .parse()
+        .unwrap();
+    // Petal length and width carry most of iris's class information (Fisher 1936): a read-out
+    // on these hidden lines classifies far above chance (1/3).
+    assert!(ideal > 0.6, "ideal accuracy {ideal}");
+    std::fs::write(dir.path().join("hidden.csv"), "1,0,0,0,0\n0,zero,1,0,0\n").unwrap();
+    hardmax()
+        .args(["run", "--quiet", "--no-report", "--out"])
+        .arg(dir.path().join("bad"))
+        .arg(&exp)
+        .assert()
+        .failure()
+        .stderr(predicate::str::contains("line 2, column 2"));
+    assert!(!dir.path().join("bad").exists());
+}

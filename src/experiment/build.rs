@@ -3,6 +3,8 @@
 
 use std::path::Path;
 
+use ndarray::{Array1, Array2};
+
 use super::config::{
     CircuitKind, CompetitionCfg, ElementKind, EncodingKind, EvaluationKind, Experiment,
     HiddenCircuitKind, SigmaKindCfg, SizeCfg,
@@ -39,6 +41,71 @@ pub enum BuildError {
     Process(#[from] DeviceError),
     #[error(transparent)]
     Pipeline(#[from] PipelineError),
+    #[error("hidden.weights_file `{path}`: {message}")]
+    HiddenWeights { path: String, message: String },
+}
+
+/// Read a hidden layer: CSV without header, one row per unit, the weights then the bias.
+pub fn load_hidden_weights(path: &Path) -> Result<(Array2<f64>, Array1<f64>), BuildError> {
+    let bad = |message: String| BuildError::HiddenWeights {
+        path: path.display().to_string(),
+        message,
+    };
+    let text = std::fs::read_to_string(path).map_err(|e| {
+        bad(format!(
+            "cannot read it ({e}); check the path (relative to the experiment file)"
+        ))
+    })?;
+    let mut rows: Vec<Vec<f64>> = Vec::new();
+    for (i, line) in text.lines().enumerate() {
+        let line = line.trim();
+        if line.is_empty() {
+            continue;
+        }
+        let row = line
+            .split(',')
+            .enumerate()
+            .map(|(j, cell)| {
+                let v: f64 = cell.trim().parse().map_err(|_| {
+                    bad(format!(
+                        "line {}, column {}: `{}` is not a number",
+                        i + 1,
+                        j + 1,
+                        cell.trim()
+                    ))
+                })?;
+                if v.is_finite() {
+                    Ok(v)
+                } else {
+                    Err(bad(format!(
+                        "line {}, column {}: {v} is not finite",
+                        i + 1,
+                        j + 1
+                    )))
+                }
+            })
+            .collect::<Result<Vec<f64>, _>>()?;
+        if let Some(first) = rows.first() {
+            if first.len() != row.len() {
+                return Err(bad(format!(
+                    "line {} has {} values but the first row has {}; every row needs the same count",
+                    i + 1,
+                    row.len(),
+                    first.len()
+                )));
+            }
+        }
+        rows.push(row);
+    }
+    let cols = rows.first().map_or(0, Vec::len);
+    if rows.is_empty() || cols < 2 {
+        return Err(bad(
+            "no rows, or fewer than two values per row (weights and a bias)".into(),
+        ));
+    }
+    let w = Array2::from_shape_fn((rows.len(), cols - 1), |(r, c)| rows[r][c]);
+    let b = Array1::from_iter(rows.iter().map(|r| r[cols - 1]));
+    Ok((w, b))
 }
 
 /// Load the dataset of an experiment (relative CSV paths are relative to the experiment file).
@@ -70,7 +137,16 @@ pub fn prepare_data(e: &Experiment, base_dir: &Path) -> Result<Prepared, BuildEr
         standardize: e.training.standardize,
         ..LogisticOptions::default()
     };
+    let given = match (&e.hidden.weights_file, e.hidden.units > 0) {
+        (Some(f), true) => Some(load_hidden_weights(&if f.is_absolute() {
+            f.clone()
+        } else {
+            base_dir.join(f)
+        })?),
+        _ => None,
+    };
     let hidden = (e.hidden.units > 0).then(|| HiddenSpec {
+        given,
         units: e.hidden.units as usize,
         nonlinearity: HiddenNonlinearity::PowerLawNormaliser {
             exponent: e.hidden.exponent,

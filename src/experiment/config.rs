@@ -344,6 +344,10 @@ pub struct HiddenCfg {
     /// `diff_pair` (diode-fed differential pair: a linear normaliser, needs `exponent = 1`).
     /// Circuits use the `[competition]` transistor sizes and `hidden.bias_current`.
     pub circuit: HiddenCircuitKind,
+    /// Given hidden weights instead of drawn ones: a CSV file (relative to the experiment file)
+    /// without header, one row per hidden unit, one weight per input feature, the bias last.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub weights_file: Option<PathBuf>,
 }
 
 /// How chips evaluate the hidden normaliser.
@@ -363,6 +367,7 @@ impl Default for HiddenCfg {
             bias_current: Q::new(100e-9),
             seed: 1,
             circuit: HiddenCircuitKind::ClosedForm,
+            weights_file: None,
         }
     }
 }

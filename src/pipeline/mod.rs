@@ -45,6 +45,8 @@ pub enum PipelineError {
     NonFinite { what: &'static str },
     #[error("{what}")]
     Unsupported { what: &'static str },
+    #[error("{what}; give one row per hidden unit with one weight per feature and the bias last")]
+    Shape { what: String },
 }
 
 /// The dataset split, trained float model, and reference accuracies: everything about the
@@ -86,6 +88,8 @@ pub struct HiddenSpec {
     pub stage: WeightStageDesign,
     /// Trainer of the read-out layer on the hidden shares (which already lie in [0, 1]).
     pub readout: crate::training::LogisticOptions,
+    /// Given hidden weights (units x features) and biases; `None` draws them.
+    pub given: Option<(Array2<f64>, Array1<f64>)>,
 }
 
 /// The chain of `layers` stages built from one stage design. Stages after the first take the
@@ -175,7 +179,25 @@ fn prepare_hidden(
     let u_train = scaler.transform(train.x.view())?;
     let test_u = scaler.transform(test.x.view())?;
     let mut rng = stream(spec.seed, &[domain::DESIGN, 0]);
-    let (w1, b1) = random_hidden_weights(&mut rng, spec.units, dataset.n_features());
+    let (w1, b1) = match &spec.given {
+        Some((w, b)) => {
+            if w.ncols() != dataset.n_features() || w.nrows() != spec.units || b.len() != w.nrows()
+            {
+                return Err(PipelineError::Shape {
+                    what: format!(
+                        "the given hidden layer is {} x {} with {} biases, but the dataset has {} features and hidden.units = {}",
+                        w.nrows(),
+                        w.ncols(),
+                        b.len(),
+                        dataset.n_features(),
+                        spec.units
+                    ),
+                });
+            }
+            (w.clone(), b.clone())
+        }
+        None => random_hidden_weights(&mut rng, spec.units, dataset.n_features()),
+    };
     let h_train = hidden_features(spec, &w1, &b1, &u_train)?;
     let h_test = hidden_features(spec, &w1, &b1, &test_u)?;
     let names: Vec<String> = (0..spec.units).map(|k| format!("hidden_{k}")).collect();
