@@ -545,10 +545,6 @@ pub struct Experiment {
     pub sweep: SweepSpec,
 }
 
-// Unused-import guard for quantity markers kept for schema growth.
-#[allow(dead_code)]
-type _Unused = (Q<Current>,);
-
 impl Experiment {
     /// An experiment with every optional key present (values are placeholders): the reference
     /// for which keys exist and what type and unit each has.

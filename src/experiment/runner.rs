@@ -319,12 +319,16 @@ pub fn run(
         };
         dir.save_point(&rec)?;
         let s = rec.summary();
+        let failure_note = rec
+            .first_failure
+            .as_ref()
+            .map(|f| format!("\n    first failed decision: {f}"))
+            .unwrap_or_default();
         records.push(rec);
         records.sort_by_key(|r| r.point);
         dir.write_tables(&records, &axis_paths, &class_names)?;
         manifest(&records, records.len() == resolved.points.len()).map_err(ResultsError::from)?;
         ran += 1;
-        let failure_note = rec_failure_note(&records, p.point);
         observer.point_done(
             p.point,
             &(format!(
@@ -353,15 +357,6 @@ pub fn run(
         elapsed_s: t0.elapsed().as_secs_f64(),
         records,
     })
-}
-
-fn rec_failure_note(records: &[PointRecord], point: usize) -> String {
-    records
-        .iter()
-        .find(|r| r.point == point)
-        .and_then(|r| r.first_failure.as_ref())
-        .map(|f| format!("\n    first failed decision: {f}"))
-        .unwrap_or_default()
 }
 
 fn hostname() -> String {
