@@ -314,7 +314,7 @@ pub fn run(
             baseline_acc: prep.baseline_acc,
             target: resolved.at_point[p.point].target.accuracy,
             z,
-            elapsed_s: 0.0,
+            elapsed_s: tp.elapsed().as_secs_f64(),
             first_failure,
         };
         dir.save_point(&rec)?;
