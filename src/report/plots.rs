@@ -427,6 +427,16 @@ fn param_axis(axis: &ParamAxis, xs: &[f64]) -> AxisMap {
     }
 }
 
+/// The parameter axis of a plot over all points of its curves (`x_of` gives a point's value).
+fn curves_axis<'a, P: 'a>(
+    axis: &ParamAxis,
+    points: impl Iterator<Item = &'a P>,
+    x_of: impl Fn(&P) -> f64,
+) -> AxisMap {
+    let xs: Vec<f64> = points.map(x_of).collect();
+    param_axis(axis, &xs)
+}
+
 /// A y axis for shares: from a little below the lowest value to just above the highest,
 /// clipped to [0, 1] with a small margin so lines at 100 % stay visible.
 fn share_axis(values: &[f64]) -> AxisMap {
@@ -666,6 +676,28 @@ fn framed_chart(
     finish(root)
 }
 
+/// A filled circle of `size` pixels at every point.
+fn draw_markers(
+    chart: &mut Chart,
+    pts: &[(f64, f64)],
+    size: i32,
+    col: RGBColor,
+) -> Result<(), String> {
+    chart
+        .draw_series(pts.iter().map(|&p| Circle::new(p, size, col.filled())))
+        .map(|_| ())
+        .map_err(|e| e.to_string())
+}
+
+/// Legend text of a curve: its label, or `single` when the plot has one unlabelled curve.
+fn curve_label(label: &str, single: &str) -> String {
+    if label.is_empty() {
+        single.to_string()
+    } else {
+        label.to_string()
+    }
+}
+
 /// Histogram bars: bin `k` covers [lo + k width, lo + (k + 1) width); `edges` gives a bar's
 /// left and right edge from the bin's left edge. Empty bins are not drawn.
 fn draw_bars(
@@ -702,12 +734,11 @@ pub fn accuracy_vs_param(plot: &AccuracyPlot) -> Result<String, ReportError> {
 }
 
 fn draw_accuracy(plot: &AccuracyPlot, buf: &mut String) -> Result<(), String> {
-    let xs: Vec<f64> = plot
-        .curves
-        .iter()
-        .flat_map(|c| c.points.iter().map(|p| p.x))
-        .collect();
-    let x = param_axis(&plot.axis, &xs);
+    let x = curves_axis(
+        &plot.axis,
+        plot.curves.iter().flat_map(|c| &c.points),
+        |p| p.x,
+    );
     let mut ys: Vec<f64> = Vec::new();
     for c in &plot.curves {
         for p in &c.points {
@@ -761,15 +792,11 @@ fn draw_accuracy(plot: &AccuracyPlot, buf: &mut String) -> Result<(), String> {
                 chart
                     .draw_series(LineSeries::new(line.clone(), col.stroke_width(2)))
                     .map_err(|e| e.to_string())?;
-                chart
-                    .draw_series(line.iter().map(|&p| Circle::new(p, 3, col.filled())))
-                    .map_err(|e| e.to_string())?;
-                let label = if c.label.is_empty() {
-                    "mean over chips".to_string()
-                } else {
-                    c.label.clone()
-                };
-                keys.push((Key::Line(col, 2, Dash::Solid), label));
+                draw_markers(chart, &line, 3, col)?;
+                keys.push((
+                    Key::Line(col, 2, Dash::Solid),
+                    curve_label(&c.label, "mean over chips"),
+                ));
             }
             if plot
                 .curves
@@ -856,12 +883,11 @@ pub fn yield_vs_param(plot: &YieldPlot) -> Result<String, ReportError> {
 }
 
 fn draw_yield(plot: &YieldPlot, buf: &mut String) -> Result<(), String> {
-    let xs: Vec<f64> = plot
-        .curves
-        .iter()
-        .flat_map(|c| c.points.iter().map(|p| p.x))
-        .collect();
-    let x = param_axis(&plot.axis, &xs);
+    let x = curves_axis(
+        &plot.axis,
+        plot.curves.iter().flat_map(|c| &c.points),
+        |p| p.x,
+    );
     let y = full_share_axis(-0.03, 1.03);
     framed_chart(
         buf,
@@ -906,15 +932,8 @@ fn draw_yield(plot: &YieldPlot, buf: &mut String) -> Result<(), String> {
                         }
                     }
                 }
-                chart
-                    .draw_series(line.iter().map(|&p| Circle::new(p, 4, col.filled())))
-                    .map_err(|e| e.to_string())?;
-                let label = if c.label.is_empty() {
-                    "yield".to_string()
-                } else {
-                    c.label.clone()
-                };
-                keys.push((Key::Marker(col), label));
+                draw_markers(chart, &line, 4, col)?;
+                keys.push((Key::Marker(col), curve_label(&c.label, "yield")));
             }
             keys.push((
                 Key::Line(INK, 2, Dash::Solid),
