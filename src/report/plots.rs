@@ -1303,39 +1303,47 @@ mod tests {
         assert_eq!(c, vec![2, 1, 0, 2]);
     }
 
-    #[test]
-    fn accuracy_plot_has_labels_and_ticks() {
-        let plot = AccuracyPlot {
+    /// An accuracy plot with one unlabelled curve.
+    fn one_curve_plot(
+        label: &str,
+        unit: &str,
+        log: bool,
+        points: Vec<AccuracyPoint>,
+    ) -> AccuracyPlot {
+        AccuracyPlot {
             title: "t".into(),
             axis: ParamAxis {
-                label: "stage.bias".into(),
-                unit: "A".into(),
-                log: true,
+                label: label.into(),
+                unit: unit.into(),
+                log,
             },
             curves: vec![AccuracyCurve {
                 label: String::new(),
-                points: vec![
-                    AccuracyPoint {
-                        x: 1e-9,
-                        mean: 0.8,
-                        p05: Some(0.7),
-                        p95: Some(0.9),
-                        ideal: Some(0.95),
-                        baseline: Some(0.96),
-                        target: Some(0.85),
-                    },
-                    AccuracyPoint {
-                        x: 1e-7,
-                        mean: 0.9,
-                        p05: Some(0.85),
-                        p95: Some(0.95),
-                        ideal: Some(0.95),
-                        baseline: Some(0.96),
-                        target: Some(0.85),
-                    },
-                ],
+                points,
             }],
-        };
+        }
+    }
+
+    /// A point with its 5-95 % band and the references ideal 0.95, baseline 0.96, target 0.85.
+    fn full_point(x: f64, mean: f64, p05: f64, p95: f64) -> AccuracyPoint {
+        AccuracyPoint {
+            x,
+            mean,
+            p05: Some(p05),
+            p95: Some(p95),
+            ideal: Some(0.95),
+            baseline: Some(0.96),
+            target: Some(0.85),
+        }
+    }
+
+    #[test]
+    fn accuracy_plot_has_labels_and_ticks() {
+        let points = vec![
+            full_point(1e-9, 0.8, 0.7, 0.9),
+            full_point(1e-7, 0.9, 0.85, 0.95),
+        ];
+        let plot = one_curve_plot("stage.bias", "A", true, points);
         let svg = accuracy_vs_param(&plot).unwrap();
         assert!(svg.starts_with("<svg"));
         assert!(svg.contains("stage.bias (A)"));
@@ -1346,26 +1354,16 @@ mod tests {
 
     #[test]
     fn degenerate_inputs_do_not_panic() {
-        let plot = AccuracyPlot {
-            title: "t".into(),
-            axis: ParamAxis {
-                label: "p".into(),
-                unit: String::new(),
-                log: false,
-            },
-            curves: vec![AccuracyCurve {
-                label: String::new(),
-                points: vec![AccuracyPoint {
-                    x: 0.0,
-                    mean: 1.0,
-                    p05: None,
-                    p95: None,
-                    ideal: None,
-                    baseline: None,
-                    target: None,
-                }],
-            }],
+        let bare = AccuracyPoint {
+            x: 0.0,
+            mean: 1.0,
+            p05: None,
+            p95: None,
+            ideal: None,
+            baseline: None,
+            target: None,
         };
+        let plot = one_curve_plot("p", "", false, vec![bare]);
         assert!(accuracy_vs_param(&plot).is_ok());
         let h = AccuracyHistogram {
             title: "h".into(),
