@@ -5,7 +5,9 @@ use std::fs;
 use std::path::{Path, PathBuf};
 
 use super::error::ReportError;
-use super::folder::{PointRow, Predicted, ResultsFolder, SweepMode, TransferCurve, TransferMeta};
+use super::folder::{
+    PointRow, Predicted, ResultsFolder, SweepMode, SweepParameter, TransferCurve, TransferMeta,
+};
 use super::format::fmt_quantity;
 use super::html;
 use super::plots::{
@@ -239,6 +241,18 @@ fn curves_for(folder: &ResultsFolder, i: usize) -> Vec<(String, Vec<&PointRow>)>
 
 /// Words for a sweep point's parameter values ("bias_current = 10 nA, bits = 6").
 pub fn point_label(folder: &ResultsFolder, row: &PointRow) -> String {
+    describe_point(folder, row, |p, v| {
+        format!("{} = {}", short_name(&p.path), fmt_quantity(v, &p.unit, 4))
+    })
+}
+
+/// A sweep point's parameter values joined by ", ", each written by `item`; a sweep without
+/// parameters has one design point.
+pub(super) fn describe_point(
+    folder: &ResultsFolder,
+    row: &PointRow,
+    item: impl Fn(&SweepParameter, f64) -> String,
+) -> String {
     let params = &folder.manifest.sweep.parameters;
     if params.is_empty() {
         return "the single design point".into();
@@ -246,7 +260,7 @@ pub fn point_label(folder: &ResultsFolder, row: &PointRow) -> String {
     params
         .iter()
         .zip(&row.params)
-        .map(|(p, v)| format!("{} = {}", short_name(&p.path), fmt_quantity(*v, &p.unit, 4)))
+        .map(|(p, v)| item(p, *v))
         .collect::<Vec<_>>()
         .join(", ")
 }
