@@ -232,16 +232,9 @@ impl AxisMap {
 
     /// Linear axis over [lo, hi] (data space), padded by `pad` of the span.
     fn linear(lo: f64, hi: f64, pad: f64, labels: Labels) -> Self {
-        let (mut lo, mut hi) = (lo, hi);
-        if hi - lo <= f64::EPSILON * hi.abs().max(lo.abs()).max(1e-300) {
-            let d = if lo == 0.0 { 1.0 } else { lo.abs() * 0.1 };
-            lo -= d;
-            hi += d;
-        } else {
-            let d = (hi - lo) * pad;
-            lo -= d;
-            hi += d;
-        }
+        let flat = hi - lo <= f64::EPSILON * hi.abs().max(lo.abs()).max(1e-300);
+        let flat_d = if lo == 0.0 { 1.0 } else { lo.abs() * 0.1 };
+        let (lo, hi) = widen(lo, hi, flat, flat_d, pad);
         let (ticks, step) = nice_ticks(lo, hi, 6);
         Self {
             log: false,
@@ -256,15 +249,8 @@ impl AxisMap {
 
     /// Log axis over [lo, hi] (data space, both > 0), padded by `pad` of the span in decades.
     fn logarithmic(lo: f64, hi: f64, pad: f64, labels: Labels) -> Self {
-        let (mut a, mut b) = (lo.log10(), hi.log10());
-        if b - a < 1e-9 {
-            a -= 0.5;
-            b += 0.5;
-        } else {
-            let d = (b - a) * pad;
-            a -= d;
-            b += d;
-        }
+        let (a, b) = (lo.log10(), hi.log10());
+        let (a, b) = widen(a, b, b - a < 1e-9, 0.5, pad);
         let (ticks, minor) = log_ticks(a, b);
         Self {
             log: true,
@@ -290,6 +276,13 @@ impl AxisMap {
             minor: self.minor.clone(),
         }
     }
+}
+
+/// [lo, hi] widened on both sides: by `flat_d` when the range is `flat` (a single value), else
+/// by `pad` of its span.
+fn widen(lo: f64, hi: f64, flat: bool, flat_d: f64, pad: f64) -> (f64, f64) {
+    let d = if flat { flat_d } else { (hi - lo) * pad };
+    (lo - d, hi + d)
 }
 
 /// A linear plotters coordinate over [lo, hi] whose key points are our own ticks (bold lines
