@@ -143,24 +143,13 @@ pub const CHIP_COLUMNS: [&str; 8] = [
 /// Columns of `confusion.csv`.
 pub const CONFUSION_COLUMNS: [&str; 4] = ["point", "true_class", "predicted_class", "count"];
 
-/// Columns whose values are shares in [0, 1] (points.csv and chips.csv).
-const FRACTION_COLUMNS: [&str; 15] = [
-    "acc_mean",
-    "acc_std",
-    "acc_p05",
-    "acc_p50",
-    "acc_p95",
-    "ideal_acc",
-    "baseline_acc",
-    "target",
-    "yield",
-    "yield_lo",
-    "yield_hi",
-    "agreement_mean",
-    "ambiguous_frac",
-    "accuracy",
-    "agreement",
-];
+/// Whether a column of points.csv or chips.csv holds shares in [0, 1]: the statistics from
+/// `acc_mean` to `ambiguous_frac` in points.csv, `accuracy` and `agreement` in chips.csv.
+fn is_fraction_column(name: &str) -> bool {
+    let share_stats = POINT_STAT_COLUMNS.get(2..15).unwrap_or_default();
+    let share_chips = CHIP_COLUMNS.get(1..3).unwrap_or_default();
+    share_stats.contains(&name) || share_chips.contains(&name)
+}
 
 /// One row of `points.csv`: population statistics of one sweep point.
 #[derive(Debug, Clone, PartialEq)]
@@ -336,6 +325,16 @@ impl ResultsFolder {
     }
 }
 
+/// A JSON file that does not parse, with the place of the problem.
+fn json_error(path: &Path, e: serde_json::Error) -> ReportError {
+    ReportError::ManifestJson {
+        path: path.to_path_buf(),
+        line: e.line(),
+        column: e.column(),
+        message: e.to_string(),
+    }
+}
+
 fn read_required(path: &Path, what: &'static str) -> Result<String, ReportError> {
     match fs::read_to_string(path) {
         Ok(t) => Ok(t),
@@ -352,12 +351,7 @@ fn read_required(path: &Path, what: &'static str) -> Result<String, ReportError>
 
 /// Parse and check `manifest.json` text (`path` is for messages).
 pub fn parse_manifest(text: &str, path: &Path) -> Result<Manifest, ReportError> {
-    let json_err = |e: serde_json::Error| ReportError::ManifestJson {
-        path: path.to_path_buf(),
-        line: e.line(),
-        column: e.column(),
-        message: e.to_string(),
-    };
+    let json_err = |e| json_error(path, e);
     // Look at the format and its version before the typed parse, so a folder from another
     // format version says so instead of complaining about a missing key.
     let value: serde_json::Value = serde_json::from_str(text).map_err(json_err)?;
@@ -468,7 +462,10 @@ pub fn parse_manifest(text: &str, path: &Path) -> Result<Manifest, ReportError> 
 }
 
 /// A CSV file's header and its records, each with its line number.
-type CsvTable = (Vec<String>, Vec<(u64, Vec<String>)>);
+type CsvTable = (Vec<String>, Vec<Record>);
+
+/// One CSV record with its line number.
+type Record = (u64, Vec<String>);
 
 /// Read a CSV text into its header and records, with the line of each record.
 fn read_csv(text: &str, path: &Path) -> Result<CsvTable, ReportError> {
@@ -516,10 +513,39 @@ fn read_csv(text: &str, path: &Path) -> Result<CsvTable, ReportError> {
 /// Column lookup for one CSV file.
 struct Columns<'a> {
     path: &'a Path,
-    header: &'a [String],
+    header: Vec<String>,
 }
 
 impl<'a> Columns<'a> {
+    /// Read a CSV text (`path` is for messages): its columns and its records.
+    fn read(text: &str, path: &'a Path) -> Result<(Self, Vec<Record>), ReportError> {
+        let (header, records) = read_csv(text, path)?;
+        Ok((Self { path, header }, records))
+    }
+
+    /// The `point` column and the sweep-parameter columns (in manifest order).
+    fn point_and_params(&self, manifest: &Manifest) -> Result<(usize, Vec<usize>), ReportError> {
+        let point_col = self.find("point", "the sweep point index, first column")?;
+        Ok((point_col, param_columns(self, manifest)?))
+    }
+
+    /// Every column of `names`, by name.
+    fn find_all(
+        &self,
+        names: &[&'static str],
+        hint: &str,
+    ) -> Result<BTreeMap<&'static str, usize>, ReportError> {
+        names
+            .iter()
+            .map(|&name| Ok((name, self.find(name, hint)?)))
+            .collect()
+    }
+
+    /// The numbers in columns `cols` of a record, all required.
+    fn req_all(&self, row: &[String], line: u64, cols: &[usize]) -> Result<Vec<f64>, ReportError> {
+        cols.iter().map(|&c| self.req_f64(row, line, c)).collect()
+    }
+
     fn find(&self, name: &str, hint: &str) -> Result<usize, ReportError> {
         self.header
             .iter()
@@ -564,7 +590,7 @@ impl<'a> Columns<'a> {
             return Err(self.cell_err(line, col, format!("`{raw}` is not a finite number")));
         }
         let name = self.header.get(col).map(String::as_str).unwrap_or("");
-        if FRACTION_COLUMNS.contains(&name) && !(0.0..=1.0).contains(&v) {
+        if is_fraction_column(name) && !(0.0..=1.0).contains(&v) {
             return Err(self.cell_err(
                 line,
                 col,
@@ -613,17 +639,9 @@ pub fn parse_points(
     path: &Path,
     manifest: &Manifest,
 ) -> Result<PointsTable, ReportError> {
-    let (header, records) = read_csv(text, path)?;
-    let cols = Columns {
-        path,
-        header: &header,
-    };
-    let point_col = cols.find("point", "the sweep point index, first column")?;
-    let pcols = param_columns(&cols, manifest)?;
-    let mut stat = BTreeMap::new();
-    for name in POINT_STAT_COLUMNS {
-        stat.insert(name, cols.find(name, "population statistics column")?);
-    }
+    let (cols, records) = Columns::read(text, path)?;
+    let (point_col, pcols) = cols.point_and_params(manifest)?;
+    let stat = cols.find_all(&POINT_STAT_COLUMNS, "population statistics column")?;
     let mut rows: Vec<PointRow> = Vec::with_capacity(records.len());
     let mut seen = BTreeMap::new();
     for (line, rec) in &records {
@@ -636,14 +654,11 @@ pub fn parse_points(
                 message: format!("sweep point {point} appears again (first on line {prev})"),
             });
         }
-        let mut cells = Vec::with_capacity(header.len());
-        for c in 0..header.len() {
+        let mut cells = Vec::with_capacity(cols.header.len());
+        for c in 0..cols.header.len() {
             cells.push(cols.opt_f64(rec, line, c)?);
         }
-        let params = pcols
-            .iter()
-            .map(|&c| cols.req_f64(rec, line, c))
-            .collect::<Result<Vec<_>, _>>()?;
+        let params = cols.req_all(rec, line, &pcols)?;
         let get = |name: &str| -> Option<f64> {
             stat.get(name)
                 .and_then(|&c| cells.get(c).copied().flatten())
@@ -677,7 +692,7 @@ pub fn parse_points(
     }
     rows.sort_by_key(|r| r.point);
     Ok(PointsTable {
-        columns: header,
+        columns: cols.header,
         rows,
     })
 }
@@ -688,17 +703,9 @@ pub fn parse_chips(
     path: &Path,
     manifest: &Manifest,
 ) -> Result<Vec<ChipRow>, ReportError> {
-    let (header, records) = read_csv(text, path)?;
-    let cols = Columns {
-        path,
-        header: &header,
-    };
-    let point_col = cols.find("point", "the sweep point index, first column")?;
-    let pcols = param_columns(&cols, manifest)?;
-    let mut c = BTreeMap::new();
-    for name in CHIP_COLUMNS {
-        c.insert(name, cols.find(name, "per-chip column")?);
-    }
+    let (cols, records) = Columns::read(text, path)?;
+    let (point_col, pcols) = cols.point_and_params(manifest)?;
+    let c = cols.find_all(&CHIP_COLUMNS, "per-chip column")?;
     let col = |name: &str| c.get(name).copied().unwrap_or(0);
     let mut out = Vec::with_capacity(records.len());
     for (line, rec) in &records {
@@ -706,10 +713,7 @@ pub fn parse_chips(
         out.push(ChipRow {
             line,
             point: cols.req_u64(rec, line, point_col)?,
-            params: pcols
-                .iter()
-                .map(|&pc| cols.req_f64(rec, line, pc))
-                .collect::<Result<Vec<_>, _>>()?,
+            params: cols.req_all(rec, line, &pcols)?,
             chip: cols.req_u64(rec, line, col("chip"))?,
             accuracy: cols.opt_f64(rec, line, col("accuracy"))?,
             agreement: cols.opt_f64(rec, line, col("agreement"))?,
@@ -737,11 +741,7 @@ pub fn parse_confusion(
     path: &Path,
     manifest: &Manifest,
 ) -> Result<Vec<ConfusionRow>, ReportError> {
-    let (header, records) = read_csv(text, path)?;
-    let cols = Columns {
-        path,
-        header: &header,
-    };
+    let (cols, records) = Columns::read(text, path)?;
     let hint = "confusion counts column";
     let pc = cols.find(CONFUSION_COLUMNS[0], hint)?;
     let tc = cols.find(CONFUSION_COLUMNS[1], hint)?;
@@ -787,13 +787,9 @@ pub fn parse_confusion(
 impl TransferCurve {
     /// Parse a transfer-curve CSV (`x, out_0..out_{N-1}, share_0..share_{N-1}`).
     pub fn parse(text: &str, path: &Path) -> Result<Self, ReportError> {
-        let (header, records) = read_csv(text, path)?;
-        let cols = Columns {
-            path,
-            header: &header,
-        };
+        let (cols, records) = Columns::read(text, path)?;
         let xc = cols.find("x", "the swept quantity, first column")?;
-        let n = header.iter().filter(|h| h.starts_with("out_")).count();
+        let n = cols.header.iter().filter(|h| h.starts_with("out_")).count();
         if n == 0 {
             return Err(ReportError::MissingColumn {
                 path: path.to_path_buf(),
@@ -867,12 +863,7 @@ fn read_transfers(dir: &Path) -> Result<Vec<NamedTransfer>, ReportError> {
         let meta_path = csv_path.with_extension("json");
         let meta = if meta_path.is_file() {
             let text = read_required(&meta_path, "the transfer curve's axis label")?;
-            serde_json::from_str(&text).map_err(|e| ReportError::ManifestJson {
-                path: meta_path.clone(),
-                line: e.line(),
-                column: e.column(),
-                message: e.to_string(),
-            })?
+            serde_json::from_str(&text).map_err(|e| json_error(&meta_path, e))?
         } else {
             TransferMeta {
                 x_label: "x".into(),
@@ -882,4 +873,34 @@ fn read_transfers(dir: &Path) -> Result<Vec<NamedTransfer>, ReportError> {
         out.push(NamedTransfer { name, meta, curve });
     }
     Ok(out)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// The share columns are picked from the schema arrays by position; this pins them by name
+    /// (results-folder schema in DEVELOPERS.md): every column of points.csv and chips.csv is a
+    /// share in [0, 1] except the counts (chips, samples, chip, ambiguous and non-converged
+    /// decisions), times and energies.
+    #[test]
+    fn fraction_columns_are_the_shares_of_the_schema() {
+        let not_shares = [
+            "chips",
+            "samples",
+            "nonconverged",
+            "decision_time_mean_s",
+            "energy_mean_j",
+            "chip",
+            "ambiguous",
+        ];
+        for name in POINT_STAT_COLUMNS.iter().chain(&CHIP_COLUMNS) {
+            assert_eq!(
+                is_fraction_column(name),
+                !not_shares.contains(name),
+                "{name}"
+            );
+        }
+        assert!(!is_fraction_column("point"));
+    }
 }

@@ -11,7 +11,7 @@ use std::fmt::Write as _;
 
 use super::folder::{PointRow, ResultsFolder, RunStatus, SweepMode};
 use super::format::{esc, fmt_duration, fmt_kind, fmt_unix_utc, raw_value, NumberKind};
-use super::render::{point_label, short_name, Figure};
+use super::render::{describe_point, point_label, short_name, Figure};
 
 /// The caution every report carries (DEVELOPERS.md model notes section 8).
 pub const CAUTION: &str = "hardmax gives architecture-stage estimates from compact models and \
@@ -126,8 +126,13 @@ fn num(v: Option<f64>, kind: &NumberKind, src: Src) -> String {
 
 /// A traceable integer from the manifest.
 fn manifest_int(v: u64, key: &str) -> String {
+    manifest_num("count", key, &v.to_string(), &v.to_string())
+}
+
+/// A traceable manifest value: `raw` is the exact value, `shown` its HTML text.
+fn manifest_num(kind: &str, key: &str, raw: &str, shown: &str) -> String {
     format!(
-        r#"<span class="num"{} data-kind="count" data-value="{v}">{v}</span>"#,
+        r#"<span class="num"{} data-kind="{kind}" data-value="{raw}">{shown}</span>"#,
         src_attrs(Src::Manifest(key))
     )
 }
@@ -176,29 +181,20 @@ fn column_kind(folder: &ResultsFolder, col: &str) -> (NumberKind, String) {
 
 /// A point's parameter values as traceable numbers ("bias_current = 10 nA, bits = 6").
 fn point_params_html(folder: &ResultsFolder, row: &PointRow) -> String {
-    let params = &folder.manifest.sweep.parameters;
-    if params.is_empty() {
-        return "the single design point".into();
-    }
-    params
-        .iter()
-        .zip(&row.params)
-        .map(|(p, v)| {
-            format!(
-                "<code>{}</code> = {}",
-                esc(short_name(&p.path)),
-                num(
-                    Some(*v),
-                    &NumberKind::Si(p.unit.clone()),
-                    Src::Point {
-                        point: row.point,
-                        col: &p.path
-                    }
-                )
+    describe_point(folder, row, |p, v| {
+        format!(
+            "<code>{}</code> = {}",
+            esc(short_name(&p.path)),
+            num(
+                Some(v),
+                &NumberKind::Si(p.unit.clone()),
+                Src::Point {
+                    point: row.point,
+                    col: &p.path
+                }
             )
-        })
-        .collect::<Vec<_>>()
-        .join(", ")
+        )
+    })
 }
 
 fn headline_card(folder: &ResultsFolder, title: &str, row: &PointRow) -> String {
@@ -514,20 +510,20 @@ fn provenance(folder: &ResultsFolder) -> String {
     );
     item(
         "started",
-        format!(
-            r#"<span class="num"{} data-kind="date" data-value="{}">{}</span>"#,
-            src_attrs(Src::Manifest("started_unix_s")),
-            raw_value(m.started_unix_s),
-            esc(&fmt_unix_utc(m.started_unix_s))
+        manifest_num(
+            "date",
+            "started_unix_s",
+            &raw_value(m.started_unix_s),
+            &esc(&fmt_unix_utc(m.started_unix_s)),
         ),
     );
     item(
         "elapsed",
-        format!(
-            r#"<span class="num"{} data-kind="duration" data-value="{}">{}</span>"#,
-            src_attrs(Src::Manifest("elapsed_s")),
-            raw_value(m.elapsed_s),
-            esc(&fmt_duration(m.elapsed_s))
+        manifest_num(
+            "duration",
+            "elapsed_s",
+            &raw_value(m.elapsed_s),
+            &esc(&fmt_duration(m.elapsed_s)),
         ),
     );
     item(

@@ -232,16 +232,9 @@ impl AxisMap {
 
     /// Linear axis over [lo, hi] (data space), padded by `pad` of the span.
     fn linear(lo: f64, hi: f64, pad: f64, labels: Labels) -> Self {
-        let (mut lo, mut hi) = (lo, hi);
-        if hi - lo <= f64::EPSILON * hi.abs().max(lo.abs()).max(1e-300) {
-            let d = if lo == 0.0 { 1.0 } else { lo.abs() * 0.1 };
-            lo -= d;
-            hi += d;
-        } else {
-            let d = (hi - lo) * pad;
-            lo -= d;
-            hi += d;
-        }
+        let flat = hi - lo <= f64::EPSILON * hi.abs().max(lo.abs()).max(1e-300);
+        let flat_d = if lo == 0.0 { 1.0 } else { lo.abs() * 0.1 };
+        let (lo, hi) = widen(lo, hi, flat, flat_d, pad);
         let (ticks, step) = nice_ticks(lo, hi, 6);
         Self {
             log: false,
@@ -256,15 +249,8 @@ impl AxisMap {
 
     /// Log axis over [lo, hi] (data space, both > 0), padded by `pad` of the span in decades.
     fn logarithmic(lo: f64, hi: f64, pad: f64, labels: Labels) -> Self {
-        let (mut a, mut b) = (lo.log10(), hi.log10());
-        if b - a < 1e-9 {
-            a -= 0.5;
-            b += 0.5;
-        } else {
-            let d = (b - a) * pad;
-            a -= d;
-            b += d;
-        }
+        let (a, b) = (lo.log10(), hi.log10());
+        let (a, b) = widen(a, b, b - a < 1e-9, 0.5, pad);
         let (ticks, minor) = log_ticks(a, b);
         Self {
             log: true,
@@ -277,6 +263,11 @@ impl AxisMap {
         }
     }
 
+    /// Whether a data value can be placed on this axis (finite, and > 0 on a log axis).
+    fn usable(&self, v: f64) -> bool {
+        v.is_finite() && (!self.log || v > 0.0)
+    }
+
     fn coord(&self) -> TickedCoord {
         TickedCoord {
             lo: self.lo,
@@ -285,6 +276,13 @@ impl AxisMap {
             minor: self.minor.clone(),
         }
     }
+}
+
+/// [lo, hi] widened on both sides: by `flat_d` when the range is `flat` (a single value), else
+/// by `pad` of its span.
+fn widen(lo: f64, hi: f64, flat: bool, flat_d: f64, pad: f64) -> (f64, f64) {
+    let d = if flat { flat_d } else { (hi - lo) * pad };
+    (lo - d, hi + d)
 }
 
 /// A linear plotters coordinate over [lo, hi] whose key points are our own ticks (bold lines
@@ -422,6 +420,16 @@ fn param_axis(axis: &ParamAxis, xs: &[f64]) -> AxisMap {
     }
 }
 
+/// The parameter axis of a plot over all points of its curves (`x_of` gives a point's value).
+fn curves_axis<'a, P: 'a>(
+    axis: &ParamAxis,
+    points: impl Iterator<Item = &'a P>,
+    x_of: impl Fn(&P) -> f64,
+) -> AxisMap {
+    let xs: Vec<f64> = points.map(x_of).collect();
+    param_axis(axis, &xs)
+}
+
 /// A y axis for shares: from a little below the lowest value to just above the highest,
 /// clipped to [0, 1] with a small margin so lines at 100 % stay visible.
 fn share_axis(values: &[f64]) -> AxisMap {
@@ -437,6 +445,24 @@ fn share_axis(values: &[f64]) -> AxisMap {
     a.hi = (hi + 0.012).min(1.012);
     a.lo = (lo - 0.005).max(-0.012);
     a.ticks.retain(|t| (-1e-9..=1.0 + 1e-9).contains(t));
+    a
+}
+
+/// A y axis with ticks for shares over all of [0, 1], shown from `lo` to `hi`.
+fn full_share_axis(lo: f64, hi: f64) -> AxisMap {
+    let mut a = AxisMap::linear(0.0, 1.0, 0.0, Labels::Percent);
+    a.lo = lo;
+    a.hi = hi;
+    a
+}
+
+/// A y axis for histogram counts: from 0 to a little above the largest count, whole-number
+/// ticks only.
+fn count_axis(counts: &[u64]) -> AxisMap {
+    let cmax = counts.iter().copied().max().unwrap_or(1).max(1) as f64;
+    let mut a = AxisMap::linear(0.0, cmax * 1.08, 0.0, Labels::Count);
+    a.lo = 0.0;
+    a.ticks.retain(|t| t.fract() == 0.0);
     a
 }
 
@@ -593,7 +619,7 @@ fn build_chart<'a, 'b>(
 fn reference_points(refs: &[(f64, f64)], x: &AxisMap) -> Vec<(f64, f64)> {
     let pts: Vec<(f64, f64)> = refs
         .iter()
-        .filter(|(a, b)| a.is_finite() && b.is_finite() && (!x.log || *a > 0.0))
+        .filter(|(a, b)| x.usable(*a) && b.is_finite())
         .map(|(a, b)| (x.fwd(*a), *b))
         .collect();
     let Some(first) = pts.first() else {
@@ -612,6 +638,84 @@ fn finish(root: Area) -> Result<(), String> {
     root.present().map_err(|e| e.to_string())
 }
 
+/// Draw one figure into a fresh SVG string; a drawing error names the figure.
+fn render_svg(
+    name: &str,
+    draw: impl FnOnce(&mut String) -> Result<(), String>,
+) -> Result<String, ReportError> {
+    let mut buf = String::new();
+    draw(&mut buf).map_err(perr(name))?;
+    Ok(buf)
+}
+
+/// The common frame of a chart figure: white page, chart with our axes on the left, legend on
+/// the right. `draw` plots the series and collects the legend entries, drawn after it.
+fn framed_chart(
+    buf: &mut String,
+    title: &str,
+    x: &AxisMap,
+    y: &AxisMap,
+    x_desc: &str,
+    y_desc: &str,
+    draw: impl FnOnce(&mut Chart, &mut Vec<(Key, String)>) -> Result<(), String>,
+) -> Result<(), String> {
+    let root = SVGBackend::with_string(buf, (WIDTH, HEIGHT)).into_drawing_area();
+    root.fill(&WHITE).map_err(|e| e.to_string())?;
+    let (left, legend) = root.split_horizontally(WIDTH - LEGEND_WIDTH);
+    let mut chart = build_chart(&left, title, x, y, x_desc, y_desc)?;
+    let mut keys = Vec::new();
+    draw(&mut chart, &mut keys)?;
+    draw_legend(&legend, &keys)?;
+    finish(root)
+}
+
+/// A filled circle of `size` pixels at every point.
+fn draw_markers(
+    chart: &mut Chart,
+    pts: &[(f64, f64)],
+    size: i32,
+    col: RGBColor,
+) -> Result<(), String> {
+    chart
+        .draw_series(pts.iter().map(|&p| Circle::new(p, size, col.filled())))
+        .map(|_| ())
+        .map_err(|e| e.to_string())
+}
+
+/// Legend text of a curve: its label, or `single` when the plot has one unlabelled curve.
+fn curve_label(label: &str, single: &str) -> String {
+    if label.is_empty() {
+        single.to_string()
+    } else {
+        label.to_string()
+    }
+}
+
+/// Histogram bars: bin `k` covers [lo + k width, lo + (k + 1) width); `edges` gives a bar's
+/// left and right edge from the bin's left edge. Empty bins are not drawn.
+fn draw_bars(
+    chart: &mut Chart,
+    counts: &[u64],
+    lo: f64,
+    width: f64,
+    col: RGBColor,
+    edges: impl Fn(f64) -> (f64, f64),
+) -> Result<(), String> {
+    chart
+        .draw_series(
+            counts
+                .iter()
+                .enumerate()
+                .filter(|(_, c)| **c > 0)
+                .map(|(k, c)| {
+                    let (a, b) = edges(lo + width * k as f64);
+                    Rectangle::new([(a, 0.0), (b, *c as f64)], col.mix(0.75).filled())
+                }),
+        )
+        .map(|_| ())
+        .map_err(|e| e.to_string())
+}
+
 // ---------------------------------------------------------------------------------------------
 // Figures
 
@@ -619,18 +723,15 @@ fn finish(root: Area) -> Result<(), String> {
 /// argmax (dashed), linfa baseline (dotted) and the target (red).
 pub fn accuracy_vs_param(plot: &AccuracyPlot) -> Result<String, ReportError> {
     let name = format!("accuracy vs {}", plot.axis.label);
-    let mut buf = String::new();
-    draw_accuracy(plot, &mut buf).map_err(perr(&name))?;
-    Ok(buf)
+    render_svg(&name, |buf| draw_accuracy(plot, buf))
 }
 
 fn draw_accuracy(plot: &AccuracyPlot, buf: &mut String) -> Result<(), String> {
-    let xs: Vec<f64> = plot
-        .curves
-        .iter()
-        .flat_map(|c| c.points.iter().map(|p| p.x))
-        .collect();
-    let x = param_axis(&plot.axis, &xs);
+    let x = curves_axis(
+        &plot.axis,
+        plot.curves.iter().flat_map(|c| &c.points),
+        |p| p.x,
+    );
     let mut ys: Vec<f64> = Vec::new();
     for c in &plot.curves {
         for p in &c.points {
@@ -644,222 +745,196 @@ fn draw_accuracy(plot: &AccuracyPlot, buf: &mut String) -> Result<(), String> {
     }
     let y = share_axis(&ys);
 
-    let root = SVGBackend::with_string(buf, (WIDTH, HEIGHT)).into_drawing_area();
-    root.fill(&WHITE).map_err(|e| e.to_string())?;
-    let (left, legend) = root.split_horizontally(WIDTH - LEGEND_WIDTH);
-    let mut chart = build_chart(
-        &left,
+    framed_chart(
+        buf,
         &plot.title,
         &x,
         &y,
         &axis_title(&plot.axis.label, &plot.axis.unit),
         "test accuracy",
-    )?;
-    let mut keys = Vec::new();
-    let usable = |p: &AccuracyPoint| p.x.is_finite() && (!x.log || p.x > 0.0);
-    for (i, c) in plot.curves.iter().enumerate() {
-        let col = color(i);
-        let mut pts: Vec<AccuracyPoint> = c.points.iter().copied().filter(usable).collect();
-        pts.sort_by(|a, b| a.x.total_cmp(&b.x));
-        let band: Vec<(f64, f64, f64)> = pts
-            .iter()
-            .filter_map(|p| Some((x.fwd(p.x), p.p05?, p.p95?)))
-            .collect();
-        if band.len() >= 2 {
-            let poly: Vec<(f64, f64)> = band
-                .iter()
-                .map(|b| (b.0, b.2))
-                .chain(band.iter().rev().map(|b| (b.0, b.1)))
-                .collect();
-            chart
-                .draw_series(std::iter::once(Polygon::new(poly, col.mix(0.18).filled())))
-                .map_err(|e| e.to_string())?;
-        } else {
-            for b in &band {
-                chart
-                    .draw_series(std::iter::once(PathElement::new(
-                        vec![(b.0, b.1), (b.0, b.2)],
-                        col.mix(0.5).stroke_width(6),
-                    )))
-                    .map_err(|e| e.to_string())?;
-            }
-        }
-        let line: Vec<(f64, f64)> = pts.iter().map(|p| (x.fwd(p.x), p.mean)).collect();
-        chart
-            .draw_series(LineSeries::new(line.clone(), col.stroke_width(2)))
-            .map_err(|e| e.to_string())?;
-        chart
-            .draw_series(line.iter().map(|&p| Circle::new(p, 3, col.filled())))
-            .map_err(|e| e.to_string())?;
-        let label = if c.label.is_empty() {
-            "mean over chips".to_string()
-        } else {
-            c.label.clone()
-        };
-        keys.push((Key::Line(col, 2, Dash::Solid), label));
-    }
-    if plot
-        .curves
-        .iter()
-        .any(|c| c.points.iter().any(|p| p.p05.is_some()))
-    {
-        keys.push((Key::Band(color(0)), "5–95 % of chips".to_string()));
-    }
-    type Pick = fn(&AccuracyPoint) -> Option<f64>;
-    let refs: [(Pick, RGBColor, Dash, &str); 3] = [
-        (|p| p.ideal, IDEAL, Dash::Dashed, "ideal argmax"),
-        (|p| p.baseline, BASELINE, Dash::Dotted, "linfa baseline"),
-        (|p| p.target, TARGET, Dash::Solid, "target"),
-    ];
-    for (pick, col, dash, name) in refs {
-        let all: Vec<f64> = plot
-            .curves
-            .iter()
-            .flat_map(|c| c.points.iter().filter_map(pick))
-            .collect();
-        let Some(first) = all.first().copied() else {
-            continue;
-        };
-        let lines: Vec<(RGBColor, Vec<(f64, f64)>)> =
-            if all.iter().all(|v| (v - first).abs() < 1e-12) {
-                vec![(col, vec![(x.lo, first), (x.hi, first)])]
-            } else {
-                plot.curves
+        |chart, keys| {
+            for (i, c) in plot.curves.iter().enumerate() {
+                let col = color(i);
+                let mut pts: Vec<AccuracyPoint> =
+                    c.points.iter().copied().filter(|p| x.usable(p.x)).collect();
+                pts.sort_by(|a, b| a.x.total_cmp(&b.x));
+                let band: Vec<(f64, f64, f64)> = pts
                     .iter()
-                    .enumerate()
-                    .map(|(i, c)| {
-                        let pts: Vec<(f64, f64)> = c
-                            .points
-                            .iter()
-                            .filter(|p| usable(p))
-                            .filter_map(|p| Some((p.x, pick(p)?)))
-                            .collect();
-                        (
-                            if name == "target" { TARGET } else { color(i) },
-                            reference_points(&pts, &x),
-                        )
-                    })
-                    .collect()
-            };
-        // Curves that share the same reference line (e.g. ideal argmax depends only on the
-        // x parameter) get it drawn once, in the reference colour.
-        let same = lines.windows(2).all(|w| match w {
-            [a, b] => {
-                a.1.len() == b.1.len()
-                    && a.1
+                    .filter_map(|p| Some((x.fwd(p.x), p.p05?, p.p95?)))
+                    .collect();
+                if band.len() >= 2 {
+                    let poly: Vec<(f64, f64)> = band
                         .iter()
-                        .zip(&b.1)
-                        .all(|(p, q)| (p.0 - q.0).abs() < 1e-12 && (p.1 - q.1).abs() < 1e-12)
+                        .map(|b| (b.0, b.2))
+                        .chain(band.iter().rev().map(|b| (b.0, b.1)))
+                        .collect();
+                    chart
+                        .draw_series(std::iter::once(Polygon::new(poly, col.mix(0.18).filled())))
+                        .map_err(|e| e.to_string())?;
+                } else {
+                    for b in &band {
+                        chart
+                            .draw_series(std::iter::once(PathElement::new(
+                                vec![(b.0, b.1), (b.0, b.2)],
+                                col.mix(0.5).stroke_width(6),
+                            )))
+                            .map_err(|e| e.to_string())?;
+                    }
+                }
+                let line: Vec<(f64, f64)> = pts.iter().map(|p| (x.fwd(p.x), p.mean)).collect();
+                chart
+                    .draw_series(LineSeries::new(line.clone(), col.stroke_width(2)))
+                    .map_err(|e| e.to_string())?;
+                draw_markers(chart, &line, 3, col)?;
+                keys.push((
+                    Key::Line(col, 2, Dash::Solid),
+                    curve_label(&c.label, "mean over chips"),
+                ));
             }
-            _ => true,
-        });
-        let lines = if same {
-            lines
-                .into_iter()
-                .take(1)
-                .map(|(_, pts)| (col, pts))
-                .collect()
-        } else {
-            lines
-        };
-        for (c, pts) in &lines {
-            draw_styled(&mut chart, pts.clone(), *c, dash)?;
-        }
-        let label = if lines.len() > 1 && name != "target" {
-            format!("{name} (per curve)")
-        } else {
-            name.to_string()
-        };
-        keys.push((Key::Line(col, dash.width(), dash), label));
-    }
-    draw_legend(&legend, &keys)?;
-    finish(root)
+            if plot
+                .curves
+                .iter()
+                .any(|c| c.points.iter().any(|p| p.p05.is_some()))
+            {
+                keys.push((Key::Band(color(0)), "5–95 % of chips".to_string()));
+            }
+            type Pick = fn(&AccuracyPoint) -> Option<f64>;
+            let refs: [(Pick, RGBColor, Dash, &str); 3] = [
+                (|p| p.ideal, IDEAL, Dash::Dashed, "ideal argmax"),
+                (|p| p.baseline, BASELINE, Dash::Dotted, "linfa baseline"),
+                (|p| p.target, TARGET, Dash::Solid, "target"),
+            ];
+            for (pick, col, dash, name) in refs {
+                let all: Vec<f64> = plot
+                    .curves
+                    .iter()
+                    .flat_map(|c| c.points.iter().filter_map(pick))
+                    .collect();
+                let Some(first) = all.first().copied() else {
+                    continue;
+                };
+                let lines: Vec<(RGBColor, Vec<(f64, f64)>)> =
+                    if all.iter().all(|v| (v - first).abs() < 1e-12) {
+                        vec![(col, vec![(x.lo, first), (x.hi, first)])]
+                    } else {
+                        plot.curves
+                            .iter()
+                            .enumerate()
+                            .map(|(i, c)| {
+                                let pts: Vec<(f64, f64)> = c
+                                    .points
+                                    .iter()
+                                    .filter(|p| x.usable(p.x))
+                                    .filter_map(|p| Some((p.x, pick(p)?)))
+                                    .collect();
+                                (
+                                    if name == "target" { TARGET } else { color(i) },
+                                    reference_points(&pts, &x),
+                                )
+                            })
+                            .collect()
+                    };
+                // Curves that share the same reference line (e.g. ideal argmax depends only on the
+                // x parameter) get it drawn once, in the reference colour.
+                let same = lines.windows(2).all(|w| match w {
+                    [a, b] => {
+                        a.1.len() == b.1.len()
+                            && a.1.iter().zip(&b.1).all(|(p, q)| {
+                                (p.0 - q.0).abs() < 1e-12 && (p.1 - q.1).abs() < 1e-12
+                            })
+                    }
+                    _ => true,
+                });
+                let lines = if same {
+                    lines
+                        .into_iter()
+                        .take(1)
+                        .map(|(_, pts)| (col, pts))
+                        .collect()
+                } else {
+                    lines
+                };
+                for (c, pts) in &lines {
+                    draw_styled(chart, pts.clone(), *c, dash)?;
+                }
+                let label = if lines.len() > 1 && name != "target" {
+                    format!("{name} (per curve)")
+                } else {
+                    name.to_string()
+                };
+                keys.push((Key::Line(col, dash.width(), dash), label));
+            }
+            Ok(())
+        },
+    )
 }
 
 /// Yield versus a swept parameter, with Wilson score interval error bars.
 pub fn yield_vs_param(plot: &YieldPlot) -> Result<String, ReportError> {
     let name = format!("yield vs {}", plot.axis.label);
-    let mut buf = String::new();
-    draw_yield(plot, &mut buf).map_err(perr(&name))?;
-    Ok(buf)
+    render_svg(&name, |buf| draw_yield(plot, buf))
 }
 
 fn draw_yield(plot: &YieldPlot, buf: &mut String) -> Result<(), String> {
-    let xs: Vec<f64> = plot
-        .curves
-        .iter()
-        .flat_map(|c| c.points.iter().map(|p| p.x))
-        .collect();
-    let x = param_axis(&plot.axis, &xs);
-    let y = {
-        let mut a = AxisMap::linear(0.0, 1.0, 0.0, Labels::Percent);
-        a.lo = -0.03;
-        a.hi = 1.03;
-        a
-    };
-    let root = SVGBackend::with_string(buf, (WIDTH, HEIGHT)).into_drawing_area();
-    root.fill(&WHITE).map_err(|e| e.to_string())?;
-    let (left, legend) = root.split_horizontally(WIDTH - LEGEND_WIDTH);
-    let mut chart = build_chart(
-        &left,
+    let x = curves_axis(
+        &plot.axis,
+        plot.curves.iter().flat_map(|c| &c.points),
+        |p| p.x,
+    );
+    let y = full_share_axis(-0.03, 1.03);
+    framed_chart(
+        buf,
         &plot.title,
         &x,
         &y,
         &axis_title(&plot.axis.label, &plot.axis.unit),
         "yield (chips meeting target)",
-    )?;
-    // Offset curves a little sideways (in pixels, via the x span) so error bars do not overlap.
-    let n = plot.curves.len().max(1) as f64;
-    let dx = (x.hi - x.lo) * 0.008;
-    let mut keys = Vec::new();
-    for (i, c) in plot.curves.iter().enumerate() {
-        let col = color(i);
-        let shift = (i as f64 - (n - 1.0) / 2.0) * dx;
-        let mut pts: Vec<YieldPoint> = c
-            .points
-            .iter()
-            .copied()
-            .filter(|p| p.x.is_finite() && (!x.log || p.x > 0.0))
-            .collect();
-        pts.sort_by(|a, b| a.x.total_cmp(&b.x));
-        let line: Vec<(f64, f64)> = pts
-            .iter()
-            .map(|p| (x.fwd(p.x) + shift, p.yield_frac))
-            .collect();
-        chart
-            .draw_series(LineSeries::new(line.clone(), col.mix(0.6).stroke_width(1)))
-            .map_err(|e| e.to_string())?;
-        let cap = (x.hi - x.lo) * 0.006;
-        for p in &pts {
-            if let (Some(lo), Some(hi)) = (p.lo, p.hi) {
-                let xv = x.fwd(p.x) + shift;
-                for seg in [
-                    vec![(xv, lo), (xv, hi)],
-                    vec![(xv - cap, lo), (xv + cap, lo)],
-                    vec![(xv - cap, hi), (xv + cap, hi)],
-                ] {
-                    chart
-                        .draw_series(std::iter::once(PathElement::new(seg, col.stroke_width(2))))
-                        .map_err(|e| e.to_string())?;
+        |chart, keys| {
+            // Offset curves a little sideways (in pixels, via the x span) so error bars do not
+            // overlap.
+            let n = plot.curves.len().max(1) as f64;
+            let dx = (x.hi - x.lo) * 0.008;
+            for (i, c) in plot.curves.iter().enumerate() {
+                let col = color(i);
+                let shift = (i as f64 - (n - 1.0) / 2.0) * dx;
+                let mut pts: Vec<YieldPoint> =
+                    c.points.iter().copied().filter(|p| x.usable(p.x)).collect();
+                pts.sort_by(|a, b| a.x.total_cmp(&b.x));
+                let line: Vec<(f64, f64)> = pts
+                    .iter()
+                    .map(|p| (x.fwd(p.x) + shift, p.yield_frac))
+                    .collect();
+                chart
+                    .draw_series(LineSeries::new(line.clone(), col.mix(0.6).stroke_width(1)))
+                    .map_err(|e| e.to_string())?;
+                let cap = (x.hi - x.lo) * 0.006;
+                for p in &pts {
+                    if let (Some(lo), Some(hi)) = (p.lo, p.hi) {
+                        let xv = x.fwd(p.x) + shift;
+                        for seg in [
+                            vec![(xv, lo), (xv, hi)],
+                            vec![(xv - cap, lo), (xv + cap, lo)],
+                            vec![(xv - cap, hi), (xv + cap, hi)],
+                        ] {
+                            chart
+                                .draw_series(std::iter::once(PathElement::new(
+                                    seg,
+                                    col.stroke_width(2),
+                                )))
+                                .map_err(|e| e.to_string())?;
+                        }
+                    }
                 }
+                draw_markers(chart, &line, 4, col)?;
+                keys.push((Key::Marker(col), curve_label(&c.label, "yield")));
             }
-        }
-        chart
-            .draw_series(line.iter().map(|&p| Circle::new(p, 4, col.filled())))
-            .map_err(|e| e.to_string())?;
-        let label = if c.label.is_empty() {
-            "yield".to_string()
-        } else {
-            c.label.clone()
-        };
-        keys.push((Key::Marker(col), label));
-    }
-    keys.push((
-        Key::Line(INK, 2, Dash::Solid),
-        "Wilson interval".to_string(),
-    ));
-    draw_legend(&legend, &keys)?;
-    finish(root)
+            keys.push((
+                Key::Line(INK, 2, Dash::Solid),
+                "Wilson interval".to_string(),
+            ));
+            Ok(())
+        },
+    )
 }
 
 /// Equal-width bins over [lo, hi): counts per bin (index from the value, clamped).
@@ -881,9 +956,7 @@ fn bin_counts(values: &[f64], lo: f64, width: f64, nbins: usize) -> Vec<u64> {
 
 /// Histogram of per-chip accuracies at one sweep point, with the target and ideal argmax marked.
 pub fn accuracy_histogram(h: &AccuracyHistogram) -> Result<String, ReportError> {
-    let mut buf = String::new();
-    draw_acc_hist(h, &mut buf).map_err(perr("per-chip accuracy histogram"))?;
-    Ok(buf)
+    render_svg("per-chip accuracy histogram", |buf| draw_acc_hist(h, buf))
 }
 
 fn draw_acc_hist(h: &AccuracyHistogram, buf: &mut String) -> Result<(), String> {
@@ -917,74 +990,39 @@ fn draw_acc_hist(h: &AccuracyHistogram, buf: &mut String) -> Result<(), String> 
     let (xlo, xhi) = min_max(&xr).unwrap_or((0.0, 1.0));
     let mut x = AxisMap::linear(xlo, xhi, 0.04, Labels::Percent);
     x.ticks.retain(|t| (-1e-9..=1.0 + 1e-9).contains(t));
-    let cmax = counts.iter().copied().max().unwrap_or(1).max(1) as f64;
-    let y = {
-        let mut a = AxisMap::linear(0.0, cmax * 1.08, 0.0, Labels::Count);
-        a.lo = 0.0;
-        a.ticks.retain(|t| t.fract() == 0.0);
-        a
-    };
-    let root = SVGBackend::with_string(buf, (WIDTH, HEIGHT)).into_drawing_area();
-    root.fill(&WHITE).map_err(|e| e.to_string())?;
-    let (left, legend) = root.split_horizontally(WIDTH - LEGEND_WIDTH);
-    let mut chart = build_chart(
-        &left,
+    let y = count_axis(&counts);
+    framed_chart(
+        buf,
         &h.title,
         &x,
         &y,
         "test accuracy of one chip",
         "chips",
-    )?;
-    let bar = color(0);
-    chart
-        .draw_series(
-            counts
-                .iter()
-                .enumerate()
-                .filter(|(_, c)| **c > 0)
-                .map(|(k, c)| {
-                    let x0 = lo + width * k as f64;
-                    let gap = width * 0.08;
-                    Rectangle::new(
-                        [(x0 + gap, 0.0), (x0 + width - gap, *c as f64)],
-                        bar.mix(0.75).filled(),
-                    )
-                }),
-        )
-        .map_err(|e| e.to_string())?;
-    let mut keys = vec![(Key::Bar(bar), format!("chips (n = {})", vals.len()))];
-    if let Some(t) = h.target {
-        chart
-            .draw_series(std::iter::once(PathElement::new(
-                vec![(t, 0.0), (t, y.hi)],
-                TARGET.stroke_width(2),
-            )))
-            .map_err(|e| e.to_string())?;
-        keys.push((Key::Line(TARGET, 2, Dash::Solid), "target".to_string()));
-    }
-    if let Some(t) = h.ideal {
-        chart
-            .draw_series(std::iter::once(DashedPathElement::new(
-                vec![(t, 0.0), (t, y.hi)],
-                7,
-                4,
-                IDEAL.stroke_width(1),
-            )))
-            .map_err(|e| e.to_string())?;
-        keys.push((
-            Key::Line(IDEAL, 1, Dash::Dashed),
-            "ideal argmax".to_string(),
-        ));
-    }
-    draw_legend(&legend, &keys)?;
-    finish(root)
+        |chart, keys| {
+            let bar = color(0);
+            let gap = width * 0.08;
+            draw_bars(chart, &counts, lo, width, bar, |x0| {
+                (x0 + gap, x0 + width - gap)
+            })?;
+            keys.push((Key::Bar(bar), format!("chips (n = {})", vals.len())));
+            let refs = [
+                (h.target, TARGET, Dash::Solid, "target"),
+                (h.ideal, IDEAL, Dash::Dashed, "ideal argmax"),
+            ];
+            for (value, col, dash, name) in refs {
+                if let Some(t) = value {
+                    draw_styled(chart, vec![(t, 0.0), (t, y.hi)], col, dash)?;
+                    keys.push((Key::Line(col, dash.width(), dash), name.to_string()));
+                }
+            }
+            Ok(())
+        },
+    )
 }
 
 /// Histogram of per-chip mean decision times (log-binned when they span two decades).
 pub fn decision_time_histogram(h: &DecisionTimeHistogram) -> Result<String, ReportError> {
-    let mut buf = String::new();
-    draw_time_hist(h, &mut buf).map_err(perr("decision time histogram"))?;
-    Ok(buf)
+    render_svg("decision time histogram", |buf| draw_time_hist(h, buf))
 }
 
 fn draw_time_hist(h: &DecisionTimeHistogram, buf: &mut String) -> Result<(), String> {
@@ -1012,50 +1050,28 @@ fn draw_time_hist(h: &DecisionTimeHistogram, buf: &mut String) -> Result<(), Str
     let plotted: Vec<f64> = vals.iter().map(|v| x.fwd(*v)).collect();
     // The last bin is closed so the largest value lands in it.
     let counts = bin_counts(&plotted, lo, width, nbins);
-    let cmax = counts.iter().copied().max().unwrap_or(1).max(1) as f64;
-    let y = {
-        let mut a = AxisMap::linear(0.0, cmax * 1.08, 0.0, Labels::Count);
-        a.lo = 0.0;
-        a.ticks.retain(|t| t.fract() == 0.0);
-        a
-    };
-    let root = SVGBackend::with_string(buf, (WIDTH, HEIGHT)).into_drawing_area();
-    root.fill(&WHITE).map_err(|e| e.to_string())?;
-    let (left, legend) = root.split_horizontally(WIDTH - LEGEND_WIDTH);
-    let mut chart = build_chart(
-        &left,
+    let y = count_axis(&counts);
+    framed_chart(
+        buf,
         &h.title,
         &x,
         &y,
         "mean decision time of one chip (s)",
         "chips",
-    )?;
-    let bar = color(3);
-    chart
-        .draw_series(
-            counts
-                .iter()
-                .enumerate()
-                .filter(|(_, c)| **c > 0)
-                .map(|(k, c)| {
-                    let x0 = lo + width * k as f64;
-                    Rectangle::new(
-                        [(x0 + width * 0.06, 0.0), (x0 + width * 0.94, *c as f64)],
-                        bar.mix(0.75).filled(),
-                    )
-                }),
-        )
-        .map_err(|e| e.to_string())?;
-    let keys = vec![(Key::Bar(bar), format!("chips (n = {})", vals.len()))];
-    draw_legend(&legend, &keys)?;
-    finish(root)
+        |chart, keys| {
+            let bar = color(3);
+            draw_bars(chart, &counts, lo, width, bar, |x0| {
+                (x0 + width * 0.06, x0 + width * 0.94)
+            })?;
+            keys.push((Key::Bar(bar), format!("chips (n = {})", vals.len())));
+            Ok(())
+        },
+    )
 }
 
 /// Competition-stage transfer curve: output share of every competitor versus the swept input.
 pub fn transfer_curve(t: &TransferPlot) -> Result<String, ReportError> {
-    let mut buf = String::new();
-    draw_transfer(t, &mut buf).map_err(perr("transfer curve"))?;
-    Ok(buf)
+    render_svg("transfer curve", |buf| draw_transfer(t, buf))
 }
 
 fn draw_transfer(t: &TransferPlot, buf: &mut String) -> Result<(), String> {
@@ -1066,56 +1082,49 @@ fn draw_transfer(t: &TransferPlot, buf: &mut String) -> Result<(), String> {
         log,
     };
     let x = param_axis(&axis, &t.curve.x);
-    let mut y = AxisMap::linear(0.0, 1.0, 0.0, Labels::Percent);
-    y.lo = -0.02;
-    y.hi = 1.02;
-    let root = SVGBackend::with_string(buf, (WIDTH, HEIGHT)).into_drawing_area();
-    root.fill(&WHITE).map_err(|e| e.to_string())?;
-    let (left, legend) = root.split_horizontally(WIDTH - LEGEND_WIDTH);
-    let mut chart = build_chart(
-        &left,
+    let y = full_share_axis(-0.02, 1.02);
+    framed_chart(
+        buf,
         &t.title,
         &x,
         &y,
         &axis_title(&t.x_label, &t.x_unit),
         "output share",
-    )?;
-    let mut keys = Vec::new();
-    for (k, shares) in t.curve.shares.iter().enumerate() {
-        let col = color(k);
-        let mut pts: Vec<(f64, f64)> = t
-            .curve
-            .x
-            .iter()
-            .zip(shares)
-            .filter(|(a, b)| a.is_finite() && b.is_finite() && (!x.log || **a > 0.0))
-            .map(|(a, b)| (x.fwd(*a), *b))
-            .collect();
-        pts.sort_by(|a, b| a.0.total_cmp(&b.0));
-        chart
-            .draw_series(LineSeries::new(pts, col.stroke_width(2)))
-            .map_err(|e| e.to_string())?;
-        if k < 12 {
-            keys.push((Key::Line(col, 2, Dash::Solid), format!("output {k}")));
-        }
-    }
-    if t.curve.shares.len() > 12 {
-        keys.push((
-            Key::Line(GRID, 2, Dash::Solid),
-            format!("… {} outputs", t.curve.shares.len()),
-        ));
-    }
-    draw_legend(&legend, &keys)?;
-    finish(root)
+        |chart, keys| {
+            for (k, shares) in t.curve.shares.iter().enumerate() {
+                let col = color(k);
+                let mut pts: Vec<(f64, f64)> = t
+                    .curve
+                    .x
+                    .iter()
+                    .zip(shares)
+                    .filter(|(a, b)| x.usable(**a) && b.is_finite())
+                    .map(|(a, b)| (x.fwd(*a), *b))
+                    .collect();
+                pts.sort_by(|a, b| a.0.total_cmp(&b.0));
+                chart
+                    .draw_series(LineSeries::new(pts, col.stroke_width(2)))
+                    .map_err(|e| e.to_string())?;
+                if k < 12 {
+                    keys.push((Key::Line(col, 2, Dash::Solid), format!("output {k}")));
+                }
+            }
+            if t.curve.shares.len() > 12 {
+                keys.push((
+                    Key::Line(GRID, 2, Dash::Solid),
+                    format!("… {} outputs", t.curve.shares.len()),
+                ));
+            }
+            Ok(())
+        },
+    )
 }
 
 /// Confusion matrix heatmap with counts: rows are true classes, columns the predicted class,
 /// then "ambiguous" and "non-converged". Diagonal cells are shaded in teal, errors in rust,
 /// ambiguous and non-converged decisions in plum; shade = share of the row.
 pub fn confusion_heatmap(m: &ConfusionMatrix) -> Result<String, ReportError> {
-    let mut buf = String::new();
-    draw_confusion(m, &mut buf).map_err(perr("confusion matrix"))?;
-    Ok(buf)
+    render_svg("confusion matrix", |buf| draw_confusion(m, buf))
 }
 
 fn shade(base: RGBColor, t: f64) -> RGBColor {
@@ -1287,39 +1296,47 @@ mod tests {
         assert_eq!(c, vec![2, 1, 0, 2]);
     }
 
-    #[test]
-    fn accuracy_plot_has_labels_and_ticks() {
-        let plot = AccuracyPlot {
+    /// An accuracy plot with one unlabelled curve.
+    fn one_curve_plot(
+        label: &str,
+        unit: &str,
+        log: bool,
+        points: Vec<AccuracyPoint>,
+    ) -> AccuracyPlot {
+        AccuracyPlot {
             title: "t".into(),
             axis: ParamAxis {
-                label: "stage.bias".into(),
-                unit: "A".into(),
-                log: true,
+                label: label.into(),
+                unit: unit.into(),
+                log,
             },
             curves: vec![AccuracyCurve {
                 label: String::new(),
-                points: vec![
-                    AccuracyPoint {
-                        x: 1e-9,
-                        mean: 0.8,
-                        p05: Some(0.7),
-                        p95: Some(0.9),
-                        ideal: Some(0.95),
-                        baseline: Some(0.96),
-                        target: Some(0.85),
-                    },
-                    AccuracyPoint {
-                        x: 1e-7,
-                        mean: 0.9,
-                        p05: Some(0.85),
-                        p95: Some(0.95),
-                        ideal: Some(0.95),
-                        baseline: Some(0.96),
-                        target: Some(0.85),
-                    },
-                ],
+                points,
             }],
-        };
+        }
+    }
+
+    /// A point with its 5-95 % band and the references ideal 0.95, baseline 0.96, target 0.85.
+    fn full_point(x: f64, mean: f64, p05: f64, p95: f64) -> AccuracyPoint {
+        AccuracyPoint {
+            x,
+            mean,
+            p05: Some(p05),
+            p95: Some(p95),
+            ideal: Some(0.95),
+            baseline: Some(0.96),
+            target: Some(0.85),
+        }
+    }
+
+    #[test]
+    fn accuracy_plot_has_labels_and_ticks() {
+        let points = vec![
+            full_point(1e-9, 0.8, 0.7, 0.9),
+            full_point(1e-7, 0.9, 0.85, 0.95),
+        ];
+        let plot = one_curve_plot("stage.bias", "A", true, points);
         let svg = accuracy_vs_param(&plot).unwrap();
         assert!(svg.starts_with("<svg"));
         assert!(svg.contains("stage.bias (A)"));
@@ -1330,26 +1347,16 @@ mod tests {
 
     #[test]
     fn degenerate_inputs_do_not_panic() {
-        let plot = AccuracyPlot {
-            title: "t".into(),
-            axis: ParamAxis {
-                label: "p".into(),
-                unit: String::new(),
-                log: false,
-            },
-            curves: vec![AccuracyCurve {
-                label: String::new(),
-                points: vec![AccuracyPoint {
-                    x: 0.0,
-                    mean: 1.0,
-                    p05: None,
-                    p95: None,
-                    ideal: None,
-                    baseline: None,
-                    target: None,
-                }],
-            }],
+        let bare = AccuracyPoint {
+            x: 0.0,
+            mean: 1.0,
+            p05: None,
+            p95: None,
+            ideal: None,
+            baseline: None,
+            target: None,
         };
+        let plot = one_curve_plot("p", "", false, vec![bare]);
         assert!(accuracy_vs_param(&plot).is_ok());
         let h = AccuracyHistogram {
             title: "h".into(),

@@ -5,7 +5,9 @@ use std::fs;
 use std::path::{Path, PathBuf};
 
 use super::error::ReportError;
-use super::folder::{PointRow, Predicted, ResultsFolder, SweepMode, TransferCurve, TransferMeta};
+use super::folder::{
+    PointRow, Predicted, ResultsFolder, SweepMode, SweepParameter, TransferCurve, TransferMeta,
+};
 use super::format::fmt_quantity;
 use super::html;
 use super::plots::{
@@ -185,6 +187,25 @@ pub fn short_name(path: &str) -> &str {
     path.rsplit('.').next().unwrap_or(path)
 }
 
+/// The points of each curve group against sweep parameter `i`: `point` builds one from the
+/// parameter's value and the row; a row without a needed value is left out.
+fn group_points<P>(
+    groups: &[(String, Vec<&PointRow>)],
+    i: usize,
+    point: impl Fn(f64, &PointRow) -> Option<P>,
+) -> Vec<(String, Vec<P>)> {
+    groups
+        .iter()
+        .map(|(label, rows)| {
+            let points = rows
+                .iter()
+                .filter_map(|r| point(*r.params.get(i)?, r))
+                .collect();
+            (label.clone(), points)
+        })
+        .collect()
+}
+
 /// Rows grouped into curves for a plot against parameter `i`: one curve per combination of
 /// the other parameters (grid), a single curve for zip sweeps and one-parameter sweeps.
 fn curves_for(folder: &ResultsFolder, i: usize) -> Vec<(String, Vec<&PointRow>)> {
@@ -239,6 +260,18 @@ fn curves_for(folder: &ResultsFolder, i: usize) -> Vec<(String, Vec<&PointRow>)>
 
 /// Words for a sweep point's parameter values ("bias_current = 10 nA, bits = 6").
 pub fn point_label(folder: &ResultsFolder, row: &PointRow) -> String {
+    describe_point(folder, row, |p, v| {
+        format!("{} = {}", short_name(&p.path), fmt_quantity(v, &p.unit, 4))
+    })
+}
+
+/// A sweep point's parameter values joined by ", ", each written by `item`; a sweep without
+/// parameters has one design point.
+pub(super) fn describe_point(
+    folder: &ResultsFolder,
+    row: &PointRow,
+    item: impl Fn(&SweepParameter, f64) -> String,
+) -> String {
     let params = &folder.manifest.sweep.parameters;
     if params.is_empty() {
         return "the single design point".into();
@@ -246,7 +279,7 @@ pub fn point_label(folder: &ResultsFolder, row: &PointRow) -> String {
     params
         .iter()
         .zip(&row.params)
-        .map(|(p, v)| format!("{} = {}", short_name(&p.path), fmt_quantity(*v, &p.unit, 4)))
+        .map(|(p, v)| item(p, *v))
         .collect::<Vec<_>>()
         .join(", ")
 }
@@ -277,26 +310,20 @@ pub fn build_figures(
                 log: plots::use_log_axis(&xs, Some(p.scale)),
             };
             let groups = curves_for(folder, i);
-            let curves = groups
-                .iter()
-                .map(|(label, rs)| AccuracyCurve {
-                    label: label.clone(),
-                    points: rs
-                        .iter()
-                        .filter_map(|r| {
-                            Some(AccuracyPoint {
-                                x: *r.params.get(i)?,
-                                mean: r.acc_mean?,
-                                p05: r.acc_p05,
-                                p95: r.acc_p95,
-                                ideal: r.ideal_acc,
-                                baseline: r.baseline_acc,
-                                target: r.target,
-                            })
-                        })
-                        .collect(),
+            let curves = group_points(&groups, i, |x, r| {
+                Some(AccuracyPoint {
+                    x,
+                    mean: r.acc_mean?,
+                    p05: r.acc_p05,
+                    p95: r.acc_p95,
+                    ideal: r.ideal_acc,
+                    baseline: r.baseline_acc,
+                    target: r.target,
                 })
-                .collect();
+            })
+            .into_iter()
+            .map(|(label, points)| AccuracyCurve { label, points })
+            .collect();
             let name = short_name(&p.path);
             let acc = AccuracyPlot {
                 title: format!("Accuracy vs {name}{partial_note}"),
@@ -321,23 +348,17 @@ pub fn build_figures(
                 ),
                 svg: plots::accuracy_vs_param(&acc)?,
             });
-            let ycurves = groups
-                .iter()
-                .map(|(label, rs)| YieldCurve {
-                    label: label.clone(),
-                    points: rs
-                        .iter()
-                        .filter_map(|r| {
-                            Some(YieldPoint {
-                                x: *r.params.get(i)?,
-                                yield_frac: r.yield_frac?,
-                                lo: r.yield_lo,
-                                hi: r.yield_hi,
-                            })
-                        })
-                        .collect(),
+            let ycurves = group_points(&groups, i, |x, r| {
+                Some(YieldPoint {
+                    x,
+                    yield_frac: r.yield_frac?,
+                    lo: r.yield_lo,
+                    hi: r.yield_hi,
                 })
-                .collect();
+            })
+            .into_iter()
+            .map(|(label, points)| YieldCurve { label, points })
+            .collect();
             let yp = YieldPlot {
                 title: format!("Yield vs {name}{partial_note}"),
                 axis,
