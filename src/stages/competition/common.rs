@@ -450,3 +450,67 @@ pub(super) fn finish_solve(
         method,
     };
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn pmos(w: f64) -> Transistor {
+        Transistor {
+            polarity: Polarity::Pmos,
+            w,
+            l: 1e-6,
+        }
+    }
+
+    fn parameter(r: Result<(), CompetitionError>) -> Option<&'static str> {
+        match r {
+            Err(CompetitionError::InvalidParameter { parameter, .. }) => Some(parameter),
+            _ => None,
+        }
+    }
+
+    // Regression pin of the stages' own documented contract ("the error names the first bad
+    // one", in each stage's check order), no outside source: a PMOS source of zero width is
+    // reported by its polarity when `nmos_first`, by its width otherwise.
+    #[test]
+    fn source_check_order_follows_the_keys() {
+        let mut keys = SourceKeys {
+            current: "s.current",
+            device: "s.device",
+            w: "s.device.w",
+            l: "s.device.l",
+            gate_voltage: "s.gate_voltage",
+            nmos_reason: "must be an NMOS",
+            nmos_first: true,
+        };
+        let bad = SourceSpec::Transistor(pmos(0.0), 0.5);
+        assert_eq!(parameter(bad.validate("t", &keys)), Some("s.device"));
+        keys.nmos_first = false;
+        assert_eq!(parameter(bad.validate("t", &keys)), Some("s.device.w"));
+        let gate = SourceSpec::Transistor(
+            Transistor {
+                polarity: Polarity::Nmos,
+                w: 1e-6,
+                l: 1e-6,
+            },
+            f64::NAN,
+        );
+        assert_eq!(parameter(gate.validate("t", &keys)), Some("s.gate_voltage"));
+        assert_eq!(
+            parameter(SourceSpec::Ideal(-1.0).validate("t", &keys)),
+            Some("s.current")
+        );
+        assert!(SourceSpec::Ideal(1e-9).validate("t", &keys).is_ok());
+    }
+
+    // Pins the EKV forward-function inverse against its definition F(x) = ln^2(1 + e^(x/2))
+    // (C. Enz, F. Krummenacher, E. Vittoz, 1995; model notes §3).
+    #[test]
+    fn ekv_f_inverse_inverts_the_forward_function() {
+        for &x in &[-20.0_f64, -3.0, 0.0, 2.5, 30.0] {
+            let f = (1.0 + (x / 2.0).exp()).ln().powi(2);
+            approx::assert_relative_eq!(ekv_f_inverse(f), x, epsilon = 1e-9, max_relative = 1e-9);
+        }
+    }
+}
