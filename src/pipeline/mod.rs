@@ -153,20 +153,44 @@ pub fn prepare(
     let test_u = model.scale(test.x.view())?;
     let ideal_pred = model.predict_ideal(test.x.view())?;
     let baseline_pred = model.predict_baseline(test.x.view())?;
-    Ok(Prepared {
-        dataset_name: dataset.name.clone(),
-        class_names: dataset.class_names.clone(),
-        n_features: dataset.n_features(),
-        n_train: train.n_samples(),
-        ideal_acc: accuracy(&ideal_pred, &test.y),
-        baseline_acc: accuracy(&baseline_pred, &test.y),
+    Ok(Prepared::assemble(
+        dataset,
+        &train,
+        &test,
         test_u,
-        test_y: test.y.clone(),
-        layers: vec![(model.linear.weights.clone(), model.linear.bias.clone())],
-        hidden: None,
-        ideal_pred,
-        baseline_pred,
-    })
+        vec![(model.linear.weights.clone(), model.linear.bias.clone())],
+        None,
+        [ideal_pred, baseline_pred],
+    ))
+}
+
+impl Prepared {
+    /// Assemble a prepared classifier from its dataset, the split, the scaled test inputs, the
+    /// layers, the hidden stage (if any) and the `[ideal, baseline]` test-split predictions.
+    fn assemble(
+        dataset: &Dataset,
+        train: &Dataset,
+        test: &Dataset,
+        test_u: Array2<f64>,
+        layers: Vec<(Array2<f64>, Array1<f64>)>,
+        hidden: Option<&HiddenSpec>,
+        [ideal_pred, baseline_pred]: [Vec<usize>; 2],
+    ) -> Prepared {
+        Prepared {
+            dataset_name: dataset.name.clone(),
+            class_names: dataset.class_names.clone(),
+            n_features: dataset.n_features(),
+            n_train: train.n_samples(),
+            ideal_acc: accuracy(&ideal_pred, &test.y),
+            baseline_acc: accuracy(&baseline_pred, &test.y),
+            test_u,
+            test_y: test.y.clone(),
+            layers,
+            hidden: hidden.cloned(),
+            ideal_pred,
+            baseline_pred,
+        }
+    }
 }
 
 fn prepare_hidden(
@@ -255,20 +279,15 @@ fn prepare_hidden(
             })?,
         );
     }
-    Ok(Prepared {
-        dataset_name: dataset.name.clone(),
-        class_names: dataset.class_names.clone(),
-        n_features: dataset.n_features(),
-        n_train: train.n_samples(),
-        ideal_acc: accuracy(&ideal_pred, &test.y),
-        baseline_acc: accuracy(&baseline_pred, &test.y),
+    Ok(Prepared::assemble(
+        dataset,
+        train,
+        test,
         test_u,
-        test_y: test.y.clone(),
         layers,
-        hidden: Some(spec.clone()),
-        ideal_pred,
-        baseline_pred,
-    })
+        Some(spec),
+        [ideal_pred, baseline_pred],
+    ))
 }
 
 /// The competition stage of a classifier design.

@@ -19,18 +19,44 @@
 // Index loops run over parallel per-input arrays.
 #![allow(clippy::needless_range_loop)]
 
-use crate::device::{DrainCoupling, Ekv, MosMismatch, Polarity, Process, Transistor};
-use crate::physics::thermal_voltage;
+use crate::device::{DrainCoupling, Ekv, MosMismatch, Process, Transistor};
 use crate::solvers::{solve_monotone, ScalarError, ScalarTolerance};
 
+use super::common::{
+    at_least_two, begin_solve, check_count, check_mismatch, check_residual, common_node_failure,
+    draw_n, ekv_f_inverse, finish_solve, finite, nmos, node_lengths_ok, node_name, nonnegative,
+    not_converged, CommonNodeMessages, Devices, FastSource, SourceKeys, SourceSpec,
+};
 use super::mos::Mos;
 use super::wta::CircuitBias;
 use super::{
-    fill_shares, positive, validate_inputs, CompetitionError, CompetitionStage, InputSummary,
-    SolveInfo, SolveMethod, StageSolution, Workspace,
+    positive, CompetitionError, CompetitionStage, InputSummary, SolveMethod, StageSolution,
+    Workspace,
 };
 
 const STAGE: &str = "multi-input differential pair";
+
+/// Why every transistor must be an NMOS.
+const NMOS_REASON: &str = "this differential pair is built from NMOS transistors";
+
+/// Config keys of the tail, for error messages.
+const TAIL_KEYS: SourceKeys = SourceKeys {
+    current: "tail.current",
+    device: "tail.device",
+    w: "tail.device.w",
+    l: "tail.device.l",
+    gate_voltage: "tail.gate_voltage",
+    nmos_reason: NMOS_REASON,
+    nmos_first: true,
+};
+
+/// What the solve says when V_S has no solution within the supply.
+const COMMON_NODE_MESSAGES: CommonNodeMessages = CommonNodeMessages {
+    below_reason: "the common source would have to fall below ground to carry the tail current",
+    below_fix: "raise the input (gate) voltages or lower the tail current",
+    above_reason: "the common source would have to rise above the supply",
+    above_fix: "lower the input (gate) voltages or raise the supply",
+};
 
 /// Relative KCL tolerance of the DC solve.
 pub const DIFFPAIR_RELATIVE_TOLERANCE: f64 = 1e-10;
@@ -109,60 +135,17 @@ impl DiffPairDesign {
 
     /// Check every parameter; the error names the first bad one.
     pub fn validate(&self) -> Result<(), CompetitionError> {
-        if self.n < 2 {
-            return Err(CompetitionError::InvalidParameter {
-                stage: STAGE,
-                parameter: "n",
-                value: self.n as f64,
-                reason: "a competition needs at least 2 inputs",
-            });
-        }
-        let nmos = |name: &'static str, t: &Transistor| -> Result<(), CompetitionError> {
-            if t.polarity != Polarity::Nmos {
-                return Err(CompetitionError::InvalidParameter {
-                    stage: STAGE,
-                    parameter: name,
-                    value: -1.0,
-                    reason: "this differential pair is built from NMOS transistors",
-                });
-            }
-            Ok(())
-        };
-        nmos("pair", &self.pair)?;
+        at_least_two(STAGE, self.n, "a competition needs at least 2 inputs")?;
+        nmos(STAGE, "pair", &self.pair, NMOS_REASON)?;
         positive(STAGE, "pair.w", self.pair.w)?;
         positive(STAGE, "pair.l", self.pair.l)?;
         positive(STAGE, "supply", self.supply)?;
-        if !(self.output_voltage.is_finite() && self.output_voltage >= 0.0) {
-            return Err(CompetitionError::InvalidParameter {
-                stage: STAGE,
-                parameter: "output_voltage",
-                value: self.output_voltage,
-                reason: "must be finite and >= 0",
-            });
-        }
-        match self.tail {
-            TailSource::Ideal { current } => positive(STAGE, "tail.current", current)?,
-            TailSource::Transistor {
-                device,
-                gate_voltage,
-            } => {
-                nmos("tail.device", &device)?;
-                positive(STAGE, "tail.device.w", device.w)?;
-                positive(STAGE, "tail.device.l", device.l)?;
-                if !gate_voltage.is_finite() {
-                    return Err(CompetitionError::InvalidParameter {
-                        stage: STAGE,
-                        parameter: "tail.gate_voltage",
-                        value: gate_voltage,
-                        reason: "must be finite",
-                    });
-                }
-            }
-        }
+        nonnegative(STAGE, "output_voltage", self.output_voltage)?;
+        SourceSpec::from(self.tail).validate(STAGE, &TAIL_KEYS)?;
         match self.input {
             DiffPairInput::Voltage => {}
             DiffPairInput::Diode { device } => {
-                nmos("input.device", &device)?;
+                nmos(STAGE, "input.device", &device, NMOS_REASON)?;
                 positive(STAGE, "input.device.w", device.w)?;
                 positive(STAGE, "input.device.l", device.l)?;
             }
@@ -171,30 +154,11 @@ impl DiffPairDesign {
                 reference,
             } => {
                 positive(STAGE, "input.resistance", resistance)?;
-                if !reference.is_finite() {
-                    return Err(CompetitionError::InvalidParameter {
-                        stage: STAGE,
-                        parameter: "input.reference",
-                        value: reference,
-                        reason: "must be finite",
-                    });
-                }
+                finite(STAGE, "input.reference", reference)?;
             }
         }
-        for (p, v) in [
-            ("source_capacitance", self.source_capacitance),
-            ("input_capacitance", self.input_capacitance),
-        ] {
-            if !(v.is_finite() && v >= 0.0) {
-                return Err(CompetitionError::InvalidParameter {
-                    stage: STAGE,
-                    parameter: p,
-                    value: v,
-                    reason: "must be finite and >= 0",
-                });
-            }
-        }
-        Ok(())
+        nonnegative(STAGE, "source_capacitance", self.source_capacitance)?;
+        nonnegative(STAGE, "input_capacitance", self.input_capacitance)
     }
 
     /// Number of input diodes (N with diode inputs, else 0).
@@ -203,14 +167,6 @@ impl DiffPairDesign {
             DiffPairInput::Diode { .. } => self.n,
             _ => 0,
         }
-    }
-
-    fn device(&self, t: &Transistor, temperature: f64, mm: MosMismatch) -> Ekv {
-        let mut d = self.process.ekv(t, temperature, mm);
-        if let Some(dc) = self.drain_coupling {
-            d.eta = dc.eta(d.n, t.l, thermal_voltage(self.process.t_nom));
-        }
-        d
     }
 }
 
@@ -246,36 +202,12 @@ impl DiffPairChip {
         tail: MosMismatch,
     ) -> Result<DiffPairChip, CompetitionError> {
         design.validate()?;
-        if pair.len() != design.n {
-            return Err(CompetitionError::WrongLength {
-                stage: STAGE,
-                what: "pair mismatch",
-                expected: design.n,
-                got: pair.len(),
-            });
-        }
-        if diodes.len() != design.diode_count() {
-            return Err(CompetitionError::WrongLength {
-                stage: STAGE,
-                what: "diode mismatch",
-                expected: design.diode_count(),
-                got: diodes.len(),
-            });
-        }
-        for m in pair
-            .iter()
-            .chain(diodes.iter())
-            .chain(std::iter::once(&tail))
-        {
-            if !(m.dvt0.is_finite() && m.dbeta_rel.is_finite() && m.dbeta_rel > -1.0) {
-                return Err(CompetitionError::InvalidParameter {
-                    stage: STAGE,
-                    parameter: "mismatch",
-                    value: m.dbeta_rel,
-                    reason: "dvt0 must be finite and dbeta_rel finite and > -1",
-                });
-            }
-        }
+        check_count(STAGE, "pair mismatch", design.n, pair.len())?;
+        check_count(STAGE, "diode mismatch", design.diode_count(), diodes.len())?;
+        check_mismatch(
+            STAGE,
+            pair.iter().chain(&diodes).chain(std::iter::once(&tail)),
+        )?;
         Ok(DiffPairChip {
             design,
             pair,
@@ -291,15 +223,12 @@ impl DiffPairChip {
         F: FnMut(&Transistor) -> MosMismatch,
     {
         design.validate()?;
-        let pair = (0..design.n).map(|_| draw(&design.pair)).collect();
+        let pair = draw_n(design.n, &design.pair, &mut draw);
         let diodes = match design.input {
-            DiffPairInput::Diode { device } => (0..design.n).map(|_| draw(&device)).collect(),
+            DiffPairInput::Diode { device } => draw_n(design.n, &device, &mut draw),
             _ => Vec::new(),
         };
-        let tail = match design.tail {
-            TailSource::Transistor { device, .. } => draw(&device),
-            TailSource::Ideal { .. } => MosMismatch::default(),
-        };
+        let tail = SourceSpec::from(design.tail).draw(&mut draw);
         DiffPairChip::from_mismatch(design, pair, diodes, tail)
     }
 
@@ -307,43 +236,20 @@ impl DiffPairChip {
     pub fn at(&self, temperature: f64) -> Result<DiffPairCircuit, CompetitionError> {
         positive(STAGE, "temperature", temperature)?;
         let d = &self.design;
-        let pair: Vec<Ekv> = self
-            .pair
-            .iter()
-            .map(|m| d.device(&d.pair, temperature, *m))
-            .collect();
-        let diodes: Vec<Ekv> = match d.input {
-            DiffPairInput::Diode { device } => self
-                .diodes
-                .iter()
-                .map(|m| d.device(&device, temperature, *m))
-                .collect(),
+        let devices = Devices::new(&d.process, d.drain_coupling, temperature);
+        let pair = devices.each(&d.pair, &self.pair);
+        let diodes = match d.input {
+            DiffPairInput::Diode { device } => devices.each(&device, &self.diodes),
             _ => Vec::new(),
         };
-        let tail_desc = match d.tail {
-            TailSource::Ideal { current } => CircuitBias::Ideal(current),
-            TailSource::Transistor {
-                device,
-                gate_voltage,
-            } => CircuitBias::Transistor {
-                device: d.device(&device, temperature, self.tail),
-                gate_voltage,
-            },
-        };
-        let tail = match tail_desc {
-            CircuitBias::Ideal(i) => Tail::Ideal(i),
-            CircuitBias::Transistor {
-                device,
-                gate_voltage,
-            } => Tail::Mos(Mos::new(&device), gate_voltage),
-        };
+        let tail_desc = SourceSpec::from(d.tail).at(&devices, self.tail);
         Ok(DiffPairCircuit {
             n: d.n,
             pair_fast: pair.iter().map(Mos::new).collect(),
             diode_fast: diodes.iter().map(Mos::new).collect(),
             pair,
             diodes,
-            tail,
+            tail: FastSource::of(&tail_desc),
             tail_desc,
             input: d.input,
             supply: d.supply,
@@ -355,25 +261,6 @@ impl DiffPairChip {
     }
 }
 
-#[derive(Clone, Copy, Debug, PartialEq)]
-enum Tail {
-    Ideal(f64),
-    Mos(Mos, f64),
-}
-
-impl Tail {
-    #[inline]
-    fn eval(&self, vs: f64) -> (f64, f64) {
-        match *self {
-            Tail::Ideal(i) => (i, 0.0),
-            Tail::Mos(m, vg) => {
-                let e = m.eval(vg, vs, 0.0);
-                (e.id, e.d_vd)
-            }
-        }
-    }
-}
-
 /// A differential-pair chip at a temperature, ready to solve.
 #[derive(Clone, Debug, PartialEq)]
 pub struct DiffPairCircuit {
@@ -382,7 +269,7 @@ pub struct DiffPairCircuit {
     diodes: Vec<Ekv>,
     pair_fast: Vec<Mos>,
     diode_fast: Vec<Mos>,
-    tail: Tail,
+    tail: FastSource,
     tail_desc: CircuitBias,
     input: DiffPairInput,
     /// Supply, V.
@@ -395,12 +282,6 @@ pub struct DiffPairCircuit {
     pub temperature: f64,
     /// Relative KCL tolerance.
     pub tolerance: f64,
-}
-
-/// Inverse of the EKV forward function: x with F(x) = i (`x = 2 ln(e^sqrt(i) - 1)`).
-#[inline]
-fn ekv_f_inverse(i: f64) -> f64 {
-    2.0 * i.sqrt().exp_m1().ln()
 }
 
 impl DiffPairCircuit {
@@ -462,13 +343,13 @@ impl DiffPairCircuit {
                 })
             }
             Err(ScalarError::NotBracketed { f, .. })
-            | Err(ScalarError::NoConvergence { f, .. }) => Err(CompetitionError::NotConverged {
-                stage: STAGE,
-                iterations: tol.max_iter,
-                residual: f.exp_m1().abs(),
-                tolerance: self.tolerance,
-                inputs: InputSummary::of(inputs),
-            }),
+            | Err(ScalarError::NoConvergence { f, .. }) => Err(not_converged(
+                STAGE,
+                tol.max_iter,
+                f.exp_m1().abs(),
+                self.tolerance,
+                inputs,
+            )),
         }
     }
 
@@ -483,10 +364,7 @@ impl DiffPairCircuit {
         for (m, &vg) in self.pair_fast.iter().zip(gates) {
             s += (m.is.ln() + (vg - m.vt0 + m.eta * vout) * m.inv_n * m.inv_ut - max_e).exp();
         }
-        let ln_ib = match self.tail {
-            Tail::Ideal(i) => i.ln(),
-            Tail::Mos(m, vg) => m.is.ln() + (vg - m.vt0) * m.inv_n * m.inv_ut,
-        };
+        let ln_ib = self.tail.ln_weak_current();
         let m0 = &self.pair_fast[0];
         let slope = (1.0 + m0.eta * m0.inv_n) * m0.inv_ut;
         let vs = (max_e + s.ln() - ln_ib) / slope;
@@ -503,7 +381,7 @@ impl DiffPairCircuit {
     /// it gives the right-hand side of the ODE. Returns `None` on a length mismatch.
     pub fn node_currents(&self, inputs: &[f64], voltages: &[f64], out: &mut [f64]) -> Option<()> {
         let n = self.n;
-        if inputs.len() != n || voltages.len() != n + 1 || out.len() != n + 1 {
+        if !node_lengths_ok(n, inputs, voltages, out) {
             return None;
         }
         let vs = voltages[n];
@@ -543,11 +421,7 @@ impl CompetitionStage for DiffPairCircuit {
     }
 
     fn node_name(&self, i: usize) -> String {
-        if i == self.n {
-            "V_S".to_string()
-        } else {
-            format!("V_G{i}")
-        }
+        node_name(i, self.n, "V_S", "V_G")
     }
 
     fn stage_name(&self) -> &'static str {
@@ -568,10 +442,7 @@ impl CompetitionStage for DiffPairCircuit {
         out: &mut StageSolution,
     ) -> Result<(), CompetitionError> {
         let n = self.n;
-        let unit = self.input_unit();
-        validate_inputs(STAGE, n, inputs, unit, unit == "A")?;
-        ws.ensure(n);
-        out.resize(n, n + 1);
+        begin_solve(STAGE, n, inputs, self.input_unit(), ws, out)?;
         let gates = &mut ws.v[..n];
         match self.input {
             DiffPairInput::Voltage => gates.copy_from_slice(inputs),
@@ -608,63 +479,34 @@ impl CompetitionStage for DiffPairCircuit {
             xtol: 1e-15,
             max_iter: 300,
         };
-        let summary = || InputSummary::of(inputs);
         let root = solve_monotone(f, self.vs_min, self.supply, vs0, false, tol);
         let (vs, iterations) = match root {
             Ok(r) => (r.x, r.iterations),
-            Err(ScalarError::NotBracketed { below: true, .. }) => {
-                return Err(CompetitionError::Compliance {
-                    stage: STAGE,
-                    parameter: match self.tail {
-                        Tail::Ideal(_) => "tail.current",
-                        Tail::Mos(..) => "tail.gate_voltage",
-                    },
-                    reason: "the common source would have to fall below ground to carry the tail current",
-                    fix: "raise the input (gate) voltages or lower the tail current",
-                    inputs: summary(),
-                })
-            }
-            Err(ScalarError::NotBracketed { below: false, .. }) => {
-                return Err(CompetitionError::Compliance {
-                    stage: STAGE,
-                    parameter: "supply",
-                    reason: "the common source would have to rise above the supply",
-                    fix: "lower the input (gate) voltages or raise the supply",
-                    inputs: summary(),
-                })
-            }
-            Err(ScalarError::NoConvergence { f, iterations, .. }) => {
-                return Err(CompetitionError::NotConverged {
-                    stage: STAGE,
-                    iterations,
-                    residual: f.exp_m1().abs(),
-                    tolerance: self.tolerance,
-                    inputs: summary(),
-                })
+            Err(err) => {
+                return Err(common_node_failure(
+                    STAGE,
+                    err,
+                    self.tail.key(&TAIL_KEYS),
+                    &COMMON_NODE_MESSAGES,
+                    0,
+                    self.tolerance,
+                    inputs,
+                ))
             }
         };
         for k in 0..n {
             out.outputs[k] = self.pair_fast[k].id(gates[k], vout, vs);
         }
         let residual = self.source_residual(gates, vs).abs();
-        if residual.is_nan() || residual > self.tolerance {
-            return Err(CompetitionError::NotConverged {
-                stage: STAGE,
-                iterations,
-                residual,
-                tolerance: self.tolerance,
-                inputs: summary(),
-            });
-        }
-        out.node_voltages[..n].copy_from_slice(gates);
-        out.node_voltages[n] = vs;
-        fill_shares(&out.outputs, &mut out.shares);
-        out.info = SolveInfo {
+        check_residual(STAGE, iterations, residual, self.tolerance, inputs)?;
+        finish_solve(
+            out,
+            gates,
+            vs,
             iterations,
             residual,
-            converged: true,
-            method: SolveMethod::Bracketing,
-        };
+            SolveMethod::Bracketing,
+        );
         Ok(())
     }
 }

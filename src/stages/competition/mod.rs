@@ -13,6 +13,7 @@
 //!
 //! Numerical core: no I/O, no printing.
 
+mod common;
 pub mod decision;
 pub mod diffpair;
 pub mod mos;

@@ -36,17 +36,41 @@
 // Index loops run over parallel per-cell arrays; iterators would zip five of them.
 #![allow(clippy::needless_range_loop)]
 
-use crate::device::{DrainCoupling, Ekv, MosMismatch, Polarity, Process, Transistor};
-use crate::physics::thermal_voltage;
+use crate::device::{DrainCoupling, Ekv, MosMismatch, Process, Transistor};
 use crate::solvers::{solve_monotone, ScalarError, ScalarTolerance};
 
+use super::common::{
+    at_least_two, begin_solve, check_count, check_mismatch, check_residual, common_node_failure,
+    draw_n, ekv_f_inverse, finish_solve, nmos, node_lengths_ok, node_name, nonnegative,
+    CommonNodeMessages, Devices, FastSource, SourceKeys, SourceSpec,
+};
 use super::mos::Mos;
 use super::{
-    fill_shares, positive, validate_inputs, CompetitionError, CompetitionStage, InputSummary,
-    SolveInfo, SolveMethod, StageSolution, Workspace,
+    positive, CompetitionError, CompetitionStage, InputSummary, SolveMethod, StageSolution,
+    Workspace,
 };
 
 const STAGE: &str = "current-mode WTA";
+
+/// Config keys of the bias, for error messages.
+const BIAS_KEYS: SourceKeys = SourceKeys {
+    current: "bias.current",
+    device: "bias.device",
+    w: "bias.device.w",
+    l: "bias.device.l",
+    gate_voltage: "bias.gate_voltage",
+    nmos_reason: "the bias transistor is an NMOS",
+    nmos_first: false,
+};
+
+/// What the bracketing solve says when V_C has no solution within the supply.
+const COMMON_NODE_MESSAGES: CommonNodeMessages = CommonNodeMessages {
+    below_reason: "the inputs cannot carry the bias current with the common node V_C \
+                   at or above ground",
+    below_fix: "raise the input currents or lower the bias current",
+    above_reason: "the common node V_C would have to rise above the supply",
+    above_fix: "raise the supply, widen the sink transistors, or lower the input currents",
+};
 
 /// Relative KCL tolerance of the DC solve (at every node, relative to that node's current).
 /// At 1e-8 the node voltages are within about `1e-8 n U_T / eta` (≈ 30 nV at eta = 0.01) of the
@@ -120,79 +144,19 @@ impl WtaDesign {
 
     /// Check every parameter; the error names the first bad one.
     pub fn validate(&self) -> Result<(), CompetitionError> {
-        if self.n < 2 {
-            return Err(CompetitionError::InvalidParameter {
-                stage: STAGE,
-                parameter: "n",
-                value: self.n as f64,
-                reason: "a competition needs at least 2 cells",
-            });
-        }
+        at_least_two(STAGE, self.n, "a competition needs at least 2 cells")?;
         for (name, t) in [("sink", &self.sink), ("output", &self.output)] {
-            if t.polarity != Polarity::Nmos {
-                return Err(CompetitionError::InvalidParameter {
-                    stage: STAGE,
-                    parameter: name,
-                    value: -1.0,
-                    reason: "this WTA is built from NMOS transistors",
-                });
-            }
+            nmos(STAGE, name, t, "this WTA is built from NMOS transistors")?;
         }
         positive(STAGE, "sink.w", self.sink.w)?;
         positive(STAGE, "sink.l", self.sink.l)?;
         positive(STAGE, "output.w", self.output.w)?;
         positive(STAGE, "output.l", self.output.l)?;
         positive(STAGE, "supply", self.supply)?;
-        if !(self.output_voltage.is_finite() && self.output_voltage >= 0.0) {
-            return Err(CompetitionError::InvalidParameter {
-                stage: STAGE,
-                parameter: "output_voltage",
-                value: self.output_voltage,
-                reason: "must be finite and >= 0",
-            });
-        }
-        if !(self.input_capacitance.is_finite() && self.input_capacitance >= 0.0) {
-            return Err(CompetitionError::InvalidParameter {
-                stage: STAGE,
-                parameter: "input_capacitance",
-                value: self.input_capacitance,
-                reason: "must be finite and >= 0",
-            });
-        }
-        if !(self.common_capacitance.is_finite() && self.common_capacitance >= 0.0) {
-            return Err(CompetitionError::InvalidParameter {
-                stage: STAGE,
-                parameter: "common_capacitance",
-                value: self.common_capacitance,
-                reason: "must be finite and >= 0",
-            });
-        }
-        match self.bias {
-            WtaBias::Ideal { current } => positive(STAGE, "bias.current", current)?,
-            WtaBias::Transistor {
-                device,
-                gate_voltage,
-            } => {
-                positive(STAGE, "bias.device.w", device.w)?;
-                positive(STAGE, "bias.device.l", device.l)?;
-                if device.polarity != Polarity::Nmos {
-                    return Err(CompetitionError::InvalidParameter {
-                        stage: STAGE,
-                        parameter: "bias.device",
-                        value: -1.0,
-                        reason: "the bias transistor is an NMOS",
-                    });
-                }
-                if !gate_voltage.is_finite() {
-                    return Err(CompetitionError::InvalidParameter {
-                        stage: STAGE,
-                        parameter: "bias.gate_voltage",
-                        value: gate_voltage,
-                        reason: "must be finite",
-                    });
-                }
-            }
-        }
+        nonnegative(STAGE, "output_voltage", self.output_voltage)?;
+        nonnegative(STAGE, "input_capacitance", self.input_capacitance)?;
+        nonnegative(STAGE, "common_capacitance", self.common_capacitance)?;
+        SourceSpec::from(self.bias).validate(STAGE, &BIAS_KEYS)?;
         if let Some(dc) = self.drain_coupling {
             let v = match dc {
                 DrainCoupling::Eta(x)
@@ -228,14 +192,6 @@ impl WtaDesign {
     pub fn transistor_count(&self) -> usize {
         2 * self.n + usize::from(matches!(self.bias, WtaBias::Transistor { .. }))
     }
-
-    fn device(&self, t: &Transistor, temperature: f64, mm: MosMismatch) -> Ekv {
-        let mut d = self.process.ekv(t, temperature, mm);
-        if let Some(dc) = self.drain_coupling {
-            d.eta = dc.eta(d.n, t.l, thermal_voltage(self.process.t_nom));
-        }
-        d
-    }
 }
 
 /// One sampled WTA chip: the design plus every transistor's static mismatch.
@@ -270,30 +226,12 @@ impl WtaChip {
         bias: MosMismatch,
     ) -> Result<WtaChip, CompetitionError> {
         design.validate()?;
-        for (what, v) in [("sink mismatch", &sink), ("output mismatch", &output)] {
-            if v.len() != design.n {
-                return Err(CompetitionError::WrongLength {
-                    stage: STAGE,
-                    what,
-                    expected: design.n,
-                    got: v.len(),
-                });
-            }
-        }
-        for m in sink
-            .iter()
-            .chain(output.iter())
-            .chain(std::iter::once(&bias))
-        {
-            if !(m.dvt0.is_finite() && m.dbeta_rel.is_finite() && m.dbeta_rel > -1.0) {
-                return Err(CompetitionError::InvalidParameter {
-                    stage: STAGE,
-                    parameter: "mismatch",
-                    value: m.dbeta_rel,
-                    reason: "dvt0 must be finite and dbeta_rel finite and > -1",
-                });
-            }
-        }
+        check_count(STAGE, "sink mismatch", design.n, sink.len())?;
+        check_count(STAGE, "output mismatch", design.n, output.len())?;
+        check_mismatch(
+            STAGE,
+            sink.iter().chain(&output).chain(std::iter::once(&bias)),
+        )?;
         Ok(WtaChip {
             design,
             sink,
@@ -310,12 +248,9 @@ impl WtaChip {
         F: FnMut(&Transistor) -> MosMismatch,
     {
         design.validate()?;
-        let sink = (0..design.n).map(|_| draw(&design.sink)).collect();
-        let output = (0..design.n).map(|_| draw(&design.output)).collect();
-        let bias = match design.bias {
-            WtaBias::Transistor { device, .. } => draw(&device),
-            WtaBias::Ideal { .. } => MosMismatch::default(),
-        };
+        let sink = draw_n(design.n, &design.sink, &mut draw);
+        let output = draw_n(design.n, &design.output, &mut draw);
+        let bias = SourceSpec::from(design.bias).draw(&mut draw);
         WtaChip::from_mismatch(design, sink, output, bias)
     }
 
@@ -323,41 +258,18 @@ impl WtaChip {
     pub fn at(&self, temperature: f64) -> Result<WtaCircuit, CompetitionError> {
         positive(STAGE, "temperature", temperature)?;
         let d = &self.design;
-        let sink: Vec<Ekv> = self
-            .sink
-            .iter()
-            .map(|m| d.device(&d.sink, temperature, *m))
-            .collect();
-        let output: Vec<Ekv> = self
-            .output
-            .iter()
-            .map(|m| d.device(&d.output, temperature, *m))
-            .collect();
-        let bias = match d.bias {
-            WtaBias::Ideal { current } => CircuitBias::Ideal(current),
-            WtaBias::Transistor {
-                device,
-                gate_voltage,
-            } => CircuitBias::Transistor {
-                device: d.device(&device, temperature, self.bias),
-                gate_voltage,
-            },
-        };
-        let bias_fast = match bias {
-            CircuitBias::Ideal(i) => FastBias::Ideal(i),
-            CircuitBias::Transistor {
-                device,
-                gate_voltage,
-            } => FastBias::Mos(Mos::new(&device), gate_voltage),
-        };
+        let devices = Devices::new(&d.process, d.drain_coupling, temperature);
+        let sink = devices.each(&d.sink, &self.sink);
+        let output = devices.each(&d.output, &self.output);
+        let bias = SourceSpec::from(d.bias).at(&devices, self.bias);
         Ok(WtaCircuit {
             n: d.n,
             sink_fast: sink.iter().map(Mos::new).collect(),
             output_fast: output.iter().map(Mos::new).collect(),
             sink,
             output,
+            bias_fast: FastSource::of(&bias),
             bias,
-            bias_fast,
             supply: d.supply,
             output_voltage: d.output_voltage,
             vc_min: 0.0,
@@ -379,26 +291,6 @@ pub enum CircuitBias {
     Transistor { device: Ekv, gate_voltage: f64 },
 }
 
-#[derive(Clone, Copy, Debug, PartialEq)]
-enum FastBias {
-    Ideal(f64),
-    Mos(Mos, f64),
-}
-
-impl FastBias {
-    /// Bias current and its derivative in V_C.
-    #[inline]
-    fn eval(&self, vc: f64) -> (f64, f64) {
-        match *self {
-            FastBias::Ideal(i) => (i, 0.0),
-            FastBias::Mos(m, vg) => {
-                let e = m.eval(vg, vc, 0.0);
-                (e.id, e.d_vd)
-            }
-        }
-    }
-}
-
 /// A WTA chip at a temperature: one EKV device per transistor, ready to solve.
 #[derive(Clone, Debug, PartialEq)]
 pub struct WtaCircuit {
@@ -408,7 +300,7 @@ pub struct WtaCircuit {
     bias: CircuitBias,
     sink_fast: Vec<Mos>,
     output_fast: Vec<Mos>,
-    bias_fast: FastBias,
+    bias_fast: FastSource,
     /// Supply V_dd, V.
     pub supply: f64,
     /// Output drain voltage, V.
@@ -464,23 +356,17 @@ impl WtaCircuit {
     /// difference of EKV F values cannot). Returns `None` on a length mismatch.
     pub fn kcl_residuals(&self, inputs: &[f64], voltages: &[f64], out: &mut [f64]) -> Option<()> {
         let n = self.n;
-        if inputs.len() != n || voltages.len() != n + 1 || out.len() != n + 1 {
+        if !node_lengths_ok(n, inputs, voltages, out) {
             return None;
         }
-        let vc = voltages[n];
-        let mut s = 0.0;
-        for k in 0..n {
-            let vk = voltages[k];
-            let ia = self.sink_fast[k].id(vc, vk, 0.0);
+        let (s, ib) = self.cell_currents(voltages, |k, ia| {
             let scale = inputs[k].abs().max(ia.abs());
             out[k] = if scale > 0.0 {
                 (inputs[k] - ia) / scale
             } else {
                 0.0
             };
-            s += self.output_fast[k].id(vk, self.output_voltage, vc);
-        }
-        let (ib, _) = self.bias_fast.eval(vc);
+        });
         out[n] = (s - ib) / ib.abs().max(f64::MIN_POSITIVE);
         Some(())
     }
@@ -491,18 +377,27 @@ impl WtaCircuit {
     /// `C dV/dt = node current`. Returns `None` on a length mismatch.
     pub fn node_currents(&self, inputs: &[f64], voltages: &[f64], out: &mut [f64]) -> Option<()> {
         let n = self.n;
-        if inputs.len() != n || voltages.len() != n + 1 || out.len() != n + 1 {
+        if !node_lengths_ok(n, inputs, voltages, out) {
             return None;
         }
+        let (s, ib) = self.cell_currents(voltages, |k, ia| out[k] = inputs[k] - ia);
+        out[n] = s - ib;
+        Some(())
+    }
+
+    /// At node voltages `[V_0..V_{N-1}, V_C]` (N + 1 of them): passes each sink current
+    /// `I_A,k` to `cell(k, I_A,k)` and returns `(Σ I_B,k, I_bias)`.
+    #[inline]
+    fn cell_currents(&self, voltages: &[f64], mut cell: impl FnMut(usize, f64)) -> (f64, f64) {
+        let n = self.n;
         let vc = voltages[n];
         let mut s = 0.0;
         for k in 0..n {
             let vk = voltages[k];
-            out[k] = inputs[k] - self.sink_fast[k].id(vc, vk, 0.0);
+            cell(k, self.sink_fast[k].id(vc, vk, 0.0));
             s += self.output_fast[k].id(vk, self.output_voltage, vc);
         }
-        out[n] = s - self.bias_fast.eval(vc).0;
-        Some(())
+        (s, self.bias_fast.eval(vc).0)
     }
 
     /// Starting V_C from the weak-inversion closed form (module docs), clamped to the supply.
@@ -510,10 +405,7 @@ impl WtaCircuit {
     /// `(V_C, ln I_b)` (for a bias transistor, I_b is its weak-inversion saturation current).
     fn closed_form_vc(&self, inputs: &[f64], shares: &mut [f64]) -> (f64, f64) {
         let vout = self.output_voltage;
-        let ln_ib = match self.bias_fast {
-            FastBias::Ideal(i) => i.ln(),
-            FastBias::Mos(m, vg) => m.is.ln() + (vg - m.vt0) * m.inv_n * m.inv_ut,
-        };
+        let ln_ib = self.bias_fast.ln_weak_current();
         let mut max_e = f64::NEG_INFINITY;
         let mut slope = 0.0;
         for k in 0..self.n {
@@ -527,7 +419,7 @@ impl WtaCircuit {
             let eta_a = a.eta.max(1e-3);
             // EKV forward law inverted (x = 2 ln(e^sqrt(i) - 1), ≈ ln i in weak inversion):
             // keeps the start close where the pure exponential is off by a few per cent.
-            let x = 2.0 * (i / a.is).sqrt().exp_m1().ln();
+            let x = ekv_f_inverse(i / a.is);
             let alpha = (a.n() * a.ut() * x + a.vt0) / eta_a;
             let e = b.is.ln() + (alpha - b.vt0 + b.eta * vout) * b.inv_n * b.inv_ut;
             shares[k] = e;
@@ -559,7 +451,7 @@ impl WtaCircuit {
     #[inline]
     fn cell_guess_from_output(&self, k: usize, i_out: f64, vc: f64) -> f64 {
         let b = &self.output_fast[k];
-        let x = 2.0 * (i_out / b.is).sqrt().exp_m1().ln();
+        let x = ekv_f_inverse(i_out / b.is);
         b.n() * (b.ut() * x + vc) + b.vt0 - b.eta * (self.output_voltage - vc)
     }
 
@@ -791,7 +683,6 @@ impl WtaCircuit {
             xtol: 1e-15,
             max_iter: 400,
         };
-        let summary = || InputSummary::of(inputs);
         let root = solve_monotone(
             |vc| self.outer(inputs, vc, v, clamped),
             self.vc_min,
@@ -806,37 +697,16 @@ impl WtaCircuit {
                 self.outer(inputs, r.x, v, clamped);
                 (r.x, spent + r.iterations)
             }
-            Err(ScalarError::NotBracketed { below: true, .. }) => {
-                return Err(CompetitionError::Compliance {
-                    stage: STAGE,
-                    parameter: match self.bias {
-                        CircuitBias::Ideal(_) => "bias.current",
-                        CircuitBias::Transistor { .. } => "bias.gate_voltage",
-                    },
-                    reason: "the inputs cannot carry the bias current with the common node V_C \
-                             at or above ground",
-                    fix: "raise the input currents or lower the bias current",
-                    inputs: summary(),
-                })
-            }
-            Err(ScalarError::NotBracketed { below: false, .. }) => {
-                return Err(CompetitionError::Compliance {
-                    stage: STAGE,
-                    parameter: "supply",
-                    reason: "the common node V_C would have to rise above the supply",
-                    fix:
-                        "raise the supply, widen the sink transistors, or lower the input currents",
-                    inputs: summary(),
-                })
-            }
-            Err(ScalarError::NoConvergence { f, iterations, .. }) => {
-                return Err(CompetitionError::NotConverged {
-                    stage: STAGE,
-                    iterations: spent + iterations,
-                    residual: f.exp_m1().abs(),
-                    tolerance: self.tolerance,
-                    inputs: summary(),
-                })
+            Err(err) => {
+                return Err(common_node_failure(
+                    STAGE,
+                    err,
+                    self.bias_fast.key(&BIAS_KEYS),
+                    &COMMON_NODE_MESSAGES,
+                    spent,
+                    self.tolerance,
+                    inputs,
+                ))
             }
         };
         if clamped.iter().any(|&c| c > 0.0) {
@@ -846,7 +716,7 @@ impl WtaCircuit {
                 reason: "an input node would have to rise above the supply: its sink transistor \
                          cannot carry the input current",
                 fix: "widen the sink transistors (W/L), lower the input currents, or raise the supply",
-                inputs: summary(),
+                inputs: InputSummary::of(inputs),
             });
         }
         Ok(vc)
@@ -882,11 +752,7 @@ impl CompetitionStage for WtaCircuit {
     }
 
     fn node_name(&self, i: usize) -> String {
-        if i == self.n {
-            "V_C".to_string()
-        } else {
-            format!("V_{i}")
-        }
+        node_name(i, self.n, "V_C", "V_")
     }
 
     fn stage_name(&self) -> &'static str {
@@ -904,35 +770,17 @@ impl CompetitionStage for WtaCircuit {
         out: &mut StageSolution,
     ) -> Result<(), CompetitionError> {
         let n = self.n;
-        validate_inputs(STAGE, n, inputs, "A", true)?;
-        ws.ensure(n);
-        out.resize(n, n + 1);
+        begin_solve(STAGE, n, inputs, self.input_unit(), ws, out)?;
         let (vc, iterations, residual, method) = match self.newton(inputs, ws, out) {
             NewtonEnd::Converged(it, res) => (out.node_voltages[n], it, res, SolveMethod::Newton),
             NewtonEnd::Gave(spent) => {
                 let (vc, it) = self.bracketing(inputs, ws, spent)?;
                 let res = self.finish(inputs, vc, ws, out);
-                if res.is_nan() || res > self.tolerance {
-                    return Err(CompetitionError::NotConverged {
-                        stage: STAGE,
-                        iterations: it,
-                        residual: res,
-                        tolerance: self.tolerance,
-                        inputs: InputSummary::of(inputs),
-                    });
-                }
+                check_residual(STAGE, it, res, self.tolerance, inputs)?;
                 (vc, it, res, SolveMethod::Bracketing)
             }
         };
-        out.node_voltages[..n].copy_from_slice(&ws.v[..n]);
-        out.node_voltages[n] = vc;
-        fill_shares(&out.outputs, &mut out.shares);
-        out.info = SolveInfo {
-            iterations,
-            residual,
-            converged: true,
-            method,
-        };
+        finish_solve(out, &ws.v[..n], vc, iterations, residual, method);
         Ok(())
     }
 }
