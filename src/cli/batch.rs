@@ -5,11 +5,8 @@ use std::path::{Path, PathBuf};
 
 use clap::Args;
 
-use super::progress::Progress;
 use crate::experiment::config::load;
-use crate::experiment::runner::{
-    experiment_hash, folder_status, run as run_experiment, RunOptions,
-};
+use crate::experiment::runner::{experiment_hash, folder_status};
 
 #[derive(Debug, Args)]
 pub struct BatchArgs {
@@ -73,26 +70,16 @@ fn one(file: &Path, args: &BatchArgs) -> Outcome {
     if !args.force && folder_status(&out, &hash) == Some(true) {
         return Outcome::UpToDate;
     }
-    let opts = RunOptions {
-        out: out.clone(),
-        threads: args.threads,
-        fresh: args.force,
-        no_report: args.no_report,
-        command: std::env::args().collect::<Vec<_>>().join(" "),
-    };
-    let progress = Progress::new(args.quiet, &resolved.base.name);
-    let r = run_experiment(&resolved, &opts, &progress);
-    progress.finish();
-    match r {
-        Ok(s) => {
-            if !args.no_report {
-                if let Err(e) = super::render::render_folder(&out) {
-                    return Outcome::Failed(format!("report: {e:#}"));
-                }
-            }
-            Outcome::Ran(s.elapsed_s)
-        }
-        Err(e) => Outcome::Failed(e.to_string()),
+    match super::run::execute(
+        &resolved,
+        &out,
+        args.threads,
+        args.force,
+        args.quiet,
+        args.no_report,
+    ) {
+        Ok((s, _)) => Outcome::Ran(s.elapsed_s),
+        Err(e) => Outcome::Failed(format!("{e:#}")),
     }
 }
 

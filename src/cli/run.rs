@@ -1,13 +1,13 @@
 //! `hardmax run`: one experiment file -> one results folder.
 
-use std::path::PathBuf;
+use std::path::{Path, PathBuf};
 
 use anyhow::Context;
 use clap::Args;
 
 use super::progress::Progress;
-use crate::experiment::config::load;
-use crate::experiment::runner::{run as run_experiment, RunOptions};
+use crate::experiment::config::{load, Resolved};
+use crate::experiment::runner::{run as run_experiment, RunOptions, RunSummary};
 
 #[derive(Debug, Args)]
 pub struct RunArgs {
@@ -39,22 +39,15 @@ pub fn run(args: RunArgs) -> anyhow::Result<()> {
         .out
         .clone()
         .unwrap_or_else(|| PathBuf::from("results").join(&resolved.base.name));
-    let opts = RunOptions {
-        out: out.clone(),
-        threads: args.threads,
-        fresh: args.fresh,
-        no_report: args.no_report,
-        command: std::env::args().collect::<Vec<_>>().join(" "),
-    };
-    let progress = Progress::new(args.quiet, &resolved.base.name);
-    let summary = run_experiment(&resolved, &opts, &progress)
-        .with_context(|| format!("running `{}`", args.file.display()))?;
-    progress.finish();
-    let report = if args.no_report {
-        None
-    } else {
-        Some(super::render::render_folder(&out)?)
-    };
+    let (summary, report) = execute(
+        &resolved,
+        &out,
+        args.threads,
+        args.fresh,
+        args.quiet,
+        args.no_report,
+    )
+    .with_context(|| format!("running `{}`", args.file.display()))?;
     if !args.quiet {
         print_summary(&summary);
         println!("results: {}", out.display());
@@ -66,8 +59,36 @@ pub fn run(args: RunArgs) -> anyhow::Result<()> {
     Ok(())
 }
 
+/// Run a resolved experiment into `out` with progress on stderr, then render its report unless
+/// `no_report`. Shared by `run` and `batch`.
+pub fn execute(
+    resolved: &Resolved,
+    out: &Path,
+    threads: Option<usize>,
+    fresh: bool,
+    quiet: bool,
+    no_report: bool,
+) -> anyhow::Result<(RunSummary, Option<PathBuf>)> {
+    let opts = RunOptions {
+        out: out.to_path_buf(),
+        threads,
+        fresh,
+        command: std::env::args().collect::<Vec<_>>().join(" "),
+    };
+    let progress = Progress::new(quiet, &resolved.base.name);
+    let summary = run_experiment(resolved, &opts, &progress);
+    progress.finish();
+    let summary = summary?;
+    let report = if no_report {
+        None
+    } else {
+        Some(super::render::render_folder(out)?)
+    };
+    Ok((summary, report))
+}
+
 /// A short table of the points of a run on stdout.
-pub fn print_summary(s: &crate::experiment::runner::RunSummary) {
+pub fn print_summary(s: &RunSummary) {
     println!(
         "{:>5}  {:>9}  {:>9}  {:>9}  {:>9}  {:>9}  {:>17}  {:>6}",
         "point", "ideal", "baseline", "acc mean", "acc p05", "yield", "yield 95% CI", "failed"

@@ -64,8 +64,6 @@ pub struct RunOptions {
     pub threads: Option<usize>,
     /// Replace results of another experiment in `out`.
     pub fresh: bool,
-    /// Skip the plots and HTML report.
-    pub no_report: bool,
     /// The command line, recorded in the manifest.
     pub command: String,
 }
@@ -346,8 +344,10 @@ pub fn run(
             ) + &failure_note),
         );
     }
-    // Tables also exist when every point was resumed.
-    dir.write_tables(&records, &axis_paths, &class_names)?;
+    // Tables also exist when every point was resumed (a run that ran a point wrote them).
+    if ran == 0 {
+        dir.write_tables(&records, &axis_paths, &class_names)?;
+    }
     manifest(&records, true).map_err(ResultsError::from)?;
     Ok(RunSummary {
         out: opts.out.clone(),
