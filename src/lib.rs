@@ -5,26 +5,18 @@
 //! a design -> chip (sampled instance) -> per-sample evaluation -> per-chip metrics ->
 //! population statistics -> files and reports.
 //!
-//! The numerical core (`physics`, `units`, `device`, `solvers`, `stages`, `pipeline`, `rng`,
-//! `data` parsing of in-memory text, `training`) does no I/O beyond reading a dataset file when
-//! asked and never prints. Files, progress and plots live in `io`, `experiment`, `report` and
-//! `cli`.
+//! The workspace has three layers:
+//! - `hardmax-core` (re-exported here: `physics`, `units`, `device`, `solvers`, `stages`,
+//!   `pipeline`, `rng`, `data`, `training`): the numerical core; no I/O beyond reading a dataset
+//!   file when asked, never prints, no CLI/progress/plot dependency.
+//! - `hardmax-report` (re-exported: `io`, `report`, and `experiment::{results, stats}`): the
+//!   results-folder format, statistics, plots and the HTML report.
+//! - this crate: experiment files, the Monte Carlo runner and the command line.
+
+pub use hardmax_core::{
+    data, device, physics, pipeline, rng, solvers, stages, training, units, CAUTION,
+};
+pub use hardmax_report::{io, report};
 
 pub mod cli;
-pub mod data;
-pub mod device;
 pub mod experiment;
-pub mod io;
-pub mod physics;
-pub mod pipeline;
-pub mod report;
-pub mod rng;
-pub mod solvers;
-pub mod stages;
-pub mod training;
-pub mod units;
-
-/// The caution every report and summary carries (DEVELOPERS.md model notes section 8).
-pub const CAUTION: &str = "hardmax gives architecture-stage estimates from compact models and generic \
-parameters; it is not sign-off. Final decisions need the foundry's characterised models, corner and \
-Monte Carlo simulation in your verification flow, and silicon measurement.";

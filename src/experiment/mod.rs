@@ -3,8 +3,8 @@
 pub mod build;
 pub mod config;
 pub mod quantity;
-pub mod results;
+pub use hardmax_report::results;
 pub mod runner;
-pub mod stats;
+pub use hardmax_report::stats;
 pub mod sweep;
 pub mod tree;

@@ -36,9 +36,9 @@ pub struct Dataset {
 /// Names of the datasets shipped inside the binary (see `datasets/PROVENANCE.md`).
 pub const BUILTIN_DATASETS: [&str; 3] = ["iris", "wine", "digits"];
 
-const IRIS_CSV: &str = include_str!("../../datasets/iris.csv");
-const WINE_CSV: &str = include_str!("../../datasets/wine.csv");
-const DIGITS_CSV: &str = include_str!("../../datasets/digits.csv");
+const IRIS_CSV: &str = include_str!("../../../../datasets/iris.csv");
+const WINE_CSV: &str = include_str!("../../../../datasets/wine.csv");
+const DIGITS_CSV: &str = include_str!("../../../../datasets/digits.csv");
 
 impl Dataset {
     /// One of the shipped open datasets by name (`iris`, `wine`, `digits`), embedded in the

@@ -6,7 +6,7 @@ use std::path::PathBuf;
 use crate::io::AtomicWriteError;
 
 /// The results-folder format version this build reads (see DEVELOPERS.md, "Results folder").
-pub const SUPPORTED_FORMAT_VERSION: u64 = crate::experiment::results::FORMAT_VERSION as u64;
+pub const SUPPORTED_FORMAT_VERSION: u64 = crate::results::FORMAT_VERSION as u64;
 
 /// Everything that can go wrong while reading a results folder or rendering its report.
 #[derive(Debug, thiserror::Error)]

@@ -103,7 +103,7 @@ pub struct Manifest {
 }
 
 /// The value `format` must have in a manifest.
-pub const MANIFEST_FORMAT: &str = crate::experiment::results::FORMAT_NAME;
+pub const MANIFEST_FORMAT: &str = crate::results::FORMAT_NAME;
 
 /// The fixed statistics columns of `points.csv`, in schema order (after `point` and the sweep
 /// parameter columns).

@@ -1,0 +1,24 @@
+//! hardmax-core: the numerical core of hardmax.
+//!
+//! Devices (EKV MOSFET, Pelgrom mismatch, noise), weight stages, competition stages (current-mode
+//! WTA, multi-input differential pair, their transient), solvers, chip sampling, datasets in
+//! memory, training, reproducible random streams and SI quantities.
+//!
+//! Invariant: this crate does no I/O beyond reading a dataset file when asked, never prints, and
+//! depends on no command-line, progress-bar or plotting crate (checked in CI). Everything that
+//! writes files, draws progress or plots lives in `hardmax-report` and the `hardmax` binary.
+
+pub mod data;
+pub mod device;
+pub mod physics;
+pub mod pipeline;
+pub mod rng;
+pub mod solvers;
+pub mod stages;
+pub mod training;
+pub mod units;
+
+/// The caution every report and summary carries (DEVELOPERS.md model notes section 8).
+pub const CAUTION: &str = "hardmax gives architecture-stage estimates from compact models and generic \
+parameters; it is not sign-off. Final decisions need the foundry's characterised models, corner and \
+Monte Carlo simulation in your verification flow, and silicon measurement.";
