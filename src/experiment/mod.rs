@@ -5,6 +5,8 @@ pub mod config;
 pub mod quantity;
 pub mod results;
 pub mod runner;
+pub mod shard;
+pub mod slurm;
 pub mod stats;
 pub mod sweep;
 pub mod tree;
