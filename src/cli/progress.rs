@@ -72,11 +72,12 @@ impl Observer for Progress {
         }
     }
 
-    fn start_units(&self, shard: &str, total: usize, done: usize, chips_todo: u64) {
+    fn start_units(&self, _shard: &str, total: usize, done: usize, chips_todo: u64) {
+        // The prefix names the shard already.
         self.begin(chips_todo);
         if self.plain {
             eprintln!(
-                "{}: shard {shard}: {chips_todo} chips to evaluate over {total} sweep points ({done} points already finished)",
+                "{}: {chips_todo} chips to evaluate over {total} sweep points ({done} points already finished)",
                 self.prefix
             );
         }

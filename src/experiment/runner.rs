@@ -358,7 +358,8 @@ pub fn run(
                 s.yield_hi,
                 s.nonconverged,
                 tp.elapsed().as_secs_f64()
-            ) + &failure_note),
+            ) + &plan.part_note(p.point)
+                + &failure_note),
         );
     }
     // Tables also exist when every point was resumed (a run that ran a point wrote them).

@@ -203,6 +203,20 @@ impl Plan {
         }
     }
 
+    /// For a shard's progress lines: which chips of `point` the line's statistics cover.
+    pub fn part_note(&self, point: usize) -> String {
+        if self.shard.is_none() {
+            return String::new();
+        }
+        let r = self.chips_of(point);
+        format!(
+            " (chips {}..{} of {} only; population statistics after merging)",
+            r.start,
+            r.end.saturating_sub(1),
+            self.chips
+        )
+    }
+
     /// The manifest's `shard` entry (None for a whole run).
     pub fn manifest_entry(&self) -> Option<Value> {
         self.shard.map(|s| {
