@@ -458,3 +458,76 @@ fn slurm_script_writes_array_and_merge_jobs() {
         .failure()
         .stderr(predicate::str::contains("more than the 22 work units"));
 }
+
+/// A shard killed part-way (SIGKILL, as a scheduler's time limit ends a task) resumes when the
+/// same command runs again, and the merge equals an uninterrupted single run.
+#[test]
+fn killed_shard_resumes_and_merges_exactly() {
+    use std::time::{Duration, Instant};
+    let dir = tempfile::tempdir().unwrap();
+    // 6 points x 12 chips = 72 units; shard 1/2 holds points 0, 1, 2.
+    let exp = write(
+        dir.path(),
+        "resume.toml",
+        r#"
+[dataset]
+name = "digits"
+[population]
+chips = 12
+[[sweep.axis]]
+path = "competition.gain"
+values = [50, 100, 200, 400, 800, 1600]
+"#,
+    );
+    let single = dir.path().join("single");
+    run_single(&exp, &single);
+    let cut = dir.path().join("s1");
+    let shard_cmd = || {
+        let mut c = hardmax();
+        c.args([
+            "run",
+            "--quiet",
+            "--threads",
+            "1",
+            "--shard",
+            "1/2",
+            "--out",
+        ])
+        .arg(&cut)
+        .arg(&exp);
+        c
+    };
+    let mut killed_mid_run = false;
+    for _attempt in 0..3 {
+        let _ = std::fs::remove_dir_all(&cut);
+        let mut child = shard_cmd().spawn().unwrap();
+        let t0 = Instant::now();
+        let count = || {
+            std::fs::read_dir(cut.join("points"))
+                .map(|d| d.count())
+                .unwrap_or(0)
+        };
+        while count() < 1 && t0.elapsed() < Duration::from_secs(120) {
+            std::thread::sleep(Duration::from_millis(5));
+        }
+        let still_running = child.try_wait().unwrap().is_none();
+        let _ = child.kill();
+        let _ = child.wait();
+        if still_running && count() < 3 {
+            killed_mid_run = true;
+            break;
+        }
+    }
+    assert!(killed_mid_run, "could not interrupt the shard part-way");
+    let m = String::from_utf8(read(&cut.join("manifest.json"))).unwrap();
+    assert!(m.contains("\"partial\""), "{m}");
+    let s2 = dir.path().join("s2");
+    run_shard(&exp, &s2, "2/2", &[]);
+    merge(&dir.path().join("early"), &[cut.clone(), s2.clone()])
+        .failure()
+        .stderr(predicate::str::contains("rerun shard(s) 1/2"));
+    shard_cmd().assert().success();
+    let out = dir.path().join("merged");
+    merge(&out, &[s2, cut]).success();
+    assert_same_as_single(&single, &out);
+}
