@@ -11,8 +11,6 @@ use std::path::{Path, PathBuf};
 use std::process::Command;
 use std::time::{Duration, Instant};
 
-use assert_cmd::prelude::*;
-
 const SMALL: &str = r#"
 description = "iris, two bias currents (Slurm test)"
 [dataset]
@@ -130,8 +128,9 @@ fn slurm_array_and_merge_equal_local_run() {
     let exp = tmp.path().join("small.toml");
     std::fs::write(&exp, SMALL).unwrap();
     let local = tmp.path().join("local");
-    Command::cargo_bin("hardmax")
+    assert_cmd::Command::cargo_bin("hardmax")
         .unwrap()
+        .timeout(Duration::from_secs(300))
         .args(["run", "--quiet", "--no-report", "--out"])
         .arg(&local)
         .arg(&exp)
@@ -139,8 +138,10 @@ fn slurm_array_and_merge_equal_local_run() {
         .success();
 
     let root = tmp.path().join("farm");
-    let out = Command::cargo_bin("hardmax")
-        .unwrap()
+    // Bounded: sbatch waits for slurmctld.
+    let out = Command::new("timeout")
+        .arg("120")
+        .arg(assert_cmd::cargo::cargo_bin("hardmax"))
         .env("SLURM_CONF", &conf)
         .args([
             "slurm-script",
