@@ -5,10 +5,12 @@ use clap::{Parser, Subcommand};
 
 pub mod baseline;
 pub mod batch;
+pub mod merge;
 pub mod progress;
 pub mod render;
 pub mod resolve;
 pub mod run;
+pub mod slurm;
 pub mod stage;
 
 /// hardmax: what accuracy will a population of analog WTA classifier chips deliver?
@@ -32,6 +34,10 @@ pub enum Command {
     Resolve(resolve::ResolveArgs),
     /// Evaluate one competition stage on given inputs, or sweep one input (transfer curve).
     Stage(Box<stage::StageArgs>),
+    /// Merge the shard folders of an experiment (`run --shard K/N`) into one results folder.
+    Merge(merge::MergeArgs),
+    /// Write (and with --submit, submit) a Slurm array job of shards plus a dependent merge job.
+    SlurmScript(slurm::SlurmArgs),
     /// Re-render plots and the HTML report of an existing results folder from its CSV files.
     Render(render::RenderArgs),
     /// Train the float classifier on a dataset; print the linfa baseline and ideal-argmax accuracy.
@@ -46,6 +52,8 @@ pub fn main_entry() -> anyhow::Result<()> {
         Command::Batch(a) => batch::run(a),
         Command::Resolve(a) => resolve::run(a),
         Command::Stage(a) => stage::run(*a),
+        Command::Merge(a) => merge::run(a),
+        Command::SlurmScript(a) => slurm::run(a),
         Command::Render(a) => render::run(a),
         Command::Baseline(a) => baseline::run(a),
     }

@@ -44,9 +44,8 @@ impl Progress {
     }
 }
 
-impl Observer for Progress {
-    fn start(&self, total: usize, done: usize, chips: u64) {
-        let todo = total.saturating_sub(done) as u64 * chips;
+impl Progress {
+    fn begin(&self, todo: u64) {
         self.total_chips.store(todo, Ordering::Relaxed);
         if let Some(b) = &self.bar {
             b.set_draw_target(indicatif::ProgressDrawTarget::stderr());
@@ -59,9 +58,26 @@ impl Observer for Progress {
             );
             b.set_prefix(self.prefix.clone());
         }
+    }
+}
+
+impl Observer for Progress {
+    fn start(&self, total: usize, done: usize, chips: u64) {
+        self.begin(total.saturating_sub(done) as u64 * chips);
         if self.plain {
             eprintln!(
                 "{}: {total} sweep points x {chips} chips ({done} points already finished)",
+                self.prefix
+            );
+        }
+    }
+
+    fn start_units(&self, _shard: &str, total: usize, done: usize, chips_todo: u64) {
+        // The prefix names the shard already.
+        self.begin(chips_todo);
+        if self.plain {
+            eprintln!(
+                "{}: {chips_todo} chips to evaluate over {total} sweep points ({done} points already finished)",
                 self.prefix
             );
         }

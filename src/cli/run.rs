@@ -8,6 +8,7 @@ use clap::Args;
 use super::progress::Progress;
 use crate::experiment::config::{load, Resolved};
 use crate::experiment::runner::{run as run_experiment, RunOptions, RunSummary};
+use crate::experiment::shard::ShardSpec;
 
 #[derive(Debug, Args)]
 pub struct RunArgs {
@@ -31,25 +32,45 @@ pub struct RunArgs {
     /// Skip the plots and HTML report.
     #[arg(long)]
     pub no_report: bool,
+    /// Run only shard K of N (1-based, e.g. 2/4) of the (sweep point, chip) work; the folder
+    /// holds a part for `hardmax merge` (default: results/<name>-shards/shard-K-of-N). No
+    /// tables or report until merged.
+    #[arg(long, value_name = "K/N")]
+    pub shard: Option<ShardSpec>,
 }
 
 pub fn run(args: RunArgs) -> anyhow::Result<()> {
     let resolved = load(&args.file, &args.set)?;
-    let out = args
-        .out
-        .clone()
-        .unwrap_or_else(|| PathBuf::from("results").join(&resolved.base.name));
-    let (summary, report) = execute(
+    let out = args.out.clone().unwrap_or_else(|| match args.shard {
+        None => PathBuf::from("results").join(&resolved.base.name),
+        Some(s) => PathBuf::from("results")
+            .join(format!("{}-shards", resolved.base.name))
+            .join(s.folder_name()),
+    });
+    let (summary, report) = execute_with(
         &resolved,
         &out,
-        args.threads,
-        args.fresh,
-        args.quiet,
-        args.no_report,
+        &Choices {
+            threads: args.threads,
+            fresh: args.fresh,
+            quiet: args.quiet,
+            no_report: args.no_report || args.shard.is_some(),
+            shard: args.shard,
+        },
     )
     .with_context(|| format!("running `{}`", args.file.display()))?;
     if !args.quiet {
-        print_summary(&summary);
+        match args.shard {
+            None => print_summary(&summary),
+            Some(s) => println!(
+                "shard {s}: {} of its sweep points finished ({} run now, {} resumed) in {:.1} s; merge all {} shards with `hardmax merge --out DIR SHARD_FOLDERS...`",
+                summary.records.len(),
+                summary.points_run,
+                summary.points_resumed,
+                summary.elapsed_s,
+                s.count
+            ),
+        }
         println!("results: {}", out.display());
         if let Some(r) = report {
             println!("report:  {}", r.display());
@@ -69,13 +90,47 @@ pub fn execute(
     quiet: bool,
     no_report: bool,
 ) -> anyhow::Result<(RunSummary, Option<PathBuf>)> {
+    execute_with(
+        resolved,
+        out,
+        &Choices {
+            threads,
+            fresh,
+            quiet,
+            no_report,
+            shard: None,
+        },
+    )
+}
+
+/// The choices of one run beyond the experiment and the folder.
+pub struct Choices {
+    pub threads: Option<usize>,
+    pub fresh: bool,
+    pub quiet: bool,
+    pub no_report: bool,
+    pub shard: Option<ShardSpec>,
+}
+
+/// [`execute`] with a shard.
+pub fn execute_with(
+    resolved: &Resolved,
+    out: &Path,
+    c: &Choices,
+) -> anyhow::Result<(RunSummary, Option<PathBuf>)> {
+    let (threads, fresh, quiet, no_report) = (c.threads, c.fresh, c.quiet, c.no_report);
     let opts = RunOptions {
         out: out.to_path_buf(),
         threads,
         fresh,
         command: std::env::args().collect::<Vec<_>>().join(" "),
+        shard: c.shard,
     };
-    let progress = Progress::new(quiet, &resolved.base.name);
+    let prefix = match c.shard {
+        None => resolved.base.name.clone(),
+        Some(s) => format!("{} shard {s}", resolved.base.name),
+    };
+    let progress = Progress::new(quiet, &prefix);
     let summary = run_experiment(resolved, &opts, &progress);
     progress.finish();
     let summary = summary?;
@@ -89,11 +144,20 @@ pub fn execute(
 
 /// A short table of the points of a run on stdout.
 pub fn print_summary(s: &RunSummary) {
+    print_table(&s.records);
+    println!(
+        "{} points ({} run now, {} resumed) in {:.1} s",
+        s.points_total, s.points_run, s.points_resumed, s.elapsed_s
+    );
+}
+
+/// One line per point: accuracy, yield, failures.
+pub fn print_table(records: &[crate::experiment::results::PointRecord]) {
     println!(
         "{:>5}  {:>9}  {:>9}  {:>9}  {:>9}  {:>9}  {:>17}  {:>6}",
         "point", "ideal", "baseline", "acc mean", "acc p05", "yield", "yield 95% CI", "failed"
     );
-    for r in &s.records {
+    for r in records {
         let m = r.summary();
         println!(
             "{:>5}  {:>9.4}  {:>9.4}  {:>9.4}  {:>9.4}  {:>9.3}  [{:>6.3}, {:>6.3}]  {:>6}",
@@ -108,8 +172,4 @@ pub fn print_summary(s: &RunSummary) {
             m.nonconverged
         );
     }
-    println!(
-        "{} points ({} run now, {} resumed) in {:.1} s",
-        s.points_total, s.points_run, s.points_resumed, s.elapsed_s
-    );
 }

@@ -513,6 +513,29 @@ impl Default for TargetCfg {
     }
 }
 
+/// `[cluster]`: settings of the job scripts `hardmax slurm-script` writes. Not part of the
+/// experiment's identity (removed from the resolved experiment): changing them never changes
+/// results. Command-line options take precedence.
+#[derive(Clone, Debug, Default, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields, default)]
+pub struct ClusterCfg {
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub partition: Option<String>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub account: Option<String>,
+    /// Slurm time format: minutes, "HH:MM:SS" or "D-HH:MM:SS".
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub time_limit: Option<String>,
+    /// Memory per task, e.g. "4G".
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub memory: Option<String>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub cpus_per_task: Option<u64>,
+    /// Number of shards (array tasks).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub shards: Option<u64>,
+}
+
 /// A whole experiment file.
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
 #[serde(deny_unknown_fields)]
@@ -543,6 +566,9 @@ pub struct Experiment {
     pub target: TargetCfg,
     #[serde(default)]
     pub sweep: SweepSpec,
+    /// Batch-scheduler settings (taken out of the resolved experiment, see [`ClusterCfg`]).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub cluster: Option<ClusterCfg>,
 }
 
 impl Experiment {
@@ -570,6 +596,7 @@ impl Experiment {
             population: PopulationCfg::default(),
             target: TargetCfg::default(),
             sweep: SweepSpec::default(),
+            cluster: None,
         };
         e.process.vdd = Some(Q::new(1.8));
         for d in [&mut e.process.nmos, &mut e.process.pmos] {
@@ -612,6 +639,8 @@ pub struct Resolved {
     pub points: Vec<PointIndex>,
     /// The experiment at each sweep point.
     pub at_point: Vec<Experiment>,
+    /// The `[cluster]` table (defaults when absent); not part of `tree`.
+    pub cluster: ClusterCfg,
 }
 
 impl Resolved {
@@ -677,6 +706,8 @@ pub fn load_str(text: &str, file: &Path, overrides: &[String]) -> Result<Resolve
     }
     fill_process_defaults(&mut base, text, file)?;
     check(&base, text, file)?;
+    let cluster = base.cluster.take().unwrap_or_default();
+    check_cluster(&cluster, text, file)?;
     let resolved_tree = Value::try_from(&base).map_err(|e| ConfigError::Syntax {
         path: file.into(),
         message: format!("internal: cannot serialise the resolved experiment: {e}"),
@@ -712,7 +743,50 @@ pub fn load_str(text: &str, file: &Path, overrides: &[String]) -> Result<Resolve
         axes,
         points,
         at_point,
+        cluster,
     })
+}
+
+/// Checks of the `[cluster]` table, naming the key.
+fn check_cluster(c: &ClusterCfg, text: &str, file: &Path) -> Result<(), ConfigError> {
+    let bad = |key: &str, message: String| ConfigError::Key {
+        path: file.into(),
+        key: key.into(),
+        line: LineNo(line_of(text, key)),
+        message,
+        hint: Hint(None),
+    };
+    if let Some(t) = &c.time_limit {
+        super::slurm::check_time_limit(t).map_err(|m| bad("cluster.time_limit", m))?;
+    }
+    if let Some(m) = &c.memory {
+        super::slurm::check_memory(m).map_err(|m| bad("cluster.memory", m))?;
+    }
+    for (key, v) in [
+        ("cluster.cpus_per_task", c.cpus_per_task),
+        ("cluster.shards", c.shards),
+    ] {
+        if v == Some(0) {
+            return Err(bad(key, "0: use a whole number of at least 1".into()));
+        }
+    }
+    for (key, v) in [
+        ("cluster.partition", &c.partition),
+        ("cluster.account", &c.account),
+    ] {
+        if let Some(v) = v {
+            if v.is_empty()
+                || v.chars()
+                    .any(|ch| ch.is_whitespace() || ch == '\'' || ch == '"')
+            {
+                return Err(bad(
+                    key,
+                    format!("`{v}`: a name without spaces or quotes, as the cluster's administrators gave it"),
+                ));
+            }
+        }
+    }
+    Ok(())
 }
 
 /// Typed deserialisation with key paths, line numbers and suggestions in errors.

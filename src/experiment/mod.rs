@@ -5,6 +5,8 @@ pub mod config;
 pub mod quantity;
 pub use hardmax_report::results;
 pub mod runner;
+pub mod shard;
+pub mod slurm;
 pub use hardmax_report::stats;
 pub mod sweep;
 pub mod tree;

@@ -16,6 +16,7 @@ use sha2::{Digest, Sha256};
 use super::build::{build_point, prepare_data};
 use super::config::Resolved;
 use super::results::{ChipRow, PointRecord, ResultsDir, ResultsError, FORMAT_NAME, FORMAT_VERSION};
+use super::shard::{Plan, ShardError, ShardSpec};
 use crate::io::write_atomic;
 use crate::pipeline::{evaluate_chip, Prepared};
 
@@ -24,6 +25,8 @@ use crate::pipeline::{evaluate_chip, Prepared};
 pub enum RunError {
     #[error(transparent)]
     Results(#[from] ResultsError),
+    #[error(transparent)]
+    Shard(#[from] ShardError),
     #[error("sweep point {point} ({settings}): {message}")]
     Point {
         point: usize,
@@ -42,6 +45,9 @@ pub enum RunError {
 pub trait Observer: Sync {
     /// A run starts: `total` points, `done` of them already finished (resume), chips per point.
     fn start(&self, _total: usize, _done: usize, _chips: u64) {}
+    /// A shard starts (`shard` is "K/N"): `total` points touched, `done` of them finished,
+    /// `chips_todo` chips left to evaluate.
+    fn start_units(&self, _shard: &str, _total: usize, _done: usize, _chips_todo: u64) {}
     /// One chip of the current point finished.
     fn chip_done(&self) {}
     /// A point finished (its summary line).
@@ -66,6 +72,8 @@ pub struct RunOptions {
     pub fresh: bool,
     /// The command line, recorded in the manifest.
     pub command: String,
+    /// Run only this shard of the (point, chip) work units (see `experiment::shard`).
+    pub shard: Option<ShardSpec>,
 }
 
 /// What a finished (or resumed) run did.
@@ -110,6 +118,7 @@ pub fn run(
         .map(|d| d.as_secs())
         .unwrap_or(0);
     let hash = experiment_hash(resolved);
+    let plan = Plan::new(resolved, opts.shard)?;
     let base_dir = resolved
         .file
         .parent()
@@ -167,7 +176,7 @@ pub fn run(
         })
         .collect::<Result<Vec<_>, _>>()?;
 
-    let (dir, _resumed) = ResultsDir::open(&opts.out, &hash, opts.fresh)?;
+    let (dir, _resumed) = ResultsDir::open(&opts.out, &plan.stamp(&hash), opts.fresh)?;
     write_atomic(
         &opts.out.join("experiment.toml"),
         resolved.to_toml().as_bytes(),
@@ -202,7 +211,7 @@ pub fn run(
     let threads = pool.current_num_threads();
 
     let manifest = |records: &[PointRecord], complete: bool| {
-        let m = json!({
+        let mut m = json!({
             "format": FORMAT_NAME,
             "format_version": FORMAT_VERSION,
             "tool_version": env!("CARGO_PKG_VERSION"),
@@ -244,15 +253,20 @@ pub fn run(
             "started_unix_s": started_unix_s,
             "elapsed_s": t0.elapsed().as_secs_f64(),
         });
+        if let (Some(o), Some(s)) = (m.as_object_mut(), plan.manifest_entry()) {
+            o.insert("shard".into(), s);
+        }
         let bytes = serde_json::to_vec_pretty(&m).unwrap_or_default();
         write_atomic(&opts.out.join("manifest.json"), &bytes)
     };
-    manifest(&records, records.len() == resolved.points.len()).map_err(ResultsError::from)?;
-    observer.start(resolved.points.len(), resumed, chips);
+    let plan_points = plan.points().len();
+    manifest(&records, records.len() == plan_points).map_err(ResultsError::from)?;
+    plan.announce(observer, &records);
 
     let mut ran = 0;
     for p in &resolved.points {
-        if records.iter().any(|r| r.point == p.point) {
+        let my_chips = plan.chips_of(p.point);
+        if my_chips.is_empty() || records.iter().any(|r| r.point == p.point) {
             continue;
         }
         if observer.should_stop() {
@@ -265,7 +279,7 @@ pub fn run(
         let prep = &prepared[p.point].1;
         let setup = &setups[p.point];
         let outcomes = pool.install(|| {
-            (0..chips)
+            my_chips
                 .into_par_iter()
                 .map(|c| {
                     let o = evaluate_chip(setup, prep, seed, p.point as u64, c);
@@ -324,8 +338,11 @@ pub fn run(
             .unwrap_or_default();
         records.push(rec);
         records.sort_by_key(|r| r.point);
-        dir.write_tables(&records, &axis_paths, &class_names)?;
-        manifest(&records, records.len() == resolved.points.len()).map_err(ResultsError::from)?;
+        // A shard's tables would hold statistics of part of a population: merged ones only.
+        if !plan.is_shard() {
+            dir.write_tables(&records, &axis_paths, &class_names)?;
+        }
+        manifest(&records, records.len() == plan_points).map_err(ResultsError::from)?;
         ran += 1;
         observer.point_done(
             p.point,
@@ -341,11 +358,12 @@ pub fn run(
                 s.yield_hi,
                 s.nonconverged,
                 tp.elapsed().as_secs_f64()
-            ) + &failure_note),
+            ) + &plan.part_note(p.point)
+                + &failure_note),
         );
     }
     // Tables also exist when every point was resumed (a run that ran a point wrote them).
-    if ran == 0 {
+    if ran == 0 && !plan.is_shard() {
         dir.write_tables(&records, &axis_paths, &class_names)?;
     }
     manifest(&records, true).map_err(ResultsError::from)?;
