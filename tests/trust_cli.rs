@@ -522,3 +522,24 @@ fn separator_hint_and_zero_gain() {
         .stderr(predicate::str::contains("gain = inf").not())
         .stderr(predicate::str::contains("must be a positive number"));
 }
+
+/// Item: sweep points are described without rounding a designer's value away ("-40 degC" is
+/// 233.15 K, not "233.2 K").
+#[test]
+fn points_keep_their_digits() {
+    let dir = tempfile::tempdir().unwrap();
+    let exp = write(
+        dir.path(),
+        "t.toml",
+        "[dataset]\nname = \"iris\"\n[[sweep.axis]]\npath = \"conditions.temperature\"\nvalues = [\"-40 degC\", \"27 degC\"]\n",
+    );
+    hardmax()
+        .args(["resolve", "--points"])
+        .arg(&exp)
+        .assert()
+        .success()
+        .stdout(predicate::str::contains(
+            "# point 0: conditions.temperature = 233.15 K",
+        ))
+        .stdout(predicate::str::contains("300.15 K"));
+}

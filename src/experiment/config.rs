@@ -649,7 +649,7 @@ fn describe_point(axes: &[Axis], p: &PointIndex) -> String {
             format!(
                 "{} = {}",
                 a.path,
-                crate::units::format_si(a.values[i], &a.unit, 4)
+                crate::units::format_si(a.values[i], &a.unit, 6)
             )
         })
         .collect::<Vec<_>>()
