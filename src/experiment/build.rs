@@ -524,19 +524,40 @@ pub fn check_with_core(e: &Experiment) -> Result<(), CoreRefusal> {
             message: other.to_string(),
         },
     })?;
+    // The weight stage's core names, by suffix, to the user's keys; an unknown name maps to the
+    // section rather than to a guessed key.
     let weight_key = |name: &str| -> String {
-        match name {
-            "input.full_scale_current_a" => "input.full_scale_current".into(),
-            "input.gain_sigma_rel" => "input.gain_mismatch".into(),
-            "input.dac_bits" => "input.dac_bits".into(),
-            n => match n.rsplit('.').next() {
-                Some(last) => format!(
-                    "weights.{}",
-                    last.trim_end_matches("_s").trim_end_matches("_v")
-                ),
-                None => "weights".into(),
-            },
+        const MAP: [(&str, &str); 20] = [
+            ("full_scale_current_a", "input.full_scale_current"),
+            ("gain_sigma_rel", "input.gain_mismatch"),
+            ("dac_bits", "input.dac_bits"),
+            ("read_noise.sigma", "weights.read_noise"),
+            ("read_noise_rel", "weights.read_noise"),
+            ("programming_error.sigma", "weights.programming_error"),
+            ("programming_error_v", "weights.programming_error_voltage"),
+            ("drift.nu_sigma", "weights.drift_exponent_sigma"),
+            ("drift.nu", "weights.drift_exponent"),
+            ("drift.t0_s", "weights.drift_reference_time"),
+            ("offset.auto.margin", "weights.offset_margin"),
+            ("offset.fixed.current_a", "weights.offset_current"),
+            ("offset_sigma_rel", "weights.offset_mismatch"),
+            ("stuck_at_min_fraction", "weights.stuck_at_min"),
+            ("stuck_at_max_fraction", "weights.stuck_at_max"),
+            ("program_temperature_k", "weights.program_temperature"),
+            ("w_min", "weights.w_min"),
+            ("w_max", "weights.w_max"),
+            ("levels", "weights.levels"),
+            ("range_use", "weights.range_use"),
+        ];
+        if let Some((_, key)) = MAP.iter().find(|(suffix, _)| name.ends_with(suffix)) {
+            return (*key).into();
         }
+        for part in ["device.w", "device.l", "mirror.w", "mirror.l"] {
+            if name.ends_with(part) {
+                return format!("weights.{part}");
+            }
+        }
+        "weights".into()
     };
     weight_stage(e).validate().map_err(|err| match err {
         W::InvalidParameter {

@@ -1415,6 +1415,32 @@ mod tests {
         assert!(empty.contains("competition.gain"), "{empty}");
     }
 
+    /// The core's refusals come back under the user's key (the core says `read_time`,
+    /// `bias current`, `programming_error_v`; the user wrote the keys below).
+    #[test]
+    fn core_refusals_name_the_user_key() {
+        let base = load_text("[dataset]\nname = \"iris\"\n").unwrap().base;
+        let mut e = base.clone();
+        e.competition.evaluation = EvaluationKind::Transient;
+        e.competition.read_time = Some(Q::new(-1e-9));
+        let r = super::super::build::check_with_core(&e).unwrap_err();
+        assert_eq!(r.key, "competition.read_time");
+        let mut e = base.clone();
+        e.competition.bias_current = Q::new(-1e-9);
+        let r = super::super::build::check_with_core(&e).unwrap_err();
+        assert_eq!(r.key, "competition.bias_current");
+        let mut e = base.clone();
+        e.weights.element = ElementKind::Subthreshold;
+        // w_min 0 (the linear default) is refused first for a subthreshold element, so:
+        let r = super::super::build::check_with_core(&e).unwrap_err();
+        assert_eq!(r.key, "weights.w_min");
+        e.weights.w_min = Some(1.0 / 16.0);
+        e.weights.programming_error_voltage = Q::new(-1e-3);
+        let r = super::super::build::check_with_core(&e).unwrap_err();
+        assert_eq!(r.key, "weights.programming_error_voltage");
+        assert!(super::super::build::check_with_core(&base).is_ok());
+    }
+
     #[test]
     fn zero_chips_and_missing_dataset() {
         let e = load_text("[dataset]\nname = \"iris\"\n[population]\nchips = 0\n")
