@@ -165,7 +165,7 @@ fn errors() {
     ));
     // Gates at ground cannot carry 1 µA through a common source at or above ground.
     let e = try_solve(&c, &[0.0, 0.0]).unwrap_err();
-    assert!(e.to_string().contains("tail.current"), "{e}");
+    assert!(e.to_string().contains("tail current"), "{e}");
     let cd = circuit(design(
         2,
         1e-10,

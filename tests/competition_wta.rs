@@ -266,7 +266,7 @@ fn errors_name_the_problem() {
     let e = WtaChip::nominal(wta_design(1, 0.01, 1e-9)).unwrap_err();
     assert!(e.to_string().contains("`n`"), "{e}");
     let e = WtaChip::nominal(wta_design(3, 0.01, -1e-9)).unwrap_err();
-    assert!(e.to_string().contains("bias.current"), "{e}");
+    assert!(e.to_string().contains("bias current"), "{e}");
     let c = circuit(&WtaChip::nominal(wta_design(3, 0.01, 1e-9)).unwrap());
     for bad in [
         [1e-9, -1e-12, 1e-9],
@@ -288,7 +288,7 @@ fn errors_name_the_problem() {
         matches!(
             e,
             CompetitionError::Compliance {
-                parameter: "bias.current",
+                parameter: "bias current",
                 ..
             }
         ),

@@ -262,11 +262,11 @@ fn bad_inputs_name_the_parameter() {
     );
     fails_with(
         &["--inputs", "10nA,9nA", "--bias", "1mA"],
-        &["`bias.current` cannot be carried within the supply"],
+        &["the bias current cannot be carried within the supply"],
     );
     fails_with(
         &["--inputs", "10mA,9nA"],
-        &["`inputs` cannot be carried", "widen the sink"],
+        &["the inputs cannot be carried", "widen the sink"],
     );
     fails_with(&["--inputs", "10nA,9nA", "--n", "0.5"], &["nmos.n"]);
     fails_with(
@@ -295,6 +295,13 @@ fn bad_inputs_name_the_parameter() {
         &["--stage", f.to_str().unwrap()],
         &["unknown key `sink.width`", "w, l"],
     );
-    std::fs::write(&f, "inputs = [\"1 nA\", \"2 nA\"]\nbias = \"5 nF\"\n").unwrap();
-    fails_with(&["--stage", f.to_str().unwrap()], &["key `bias`", "5 nF"]);
+    std::fs::write(
+        &f,
+        "inputs = [\"1 nA\", \"2 nA\"]\nbias_current = \"5 nF\"\n",
+    )
+    .unwrap();
+    fails_with(
+        &["--stage", f.to_str().unwrap()],
+        &["key `bias_current`", "5 nF"],
+    );
 }

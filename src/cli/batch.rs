@@ -66,7 +66,11 @@ fn one(file: &Path, args: &BatchArgs) -> Outcome {
         Err(e) => return Outcome::Failed(e.to_string()),
     };
     let out = args.out_root.join(&resolved.base.name);
-    let hash = experiment_hash(&resolved);
+    // The identity includes the content of every input file: an edited dataset is not up to date.
+    let hash = match experiment_hash(&resolved) {
+        Ok(h) => h,
+        Err(e) => return Outcome::Failed(e.to_string()),
+    };
     if !args.force && folder_status(&out, &hash) == Some(true) {
         return Outcome::UpToDate;
     }

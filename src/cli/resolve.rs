@@ -26,9 +26,16 @@ pub fn run(args: ResolveArgs) -> anyhow::Result<()> {
         env!("CARGO_PKG_VERSION")
     );
     println!(
-        "# quantities in SI base units; {} sweep point(s)",
+        "# quantities with SI prefixes (each reads back exactly); {} sweep point(s)",
         r.points.len()
     );
+    for a in &r.replaced_axes {
+        println!("# --set {a}=... replaces the sweep axis `{a}` (one value)");
+    }
+    for w in &r.warnings {
+        println!("# warning: {w}");
+        eprintln!("warning: {w}");
+    }
     print!("{}", r.to_toml());
     if args.points {
         println!();

@@ -130,9 +130,19 @@ pub fn execute_with(
         None => resolved.base.name.clone(),
         Some(s) => format!("{} shard {s}", resolved.base.name),
     };
+    super::progress::catch_interrupt();
     let progress = Progress::new(quiet, &prefix);
     let summary = run_experiment(resolved, &opts, &progress);
     progress.finish();
+    if let Err(e @ crate::experiment::runner::RunError::Stopped { .. }) = &summary {
+        // Ctrl-C: say what was kept and how to resume, and end like an interrupted program.
+        eprintln!(
+            "{}: {e} (results in `{}`)",
+            resolved.base.name,
+            out.display()
+        );
+        std::process::exit(130);
+    }
     let summary = summary?;
     let report = if no_report {
         None

@@ -8,9 +8,10 @@
 //! Parameters come from a stage file (`--stage FILE`, TOML, schema below) and from flags;
 //! a flag overrides the file. Quantities take SI prefixes and units ("10 nA", "2 um").
 //!
-//! Stage file keys (all optional): `circuit` ("current-wta" | "diff-pair"), `preset`,
-//! `temperature`, `inputs` (array), `bias`, `supply`, `output_voltage`, one of `gain` /
-//! `eta` / `early_voltage`, `input_capacitance`, `common_capacitance`, `read_time`,
+//! Stage file keys (all optional), spelled as in experiment files: `circuit` ("current_wta" |
+//! "diff_pair"), `preset`, `temperature`, `inputs` (array), `bias_current`, `supply`,
+//! `output_voltage`, one of `gain` / `eta` / `early_voltage`, `node_capacitance`,
+//! `common_capacitance`, `read_time`,
 //! `[sink]` and `[output]` with `w`, `l`; `[nmos]` with `vt0`, `n`, one of `mu_cox` / `is`;
 //! `[decision]` with `min_winner_share`, `max_runner_up_share`. Unknown keys are errors.
 
@@ -73,14 +74,19 @@ pub struct StageArgs {
     /// Stage file (TOML) with the parameters; flags override it.
     #[arg(long, value_name = "FILE")]
     pub stage: Option<PathBuf>,
-    /// Competition circuit [default: current-wta].
+    /// Competition circuit [default: current-wta] (stage files write "current_wta").
     #[arg(long, value_enum)]
     pub circuit: Option<CircuitArg>,
     /// Input currents, comma separated, e.g. "10nA,12nA,9nA" (at least 2).
     #[arg(long, value_name = "LIST", allow_hyphen_values = true)]
     pub inputs: Option<String>,
     /// Bias (tail) current [default: 100 nA].
-    #[arg(long, value_name = "CURRENT", allow_hyphen_values = true)]
+    #[arg(
+        long = "bias-current",
+        alias = "bias",
+        value_name = "CURRENT",
+        allow_hyphen_values = true
+    )]
     pub bias: Option<String>,
     /// Temperature [default: 300 K].
     #[arg(long, value_name = "T", allow_hyphen_values = true)]
@@ -128,7 +134,12 @@ pub struct StageArgs {
     #[arg(long, value_name = "VOLTAGE", allow_hyphen_values = true)]
     pub output_voltage: Option<String>,
     /// Capacitance of each input node [default: 50 fF].
-    #[arg(long, value_name = "CAP", allow_hyphen_values = true)]
+    #[arg(
+        long = "node-capacitance",
+        alias = "input-capacitance",
+        value_name = "CAP",
+        allow_hyphen_values = true
+    )]
     pub input_capacitance: Option<String>,
     /// Capacitance of the common node [default: 200 fF].
     #[arg(long, value_name = "CAP", allow_hyphen_values = true)]
@@ -238,6 +249,20 @@ impl Default for Spec {
     }
 }
 
+/// A drain coupling in a designer's words ("Early voltage per length 10 V/um", "eta = 0.0067"),
+/// not the type's internal spelling.
+fn describe_coupling(dc: &DrainCoupling) -> String {
+    use crate::units::short_number;
+    match *dc {
+        DrainCoupling::Eta(x) => format!("eta = {}", short_number(x)),
+        DrainCoupling::Sigma(x) => format!("sigma = {}", short_number(x)),
+        DrainCoupling::EarlyVoltage(v) => format!("Early voltage {}", format_si(v, "V", 4)),
+        DrainCoupling::EarlyVoltagePerLength(v) => {
+            format!("Early voltage per length {} V/um", short_number(v * 1e-6))
+        }
+    }
+}
+
 fn flag(name: &str, text: &str, dim: Dimension) -> anyhow::Result<f64> {
     parse_quantity(text, dim).map_err(|e| anyhow!("--{name}: {e}"))
 }
@@ -266,6 +291,11 @@ fn set_coupling(
     dc: DrainCoupling,
     source: &str,
 ) -> anyhow::Result<()> {
+    if let (DrainCoupling::Eta(eta), "gain") = (dc, key) {
+        if !(eta.is_finite() && eta > 0.0) {
+            bail!("{source}: gain = {}: the competition gain kappa/sigma must be a positive number (hundreds are typical)", crate::units::short_number(1.0 / eta));
+        }
+    }
     if let Some((prev, _)) = spec.coupling {
         if prev != key {
             bail!("{source}: give only one of gain, eta and early_voltage (`{prev}` is already set, then `{key}`)");
@@ -310,9 +340,15 @@ fn read_file(path: &Path, spec: &mut Spec) -> anyhow::Result<()> {
         match key.as_str() {
             "circuit" => {
                 let s = string(key, v)?;
-                spec.circuit = CircuitArg::from_str(&s, false).map_err(|_| {
-                    anyhow!("stage file {file}: key `circuit` = {s:?}; valid: current-wta, diff-pair")
-                })?;
+                spec.circuit = match s.as_str() {
+                    "current_wta" => CircuitArg::CurrentWta,
+                    "diff_pair" => CircuitArg::DiffPair,
+                    "current-wta" | "diff-pair" => bail!(
+                        "stage file {file}: key `circuit` = {s:?}: write {:?}, the spelling experiment files use",
+                        s.replace('-', "_")
+                    ),
+                    _ => bail!("stage file {file}: key `circuit` = {s:?}; valid: current_wta, diff_pair"),
+                };
             }
             "preset" => spec.preset = string(key, v)?,
             "temperature" => spec.temperature = q(key, v, Dimension::Temperature)?,
@@ -323,11 +359,16 @@ fn read_file(path: &Path, spec: &mut Spec) -> anyhow::Result<()> {
                 let mut items = Vec::new();
                 for (i, x) in arr.iter().enumerate() {
                     let val = q(&format!("inputs[{i}]"), x, Dimension::Current)?;
-                    items.push(format!("{val:e}"));
+                    items.push(format!("{val:e} A"));
                 }
                 spec.inputs = parse_inputs(&format!("stage file {file}: key `inputs`"), &items)?;
             }
-            "bias" => spec.bias = q(key, v, Dimension::Current)?,
+            "bias_current" => spec.bias = q(key, v, Dimension::Current)?,
+            // Old stage-file spellings: say the one spelling both file kinds use.
+            "bias" | "input_capacitance" => bail!(
+                "stage file {file}: key `{key}` is now spelled `{}`, as in experiment files",
+                if key == "bias" { "bias_current" } else { "node_capacitance" }
+            ),
             "supply" => spec.supply = Some(q(key, v, Dimension::Voltage)?),
             "output_voltage" => spec.output_voltage = Some(q(key, v, Dimension::Voltage)?),
             "gain" => {
@@ -342,7 +383,7 @@ fn read_file(path: &Path, spec: &mut Spec) -> anyhow::Result<()> {
                 let va = q(key, v, Dimension::Voltage)?;
                 set_coupling(spec, "early_voltage", DrainCoupling::EarlyVoltage(va), &file)?;
             }
-            "input_capacitance" => spec.input_capacitance = q(key, v, Dimension::Capacitance)?,
+            "node_capacitance" => spec.input_capacitance = q(key, v, Dimension::Capacitance)?,
             "common_capacitance" => spec.common_capacitance = q(key, v, Dimension::Capacitance)?,
             "read_time" => spec.read_time = Some(q(key, v, Dimension::Time)?),
             "sink" => size("sink", v, &mut spec.sink)?,
@@ -376,7 +417,7 @@ fn read_file(path: &Path, spec: &mut Spec) -> anyhow::Result<()> {
                 }
             }
             _ => bail!(
-                "stage file {file}: unknown key `{key}`; known keys: circuit, preset, temperature, inputs, bias, supply, output_voltage, gain, eta, early_voltage, input_capacitance, common_capacitance, read_time, [sink], [output], [nmos], [decision]"
+                "stage file {file}: unknown key `{key}`; known keys: circuit, preset, temperature, inputs, bias_current, supply, output_voltage, gain, eta, early_voltage, node_capacitance, common_capacitance, read_time, [sink], [output], [nmos], [decision]"
             ),
         }
     }
@@ -404,7 +445,7 @@ fn resolve(args: &StageArgs) -> anyhow::Result<Spec> {
     let opt = |name: &str, v: &Option<String>, dim| -> anyhow::Result<Option<f64>> {
         v.as_deref().map(|t| flag(name, t, dim)).transpose()
     };
-    if let Some(x) = opt("bias", &args.bias, Dimension::Current)? {
+    if let Some(x) = opt("bias-current", &args.bias, Dimension::Current)? {
         spec.bias = x;
     }
     if let Some(x) = opt("temperature", &args.temperature, Dimension::Temperature)? {
@@ -458,7 +499,7 @@ fn resolve(args: &StageArgs) -> anyhow::Result<Spec> {
         spec.output_voltage = Some(x);
     }
     if let Some(x) = opt(
-        "input-capacitance",
+        "node-capacitance",
         &args.input_capacitance,
         Dimension::Capacitance,
     )? {
@@ -886,16 +927,19 @@ impl Report {
         };
         let ut = thermal_voltage(spec.temperature);
         let coupling = match spec.coupling {
-            None => format!("process value {:?}", process.nmos.drain_coupling),
-            Some((key, dc)) => format!("{key}: {dc:?}"),
+            None => format!(
+                "process value: {}",
+                describe_coupling(&process.nmos.drain_coupling)
+            ),
+            Some((key, dc)) => format!("from {key}: {}", describe_coupling(&dc)),
         };
         let scalar = [
             ("temperature", spec.temperature, "K"),
             ("thermal_voltage", ut, "V"),
             ("supply", supply, "V"),
             ("output_voltage", vout, "V"),
-            ("bias", spec.bias, "A"),
-            ("input_capacitance", spec.input_capacitance, "F"),
+            ("bias_current", spec.bias, "A"),
+            ("node_capacitance", spec.input_capacitance, "F"),
             ("common_capacitance", spec.common_capacitance, "F"),
             ("sink.w", spec.sink.0, "m"),
             ("sink.l", spec.sink.1, "m"),
@@ -1216,8 +1260,11 @@ fn transient(
             let mut t = report.table();
             let _ = writeln!(
                 t,
-                "\nTransient ({:?} start{}; backward Euler, {} steps, {} rejected)",
-                opts.initial,
+                "\nTransient ({} start{}; backward Euler, {} steps, {} rejected)",
+                match args.initial {
+                    InitialArg::Ground => "every node at 0 V",
+                    InitialArg::CommonMode => "common-mode DC",
+                },
                 if args.noise { ", shot noise" } else { "" },
                 s.steps,
                 s.rejected_steps

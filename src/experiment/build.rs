@@ -163,6 +163,7 @@ pub fn prepare_data(e: &Experiment, base_dir: &Path) -> Result<Prepared, BuildEr
         &ds,
         e.dataset.test_fraction,
         e.dataset.split_seed,
+        e.dataset.allow_untested_classes,
         &trainer,
         hidden.as_ref(),
     )
@@ -423,6 +424,215 @@ pub fn design(e: &Experiment, n_classes: usize) -> Result<ClassifierDesign, Buil
             time_since_programming_s: e.conditions.time_since_programming.si(),
         },
     })
+}
+
+/// A core constructor's refusal, mapped to the experiment key that set the value.
+#[derive(Clone, Debug, PartialEq)]
+pub struct CoreRefusal {
+    /// The user's key (`competition.read_time`), or a section when no single key applies.
+    pub key: String,
+    /// The value refused (SI base units), when the core names one.
+    pub value: Option<f64>,
+    /// What is wrong, in the core's words about the quantity, without the core's own names.
+    pub message: String,
+}
+
+/// The experiment key of a core competition-stage parameter (`prefix` = `competition` or
+/// `hidden`).
+fn competition_key(prefix: &str, parameter: &str) -> String {
+    let k = match parameter {
+        "bias current" | "tail current" => "bias_current",
+        "input_capacitance" | "noise.capacitance" => "node_capacitance",
+        "common_capacitance" | "source_capacitance" => "common_capacitance",
+        "drain_coupling" => "gain",
+        "noise.bandwidth" => "noise_bandwidth",
+        "pair.w" => "output.w",
+        "pair.l" => "output.l",
+        "input.device.w" => "sink.w",
+        "input.device.l" => "sink.l",
+        "input.resistance" => "input_resistance",
+        "rule.min_winner_share" => "min_winner_share",
+        "rule.max_runner_up_share" => "max_runner_up_share",
+        other => other,
+    };
+    match (prefix, k) {
+        // The hidden normaliser takes its sizes and capacitances from [competition].
+        ("hidden", "bias_current") => "hidden.bias_current".into(),
+        ("hidden", "gain") => "hidden.exponent".into(),
+        ("hidden", _) => format!("competition.{k}"),
+        (p, k) => format!("{p}.{k}"),
+    }
+}
+
+fn refusal(key: String, value: f64, reason: &str) -> CoreRefusal {
+    CoreRefusal {
+        key,
+        value: Some(value),
+        message: format!("out of range: {reason}"),
+    }
+}
+
+fn competition_refusal(
+    prefix: &str,
+    e: crate::stages::competition::CompetitionError,
+) -> CoreRefusal {
+    use crate::stages::competition::CompetitionError as C;
+    match e {
+        C::InvalidParameter {
+            parameter,
+            value,
+            reason,
+            ..
+        } => refusal(competition_key(prefix, parameter), value, reason),
+        other => CoreRefusal {
+            key: prefix.into(),
+            value: None,
+            message: other.to_string(),
+        },
+    }
+}
+
+/// Check an experiment with the core's own constructors and validators (the one place where
+/// ranges are defined): the process, the weight stage, the conditions, the competition stage,
+/// the hidden normaliser circuit, the noise and the transient options. A refusal names the
+/// experiment key that set the value.
+pub fn check_with_core(e: &Experiment) -> Result<(), CoreRefusal> {
+    use crate::stages::weights::WeightStageError as W;
+    let p = process(e).map_err(|err| match err {
+        BuildError::Process(DeviceError::OutOfRange {
+            parameter,
+            value,
+            accepted,
+        }) => {
+            let key = match parameter.split_once('.') {
+                Some((dev @ ("nmos" | "pmos"), rest)) => format!(
+                    "process.{dev}.{}",
+                    match rest {
+                        "a_vt_pair" => "a_vt",
+                        "a_beta_pair" => "a_beta",
+                        "drain_coupling" => "early_voltage_per_length",
+                        r => r,
+                    }
+                ),
+                _ => parameter.clone(),
+            };
+            refusal(key, value, accepted)
+        }
+        other => CoreRefusal {
+            key: "process".into(),
+            value: None,
+            message: other.to_string(),
+        },
+    })?;
+    // The weight stage's core names, by suffix, to the user's keys; an unknown name maps to the
+    // section rather than to a guessed key.
+    let weight_key = |name: &str| -> String {
+        const MAP: [(&str, &str); 20] = [
+            ("full_scale_current_a", "input.full_scale_current"),
+            ("gain_sigma_rel", "input.gain_mismatch"),
+            ("dac_bits", "input.dac_bits"),
+            ("read_noise.sigma", "weights.read_noise"),
+            ("read_noise_rel", "weights.read_noise"),
+            ("programming_error.sigma", "weights.programming_error"),
+            ("programming_error_v", "weights.programming_error_voltage"),
+            ("drift.nu_sigma", "weights.drift_exponent_sigma"),
+            ("drift.nu", "weights.drift_exponent"),
+            ("drift.t0_s", "weights.drift_reference_time"),
+            ("offset.auto.margin", "weights.offset_margin"),
+            ("offset.fixed.current_a", "weights.offset_current"),
+            ("offset_sigma_rel", "weights.offset_mismatch"),
+            ("stuck_at_min_fraction", "weights.stuck_at_min"),
+            ("stuck_at_max_fraction", "weights.stuck_at_max"),
+            ("program_temperature_k", "weights.program_temperature"),
+            ("w_min", "weights.w_min"),
+            ("w_max", "weights.w_max"),
+            ("levels", "weights.levels"),
+            ("range_use", "weights.range_use"),
+        ];
+        if let Some((_, key)) = MAP.iter().find(|(suffix, _)| name.ends_with(suffix)) {
+            return (*key).into();
+        }
+        for part in ["device.w", "device.l", "mirror.w", "mirror.l"] {
+            if name.ends_with(part) {
+                return format!("weights.{part}");
+            }
+        }
+        "weights".into()
+    };
+    weight_stage(e).validate().map_err(|err| match err {
+        W::InvalidParameter {
+            name,
+            value,
+            accepted,
+        } => CoreRefusal {
+            key: weight_key(&name),
+            value: None,
+            message: format!("{value} is out of range: {accepted}"),
+        },
+        other => CoreRefusal {
+            key: "weights".into(),
+            value: None,
+            message: other.to_string(),
+        },
+    })?;
+    let d = design(e, 2).map_err(|err| CoreRefusal {
+        key: "competition".into(),
+        value: None,
+        message: err.to_string(),
+    })?;
+    d.conditions.validate().map_err(|err| match err {
+        W::InvalidCondition {
+            name,
+            value,
+            accepted,
+        } => refusal(
+            match name {
+                "temperature_k" => "conditions.temperature".into(),
+                _ => "conditions.time_since_programming".into(),
+            },
+            value,
+            accepted,
+        ),
+        other => CoreRefusal {
+            key: "conditions".into(),
+            value: None,
+            message: other.to_string(),
+        },
+    })?;
+    let stage_check = |prefix: &str, c: &CompetitionDesign| -> Result<(), CoreRefusal> {
+        match c {
+            CompetitionDesign::CurrentWta(w) => w.validate(),
+            CompetitionDesign::DiffPair(w) => w.validate(),
+            CompetitionDesign::Argmax => Ok(()),
+        }
+        .map_err(|err| competition_refusal(prefix, err))
+    };
+    stage_check("competition", &d.competition)?;
+    if let Some(h) = &d.hidden_circuit {
+        stage_check("hidden", h)?;
+    }
+    if let Some(n) = &d.input_noise {
+        n.validate()
+            .map_err(|err| competition_refusal("competition", err))?;
+    }
+    if let Some(t) = &d.transient {
+        t.options
+            .validate(t.noise.as_ref())
+            .map_err(|err| match err {
+                crate::stages::competition::transient::TransientError::InvalidOption {
+                    option,
+                    value,
+                    reason,
+                } => refusal(competition_key("competition", option), value, reason),
+                other => CoreRefusal {
+                    key: "competition".into(),
+                    value: None,
+                    message: other.to_string(),
+                },
+            })?;
+    }
+    let _ = p;
+    Ok(())
 }
 
 /// Build a point's setup (weights mapped) from its experiment and prepared classifier.

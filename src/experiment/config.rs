@@ -38,6 +38,12 @@ pub enum ConfigError {
     },
     #[error("command-line override `{text}`: {message}. Write it as key.path=value, e.g. competition.bias_current=\"50 nA\"")]
     Override { text: String, message: String },
+    #[error("command line: `--set {text}`: key `{key}`: {message}")]
+    OverrideValue {
+        text: String,
+        key: String,
+        message: String,
+    },
     #[error("`{path}`: sweep: {err}")]
     Sweep { path: PathBuf, err: SweepError },
     #[error("`{path}`: sweep point {point} ({settings}): {message}")]
@@ -107,6 +113,10 @@ pub struct DatasetCfg {
     /// Seed of the train/test split.
     #[serde(default = "one")]
     pub split_seed: u64,
+    /// Run even when a class has too few samples to appear in the test split (accuracy then
+    /// leaves it out; the run records a warning). Default: such a dataset is refused.
+    #[serde(default)]
+    pub allow_untested_classes: bool,
 }
 
 /// `[training]`: float multinomial logistic regression (linfa-logistic).
@@ -585,6 +595,7 @@ impl Experiment {
                 ignore_columns: vec![],
                 test_fraction: default_test_fraction(),
                 split_seed: 1,
+                allow_untested_classes: false,
             },
             training: TrainingCfg::default(),
             process: ProcessCfg::default(),
@@ -641,6 +652,10 @@ pub struct Resolved {
     pub at_point: Vec<Experiment>,
     /// The `[cluster]` table (defaults when absent); not part of `tree`.
     pub cluster: ClusterCfg,
+    /// Physically odd but legal settings (printed by the CLI, recorded in the manifest).
+    pub warnings: Vec<String>,
+    /// Sweep axes replaced by a `--set` of the same key (that key then has one value).
+    pub replaced_axes: Vec<String>,
 }
 
 impl Resolved {
@@ -663,7 +678,7 @@ fn describe_point(axes: &[Axis], p: &PointIndex) -> String {
             format!(
                 "{} = {}",
                 a.path,
-                crate::units::format_si(a.values[i], &a.unit, 4)
+                crate::units::format_si(a.values[i], &a.unit, 6)
             )
         })
         .collect::<Vec<_>>()
@@ -685,6 +700,8 @@ pub fn load_str(text: &str, file: &Path, overrides: &[String]) -> Result<Resolve
         path: file.into(),
         message: e.to_string(),
     })?;
+    let mut override_keys: Vec<(String, String)> = Vec::new();
+    let mut replaced_axes = Vec::new();
     for o in overrides {
         let (k, v) = o.split_once('=').ok_or_else(|| ConfigError::Override {
             text: o.clone(),
@@ -696,18 +713,57 @@ pub fn load_str(text: &str, file: &Path, overrides: &[String]) -> Result<Resolve
                 message: e.to_string(),
             }
         })?;
+        override_keys.push((k.trim().to_string(), o.clone()));
+        // `--set` on a swept key replaces that sweep axis: the key has the one given value.
+        if let Some(Value::Array(axes)) = root
+            .get_mut("sweep")
+            .and_then(|s| s.as_table_mut())
+            .and_then(|s| s.get_mut("axis"))
+        {
+            let before = axes.len();
+            axes.retain(|a| a.get("path").and_then(Value::as_str) != Some(k.trim()));
+            if axes.len() != before {
+                replaced_axes.push(k.trim().to_string());
+            }
+        }
     }
-    let mut base = typed(&root, text, file)?;
+    // An error about a key set on the command line names the command line, not the file.
+    let from_cli = |e: ConfigError| -> ConfigError {
+        match e {
+            ConfigError::Key {
+                key, message, hint, ..
+            } => match override_keys
+                .iter()
+                .rev()
+                .find(|(k, _)| key == *k || key.starts_with(&format!("{k}.")))
+            {
+                Some((_, text)) => ConfigError::OverrideValue {
+                    text: text.clone(),
+                    key,
+                    message: format!("{message}{hint}"),
+                },
+                None => ConfigError::Key {
+                    path: file.into(),
+                    line: LineNo(line_of(text, &key)),
+                    key,
+                    message,
+                    hint,
+                },
+            },
+            other => other,
+        }
+    };
+    let mut base = typed(&root, text, file).map_err(from_cli)?;
     if base.name.is_empty() {
         base.name = file
             .file_stem()
             .map(|s| s.to_string_lossy().into_owned())
             .unwrap_or_else(|| "experiment".into());
     }
-    fill_process_defaults(&mut base, text, file)?;
-    check(&base, text, file)?;
+    fill_process_defaults(&mut base, text, file).map_err(from_cli)?;
+    check(&base, text, file).map_err(from_cli)?;
     let cluster = base.cluster.take().unwrap_or_default();
-    check_cluster(&cluster, text, file)?;
+    check_cluster(&cluster, text, file).map_err(from_cli)?;
     let resolved_tree = Value::try_from(&base).map_err(|e| ConfigError::Syntax {
         path: file.into(),
         message: format!("internal: cannot serialise the resolved experiment: {e}"),
@@ -719,6 +775,9 @@ pub fn load_str(text: &str, file: &Path, overrides: &[String]) -> Result<Resolve
             err,
         })?;
     let mut at_point = Vec::with_capacity(points.len());
+    let mut warnings_all: Vec<String> = Vec::new();
+    let schema_tree =
+        Value::try_from(Experiment::schema_example()).unwrap_or(Value::Boolean(false));
     for p in &points {
         let mut t = resolved_tree.clone();
         for (a, &i) in axes.iter().zip(&p.value_index) {
@@ -734,6 +793,42 @@ pub fn load_str(text: &str, file: &Path, overrides: &[String]) -> Result<Resolve
         let e: Experiment = serde_path_to_error::deserialize(t)
             .map_err(|e| point_err(format!("`{}`: {}", e.path(), e.inner())))?;
         check(&e, "", file).map_err(|e| point_err(e.to_string()))?;
+        // The core's constructors decide what is valid; a refusal names the user's key.
+        if let Err(mut r) = super::build::check_with_core(&e) {
+            if let Some(v) = r.value {
+                // The value as the designer writes it ("-1 ns"), unit from the key's schema.
+                let unit = tree::get(&resolved_tree, &r.key)
+                    .or_else(|| tree::get(&schema_tree, &r.key))
+                    .and_then(|x| x.as_str().and_then(super::quantity::parse_resolved))
+                    .map(|(_, d)| d.base_unit())
+                    .unwrap_or("");
+                let shown = if unit.is_empty() {
+                    crate::units::short_number(v)
+                } else {
+                    crate::units::format_si(v, unit, 6)
+                };
+                r.message = format!("{shown} is {}", r.message);
+            }
+            let swept = axes
+                .iter()
+                .any(|a| r.key == a.path || a.path.starts_with(&format!("{}.", r.key)));
+            return Err(if swept {
+                point_err(format!("key `{}`: {}", r.key, r.message))
+            } else {
+                from_cli(ConfigError::Key {
+                    path: file.into(),
+                    line: LineNo(None),
+                    key: r.key,
+                    message: r.message,
+                    hint: Hint(None),
+                })
+            });
+        }
+        for w in warnings(&e) {
+            if !warnings_all.contains(&w) {
+                warnings_all.push(w);
+            }
+        }
         at_point.push(e);
     }
     Ok(Resolved {
@@ -744,6 +839,8 @@ pub fn load_str(text: &str, file: &Path, overrides: &[String]) -> Result<Resolve
         points,
         at_point,
         cluster,
+        warnings: warnings_all,
+        replaced_axes,
     })
 }
 
@@ -793,7 +890,41 @@ fn check_cluster(c: &ClusterCfg, text: &str, file: &Path) -> Result<(), ConfigEr
 fn typed(root: &Value, text: &str, file: &Path) -> Result<Experiment, ConfigError> {
     serde_path_to_error::deserialize::<_, Experiment>(root.clone()).map_err(|e| {
         let path = e.path().to_string();
+        // The TOML layer appends "in `key`" (the key is named by our message already).
         let inner = e.inner().to_string();
+        let inner = match inner.trim_end().rsplit_once("\nin `") {
+            Some((head, _)) => head.trim_end().to_string(),
+            None => inner.trim_end().to_string(),
+        };
+        // Rust type names mean nothing to a designer.
+        let inner = inner
+            .replace("expected u64", "expected a whole number, 0 or more")
+            .replace("expected u32", "expected a whole number, 0 or more")
+            .replace("expected f64", "expected a number")
+            .replace("expected a boolean", "expected true or false");
+        if let Some(field) = inner
+            .strip_prefix("missing field `")
+            .and_then(|r| r.split_once('`'))
+            .map(|(f, _)| f.to_string())
+        {
+            let key = if path == "." || path.is_empty() {
+                field.clone()
+            } else {
+                format!("{path}.{field}")
+            };
+            let message = if key == "dataset" {
+                "the experiment needs a [dataset] section with `name` (a shipped dataset: iris, wine, digits) or `file` (a CSV file)".to_string()
+            } else {
+                format!("`{field}` is required here; add it")
+            };
+            return ConfigError::Key {
+                path: file.into(),
+                line: LineNo(line_of(text, &path)),
+                key,
+                message,
+                hint: Hint(None),
+            };
+        }
         let (key, hint) = match unknown_field(&inner) {
             Some((field, expected)) => {
                 let full = if path == "." || path.is_empty() {
@@ -918,6 +1049,66 @@ fn fill_process_defaults(e: &mut Experiment, text: &str, file: &Path) -> Result<
         });
     }
     Ok(())
+}
+
+/// Physically odd but legal settings of one experiment, each naming the key: temperatures
+/// outside about -60..200 degC, a supply above 5 V, a competition bias that puts the output
+/// transistors deep in strong inversion (inversion coefficient above 100 with the whole bias in
+/// one device; the WTA's exponential law holds in weak inversion, model notes §4.1).
+/// Thresholds: common practice, no source.
+pub fn warnings(e: &Experiment) -> Vec<String> {
+    let mut out = Vec::new();
+    let zc = crate::physics::ZERO_CELSIUS;
+    let fmt_t = |t: f64| crate::units::format_si(t - zc, "degC", 4);
+    for (key, t) in [
+        ("conditions.temperature", e.conditions.temperature.si()),
+        (
+            "weights.program_temperature",
+            e.weights.program_temperature.si(),
+        ),
+    ] {
+        if key == "weights.program_temperature" && e.weights.element != ElementKind::Subthreshold {
+            continue;
+        }
+        if !(zc - 60.0..=zc + 200.0).contains(&t) {
+            out.push(format!(
+                "{key} = {} ({}) is outside -60..200 degC, where silicon circuits usually work; check the unit",
+                fmt_t(t),
+                crate::units::format_si(t, "K", 5)
+            ));
+        }
+    }
+    if let Some(v) = e.process.vdd {
+        if v.si() > 5.0 {
+            out.push(format!(
+                "process.vdd = {} is above 5 V, unusual for the generic processes; check the unit",
+                crate::units::format_si(v.si(), "V", 4)
+            ));
+        }
+    }
+    if let Ok(p) = super::build::process(e) {
+        let t = e.conditions.temperature.si();
+        let ut = crate::physics::thermal_voltage(t);
+        let is = |w: f64, l: f64| 2.0 * p.nmos.n * p.nmos.mu_cox * w / l * ut * ut;
+        let c = &e.competition;
+        let mut biases = vec![("competition.bias_current", c.bias_current.si())];
+        if e.hidden.units > 0 && e.hidden.circuit != HiddenCircuitKind::ClosedForm {
+            biases.push(("hidden.bias_current", e.hidden.bias_current.si()));
+        }
+        if c.circuit != CircuitKind::Argmax {
+            for (key, i) in biases {
+                let ic = i / is(c.output.w.si(), c.output.l.si());
+                if ic > 100.0 {
+                    out.push(format!(
+                        "{key} = {} puts the output transistors deep in strong inversion (inversion coefficient {:.0} with the whole bias in one device); the competition's exponential law needs weak inversion",
+                        crate::units::format_si(i, "A", 4),
+                        ic
+                    ));
+                }
+            }
+        }
+    }
+    out
 }
 
 /// Semantic checks that serde cannot express; each names the key.
@@ -1054,16 +1245,16 @@ fn check(e: &Experiment, text: &str, file: &Path) -> Result<(), ConfigError> {
         ),
     ] {
         if !(v.is_finite() && v >= 0.0) {
-            return Err(bad(key, format!("{v}: expected a finite value >= 0")));
+            return Err(bad(
+                key,
+                format!(
+                    "{}: expected a finite value >= 0",
+                    crate::units::short_number(v)
+                ),
+            ));
         }
     }
     for (key, v) in [
-        ("input.full_scale_current", e.input.full_scale_current.si()),
-        ("competition.bias_current", e.competition.bias_current.si()),
-        (
-            "competition.noise_bandwidth",
-            e.competition.noise_bandwidth.map_or(1.0, |b| b.si()),
-        ),
         (
             "competition.node_capacitance",
             e.competition.node_capacitance.si(),
@@ -1072,10 +1263,6 @@ fn check(e: &Experiment, text: &str, file: &Path) -> Result<(), ConfigError> {
             "competition.common_capacitance",
             e.competition.common_capacitance.si(),
         ),
-        ("competition.sink.w", e.competition.sink.w.si()),
-        ("competition.sink.l", e.competition.sink.l.si()),
-        ("competition.output.w", e.competition.output.w.si()),
-        ("competition.output.l", e.competition.output.l.si()),
         ("weights.device.w", e.weights.device.w.si()),
         ("weights.device.l", e.weights.device.l.si()),
         ("weights.mirror.w", e.weights.mirror.w.si()),
@@ -1086,7 +1273,13 @@ fn check(e: &Experiment, text: &str, file: &Path) -> Result<(), ConfigError> {
         ),
     ] {
         if !(v.is_finite() && v > 0.0) {
-            return Err(bad(key, format!("{v}: expected a finite value > 0")));
+            return Err(bad(
+                key,
+                format!(
+                    "{}: expected a finite value > 0",
+                    crate::units::short_number(v)
+                ),
+            ));
         }
     }
     if e.hidden.units > 4096 {
@@ -1101,6 +1294,16 @@ fn check(e: &Experiment, text: &str, file: &Path) -> Result<(), ConfigError> {
             format!("{}: the normaliser exponent must be > 0", e.hidden.exponent),
         ));
     }
+    // The closed-form normaliser has no core constructor that checks its bias.
+    if !(e.hidden.bias_current.si().is_finite() && e.hidden.bias_current.si() > 0.0) {
+        return Err(bad(
+            "hidden.bias_current",
+            format!(
+                "{} is out of range: must be finite and > 0",
+                crate::units::format_si(e.hidden.bias_current.si(), "A", 6)
+            ),
+        ));
+    }
     if e.hidden.circuit == HiddenCircuitKind::DiffPair && e.hidden.exponent != 1.0 {
         return Err(bad(
             "hidden.exponent",
@@ -1109,9 +1312,6 @@ fn check(e: &Experiment, text: &str, file: &Path) -> Result<(), ConfigError> {
                 e.hidden.exponent
             ),
         ));
-    }
-    if !(e.hidden.bias_current.si().is_finite() && e.hidden.bias_current.si() > 0.0) {
-        return Err(bad("hidden.bias_current", "must be > 0".into()));
     }
     if e.training.max_iterations == 0 {
         return Err(bad(
@@ -1287,6 +1487,32 @@ mod tests {
         .to_string();
         // competition.gain is absent by default, so it is unknown in the resolved tree.
         assert!(empty.contains("competition.gain"), "{empty}");
+    }
+
+    /// The core's refusals come back under the user's key (the core says `read_time`,
+    /// `bias current`, `programming_error_v`; the user wrote the keys below).
+    #[test]
+    fn core_refusals_name_the_user_key() {
+        let base = load_text("[dataset]\nname = \"iris\"\n").unwrap().base;
+        let mut e = base.clone();
+        e.competition.evaluation = EvaluationKind::Transient;
+        e.competition.read_time = Some(Q::new(-1e-9));
+        let r = super::super::build::check_with_core(&e).unwrap_err();
+        assert_eq!(r.key, "competition.read_time");
+        let mut e = base.clone();
+        e.competition.bias_current = Q::new(-1e-9);
+        let r = super::super::build::check_with_core(&e).unwrap_err();
+        assert_eq!(r.key, "competition.bias_current");
+        let mut e = base.clone();
+        e.weights.element = ElementKind::Subthreshold;
+        // w_min 0 (the linear default) is refused first for a subthreshold element, so:
+        let r = super::super::build::check_with_core(&e).unwrap_err();
+        assert_eq!(r.key, "weights.w_min");
+        e.weights.w_min = Some(1.0 / 16.0);
+        e.weights.programming_error_voltage = Q::new(-1e-3);
+        let r = super::super::build::check_with_core(&e).unwrap_err();
+        assert_eq!(r.key, "weights.programming_error_voltage");
+        assert!(super::super::build::check_with_core(&base).is_ok());
     }
 
     #[test]

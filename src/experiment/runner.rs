@@ -36,9 +36,105 @@ pub enum RunError {
     #[error("cannot start {threads} worker threads: {message}")]
     Threads { threads: usize, message: String },
     #[error(
-        "the run was stopped after {done} of {total} points; run the same command again to resume"
+        "interrupted: {done} of {total} sweep points are finished and kept; run the same command again to resume"
     )]
     Stopped { done: usize, total: usize },
+    #[error("cannot read input file `{path}` ({key}): {message}. Check the path (relative to the experiment file)")]
+    Input {
+        key: String,
+        path: String,
+        message: String,
+    },
+    #[error("output folder `{out}` holds results computed from a different version of {changed}; nothing was changed. Use --fresh to start over with the new file, or another --out folder")]
+    InputChanged { out: PathBuf, changed: String },
+}
+
+/// One file an experiment reads (its dataset CSV, a hidden-layer weights file), with the
+/// SHA-256 of its content: part of the experiment's identity.
+#[derive(Clone, Debug, PartialEq, Eq, serde::Serialize, serde::Deserialize)]
+pub struct InputFile {
+    /// The experiment key that names the file (`dataset.file`, `hidden.weights_file`).
+    pub key: String,
+    /// The path as opened (relative ones joined to the experiment file's folder).
+    pub path: String,
+    /// SHA-256 of the content, hex.
+    pub sha256: String,
+}
+
+fn hex(bytes: &[u8]) -> String {
+    bytes.iter().map(|b| format!("{b:02x}")).collect()
+}
+
+/// Every input file the experiment reads (over all sweep points), hashed.
+pub fn input_files(resolved: &Resolved) -> Result<Vec<InputFile>, RunError> {
+    let base_dir = resolved
+        .file
+        .parent()
+        .map(Path::to_path_buf)
+        .unwrap_or_default();
+    let mut wanted: Vec<(&str, PathBuf)> = Vec::new();
+    for e in std::iter::once(&resolved.base).chain(&resolved.at_point) {
+        if let (None, Some(f)) = (&e.dataset.name, &e.dataset.file) {
+            wanted.push(("dataset.file", base_dir.join(f)));
+        }
+        if let (Some(f), true) = (&e.hidden.weights_file, e.hidden.units > 0) {
+            wanted.push(("hidden.weights_file", base_dir.join(f)));
+        }
+    }
+    let mut out: Vec<InputFile> = Vec::new();
+    for (key, path) in wanted {
+        let path_text = path.display().to_string();
+        if out.iter().any(|f| f.key == key && f.path == path_text) {
+            continue;
+        }
+        let bytes = std::fs::read(&path).map_err(|e| RunError::Input {
+            key: key.into(),
+            path: path_text.clone(),
+            message: e.to_string(),
+        })?;
+        out.push(InputFile {
+            key: key.into(),
+            path: path_text,
+            sha256: hex(&Sha256::digest(&bytes)),
+        });
+    }
+    Ok(out)
+}
+
+/// Hash of the resolved experiment, the content of every input file it reads, and the tool
+/// version: identifies a results folder's content (resume and `batch`'s up-to-date check).
+pub fn identity_hash(resolved: &Resolved, inputs: &[InputFile]) -> String {
+    let mut h = Sha256::new();
+    h.update(FORMAT_NAME.as_bytes());
+    h.update(env!("CARGO_PKG_VERSION").as_bytes());
+    h.update(resolved.to_toml().as_bytes());
+    for f in inputs {
+        h.update(b"\0input\0");
+        h.update(f.key.as_bytes());
+        h.update(b"\0");
+        h.update(f.sha256.as_bytes());
+    }
+    hex(&h.finalize())
+}
+
+/// Which input files differ between a results folder's manifest and `now`, as text for a
+/// message ("`dataset.file` `data.csv`"); None when the manifest has no input list or every file
+/// is the same (then the settings changed).
+fn changed_inputs(out: &Path, now: &[InputFile]) -> Option<String> {
+    let m: serde_json::Value =
+        serde_json::from_slice(&std::fs::read(out.join("manifest.json")).ok()?).ok()?;
+    let old: Vec<InputFile> = serde_json::from_value(m.get("inputs")?.clone()).ok()?;
+    let settings_same = m.get("settings_hash").and_then(|v| v.as_str());
+    let changed: Vec<String> = now
+        .iter()
+        .filter(|f| !old.iter().any(|o| o.key == f.key && o.sha256 == f.sha256))
+        .map(|f| format!("input file `{}` (`{}`)", f.path, f.key))
+        .collect();
+    (!changed.is_empty() && settings_same.is_some()).then(|| changed.join(" and "))
+}
+
+fn settings_hash(resolved: &Resolved) -> String {
+    identity_hash(resolved, &[])
 }
 
 /// What the runner reports while it works (the CLI draws progress bars from it).
@@ -52,6 +148,8 @@ pub trait Observer: Sync {
     fn chip_done(&self) {}
     /// A point finished (its summary line).
     fn point_done(&self, _point: usize, _line: &str) {}
+    /// A physically odd setting or a tolerated data problem (also recorded in the manifest).
+    fn warning(&self, _text: &str) {}
     /// Should the run stop after the current point?
     fn should_stop(&self) -> bool {
         false
@@ -87,13 +185,9 @@ pub struct RunSummary {
     pub records: Vec<PointRecord>,
 }
 
-/// Hash of the resolved experiment and tool version: identifies a results folder's content.
-pub fn experiment_hash(resolved: &Resolved) -> String {
-    let mut h = Sha256::new();
-    h.update(FORMAT_NAME.as_bytes());
-    h.update(env!("CARGO_PKG_VERSION").as_bytes());
-    h.update(resolved.to_toml().as_bytes());
-    h.finalize().iter().map(|b| format!("{b:02x}")).collect()
+/// The identity of an experiment: [`identity_hash`] over its resolved text and input files.
+pub fn experiment_hash(resolved: &Resolved) -> Result<String, RunError> {
+    Ok(identity_hash(resolved, &input_files(resolved)?))
 }
 
 /// Read the manifest status of a results folder: Some(true) complete, Some(false) partial.
@@ -117,7 +211,9 @@ pub fn run(
         .duration_since(std::time::UNIX_EPOCH)
         .map(|d| d.as_secs())
         .unwrap_or(0);
-    let hash = experiment_hash(resolved);
+    let inputs = input_files(resolved)?;
+    let hash = identity_hash(resolved, &inputs);
+    let settings = settings_hash(resolved);
     let plan = Plan::new(resolved, opts.shard)?;
     let base_dir = resolved
         .file
@@ -176,6 +272,36 @@ pub fn run(
         })
         .collect::<Result<Vec<_>, _>>()?;
 
+    if !opts.fresh {
+        let old = std::fs::read_to_string(opts.out.join(super::results::STAMP_FILE)).ok();
+        if old.is_some_and(|h| h.trim() != plan.stamp(&hash)) {
+            if let Some(changed) = changed_inputs(&opts.out, &inputs) {
+                let same_settings = std::fs::read(opts.out.join("manifest.json"))
+                    .ok()
+                    .and_then(|b| serde_json::from_slice::<serde_json::Value>(&b).ok())
+                    .and_then(|m| m.get("settings_hash")?.as_str().map(|s| s == settings))
+                    .unwrap_or(false);
+                if same_settings {
+                    return Err(RunError::InputChanged {
+                        out: opts.out.clone(),
+                        changed,
+                    });
+                }
+            }
+        }
+    }
+    let mut warnings = resolved.warnings.clone();
+    for (_, p) in &prepared {
+        for u in &p.untested_classes {
+            let w = format!(
+                "class `{}` ({} sample(s)) has no sample in the test split: accuracy leaves it out (allowed by dataset.allow_untested_classes)",
+                u.class, u.count
+            );
+            if !warnings.contains(&w) {
+                warnings.push(w);
+            }
+        }
+    }
     let (dir, _resumed) = ResultsDir::open(&opts.out, &plan.stamp(&hash), opts.fresh)?;
     write_atomic(
         &opts.out.join("experiment.toml"),
@@ -218,6 +344,9 @@ pub fn run(
             "experiment_name": base.name,
             "description": base.description,
             "experiment_hash": hash,
+            "settings_hash": settings,
+            "inputs": inputs,
+            "warnings": warnings,
             "seed": seed,
             "status": if complete { "complete" } else { "partial" },
             "points_total": resolved.points.len(),
@@ -261,6 +390,9 @@ pub fn run(
     };
     let plan_points = plan.points().len();
     manifest(&records, records.len() == plan_points).map_err(ResultsError::from)?;
+    for w in &warnings {
+        observer.warning(w);
+    }
     plan.announce(observer, &records);
 
     let mut ran = 0;
@@ -272,22 +404,33 @@ pub fn run(
         if observer.should_stop() {
             return Err(RunError::Stopped {
                 done: records.len(),
-                total: resolved.points.len(),
+                total: plan_points,
             });
         }
         let tp = Instant::now();
         let prep = &prepared[p.point].1;
         let setup = &setups[p.point];
+        // A stop request during a point abandons that point (it is not saved; the finished
+        // ones are on disk) instead of waiting for every chip.
         let outcomes = pool.install(|| {
             my_chips
                 .into_par_iter()
                 .map(|c| {
+                    if observer.should_stop() {
+                        return None;
+                    }
                     let o = evaluate_chip(setup, prep, seed, p.point as u64, c);
                     observer.chip_done();
-                    o
+                    Some(o)
                 })
-                .collect::<Vec<_>>()
+                .collect::<Option<Vec<_>>>()
         });
+        let Some(outcomes) = outcomes else {
+            return Err(RunError::Stopped {
+                done: records.len(),
+                total: plan_points,
+            });
+        };
         let n_classes = prep.class_names.len();
         let mut confusion = vec![vec![0u64; n_classes + 2]; n_classes];
         let mut rows = Vec::with_capacity(outcomes.len());

@@ -73,8 +73,12 @@ impl Axis {
         let v = self.values[i];
         if self.integer {
             Value::Integer(v as i64)
-        } else {
+        } else if self.unit.is_empty() {
             Value::Float(v)
+        } else {
+            // A dimensioned value keeps its unit (a bare number is refused for it); the shortest
+            // text that reads back to the same double, as in a resolved experiment.
+            Value::String(super::quantity::exact_si(v, &self.unit))
         }
     }
 }

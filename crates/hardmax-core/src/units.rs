@@ -5,7 +5,9 @@
 //! is taken in base units). Formatting for labels and reports is [`format_si`].
 //!
 //! Accepted forms:
-//! - a plain number in base units: `1e-8`, `300`, `-0.0015`;
+//! - a plain number, for a dimensionless quantity only: `0.05`, `300`, `-1.5`; a quantity with a
+//!   dimension needs its unit (`27` for a temperature is refused: write `27 degC` or `300.15 K`),
+//!   so no number is read in an unintended unit;
 //! - a number, optional spaces, then a unit: `10 nA`, `1.5um`, `8.5 fF/um^2`, `300 uA/V^2`,
 //!   `5 mV um`, `5 mV*um`, `5 mV·um`, `1 %um`, `-1.5 mV/K`, `10 MHz`, `1 kohm`, `1 kΩ`;
 //! - a temperature in Celsius: `27 degC`, `27 °C`, `27 ℃` (= 300.15 K); inside a compound unit
@@ -194,8 +196,10 @@ pub enum UnitProblem {
     NoNumber,
     #[error("the number is not finite (NaN or infinity)")]
     NotFinite,
-    #[error("\"{0}\" is not a unit or prefix hardmax knows (units: A V m K s F ohm Ω S Hz J W C % ppm degC; prefixes: a f p n u µ m k M Meg G T)")]
-    UnknownUnit(String),
+    #[error("\"{0}\" is not a unit or prefix hardmax knows{hint}(units: A V m K s F ohm Ω S Hz J W C % ppm degC; prefixes: a f p n u µ m k M Meg G T)", hint = did_you_mean(.1))]
+    UnknownUnit(String, Option<String>),
+    #[error("{} has no unit: write {}", short_number(*.number), no_unit_advice(*.number, .dim))]
+    NoUnit { number: f64, dim: Dimension },
     #[error("unexpected text \"{0}\" after the number")]
     TrailingText(String),
     #[error("the unit \"{unit}\" is {found}, not the expected dimension")]
@@ -208,7 +212,7 @@ pub enum UnitProblem {
 
 /// A quantity that could not be read: the text, what was expected (with an example), and why.
 #[derive(Clone, Debug, PartialEq, Error)]
-#[error("cannot read \"{text}\" as {}: {problem}; write e.g. {} or {}", .expected.name(), .expected.example(), plain_hint(.expected))]
+#[error("{}", unit_error_text(.text, .expected, .problem))]
 pub struct UnitError {
     /// The text as given.
     pub text: String,
@@ -218,11 +222,94 @@ pub struct UnitError {
     pub problem: UnitProblem,
 }
 
-fn plain_hint(d: &Dimension) -> String {
-    match d {
-        Dimension::Dimensionless => "a plain fraction".to_string(),
-        _ => format!("a plain number in {}", d.base_unit()),
+fn unit_error_text(text: &str, expected: &Dimension, problem: &UnitProblem) -> String {
+    match problem {
+        // "27 has no unit: write "27 degC" or "300.15 K"": the advice is the whole message.
+        UnitProblem::NoUnit { .. } => problem.to_string(),
+        _ => format!(
+            "cannot read \"{text}\" as {}: {problem}; write e.g. {}{}",
+            expected.name(),
+            expected.example(),
+            match expected {
+                Dimension::Dimensionless => " or a plain fraction",
+                _ => "",
+            }
+        ),
     }
+}
+
+fn did_you_mean(s: &Option<String>) -> String {
+    match s {
+        Some(s) => format!(" (did you mean \"{s}\"?) "),
+        None => " ".into(),
+    }
+}
+
+/// Short decimal text of `v` without float noise (12 significant digits at most; an exponent
+/// for very small or large magnitudes: "1e-7", not "0.0000001").
+pub fn short_number(v: f64) -> String {
+    let t = format!("{:.12e}", v);
+    let x: f64 = t.parse().unwrap_or(v);
+    let s = format!("{x:?}");
+    match s.strip_suffix(".0") {
+        Some(int) => int.to_string(),
+        None => s,
+    }
+}
+
+/// What to write instead of a bare number for a dimensioned quantity: the number with the
+/// base unit (with a prefix), and for a temperature both readings (Celsius and kelvin).
+fn no_unit_advice(number: f64, dim: &Dimension) -> String {
+    if *dim == Dimension::Temperature {
+        let zc = crate::physics::ZERO_CELSIUS;
+        return if number < 150.0 {
+            format!(
+                "\"{} degC\" or \"{} K\"",
+                short_number(number),
+                short_number(number + zc)
+            )
+        } else {
+            format!(
+                "\"{} K\" or \"{} degC\"",
+                short_number(number),
+                short_number(number - zc)
+            )
+        };
+    }
+    let unit = match dim.base_unit() {
+        "Ω" => "ohm",
+        u => u,
+    };
+    format!(
+        "it with its unit, e.g. \"{}\" if you mean {} {unit}, or {}",
+        format_si(number, unit, 12),
+        short_number(number),
+        dim.example()
+    )
+}
+
+/// A unit written with the wrong letter case ("na", "mv"): the spelling that reads as the
+/// expected dimension, if exactly one prefix + symbol fits.
+fn case_suggestion(unit: &str, dim: Dimension) -> Option<String> {
+    const SYMBOLS: [&str; 12] = [
+        "A", "V", "m", "K", "s", "F", "ohm", "Hz", "S", "J", "W", "C",
+    ];
+    let want = unit.to_lowercase();
+    let mut prefixes: Vec<&str> = PREFIXES.iter().map(|(p, _)| *p).collect();
+    prefixes.insert(0, "");
+    for p in prefixes {
+        for s in SYMBOLS {
+            let cand = format!("{p}{s}");
+            if cand.to_lowercase() == want && cand != unit {
+                if let Ok((_, d)) = parse_unit(&cand) {
+                    if d == dim.dims() {
+                        return Some(cand);
+                    }
+                }
+            }
+        }
+    }
+    None
 }
 
 const PREFIXES: [(&str, f64); 13] = [
@@ -396,11 +483,11 @@ fn parse_unit(unit: &str) -> Result<(f64, Dims), UnitProblem> {
         };
         let (tok, after) = rest.split_at(end);
         let (sym, exp) =
-            split_exponent(tok).ok_or_else(|| UnitProblem::UnknownUnit(tok.to_string()))?;
+            split_exponent(tok).ok_or_else(|| UnitProblem::UnknownUnit(tok.to_string(), None))?;
         let (s, d) = match parse_symbol(sym) {
             Some(x) => x,
             None if sym.starts_with(|c: char| c.is_alphabetic()) => {
-                return Err(UnitProblem::UnknownUnit(tok.to_string()))
+                return Err(UnitProblem::UnknownUnit(tok.to_string(), None))
             }
             None => return Err(UnitProblem::TrailingText(rest.to_string())),
         };
@@ -480,6 +567,9 @@ fn parse_inner(text: &str, dim: Dimension) -> Result<f64, UnitProblem> {
     }
     let unit = unit.trim();
     let value = if unit.is_empty() {
+        if dim != Dimension::Dimensionless {
+            return Err(UnitProblem::NoUnit { number, dim });
+        }
         number
     } else if matches!(unit, "degC" | "\u{b0}C" | "\u{2103}") {
         if dim != Dimension::Temperature {
@@ -490,7 +580,13 @@ fn parse_inner(text: &str, dim: Dimension) -> Result<f64, UnitProblem> {
         }
         number + crate::physics::ZERO_CELSIUS
     } else {
-        let (scale, dims) = parse_unit(unit)?;
+        let (scale, dims) = parse_unit(unit).map_err(|p| match p {
+            UnitProblem::UnknownUnit(tok, None) if tok == unit => {
+                let hint = case_suggestion(unit, dim);
+                UnitProblem::UnknownUnit(tok, hint)
+            }
+            p => p,
+        })?;
         if dims != dim.dims() {
             return Err(UnitProblem::WrongDimension {
                 unit: unit.to_string(),
@@ -499,6 +595,14 @@ fn parse_inner(text: &str, dim: Dimension) -> Result<f64, UnitProblem> {
         }
         scale_exact(num, number, scale)
     };
+    check_value(value, dim)
+}
+
+/// A bare number: only for a dimensionless quantity.
+fn plain(value: f64, dim: Dimension) -> Result<f64, UnitProblem> {
+    if dim != Dimension::Dimensionless && value.is_finite() {
+        return Err(UnitProblem::NoUnit { number: value, dim });
+    }
     check_value(value, dim)
 }
 
@@ -512,8 +616,9 @@ fn check_value(value: f64, dim: Dimension) -> Result<f64, UnitProblem> {
     Ok(value)
 }
 
-/// Read a TOML value as a quantity: an integer or float is taken in base units, a string is
-/// parsed with [`parse_quantity`]. Other TOML types are an error.
+/// Read a TOML value as a quantity: a string is parsed with [`parse_quantity`]; an integer or
+/// float is accepted only for a dimensionless quantity (a dimensioned one needs its unit).
+/// Other TOML types are an error.
 pub fn quantity_from_toml(value: &toml::Value, dim: Dimension) -> Result<f64, UnitError> {
     let err = |problem| UnitError {
         text: value.to_string(),
@@ -522,8 +627,8 @@ pub fn quantity_from_toml(value: &toml::Value, dim: Dimension) -> Result<f64, Un
     };
     match value {
         toml::Value::String(s) => parse_quantity(s, dim),
-        toml::Value::Integer(i) => check_value(*i as f64, dim).map_err(err),
-        toml::Value::Float(f) => check_value(*f, dim).map_err(err),
+        toml::Value::Integer(i) => plain(*i as f64, dim).map_err(err),
+        toml::Value::Float(f) => plain(*f, dim).map_err(err),
         toml::Value::Boolean(_) => Err(err(UnitProblem::NotAQuantity("boolean"))),
         toml::Value::Datetime(_) => Err(err(UnitProblem::NotAQuantity("date-time"))),
         toml::Value::Array(_) => Err(err(UnitProblem::NotAQuantity("array"))),
@@ -602,7 +707,7 @@ mod tests {
     fn accepts_si_spellings() {
         use Dimension::*;
         let cases: &[(&str, Dimension, f64)] = &[
-            ("1e-8", Current, 1e-8),
+            ("1e-8 A", Current, 1e-8),
             ("10 nA", Current, 10e-9),
             ("10nA", Current, 10e-9),
             ("  -3.5e2 pA ", Current, -350e-12),
@@ -618,7 +723,7 @@ mod tests {
             ("250 mV", Voltage, 0.25),
             ("1.8 V", Voltage, 1.8),
             ("300 K", Temperature, 300.0),
-            ("300", Temperature, 300.0),
+            ("300 K", Temperature, 300.0),
             ("27 degC", Temperature, 300.15),
             ("27 °C", Temperature, 300.15),
             ("27 ℃", Temperature, 300.15),
@@ -641,7 +746,7 @@ mod tests {
             ("5 mV*um", VoltageLength, 5e-9),
             ("5 mV·um", VoltageLength, 5e-9),
             ("5 mV⋅µm", VoltageLength, 5e-9),
-            ("5e-9", VoltageLength, 5e-9),
+            ("5e-9 V m", VoltageLength, 5e-9),
             ("1 %um", FractionLength, 1e-8),
             ("1 % um", FractionLength, 1e-8),
             ("1 %·µm", FractionLength, 1e-8),
@@ -677,7 +782,8 @@ mod tests {
         rejected("10 nQ", Current, "\"nQ\" is not a unit");
         rejected("10 xA", Current, "\"xA\" is not a unit");
         rejected("10 n", Current, "\"n\" is not a unit");
-        rejected("10 na", Current, "\"na\" is not a unit");
+        rejected("10 na", Current, "did you mean \"nA\"?");
+        rejected("3 mv", Voltage, "did you mean \"mV\"?");
         rejected("", Current, "empty");
         rejected("   ", Current, "empty");
         rejected("nA", Current, "does not start with a number");
@@ -690,23 +796,50 @@ mod tests {
         rejected("1 uA/", Current, "unexpected text \"/\"");
         rejected("0 K", Temperature, "at or below absolute zero");
         rejected("-300 degC", Temperature, "at or below absolute zero");
-        rejected("-5", Temperature, "at or below absolute zero");
         rejected("300 uA/V", Transconductance, "a conductance (S = A/V)");
         rejected("3 V*K", Voltage, "a quantity in m^2·kg·s^-3·A^-1·K");
         rejected("x", Dimensionless, "or a plain fraction");
     }
 
+    /// A bare number is refused wherever the quantity has a dimension (a temperature of 27 would
+    /// otherwise be read as 27 K), with the spelling to write instead; dimensionless ones accept it.
+    #[test]
+    fn bare_numbers_need_a_unit_when_dimensioned() {
+        let e = parse_quantity("27", Dimension::Temperature)
+            .unwrap_err()
+            .to_string();
+        assert_eq!(e, "27 has no unit: write \"27 degC\" or \"300.15 K\"");
+        let e = parse_quantity("300", Dimension::Temperature)
+            .unwrap_err()
+            .to_string();
+        assert_eq!(e, "300 has no unit: write \"300 K\" or \"26.85 degC\"");
+        let e = parse_quantity("1e-7", Dimension::Current)
+            .unwrap_err()
+            .to_string();
+        assert!(e.contains("\"100 nA\""), "{e}");
+        let e = quantity_from_toml(&toml::Value::Integer(5), Dimension::Voltage).unwrap_err();
+        assert!(e.to_string().contains("5 has no unit"), "{e}");
+        assert_relative_eq!(ok("0.5", Dimension::Dimensionless), 0.5);
+        assert_relative_eq!(
+            quantity_from_toml(&toml::Value::Integer(3), Dimension::Dimensionless).unwrap_or(0.0),
+            3.0
+        );
+        // "27 degC" is the Celsius spelling: 300.15 K.
+        assert_relative_eq!(
+            ok("27 degC", Dimension::Temperature),
+            300.15,
+            max_relative = 1e-15
+        );
+    }
+
     #[test]
     fn toml_values() {
-        let v: toml::Value = toml::from_str("a = 1e-8\nb = 300\nc = \"10 nA\"\nd = true\ne = -1")
-            .expect("valid TOML literal");
+        let v: toml::Value =
+            toml::from_str("a = 1e-8\nb = \"300 K\"\nc = \"10 nA\"\nd = true\ne = -1")
+                .expect("valid TOML literal");
         let get = |k: &str| v.get(k).cloned().unwrap_or(toml::Value::Boolean(false));
-        assert_relative_eq!(
-            quantity_from_toml(&get("a"), Dimension::Current).unwrap_or(f64::NAN),
-            1e-8,
-            epsilon = 0.0,
-            max_relative = 1e-12
-        );
+        let e = quantity_from_toml(&get("a"), Dimension::Current).unwrap_err();
+        assert!(e.to_string().contains("has no unit"), "{e}");
         assert_relative_eq!(
             quantity_from_toml(&get("b"), Dimension::Temperature).unwrap_or(f64::NAN),
             300.0,
@@ -722,7 +855,7 @@ mod tests {
         let e = quantity_from_toml(&get("d"), Dimension::Current).unwrap_err();
         assert!(e.to_string().contains("boolean is not a quantity"), "{e}");
         let e = quantity_from_toml(&get("e"), Dimension::Temperature).unwrap_err();
-        assert!(e.to_string().contains("absolute zero"), "{e}");
+        assert!(e.to_string().contains("has no unit"), "{e}");
         let e = quantity_from_toml(&toml::Value::Float(f64::NAN), Dimension::Voltage).unwrap_err();
         assert!(e.to_string().contains("not finite"), "{e}");
     }

@@ -147,6 +147,22 @@ pub enum ResultsError {
 /// Name of the file that marks a folder as ours and records which experiment it holds.
 pub const STAMP_FILE: &str = "experiment.hash";
 
+fn dir_is_empty(p: &Path) -> bool {
+    fs::read_dir(p).is_ok_and(|mut rd| rd.next().is_none())
+}
+
+/// Does `root` hold only what a run killed before its stamp was written leaves: an empty
+/// `points/` and temporary files of [`crate::io::write_atomic`]?
+fn only_an_abandoned_start(root: &Path) -> bool {
+    let Ok(rd) = fs::read_dir(root) else {
+        return false;
+    };
+    rd.flatten().all(|e| {
+        let name = e.file_name().to_string_lossy().into_owned();
+        (name == "points" && dir_is_empty(&e.path())) || crate::io::is_temp_name(&name)
+    })
+}
+
 /// A results folder being written.
 #[derive(Debug)]
 pub struct ResultsDir {
@@ -157,15 +173,25 @@ impl ResultsDir {
     /// Open `root` for an experiment with hash `hash`. A folder with the same hash resumes; a
     /// missing or empty folder starts fresh; a folder of another experiment is refused unless
     /// `fresh` (then its old records are removed). Nothing is touched before these checks pass.
+    ///
+    /// Temporary files of writers that are gone (a killed run) are removed from the folder,
+    /// `points/`, `plots/` and `transfer/` first. A folder that holds nothing but what a run
+    /// killed during its very first write leaves (an empty `points/`, temporary files) starts
+    /// over.
     pub fn open(root: &Path, hash: &str, fresh: bool) -> Result<(Self, bool), ResultsError> {
         let stamp = root.join(STAMP_FILE);
         let mut resumed = false;
         if root.exists() {
             let old = fs::read_to_string(&stamp).ok();
+            if old.is_some() || only_an_abandoned_start(root) {
+                for sub in ["", "points", "plots", "transfer"] {
+                    crate::io::remove_stale_temps(&root.join(sub));
+                }
+            }
             let non_empty = fs::read_dir(root)
                 .map_err(|e| ResultsError::NotWritable(root.into(), e))?
-                .next()
-                .is_some();
+                .flatten()
+                .any(|e| !(e.file_name() == "points" && dir_is_empty(&e.path())));
             match old {
                 Some(h) if h.trim() == hash && !fresh => resumed = true,
                 Some(_) if fresh => {
@@ -418,6 +444,30 @@ mod tests {
             ResultsDir::open(&foreign, "abc", false),
             Err(ResultsError::Foreign(_))
         ));
+    }
+
+    /// A run killed during its very first write leaves `points/` and a temporary stamp: the same
+    /// command starts over instead of refusing a foreign folder; stale temporary files of gone
+    /// writers go away when a run opens the folder.
+    #[test]
+    fn killed_first_write_starts_over_and_stale_temps_are_removed() {
+        let dir = tempfile::tempdir().unwrap();
+        let root = dir.path().join("r");
+        fs::create_dir_all(root.join("points")).unwrap();
+        let tmp = root.join(".experiment.hash.99999999.tmp");
+        fs::write(&tmp, "ab").unwrap();
+        let (_, resumed) = ResultsDir::open(&root, "abc", false).unwrap();
+        assert!(!resumed);
+        assert!(!tmp.exists());
+        // In a folder of ours: stale temps in the folder and plots/ are removed on open.
+        fs::create_dir_all(root.join("plots")).unwrap();
+        let a = root.join(".points.csv.99999999.tmp");
+        let b = root.join("plots").join(".accuracy.svg.99999999.tmp");
+        fs::write(&a, "x").unwrap();
+        fs::write(&b, "x").unwrap();
+        let (_, resumed) = ResultsDir::open(&root, "abc", false).unwrap();
+        assert!(resumed);
+        assert!(!a.exists() && !b.exists());
     }
 
     #[test]

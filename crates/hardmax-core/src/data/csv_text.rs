@@ -117,11 +117,18 @@ pub fn parse_csv_text(
     let label_col = match seen.get(label) {
         Some(&c) => c,
         None => {
+            // One header cell holding `;` or tab characters: the file uses another separator.
+            let separator_hint = match header.as_slice() {
+                [only] if only.contains(';') => ". The header is one column holding `;`: hardmax reads comma-separated files; write the file with `,` between values".to_string(),
+                [only] if only.contains('\t') => ". The header is one column holding tabs: hardmax reads comma-separated files; write the file with `,` between values".to_string(),
+                _ => String::new(),
+            };
             return Err(DataError::MissingLabelColumn {
                 origin,
                 label: label.to_string(),
                 available,
-            })
+                separator_hint,
+            });
         }
     };
     let mut ignored = vec![false; header.len()];

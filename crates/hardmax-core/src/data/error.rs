@@ -50,11 +50,13 @@ pub enum DataError {
         expected: usize,
     },
 
-    #[error("{origin}: no label column `{label}`; the columns are: {available}. Name the label column: `label_column = \"NAME\"` in the experiment's [dataset], or `--label-column NAME` for `hardmax baseline`")]
+    #[error("{origin}: no label column `{label}`; the columns are: {available}. Name the label column: `label_column = \"NAME\"` in the experiment's [dataset], or `--label-column NAME` for `hardmax baseline`{separator_hint}")]
     MissingLabelColumn {
         origin: String,
         label: String,
         available: String,
+        /// Empty, or a note that the header looks separated by `;` or tabs.
+        separator_hint: String,
     },
 
     #[error(
@@ -114,6 +116,15 @@ pub enum DataError {
         dataset: String,
         train: usize,
         classes: usize,
+    },
+
+    #[error("dataset `{dataset}`: class `{class}` has {count} sample(s), so the stratified split (test fraction {fraction}) puts none of them in the test split and the accuracy would silently leave the class out; add samples of `{class}` (at least {needed} for this fraction) or raise the test fraction (or allow it explicitly: in an experiment file, `dataset.allow_untested_classes = true`)")]
+    ClassMissingFromTest {
+        dataset: String,
+        class: String,
+        count: usize,
+        fraction: f64,
+        needed: usize,
     },
 
     #[error("dataset `{dataset}`: the test split is empty ({samples} samples, test fraction {fraction}); raise the test fraction or add samples")]

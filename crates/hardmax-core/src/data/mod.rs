@@ -14,7 +14,9 @@ mod split;
 pub use csv_text::{load_csv, parse_csv_text, CsvOptions};
 pub use error::DataError;
 pub use scale::{MinMaxScaler, Standardizer};
-pub use split::{stratified_kfold, stratified_split, Fold};
+pub use split::{
+    stratified_kfold, stratified_split, stratified_split_allowing_untested, Fold, UntestedClass,
+};
 
 use ndarray::{Array2, Axis};
 

@@ -29,12 +29,49 @@ fn shuffled_by_class(ds: &Dataset, seed: u64, kind: u64) -> Vec<Vec<usize>> {
 
 /// Stratified split into (train, test). Each class contributes `round(test_fraction * n_c)`
 /// samples to the test split, but always keeps at least one sample in the training split.
-/// Rows keep their original order within each split.
+/// Rows keep their original order within each split. A class that would have no test sample
+/// is an error ([`DataError::ClassMissingFromTest`]): accuracy would leave it out unnoticed.
 pub fn stratified_split(
     ds: &Dataset,
     test_fraction: f64,
     seed: u64,
 ) -> Result<(Dataset, Dataset), DataError> {
+    let (train, test, missing) = stratified_split_allowing_untested(ds, test_fraction, seed)?;
+    if let Some(m) = missing.into_iter().next() {
+        return Err(m.into_error(ds, test_fraction));
+    }
+    Ok((train, test))
+}
+
+/// A class with no sample in the test split: its name and its sample count.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct UntestedClass {
+    pub class: String,
+    pub count: usize,
+}
+
+impl UntestedClass {
+    /// The error that names the class, its count and what to change.
+    pub fn into_error(self, ds: &Dataset, test_fraction: f64) -> DataError {
+        // Smallest n with round(f n) >= 1 and n - 1 >= 1: f n >= 0.5.
+        let needed = ((0.5 / test_fraction).ceil() as usize).max(2);
+        DataError::ClassMissingFromTest {
+            dataset: ds.name.clone(),
+            class: self.class,
+            count: self.count,
+            fraction: test_fraction,
+            needed,
+        }
+    }
+}
+
+/// As [`stratified_split`], but a class without test samples is returned in the list instead of
+/// refused (the caller must say so wherever accuracy is reported).
+pub fn stratified_split_allowing_untested(
+    ds: &Dataset,
+    test_fraction: f64,
+    seed: u64,
+) -> Result<(Dataset, Dataset, Vec<UntestedClass>), DataError> {
     ds.check()?;
     if !(test_fraction > 0.0 && test_fraction < 1.0) {
         return Err(DataError::InvalidTestFraction {
@@ -45,9 +82,16 @@ pub fn stratified_split(
     let by_class = shuffled_by_class(ds, seed, KIND_HOLDOUT);
     let mut train = Vec::new();
     let mut test = Vec::new();
-    for idx in &by_class {
+    let mut untested = Vec::new();
+    for (c, idx) in by_class.iter().enumerate() {
         let n = idx.len();
         let n_test = ((test_fraction * n as f64).round() as usize).min(n.saturating_sub(1));
+        if n_test == 0 && n > 0 {
+            untested.push(UntestedClass {
+                class: ds.class_names.get(c).cloned().unwrap_or_default(),
+                count: n,
+            });
+        }
         test.extend_from_slice(idx.get(..n_test).unwrap_or(&[]));
         train.extend_from_slice(idx.get(n_test..).unwrap_or(&[]));
     }
@@ -73,7 +117,7 @@ pub fn stratified_split(
     }
     train.sort_unstable();
     test.sort_unstable();
-    Ok((ds.select(&train)?, ds.select(&test)?))
+    Ok((ds.select(&train)?, ds.select(&test)?, untested))
 }
 
 /// One cross-validation fold: sample indices (ascending) of its training and test parts.

@@ -11,7 +11,7 @@
 
 use ndarray::{Array1, Array2, Axis};
 
-use crate::data::{stratified_split, Dataset, MinMaxScaler};
+use crate::data::{Dataset, MinMaxScaler};
 use crate::device::mismatch::sample_mismatch;
 use crate::device::Process;
 use crate::rng::{domain, stream};
@@ -72,6 +72,9 @@ pub struct Prepared {
     pub baseline_pred: Vec<usize>,
     pub ideal_acc: f64,
     pub baseline_acc: f64,
+    /// Classes with no sample in the test split (only when the caller allowed it): accuracy
+    /// leaves them out, and whoever reports it must say so.
+    pub untested_classes: Vec<crate::data::UntestedClass>,
 }
 
 /// A hidden stage: a drawn weight layer and a soft competition (normaliser) between the input
@@ -138,25 +141,47 @@ fn hidden_features(
 /// Split, train and evaluate the references. With a hidden stage, the hidden layer is drawn
 /// from `rng::stream(spec.seed, [DESIGN, 0])` and the read-out is trained (with
 /// `spec.readout`, not `trainer`) on the hidden shares the ideal hidden stage produces.
+///
+/// A class with no sample in the test split is an error unless `allow_untested_classes`; then
+/// it is listed in [`Prepared::untested_classes`].
 pub fn prepare(
     dataset: &Dataset,
     test_fraction: f64,
     split_seed: u64,
+    allow_untested_classes: bool,
     trainer: &dyn Trainer,
     hidden: Option<&HiddenSpec>,
 ) -> Result<Prepared, PipelineError> {
-    let (train, test) = stratified_split(dataset, test_fraction, split_seed)?;
-    if let Some(spec) = hidden {
-        return prepare_hidden(dataset, &train, &test, spec);
+    let (train, test, untested) =
+        crate::data::stratified_split_allowing_untested(dataset, test_fraction, split_seed)?;
+    if !allow_untested_classes {
+        if let Some(m) = untested.first() {
+            return Err(m.clone().into_error(dataset, test_fraction).into());
+        }
     }
-    let model = trainer.train(&train)?;
+    let mut p = prepare_split(dataset, &train, &test, trainer, hidden)?;
+    p.untested_classes = untested;
+    Ok(p)
+}
+
+fn prepare_split(
+    dataset: &Dataset,
+    train: &Dataset,
+    test: &Dataset,
+    trainer: &dyn Trainer,
+    hidden: Option<&HiddenSpec>,
+) -> Result<Prepared, PipelineError> {
+    if let Some(spec) = hidden {
+        return prepare_hidden(dataset, train, test, spec);
+    }
+    let model = trainer.train(train)?;
     let test_u = model.scale(test.x.view())?;
     let ideal_pred = model.predict_ideal(test.x.view())?;
     let baseline_pred = model.predict_baseline(test.x.view())?;
     Ok(Prepared::assemble(
         dataset,
-        &train,
-        &test,
+        train,
+        test,
         test_u,
         vec![(model.linear.weights.clone(), model.linear.bias.clone())],
         None,
@@ -189,6 +214,7 @@ impl Prepared {
             hidden: hidden.cloned(),
             ideal_pred,
             baseline_pred,
+            untested_classes: Vec::new(),
         }
     }
 }

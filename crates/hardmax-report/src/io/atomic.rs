@@ -43,9 +43,81 @@ pub fn write_atomic(path: &Path, bytes: &[u8]) -> Result<(), AtomicWriteError> {
     result.map_err(wrap)
 }
 
+/// The writer's process id of a temporary file made by [`write_atomic`] (`.NAME.PID.tmp`).
+fn temp_writer_pid(file_name: &str) -> Option<u32> {
+    let inner = file_name.strip_prefix('.')?.strip_suffix(".tmp")?;
+    let (_, pid) = inner.rsplit_once('.')?;
+    pid.parse().ok()
+}
+
+/// Is process `pid` running? This process counts as gone when `own_is_gone` (a run that
+/// starts has no write in flight). Without `/proc` another process is assumed alive.
+fn writer_alive(pid: u32, own_is_gone: bool) -> bool {
+    if pid == std::process::id() {
+        return !own_is_gone;
+    }
+    let proc_root = Path::new("/proc");
+    if !proc_root.join("self").exists() {
+        return true;
+    }
+    proc_root.join(pid.to_string()).exists()
+}
+
+/// Remove the temporary files that [`write_atomic`] left in `dir` when its writer was killed
+/// (the writer's process is gone, or is this process, which has no write in flight when it
+/// calls this). Files of a running writer are kept. Returns how many were removed.
+pub fn remove_stale_temps(dir: &Path) -> usize {
+    let Ok(rd) = fs::read_dir(dir) else {
+        return 0;
+    };
+    let mut removed = 0;
+    for e in rd.flatten() {
+        let name = e.file_name().to_string_lossy().into_owned();
+        let Some(pid) = temp_writer_pid(&name) else {
+            continue;
+        };
+        if e.file_type().is_ok_and(|t| t.is_file())
+            && !writer_alive(pid, true)
+            && fs::remove_file(e.path()).is_ok()
+        {
+            removed += 1;
+        }
+    }
+    removed
+}
+
+/// Is `name` a temporary file of [`write_atomic`]?
+pub fn is_temp_name(name: &str) -> bool {
+    temp_writer_pid(name).is_some()
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[cfg(unix)]
+    #[test]
+    fn stale_temps_of_gone_writers_are_removed() {
+        let dir = tempfile::tempdir().unwrap();
+        // A pid above the Linux maximum (4194304) is never alive.
+        let gone = dir.path().join(".points.csv.99999999.tmp");
+        let own = dir
+            .path()
+            .join(format!(".manifest.json.{}.tmp", std::process::id()));
+        let keep = dir.path().join("points.csv");
+        for p in [&gone, &own, &keep] {
+            fs::write(p, "x").unwrap();
+        }
+        // The parent process (the test harness's launcher) is alive: its file stays.
+        let parent = std::os::unix::process::parent_id();
+        let alive = dir.path().join(format!(".chips.csv.{parent}.tmp"));
+        fs::write(&alive, "x").unwrap();
+        assert_eq!(remove_stale_temps(dir.path()), 2);
+        assert!(!gone.exists() && !own.exists());
+        assert!(keep.exists() && alive.exists());
+        assert_eq!(temp_writer_pid(".a.b.12.tmp"), Some(12));
+        assert_eq!(temp_writer_pid("a.12.tmp"), None);
+    }
 
     #[test]
     fn writes_and_replaces() {

@@ -3,4 +3,4 @@
 
 pub mod atomic;
 
-pub use atomic::{write_atomic, AtomicWriteError};
+pub use atomic::{is_temp_name, remove_stale_temps, write_atomic, AtomicWriteError};

@@ -100,6 +100,10 @@ pub struct Manifest {
     pub host: HostInfo,
     pub started_unix_s: f64,
     pub elapsed_s: f64,
+    /// Physically odd but legal settings and tolerated data problems found when the run
+    /// started (absent in older folders).
+    #[serde(default)]
+    pub warnings: Vec<String>,
 }
 
 /// The value `format` must have in a manifest.

@@ -576,6 +576,14 @@ pub fn report_html(folder: &ResultsFolder, figures: &[Figure], focus: Option<u64
         esc(&m.competition),
         manifest_int(m.seed, "seed")
     );
+    if !m.warnings.is_empty() {
+        // Shown before any number: a designer reads them before trusting a figure.
+        s.push_str(r#"<div class="partial-banner" id="warnings"><strong>Warnings.</strong><ul>"#);
+        for w in &m.warnings {
+            let _ = write!(s, "<li>{}</li>", esc(w));
+        }
+        s.push_str("</ul></div>");
+    }
     if partial {
         let _ = write!(
             s,

@@ -41,7 +41,7 @@ const NMOS_REASON: &str = "this differential pair is built from NMOS transistors
 
 /// Config keys of the tail, for error messages.
 const TAIL_KEYS: SourceKeys = SourceKeys {
-    current: "tail.current",
+    current: "tail current",
     device: "tail.device",
     w: "tail.device.w",
     l: "tail.device.l",

@@ -201,7 +201,7 @@ pub enum CompetitionError {
     },
     /// No operating point within the supply: a bias or input the circuit cannot carry.
     #[error(
-        "{stage}: `{parameter}` cannot be carried within the supply: {reason} ({inputs}); {fix}"
+        "{stage}: the {parameter} cannot be carried within the supply: {reason} ({inputs}); {fix}"
     )]
     Compliance {
         stage: &'static str,

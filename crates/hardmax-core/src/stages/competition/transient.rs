@@ -708,6 +708,13 @@ fn decision_margin(rule: &DecisionRule, d: &Decision) -> f64 {
     (d.winner_share - rule.min_winner_share).min(rule.max_runner_up_share - d.runner_up_share)
 }
 
+impl TransientOptions {
+    /// Check every option (and the noise step, if noise is on); the error names the option.
+    pub fn validate(&self, noise: Option<&NoiseOptions>) -> Result<(), TransientError> {
+        check_options(self, noise)
+    }
+}
+
 fn check_options(o: &TransientOptions, noise: Option<&NoiseOptions>) -> Result<(), TransientError> {
     let bad = |option, value, reason| {
         Err(TransientError::InvalidOption {

@@ -54,7 +54,7 @@ const STAGE: &str = "current-mode WTA";
 
 /// Config keys of the bias, for error messages.
 const BIAS_KEYS: SourceKeys = SourceKeys {
-    current: "bias.current",
+    current: "bias current",
     device: "bias.device",
     w: "bias.device.w",
     l: "bias.device.l",
