@@ -77,6 +77,23 @@ fn run_render_report_and_batch_print_the_full_caution() {
         html.contains(&escaped) || html.contains(hardmax::CAUTION),
         "report.html lacks the full caution"
     );
+    // Failed decisions by kind reach the tables and the report (DEVELOPERS.md results folder).
+    let points = std::fs::read_to_string(out.join("points.csv")).unwrap();
+    assert!(
+        points.lines().next().unwrap().ends_with(
+            "failed_not_converged,failed_out_of_supply_compliance,failed_weight_stage,failed_noise"
+        ),
+        "{points}"
+    );
+    let chips = std::fs::read_to_string(out.join("chips.csv")).unwrap();
+    assert!(
+        chips.lines().next().unwrap().ends_with("failed_noise"),
+        "{chips}"
+    );
+    assert!(
+        html.contains("Failed decisions by kind, all points: not converged 0"),
+        "report lacks the failure kinds"
+    );
     let s = output_of(
         hardmax()
             .args(["batch", "--quiet", "--no-report", "--out-root"])

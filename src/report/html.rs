@@ -419,6 +419,35 @@ fn headline(folder: &ResultsFolder) -> String {
                 r.point
             );
         }
+        // Failed decisions by kind, summed over every point (folders that record them).
+        let mut by_kind = [0.0f64; 4];
+        let mut known = false;
+        for r in rows {
+            if let Some(f) = r.failed {
+                known = true;
+                for (t, v) in by_kind.iter_mut().zip(f) {
+                    *t += v;
+                }
+            }
+        }
+        if known {
+            let names = [
+                "not converged",
+                "out of supply compliance",
+                "weight stage",
+                "noise",
+            ];
+            let parts: Vec<String> = names
+                .iter()
+                .zip(by_kind)
+                .map(|(n, v)| format!("{n} {v}"))
+                .collect();
+            let _ = write!(
+                s,
+                " Failed decisions by kind, all points: {}.",
+                esc(&parts.join(", "))
+            );
+        }
         s.push_str("</p>");
     }
     s
