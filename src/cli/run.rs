@@ -49,7 +49,7 @@ pub fn run(args: RunArgs) -> anyhow::Result<()> {
     )
     .with_context(|| format!("running `{}`", args.file.display()))?;
     if !args.quiet {
-        print_summary(&summary);
+        print_summary(&summary, &resolved.axes);
         println!("results: {}", out.display());
         if let Some(r) = report {
             println!("report:  {}", r.display());
@@ -87,24 +87,57 @@ pub fn execute(
     Ok((summary, report))
 }
 
-/// A short table of the points of a run on stdout.
-pub fn print_summary(s: &RunSummary) {
+/// A short table of the points of a run on stdout: the swept values (with units), yield first,
+/// then accuracy.
+pub fn print_summary(s: &RunSummary, axes: &[crate::experiment::sweep::Axis]) {
+    let names: Vec<String> = axes
+        .iter()
+        .map(|a| a.path.rsplit('.').next().unwrap_or(&a.path).to_string())
+        .collect();
+    let cell = |a: &crate::experiment::sweep::Axis, v: f64| -> String {
+        if a.unit.is_empty() {
+            format!("{v}")
+        } else {
+            crate::units::format_si(v, &a.unit, 4)
+        }
+    };
+    let widths: Vec<usize> = axes
+        .iter()
+        .zip(&names)
+        .enumerate()
+        .map(|(i, (a, n))| {
+            s.records
+                .iter()
+                .filter_map(|r| r.params.get(i))
+                .map(|&v| cell(a, v).chars().count())
+                .max()
+                .unwrap_or(0)
+                .max(n.chars().count())
+        })
+        .collect();
+    let mut head = format!("{:>5}", "point");
+    for (n, w) in names.iter().zip(&widths) {
+        head += &format!("  {n:>w$}");
+    }
     println!(
-        "{:>5}  {:>9}  {:>9}  {:>9}  {:>9}  {:>9}  {:>17}  {:>6}",
-        "point", "ideal", "baseline", "acc mean", "acc p05", "yield", "yield 95% CI", "failed"
+        "{head}  {:>6}  {:>16}  {:>9}  {:>9}  {:>9}  {:>9}  {:>6}",
+        "yield", "yield 95% CI", "acc mean", "acc p05", "ideal", "baseline", "failed"
     );
     for r in &s.records {
         let m = r.summary();
+        let mut line = format!("{:>5}", r.point);
+        for ((a, w), v) in axes.iter().zip(&widths).zip(&r.params) {
+            line += &format!("  {:>w$}", cell(a, *v));
+        }
         println!(
-            "{:>5}  {:>9.4}  {:>9.4}  {:>9.4}  {:>9.4}  {:>9.3}  [{:>6.3}, {:>6.3}]  {:>6}",
-            r.point,
-            r.ideal_acc,
-            r.baseline_acc,
-            m.acc_mean,
-            m.acc_p05,
+            "{line}  {:>6.3}  [{:>6.3}, {:>6.3}]  {:>9.4}  {:>9.4}  {:>9.4}  {:>9.4}  {:>6}",
             m.yield_,
             m.yield_lo,
             m.yield_hi,
+            m.acc_mean,
+            m.acc_p05,
+            r.ideal_acc,
+            r.baseline_acc,
             m.nonconverged
         );
     }
