@@ -66,8 +66,11 @@ fn max_kcl(c: &WtaCircuit, inputs: &[f64], out: &StageSolution) -> f64 {
 const N_SLOPE: f64 = 1.3; // generic process slope factor (competition_support)
 
 /// Closed form in deep weak inversion, I/I_S ≈ 1e-4, g = kappa/sigma = 1/eta = 100: log output
-/// ratios within a few per cent of g ln(I_i/I_j) (DEVELOPERS.md model notes §4.1: "within a few per cent in
-/// log-ratio at I/I_S ~ 1e-4 and g = 100").
+/// ratios within 4 % of g ln(I_i/I_j). The closed form is the weak-inversion law of Lazzaro,
+/// Ryckebusch, Mahowald, Mead (NIPS 1, 1989); its error from EKV's forward law (Enz,
+/// Krummenacher, Vittoz 1995) is bounded in DEVELOPERS.md model notes §4.1 ("How close the
+/// closed form is"): (sqrt(i_A)/2) |g ln r| + sqrt(i_B,max) = at most 3.0 % here; 4 % adds a
+/// margin for the higher-order terms (our choice).
 #[test]
 fn weak_inversion_closed_form_log_ratios() {
     let eta = 0.01;

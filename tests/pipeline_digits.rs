@@ -51,7 +51,7 @@ max_runner_up_share = 1.0
     // DEVELOPERS.md model notes section 6 band (scikit-learn 1.9.1 reference figure 0.969 for digits).
     assert!((prep.ideal_acc - 0.969).abs() < 0.03, "{}", prep.ideal_acc);
     for o in chips(&setup, &prep, 3) {
-        assert_eq!(o.nonconverged, 0);
+        assert_eq!(o.failed.total(), 0);
         assert!(o.agreement() >= 0.99, "agreement {}", o.agreement());
         assert!(
             (o.accuracy() - prep.ideal_acc).abs() <= 0.01,
@@ -140,11 +140,11 @@ fn hidden_stage_as_a_circuit() {
     };
     let (setup, prep) = point(&text("diff_pair", 1.0));
     for o in chips(&setup, &prep, 2) {
-        assert_eq!(o.nonconverged, 0, "{:?}", o.first_failure);
+        assert_eq!(o.failed.total(), 0, "{:?}", o.first_failure);
         assert!(o.agreement() >= 0.98, "agreement {}", o.agreement());
     }
     let (setup, prep) = point(&text("current_wta", 20.0));
     for o in chips(&setup, &prep, 2) {
-        assert_eq!(o.nonconverged, 0, "{:?}", o.first_failure);
+        assert_eq!(o.failed.total(), 0, "{:?}", o.first_failure);
     }
 }

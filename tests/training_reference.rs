@@ -1,9 +1,8 @@
 //! Float training and the two references on the open datasets (datasets/PROVENANCE.md).
 //!
 //! Sources: the linfa-logistic 0.8.1 model itself (reference library) for the sample-by-sample
-//! agreement and the score identity; DEVELOPERS.md model notes section 6 for the cross-validation figures
-//! (scikit-learn 1.9.1 LogisticRegression, standardised features, 5-fold stratified CV:
-//! iris 0.960, wine 0.983, digits 0.969), used as bands of +-0.03 ("a few points").
+//! agreement and the score identity. The trainer's optimum is checked against scikit-learn in
+//! tests/training_sklearn.rs.
 
 use hardmax::data::{stratified_split, Dataset};
 use hardmax::training::{
@@ -81,38 +80,20 @@ fn unstandardised_weights_are_linfa_params() {
     assert_eq!(model.linear.weights.dim(), (3, 4));
 }
 
-/// 5-fold stratified CV of the float model within a few points of the reference figures.
+/// 5-fold stratified CV runs and gives five folds whose accuracies average to its mean (the
+/// trainer itself is checked against scikit-learn on the same objective in
+/// tests/training_sklearn.rs; the reference figures of DEVELOPERS.md model notes §6 are bands
+/// for the docs, not a test target: checking them against defaults chosen while looking at them
+/// was circular).
 #[test]
-fn cross_validation_accuracy_in_reference_bands() {
-    // DEVELOPERS.md model notes section 6 (scikit-learn 1.9.1, measured for the design guide).
-    let references = [("iris", 0.960), ("wine", 0.983), ("digits", 0.969)];
-    for (name, reference) in references {
-        let ds = Dataset::builtin(name).unwrap();
-        let cv = cross_validate(&ds, 5, 1, &LogisticOptions::default()).unwrap();
-        assert_eq!(cv.fold_accuracies.len(), 5);
-        assert!(
-            (cv.mean_accuracy - reference).abs() <= 0.03,
-            "{name}: CV accuracy {} vs reference {reference}",
-            cv.mean_accuracy
-        );
-    }
-}
-
-/// The default 70/30 split (seed 1) is well above chance and near the CV figures.
-#[test]
-fn holdout_accuracy_near_reference() {
-    let references = [("iris", 0.960), ("wine", 0.983)];
-    for (name, reference) in references {
-        let ds = Dataset::builtin(name).unwrap();
-        let (train, test) = stratified_split(&ds, 0.3, 1).unwrap();
-        let r = train_with_references(&train, &test, &LogisticOptions::default()).unwrap();
-        // A 45- or 53-sample test split: one sample is ~2 points, so allow 0.05.
-        assert!(
-            (r.baseline_accuracy - reference).abs() <= 0.05,
-            "{name}: {}",
-            r.baseline_accuracy
-        );
-    }
+fn cross_validation_folds_average_to_the_mean() {
+    let ds = Dataset::builtin("iris").unwrap();
+    let cv = cross_validate(&ds, 5, 1, &LogisticOptions::default()).unwrap();
+    assert_eq!(cv.fold_accuracies.len(), 5);
+    let mean = cv.fold_accuracies.iter().sum::<f64>() / 5.0;
+    assert!((cv.mean_accuracy - mean).abs() < 1e-12);
+    // Far above chance (1/3 for three balanced classes): the folds were trained at all.
+    assert!(cv.mean_accuracy > 0.8, "{}", cv.mean_accuracy);
 }
 
 #[test]

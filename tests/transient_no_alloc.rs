@@ -1,36 +1,19 @@
 //! The transient's hot path does not allocate once its workspace has grown (the Monte Carlo
 //! runner calls it once per decision): counted with a global allocator wrapper around the
-//! system allocator. One test per binary, so no other thread allocates while counting.
+//! system allocator that counts per thread (`tests/alloc_support`), so the harness's other
+//! threads never count.
 
-use std::alloc::{GlobalAlloc, Layout, System};
-use std::sync::atomic::{AtomicUsize, Ordering};
+mod alloc_support;
 
+use alloc_support::{thread_allocations, BusyNeighbour, PerThreadCounting};
 use hardmax::device::{preset, Polarity, Transistor};
 use hardmax::stages::competition::transient::{
     simulate, InitialState, NoiseOptions, TransientOptions, TransientWorkspace,
 };
 use hardmax::stages::competition::{WtaBias, WtaChip, WtaDesign};
 
-struct Counting;
-
-static ALLOCATIONS: AtomicUsize = AtomicUsize::new(0);
-
-unsafe impl GlobalAlloc for Counting {
-    unsafe fn alloc(&self, layout: Layout) -> *mut u8 {
-        ALLOCATIONS.fetch_add(1, Ordering::SeqCst);
-        unsafe { System.alloc(layout) }
-    }
-    unsafe fn dealloc(&self, ptr: *mut u8, layout: Layout) {
-        unsafe { System.dealloc(ptr, layout) }
-    }
-    unsafe fn realloc(&self, ptr: *mut u8, layout: Layout, new_size: usize) -> *mut u8 {
-        ALLOCATIONS.fetch_add(1, Ordering::SeqCst);
-        unsafe { System.realloc(ptr, layout, new_size) }
-    }
-}
-
 #[global_allocator]
-static GLOBAL: Counting = Counting;
+static GLOBAL: PerThreadCounting = PerThreadCounting;
 
 #[test]
 fn transient_runs_do_not_allocate_after_warm_up() {
@@ -64,12 +47,17 @@ fn transient_runs_do_not_allocate_after_warm_up() {
         simulate(&c, &inputs, o, None, &mut ws).unwrap();
         simulate(&c, &inputs, o, Some((&nopts, &mut rng)), &mut ws).unwrap();
     }
-    let before = ALLOCATIONS.load(Ordering::SeqCst);
+    // Another thread allocates throughout the counted window: only this thread's count.
+    let neighbour = BusyNeighbour::start();
+    let before = thread_allocations();
+    neighbour.wait_for(10);
     for o in &opts {
         simulate(&c, &inputs, o, None, &mut ws).unwrap();
         simulate(&c, &inputs, o, Some((&nopts, &mut rng)), &mut ws).unwrap();
     }
-    let after = ALLOCATIONS.load(Ordering::SeqCst);
+    neighbour.wait_for(10);
+    let after = thread_allocations();
+    drop(neighbour);
     assert_eq!(
         after,
         before,

@@ -9,12 +9,9 @@ use clap::Args;
 use crate::data::{load_csv, stratified_split, CsvOptions, Dataset};
 use crate::training::{cross_validate, train_with_references, LogisticOptions};
 
-/// The caution every user-facing report carries (DEVELOPERS.md model notes section 8).
-const CAUTION: &str = "hardmax gives architecture-stage estimates; final decisions need the foundry's characterised models and your team's verification flow.";
-
 #[derive(Debug, Args)]
 #[command(group = clap::ArgGroup::new("source").required(true).args(["dataset", "csv"]))]
-#[command(after_help = CAUTION)]
+#[command(after_help = crate::CAUTION)]
 pub struct BaselineArgs {
     /// A shipped dataset: iris, wine or digits.
     #[arg(long, value_name = "NAME")]
@@ -141,7 +138,7 @@ pub fn run(args: BaselineArgs) -> anyhow::Result<()> {
         println!("{k:<width$}  {v}");
     }
     println!();
-    println!("{CAUTION}");
+    println!("{}", crate::CAUTION);
     Ok(())
 }
 

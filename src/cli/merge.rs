@@ -46,7 +46,18 @@ pub fn run(args: MergeArgs) -> anyhow::Result<()> {
             "merged {} shards: {} sweep points",
             summary.shards, summary.points
         );
-        super::run::print_table(&summary.records);
+        // The swept parameters, as the merged folder's manifest names them.
+        let axes: Vec<(String, String)> = crate::report::ResultsFolder::read(&args.out)
+            .map(|f| {
+                f.manifest
+                    .sweep
+                    .parameters
+                    .iter()
+                    .map(|p| (p.path.clone(), p.unit.clone()))
+                    .collect()
+            })
+            .unwrap_or_default();
+        super::run::print_table(&summary.records, &axes);
         println!("results: {}", args.out.display());
         if let Some(r) = report {
             println!("report:  {}", r.display());

@@ -57,9 +57,7 @@ pub fn run(args: RenderArgs) -> anyhow::Result<()> {
             summary.points_rendered, summary.points_total
         );
     }
-    println!(
-        "note: architecture-stage estimates from compact models and generic parameters, not sign-off"
-    );
+    println!("{}", crate::CAUTION);
     Ok(())
 }
 

@@ -61,7 +61,7 @@ pub fn run(args: RunArgs) -> anyhow::Result<()> {
     .with_context(|| format!("running `{}`", args.file.display()))?;
     if !args.quiet {
         match args.shard {
-            None => print_summary(&summary),
+            None => print_summary(&summary, &resolved.axes),
             Some(s) => println!(
                 "shard {s}: {} of its sweep points finished ({} run now, {} resumed) in {:.1} s; merge all {} shards with `hardmax merge --out DIR SHARD_FOLDERS...`",
                 summary.records.len(),
@@ -152,33 +152,71 @@ pub fn execute_with(
     Ok((summary, report))
 }
 
-/// A short table of the points of a run on stdout.
-pub fn print_summary(s: &RunSummary) {
-    print_table(&s.records);
+/// A short table of the points of a run on stdout: the swept values (with units), yield first,
+/// then accuracy.
+pub fn print_summary(s: &RunSummary, axes: &[crate::experiment::sweep::Axis]) {
+    let columns: Vec<(String, String)> = axes
+        .iter()
+        .map(|a| (a.path.clone(), a.unit.clone()))
+        .collect();
+    print_table(&s.records, &columns);
     println!(
         "{} points ({} run now, {} resumed) in {:.1} s",
         s.points_total, s.points_run, s.points_resumed, s.elapsed_s
     );
 }
 
-/// One line per point: accuracy, yield, failures.
-pub fn print_table(records: &[crate::experiment::results::PointRecord]) {
+/// One line per point: the swept values (with units), yield first, then accuracy and failures.
+/// `axes` are the swept parameters as (key path, base SI unit), in sweep order.
+pub fn print_table(records: &[crate::experiment::results::PointRecord], axes: &[(String, String)]) {
+    let names: Vec<String> = axes
+        .iter()
+        .map(|(path, _)| path.rsplit('.').next().unwrap_or(path).to_string())
+        .collect();
+    let cell = |(_, unit): &(String, String), v: f64| -> String {
+        if unit.is_empty() {
+            format!("{v}")
+        } else {
+            crate::units::format_si(v, unit, 4)
+        }
+    };
+    let widths: Vec<usize> = axes
+        .iter()
+        .zip(&names)
+        .enumerate()
+        .map(|(i, (a, n))| {
+            records
+                .iter()
+                .filter_map(|r| r.params.get(i))
+                .map(|&v| cell(a, v).chars().count())
+                .max()
+                .unwrap_or(0)
+                .max(n.chars().count())
+        })
+        .collect();
+    let mut head = format!("{:>5}", "point");
+    for (n, w) in names.iter().zip(&widths) {
+        head += &format!("  {n:>w$}");
+    }
     println!(
-        "{:>5}  {:>9}  {:>9}  {:>9}  {:>9}  {:>9}  {:>17}  {:>6}",
-        "point", "ideal", "baseline", "acc mean", "acc p05", "yield", "yield 95% CI", "failed"
+        "{head}  {:>6}  {:>16}  {:>9}  {:>9}  {:>9}  {:>9}  {:>6}",
+        "yield", "yield 95% CI", "acc mean", "acc p05", "ideal", "baseline", "failed"
     );
     for r in records {
         let m = r.summary();
+        let mut line = format!("{:>5}", r.point);
+        for ((a, w), v) in axes.iter().zip(&widths).zip(&r.params) {
+            line += &format!("  {:>w$}", cell(a, *v));
+        }
         println!(
-            "{:>5}  {:>9.4}  {:>9.4}  {:>9.4}  {:>9.4}  {:>9.3}  [{:>6.3}, {:>6.3}]  {:>6}",
-            r.point,
-            r.ideal_acc,
-            r.baseline_acc,
-            m.acc_mean,
-            m.acc_p05,
+            "{line}  {:>6.3}  [{:>6.3}, {:>6.3}]  {:>9.4}  {:>9.4}  {:>9.4}  {:>9.4}  {:>6}",
             m.yield_,
             m.yield_lo,
             m.yield_hi,
+            m.acc_mean,
+            m.acc_p05,
+            r.ideal_acc,
+            r.baseline_acc,
             m.nonconverged
         );
     }

@@ -1126,8 +1126,10 @@ fn sweep(args: &StageArgs, spec: &Spec, stage: &Stage, what: &str) -> anyhow::Re
             println!("{}", crate::CAUTION);
         }
         None => {
+            // The CSV goes to stdout; what is said about it (quantity, caution) to stderr.
             eprintln!("{quantity}");
             print!("{}", String::from_utf8_lossy(&bytes));
+            eprintln!("{}", crate::CAUTION);
         }
     }
     Ok(())

@@ -373,7 +373,9 @@ impl Default for HiddenCfg {
     fn default() -> Self {
         Self {
             units: 0,
-            exponent: 2.0,
+            // 4: the current-mode WTA circuit follows its I^g law from about g = 2.5 with the
+            // default sizes and bias (pipeline::check_hidden_wta refuses below); 2 did not.
+            exponent: 4.0,
             bias_current: Q::new(100e-9),
             seed: 1,
             circuit: HiddenCircuitKind::ClosedForm,

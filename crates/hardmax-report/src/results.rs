@@ -13,7 +13,8 @@ use serde::{Deserialize, Serialize};
 use super::stats::{summarize, wilson_interval};
 use crate::io::write_atomic;
 // One definition of the table schema, shared with the reader in `report`.
-use crate::report::folder::{CHIP_COLUMNS, CONFUSION_COLUMNS, POINT_STAT_COLUMNS};
+use crate::pipeline::{FailureCounts, FailureKind};
+use crate::report::folder::{CHIP_COLUMNS, CONFUSION_COLUMNS, FAILURE_COLUMNS, POINT_STAT_COLUMNS};
 
 /// Version of the results-folder format (manifest `format_version`).
 pub const FORMAT_VERSION: u32 = 1;
@@ -29,7 +30,11 @@ pub struct ChipRow {
     /// Share of samples where the circuit's decision equals ideal argmax.
     pub agreement: f64,
     pub ambiguous: u64,
+    /// Failed decisions of every kind (the column keeps its first name).
     pub nonconverged: u64,
+    /// Failed decisions by kind (absent in records of older versions: all zero).
+    #[serde(default)]
+    pub failed: FailureCounts,
     pub samples: u64,
     /// Mean time to decision (transient evaluation only).
     pub decision_time_mean_s: Option<f64>,
@@ -74,6 +79,8 @@ pub struct PointSummary {
     pub agreement_mean: f64,
     pub ambiguous_frac: f64,
     pub nonconverged: u64,
+    /// Failed decisions by kind, summed over chips.
+    pub failed: FailureCounts,
     pub decision_time_mean_s: Option<f64>,
     pub energy_mean_j: Option<f64>,
 }
@@ -123,6 +130,13 @@ impl PointRecord {
                 ambiguous as f64 / samples as f64
             },
             nonconverged: self.chips.iter().map(|c| c.nonconverged).sum(),
+            failed: self
+                .chips
+                .iter()
+                .fold(FailureCounts::default(), |mut a, c| {
+                    a.merge(&c.failed);
+                    a
+                }),
             decision_time_mean_s: mean_opt(|c| c.decision_time_mean_s),
             energy_mean_j: mean_opt(|c| c.energy_mean_j),
         }
@@ -295,6 +309,7 @@ pub fn points_csv(records: &[PointRecord], axis_paths: &[String]) -> Vec<u8> {
     let mut header = vec!["point".to_string()];
     header.extend(axis_paths.iter().cloned());
     header.extend(POINT_STAT_COLUMNS.map(String::from));
+    header.extend(FAILURE_COLUMNS.map(String::from));
     let mut rows = vec![header];
     for r in records {
         let s = r.summary();
@@ -320,6 +335,7 @@ pub fn points_csv(records: &[PointRecord], axis_paths: &[String]) -> Vec<u8> {
             opt(s.decision_time_mean_s),
             opt(s.energy_mean_j),
         ]);
+        row.extend(FailureKind::ALL.map(|k| s.failed.get(k).to_string()));
         rows.push(row);
     }
     to_bytes(rows)
@@ -330,6 +346,7 @@ pub fn chips_csv(records: &[PointRecord], axis_paths: &[String]) -> Vec<u8> {
     let mut header = vec!["point".to_string()];
     header.extend(axis_paths.iter().cloned());
     header.extend(CHIP_COLUMNS.map(String::from));
+    header.extend(FAILURE_COLUMNS.map(String::from));
     let mut rows = vec![header];
     for r in records {
         for c in &r.chips {
@@ -345,6 +362,7 @@ pub fn chips_csv(records: &[PointRecord], axis_paths: &[String]) -> Vec<u8> {
                 opt(c.decision_time_mean_s),
                 opt(c.energy_mean_j),
             ]);
+            row.extend(FailureKind::ALL.map(|k| c.failed.get(k).to_string()));
             rows.push(row);
         }
     }
@@ -394,7 +412,13 @@ mod tests {
                     accuracy: a,
                     agreement: a,
                     ambiguous: 1,
-                    nonconverged: 0,
+                    nonconverged: 3,
+                    failed: FailureCounts {
+                        not_converged: 1,
+                        out_of_supply_compliance: 2,
+                        weight_stage: 0,
+                        noise: 0,
+                    },
                     samples: 10,
                     decision_time_mean_s: None,
                     energy_mean_j: None,
@@ -476,10 +500,19 @@ mod tests {
         let p = String::from_utf8(points_csv(&recs, &["competition.bias_current".into()])).unwrap();
         let header = p.lines().next().unwrap();
         assert!(header.starts_with("point,competition.bias_current,chips,samples,acc_mean"));
-        assert!(header.ends_with("decision_time_mean_s,energy_mean_j"));
+        assert!(header.ends_with(
+            "decision_time_mean_s,energy_mean_j,failed_not_converged,\
+             failed_out_of_supply_compliance,failed_weight_stage,failed_noise"
+        ));
+        // Two chips with 1 not converged and 2 out of compliance each: 2 and 4 at the point.
+        assert!(p.lines().nth(1).unwrap().ends_with(",6,,,2,4,0,0"), "{p}");
         let c = String::from_utf8(confusion_csv(&recs, &["a".into(), "b".into()])).unwrap();
         assert!(c.contains("0,b,ambiguous,1"), "{c}");
         let ch = String::from_utf8(chips_csv(&recs, &["x".into()])).unwrap();
         assert_eq!(ch.lines().count(), 3);
+        assert!(
+            ch.lines().nth(1).unwrap().ends_with(",3,10,,,1,2,0,0"),
+            "{ch}"
+        );
     }
 }

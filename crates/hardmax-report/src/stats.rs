@@ -4,18 +4,32 @@
 /// succession, and statistical inference", JASA 22, 1927).
 ///
 /// Returns `(lower, upper)` for `successes` out of `trials` at normal quantile `z` (1.96 for 95 %).
-/// With zero trials the interval is the whole of [0, 1].
+/// With zero trials the interval is the whole of [0, 1]. At the ends the formula gives exactly
+/// 0 (no successes: `centre = half = z^2/(2n)/(1 + z^2/n)`) and exactly 1 (all successes); in
+/// floating point `centre - half` would leave a rounding residue (1.7e-18 for 0 of 200), so
+/// those ends are set to their exact values.
 pub fn wilson_interval(successes: u64, trials: u64, z: f64) -> (f64, f64) {
     if trials == 0 {
         return (0.0, 1.0);
     }
+    let successes = successes.min(trials);
     let n = trials as f64;
     let p = successes as f64 / n;
     let z2 = z * z;
     let denom = 1.0 + z2 / n;
     let centre = (p + z2 / (2.0 * n)) / denom;
     let half = z * (p * (1.0 - p) / n + z2 / (4.0 * n * n)).sqrt() / denom;
-    ((centre - half).max(0.0), (centre + half).min(1.0))
+    let lower = if successes == 0 {
+        0.0
+    } else {
+        (centre - half).max(0.0)
+    };
+    let upper = if successes == trials {
+        1.0
+    } else {
+        (centre + half).min(1.0)
+    };
+    (lower, upper)
 }
 
 /// Summary of a sample of values (e.g. per-chip accuracies at one sweep point).
@@ -102,6 +116,42 @@ mod tests {
         assert_abs_diff_eq!(hi, 1.0, epsilon = 1e-12);
         assert_abs_diff_eq!(lo, 10.0 / (10.0 + 1.96f64.powi(2)), epsilon = 1e-12);
         assert_eq!(wilson_interval(0, 0, 1.96), (0.0, 1.0));
+    }
+
+    /// The ends are exact, not a rounding residue away (Wilson 1927: at p = 0 the lower bound
+    /// is `centre - half` with `centre = half`, i.e. 0; at p = 1 the upper bound is 1). Before
+    /// the fix 0 of 200 gave 1.7e-18 and 10 of 10 gave 0.9999999999999999.
+    #[test]
+    fn wilson_ends_are_exact() {
+        let z = 1.959963984540054;
+        for n in [1u64, 10, 200, 263, 1000] {
+            assert_eq!(wilson_interval(0, n, z).0, 0.0, "lower end, 0 of {n}");
+            assert_eq!(wilson_interval(n, n, z).1, 1.0, "upper end, {n} of {n}");
+        }
+        assert_eq!(wilson_interval(0, 200, 1.96).0, 0.0);
+        assert_eq!(wilson_interval(10, 10, 1.96).1, 1.0);
+    }
+
+    /// Worked values: Wilson's formula (JASA 22, 1927) evaluated independently (in Python) at
+    /// z = 1.959964 (two-sided 95 %), to 4 decimals: the other end at 0 and n successes is
+    /// z^2/(n + z^2) and n/(n + z^2); 8 of 10 -> [0.4902, 0.9433]; 81 of 263 -> [0.2553, 0.3662].
+    #[test]
+    fn wilson_worked_values_ends_and_middle() {
+        let z = 1.959963984540054;
+        let (lo, hi) = wilson_interval(0, 200, z);
+        assert_eq!(lo, 0.0);
+        assert_abs_diff_eq!(hi, z * z / (200.0 + z * z), epsilon = 1e-12);
+        assert_abs_diff_eq!(hi, 0.018845, epsilon = 1e-6);
+        let (lo, hi) = wilson_interval(10, 10, z);
+        assert_abs_diff_eq!(lo, 10.0 / (10.0 + z * z), epsilon = 1e-12);
+        assert_abs_diff_eq!(lo, 0.7225, epsilon = 5e-5);
+        assert_eq!(hi, 1.0);
+        let (lo, hi) = wilson_interval(8, 10, z);
+        assert_abs_diff_eq!(lo, 0.4902, epsilon = 5e-5);
+        assert_abs_diff_eq!(hi, 0.9433, epsilon = 5e-5);
+        let (lo, hi) = wilson_interval(81, 263, z);
+        assert_abs_diff_eq!(lo, 0.2553, epsilon = 5e-5);
+        assert_abs_diff_eq!(hi, 0.3662, epsilon = 5e-5);
     }
 
     /// Type-7 percentiles agree with numpy.percentile's default (Hyndman & Fan 1996):

@@ -11,9 +11,13 @@
 //! V_P = (V_G - V_T0 + eta (V_D - V_S)) / n,            I_S = 2 n beta u^2
 //! ```
 //!
-//! `eta` is the drain coupling (drain-induced barrier lowering) into the pinch-off voltage; in
-//! weak-inversion saturation `I_D ∝ exp((kappa V_G + sigma V_D - V_S)/u)` with `kappa = 1/n`
-//! and `sigma = eta / n`.
+//! Two numbers say how hard each terminal pushes on the barrier the carriers must cross.
+//! `kappa = 1/n`: the share of a gate-voltage step that reaches the channel's surface potential
+//! (the rest drops across the oxide and depletion capacitances in series). `sigma = eta/n`: the
+//! same share for a drain-voltage step, which lowers the barrier a little (`eta` enters the
+//! pinch-off voltage above). The source sets the carrier supply directly, with weight 1. So in
+//! weak-inversion saturation the current is exponential in a weighted sum of the three terminal
+//! voltages, `I_D ∝ exp((kappa V_G + sigma V_D - V_S)/u)`.
 //!
 //! Polarity: for a PMOS device the same equations are applied to the negated bulk-referred
 //! voltages (the n-well is the bulk), and the returned current is the current that flows *out*
@@ -110,13 +114,13 @@ pub fn ekv_f_and_slope(x: f64) -> (f64, f64) {
 }
 
 impl Ekv {
-    /// kappa = 1/n, the gate coupling into the surface potential.
+    /// kappa = 1/n: how strongly the gate voltage moves the channel's surface potential.
     #[inline]
     pub fn kappa(&self) -> f64 {
         1.0 / self.n
     }
 
-    /// sigma = eta/n, the drain coupling into the surface potential.
+    /// sigma = eta/n: how strongly the drain voltage moves the channel's surface potential.
     #[inline]
     pub fn sigma(&self) -> f64 {
         self.eta / self.n

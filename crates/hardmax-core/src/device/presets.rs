@@ -17,9 +17,11 @@
 //!   (common practice, no source).
 //! - K_F ≈ 1e-25 V²·F for NMOS and about half for PMOS (order of magnitude, from memory).
 //! - Drain coupling as an Early voltage per channel length, V_A = (V_A/L) * L, for long-channel
-//!   analog devices (from memory). The current-mode WTA gain is g = kappa/sigma = V_A/(n U_T)
-//!   (DEVELOPERS.md model notes section 4 with sigma ≈ U_T/V_A): at L = 1 µm and 27 °C about 550 (350 nm), 300
-//!   (180 nm) and 170 (65 nm), growing in proportion to L.
+//!   analog devices (from memory). The current-mode WTA gain follows from it, not from a quoted
+//!   range: g = kappa/sigma with kappa = 1/n and sigma = U_T/V_A, i.e. g = V_A/(n U_T)
+//!   ([`wta_gain`]; DEVELOPERS.md model notes §3, table of computed values per preset). At
+//!   L = 1 µm and 27 °C: NMOS 552, 297, 172 and PMOS 533, 286, 166 (350, 180, 65 nm), growing in
+//!   proportion to L.
 
 use super::error::DeviceError;
 use super::tech::{DeviceTech, DrainCoupling, Process};
@@ -66,6 +68,16 @@ fn tech(
         cox: EPS_OX / (tox_nm / 1e9),
         kf,
     }
+}
+
+/// The weak-inversion gain g = kappa/sigma of a current-mode WTA whose sink transistors are of
+/// type `tech` with channel length `l` (m), at the process's nominal temperature `t_nom` (K):
+/// kappa = 1/n, sigma = eta/n, so g = 1/eta; for an Early-voltage coupling sigma = U_T/V_A and
+/// g = V_A/(n U_T) (DEVELOPERS.md model notes §3 and §4.1).
+pub fn wta_gain(tech: &DeviceTech, l: f64, t_nom: f64) -> f64 {
+    let ut = crate::physics::thermal_voltage(t_nom);
+    let eta = tech.drain_coupling.eta(tech.n, l, ut);
+    (1.0 / tech.n) / (eta / tech.n)
 }
 
 /// A generic process preset by name (see [`preset_names`]). An unknown name is an error listing
@@ -120,7 +132,6 @@ pub fn preset(name: &str) -> Result<Process, DeviceError> {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::physics::thermal_voltage;
 
     fn all() -> Vec<Process> {
         preset_names()
@@ -158,22 +169,68 @@ mod tests {
     }
 
     /// Mobility mu = mu C_ox / C_ox in the usual bulk-silicon inversion-layer ranges (NMOS
-    /// 150-600 cm²/Vs, PMOS 40-250 cm²/Vs: from memory), and the WTA gain at L = 1 µm,
-    /// V_A/(n U_T), in the hundreds (DEVELOPERS.md model notes section 4: hundreds to about a thousand, common
-    /// practice, no source; 65 nm lands just under 200 at 1 µm).
+    /// 150-600 cm²/Vs, PMOS 40-250 cm²/Vs: from memory).
     #[test]
-    fn mobility_and_wta_gain_ranges() {
+    fn mobility_ranges() {
         for p in all() {
             let mu_n = p.nmos.mu_cox / p.nmos.cox * 1e4;
             let mu_p = p.pmos.mu_cox / p.pmos.cox * 1e4;
             assert!((150.0..=600.0).contains(&mu_n), "{}: {mu_n}", p.name);
             assert!((40.0..=250.0).contains(&mu_p), "{}: {mu_p}", p.name);
-            let ut = thermal_voltage(p.t_nom);
-            for t in [&p.nmos, &p.pmos] {
+        }
+    }
+
+    /// The WTA gain g = kappa/sigma of every preset, computed three ways that must agree:
+    /// (1) [`wta_gain`]; (2) V_A/(n U_T) by hand from the preset table (V_A/L times 1 µm, the
+    /// slope factor n) with U_T = kT/q from the CODATA 2018 constants at 27 °C; (3) from the EKV
+    /// device itself (Enz, Krummenacher, Vittoz 1995): in weak-inversion saturation
+    /// kappa = U_T d ln I/dV_G and sigma = U_T d ln I/dV_D, so their ratio, taken by central
+    /// differences on `Ekv::id`, is g. The values are the ones documented per preset in
+    /// DEVELOPERS.md model notes §3 (rounded to the unit there).
+    #[test]
+    fn wta_gain_per_preset_from_early_voltage_and_slope_factor() {
+        // (preset, V_A/L in V/µm and n of NMOS, PMOS; documented gains NMOS, PMOS at 1 µm)
+        let table = [
+            ("generic-350nm", 20.0, 1.40, 1.45, 552.0, 533.0),
+            ("generic-180nm", 10.0, 1.30, 1.35, 297.0, 286.0),
+            ("generic-65nm", 6.0, 1.35, 1.40, 172.0, 166.0),
+        ];
+        // k = 1.380649e-23 J/K and q = 1.602176634e-19 C are exact in SI (CODATA 2018).
+        let ut = 1.380649e-23 * 300.15 / 1.602176634e-19;
+        for (name, va_per_um, n_n, n_p, doc_n, doc_p) in table {
+            let p = preset(name).unwrap();
+            for (t, n, doc, pol) in [
+                (&p.nmos, n_n, doc_n, crate::device::Polarity::Nmos),
+                (&p.pmos, n_p, doc_p, crate::device::Polarity::Pmos),
+            ] {
                 let l = 1e-6;
-                let eta = t.drain_coupling.eta(t.n, l, ut);
-                let gain = (1.0 / t.n) / (eta / t.n);
-                assert!((150.0..=1000.0).contains(&gain), "{}: {gain}", p.name);
+                let g = wta_gain(t, l, p.t_nom);
+                let by_hand = va_per_um / (n * ut);
+                assert!(
+                    (g - by_hand).abs() <= 1e-9 * by_hand,
+                    "{name}: {g} vs {by_hand}"
+                );
+                assert!((g - doc).abs() <= 0.5, "{name}: {g} vs documented {doc}");
+                // Ten times longer channel, ten times the gain (V_A ∝ L).
+                let g10 = wta_gain(t, 10.0 * l, p.t_nom);
+                assert!((g10 / g - 10.0).abs() < 1e-9, "{name}");
+                // From the device: weak-inversion saturation, V_D well above 4 U_T.
+                let tr = crate::device::Transistor {
+                    polarity: pol,
+                    w: 1e-6,
+                    l,
+                };
+                let e = p.ekv(&tr, p.t_nom, crate::device::MosMismatch::default());
+                let s = pol.sign();
+                let (vg, vd, h) = (0.1, 0.9, 1e-4);
+                let lni = |g: f64, d: f64| e.id(s * g, s * d, 0.0).ln();
+                let dg = (lni(vg + h, vd) - lni(vg - h, vd)) / (2.0 * h);
+                let dd = (lni(vg, vd + h) - lni(vg, vd - h)) / (2.0 * h);
+                let from_device = dg / dd;
+                assert!(
+                    (from_device - g).abs() <= 0.01 * g,
+                    "{name} {pol:?}: device {from_device} vs {g}"
+                );
             }
         }
     }

@@ -11,7 +11,8 @@ use super::ekv::{Ekv, Polarity};
 use super::error::{check, validate_temperature, DeviceError};
 use crate::physics::thermal_voltage;
 
-/// How the drain couples into the channel's surface potential (sets the WTA gain kappa/sigma).
+/// How strongly the drain voltage moves the channel's surface potential (sigma = eta/n; with
+/// kappa = 1/n for the gate, it sets the current-mode WTA's gain g = kappa/sigma).
 ///
 /// Users may give it in any of these forms; the form given is kept so reports can say which.
 #[derive(Clone, Copy, Debug, PartialEq, Serialize, Deserialize)]
@@ -19,9 +20,11 @@ use crate::physics::thermal_voltage;
 pub enum DrainCoupling {
     /// EKV drain coupling coefficient `eta` in `V_P = (V_G - V_T0 + eta (V_D - V_S)) / n`.
     Eta(f64),
-    /// Drain coupling into the surface potential, `sigma = eta / n`.
+    /// `sigma = eta / n` given directly: the weight of V_D in the weak-inversion exponent.
     Sigma(f64),
-    /// An Early voltage V_A in volts: `sigma ≈ U_T / V_A` at the process's nominal temperature.
+    /// An Early voltage V_A in volts. In weak-inversion saturation `d ln I_D / d V_D = sigma/U_T`,
+    /// and the Early voltage is `V_A = I_D / (dI_D/dV_D)`, so `sigma = U_T / V_A` at the
+    /// process's nominal temperature.
     EarlyVoltage(f64),
     /// Early voltage proportional to channel length: `V_A = value * L` (value in V/m).
     EarlyVoltagePerLength(f64),

@@ -18,7 +18,7 @@ use crate::rng::{domain, stream};
 use crate::stages::competition::diffpair::{DiffPairChip, DiffPairDesign};
 use crate::stages::competition::noise::InputShotNoise;
 use crate::stages::competition::transient::{
-    simulate, NoiseOptions, TransientOptions, TransientWorkspace,
+    simulate, NoiseOptions, TransientError, TransientOptions, TransientWorkspace,
 };
 use crate::stages::competition::wta::{WtaChip, WtaDesign};
 use crate::stages::competition::{
@@ -47,6 +47,16 @@ pub enum PipelineError {
     Unsupported { what: &'static str },
     #[error("{what}; give one row per hidden unit with one weight per feature and the bias last")]
     Shape { what: String },
+    /// The hidden normaliser built as a current-mode WTA cannot follow the power law the
+    /// read-out was trained on at this gain: its sink transistors leave saturation.
+    #[error("hidden normaliser (current-mode WTA): at gain g = {gain} the winning cell's sink transistor leaves saturation (drain voltage {vk_min:.4} V, below 4 U_T = {four_ut:.4} V), so the circuit does not follow the I^g law the read-out is trained on (its shares depart from it by a total-variation distance of {departure:.2}); {}", if g_min.is_finite() { format!("the circuit works for g >= {g_min} with these sizes, bias and supply: use a gain in that range, or the closed-form normaliser") } else { "no gain up to 10000 works with these sizes, bias and supply: use the closed-form normaliser or change the hidden bias".to_string() })]
+    HiddenWtaOutOfSaturation {
+        gain: f64,
+        departure: f64,
+        vk_min: f64,
+        four_ut: f64,
+        g_min: f64,
+    },
 }
 
 /// The dataset split, trained float model, and reference accuracies: everything about the
@@ -344,7 +354,9 @@ pub struct ClassifierDesign {
     pub weights: WeightStageDesign,
     pub competition: CompetitionDesign,
     pub decision: DecisionRule,
-    /// Per-decision input-referred shot noise of the competition stage's inputs (DC evaluation).
+    /// Per-decision input-referred shot noise of the competition stage's inputs, applied as a
+    /// static draw only where no transient SDE integrates the input shot noise itself
+    /// ([`ClassifierDesign::static_input_noise`]).
     pub input_noise: Option<InputShotNoise>,
     /// Evaluate the current-mode WTA in time (decision time, energy) instead of at DC.
     pub transient: Option<TransientEvaluation>,
@@ -352,6 +364,36 @@ pub struct ClassifierDesign {
     /// own mismatch, DC solve) instead of the weak-inversion closed form used for training.
     pub hidden_circuit: Option<CompetitionDesign>,
     pub conditions: Conditions,
+}
+
+impl ClassifierDesign {
+    /// Whether the static input-referred shot-noise draw applies. One owner per noise source
+    /// per evaluation mode: a transient run whose SDE integrates the inputs' shot noise
+    /// (`NoiseOptions::input_shot`) owns it; otherwise (DC evaluation) the static draw does.
+    pub fn static_input_noise(&self) -> bool {
+        self.input_noise.is_some()
+            && !matches!(
+                &self.transient,
+                Some(TransientEvaluation { noise: Some(o), .. }) if o.input_shot
+            )
+    }
+
+    /// The competition stage's inputs for one decision: the weight-stage `currents`, plus one
+    /// static input-noise draw each (written into `noisy`) when [`Self::static_input_noise`].
+    pub fn competition_inputs<'a, R: rand::Rng + ?Sized>(
+        &self,
+        currents: &'a [f64],
+        noisy: &'a mut [f64],
+        rng: &mut R,
+    ) -> Result<&'a [f64], CompetitionError> {
+        match &self.input_noise {
+            Some(n) if self.static_input_noise() => {
+                n.apply(currents, noisy, rng)?;
+                Ok(noisy)
+            }
+            _ => Ok(currents),
+        }
+    }
 }
 
 /// A design point ready for chips: the design and the weights mapped onto it.
@@ -389,6 +431,11 @@ impl PointSetup {
             .map(|(w, b)| (w.view(), b.view()))
             .collect();
         let mapped = chain.map(&layers)?;
+        if let (Some(CompetitionDesign::CurrentWta(w)), Some(spec)) =
+            (&design.hidden_circuit, &prep.hidden)
+        {
+            check_hidden_wta(w, spec, &mapped, prep, design.conditions.temperature_k)?;
+        }
         Ok(Self { design, mapped })
     }
 
@@ -425,6 +472,120 @@ impl PointSetup {
     }
 }
 
+/// Samples of the test split used to check the hidden WTA's operating region.
+const HIDDEN_CHECK_SAMPLES: usize = 40;
+
+/// Largest total-variation distance between the nominal hidden WTA's shares and the closed-form
+/// shares `I_k^g / sum I_j^g` (g = 1/eta of the circuit's drain coupling) over `currents`, and
+/// the lowest sink drain voltage of the winning cells; `None` when a solve fails.
+fn hidden_wta_departure(
+    w: &WtaDesign,
+    temperature: f64,
+    currents: &[Vec<f64>],
+) -> Option<(f64, f64)> {
+    let Some(crate::device::DrainCoupling::Eta(eta)) = w.drain_coupling else {
+        return None;
+    };
+    let law = HiddenNonlinearity::PowerLawNormaliser {
+        exponent: 1.0 / eta,
+        bias_current_a: 1.0,
+    };
+    let c = WtaChip::nominal(w.clone()).ok()?.at(temperature).ok()?;
+    let mut ws = Workspace::new();
+    let mut sol = StageSolution::for_stage(&c);
+    let (mut worst, mut vk_min) = (0.0f64, f64::INFINITY);
+    for i in currents {
+        c.solve(i, &mut ws, &mut sol).ok()?;
+        let mut closed = i.clone();
+        law.normalise_in_place(&mut closed);
+        let tv = 0.5
+            * closed
+                .iter()
+                .zip(&sol.shares)
+                .map(|(a, b)| (a - b).abs())
+                .sum::<f64>();
+        worst = worst.max(tv);
+        let k = crate::training::argmax(i).unwrap_or(0);
+        vk_min = vk_min.min(sol.node_voltages.get(k).copied().unwrap_or(f64::NAN));
+    }
+    Some((worst, vk_min))
+}
+
+/// The hidden normaliser as a current-mode WTA must work where its weak-inversion law does:
+/// the read-out is trained on shares `I_k^g / sum I_j^g`, which the circuit gives only with the
+/// sinks saturated (drain voltage V_k >= 4 U_T; DEVELOPERS.md model notes §4.1). A small gain
+/// g = kappa/sigma is a large drain coupling; the output transistors' drain then holds the
+/// common node so high that the sinks carry their currents in triode, and the circuit's gain
+/// collapses (at g = 2 on iris: about 0.4, every chip at chance). Checked on the nominal circuit
+/// with the ideal hidden currents of the first test samples: the winning cell's sink (the one
+/// whose share the read-out relies on) must be saturated in every sample. A refusal says the
+/// smallest gain that works (found by bisection on the same check) and how far the shares
+/// depart from the law (total-variation distance).
+fn check_hidden_wta(
+    w: &WtaDesign,
+    spec: &HiddenSpec,
+    mapped: &MappedChain,
+    prep: &Prepared,
+    temperature: f64,
+) -> Result<(), PipelineError> {
+    let ideal = mapped.ideal();
+    let Some(first) = ideal.stages().first() else {
+        return Ok(());
+    };
+    let mut currents = Vec::new();
+    for row in prep.test_u.outer_iter().take(HIDDEN_CHECK_SAMPLES) {
+        let x = row.to_vec();
+        let mut buf = vec![0.0; spec.units];
+        first.forward_noiseless(&x, &mut buf)?;
+        currents.push(buf);
+    }
+    let Some(crate::device::DrainCoupling::Eta(eta)) = w.drain_coupling else {
+        return Ok(());
+    };
+    let at = |g: f64| {
+        let mut t = w.clone();
+        t.drain_coupling = Some(crate::device::DrainCoupling::Eta(1.0 / g));
+        hidden_wta_departure(&t, temperature, &currents)
+    };
+    let four_ut = 4.0 * crate::physics::thermal_voltage(temperature);
+    let works = |g: f64| at(g).is_some_and(|(_, v)| v >= four_ut);
+    let gain = 1.0 / eta;
+    let (departure, vk_min) = at(gain).unwrap_or((f64::NAN, f64::NAN));
+    if vk_min >= four_ut {
+        return Ok(());
+    }
+    // Smallest working gain: double until it works, then bisect to 1 %.
+    let (mut lo, mut hi) = (gain, gain * 2.0);
+    while !works(hi) && hi < 1e4 {
+        lo = hi;
+        hi *= 2.0;
+    }
+    if !works(hi) {
+        return Err(PipelineError::HiddenWtaOutOfSaturation {
+            gain,
+            departure,
+            vk_min,
+            four_ut,
+            g_min: f64::INFINITY,
+        });
+    }
+    while hi / lo > 1.01 {
+        let mid = (lo * hi).sqrt();
+        if works(mid) {
+            hi = mid;
+        } else {
+            lo = mid;
+        }
+    }
+    Err(PipelineError::HiddenWtaOutOfSaturation {
+        gain,
+        departure,
+        vk_min,
+        four_ut: 4.0 * crate::physics::thermal_voltage(temperature),
+        g_min: (hi * 10.0).ceil() / 10.0,
+    })
+}
+
 /// One chip's outcome over the test split.
 #[derive(Debug, Clone, PartialEq)]
 pub struct ChipOutcome {
@@ -435,9 +596,9 @@ pub struct ChipOutcome {
     /// Decisions equal to ideal argmax (ambiguous and failed ones never agree).
     pub agree: u64,
     pub ambiguous: u64,
-    /// Solves that did not converge or left the circuit's compliance range.
-    pub nonconverged: u64,
-    /// `confusion[true][pred]`, columns: classes, then ambiguous, then non-converged.
+    /// Failed decisions, by kind (their sum: [`FailureCounts::total`]).
+    pub failed: FailureCounts,
+    /// `confusion[true][pred]`, columns: classes, then ambiguous, then failed (every kind).
     pub confusion: Vec<Vec<u64>>,
     /// Sum of decision times and energies (transient evaluation), with their count.
     pub decision_time_sum: f64,
@@ -457,7 +618,7 @@ impl ChipOutcome {
             correct: 0,
             agree: 0,
             ambiguous: 0,
-            nonconverged: 0,
+            failed: FailureCounts::default(),
             confusion: vec![vec![0; n_classes + 2]; n_classes],
             decision_time_sum: 0.0,
             energy_sum: 0.0,
@@ -485,6 +646,190 @@ impl ChipOutcome {
             self.agree as f64 / self.samples as f64
         }
     }
+
+    /// Count one decision of true class `truth` (ideal argmax `ideal`): a sample is always
+    /// counted, in exactly one of correct, wrong, ambiguous or failed (by kind).
+    pub fn record(&mut self, outcome: DecisionOutcome, truth: usize, ideal: usize) {
+        let n_classes = self.confusion.len();
+        self.samples += 1;
+        let column = match outcome {
+            DecisionOutcome::Correct => {
+                self.correct += 1;
+                if truth == ideal {
+                    self.agree += 1;
+                }
+                Some(truth)
+            }
+            DecisionOutcome::Wrong { winner } => {
+                if winner == ideal {
+                    self.agree += 1;
+                }
+                (winner < n_classes).then_some(winner)
+            }
+            DecisionOutcome::Ambiguous => {
+                self.ambiguous += 1;
+                Some(n_classes)
+            }
+            DecisionOutcome::Failed(kind) => {
+                self.failed.add(kind);
+                Some(n_classes + 1)
+            }
+        };
+        if let (Some(row), Some(j)) = (self.confusion.get_mut(truth), column) {
+            if let Some(c) = row.get_mut(j) {
+                *c += 1;
+            }
+        }
+    }
+}
+
+/// Why a decision failed. Every failure is one of these, counted apart and never folded into
+/// accuracy (DEVELOPERS.md "Decisions and failures").
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash)]
+pub enum FailureKind {
+    /// No operating point was found: a DC solve stopped short of its tolerance, a transient step
+    /// failed, or the sampled circuit is outside the device model (e.g. a mismatch draw that
+    /// makes a parameter invalid).
+    NotConverged,
+    /// The circuit has no operating point within the supply (a node would leave the rails).
+    OutOfSupplyCompliance,
+    /// The weight stage (or chain) could not produce valid currents for this input.
+    WeightStage,
+    /// The per-decision noise could not be applied.
+    Noise,
+}
+
+impl FailureKind {
+    /// Every kind, in the order of the `failed_*` columns.
+    pub const ALL: [FailureKind; 4] = [
+        FailureKind::NotConverged,
+        FailureKind::OutOfSupplyCompliance,
+        FailureKind::WeightStage,
+        FailureKind::Noise,
+    ];
+
+    /// The kind's name in results files (`failed_<name>` columns).
+    pub fn name(self) -> &'static str {
+        match self {
+            FailureKind::NotConverged => "not_converged",
+            FailureKind::OutOfSupplyCompliance => "out_of_supply_compliance",
+            FailureKind::WeightStage => "weight_stage",
+            FailureKind::Noise => "noise",
+        }
+    }
+
+    /// The kind of a competition stage's error. An invalid input current is the upstream
+    /// weight stage's failure (the stage's inputs are its outputs).
+    pub fn of_competition(e: &CompetitionError) -> FailureKind {
+        match e {
+            CompetitionError::Compliance { .. } => FailureKind::OutOfSupplyCompliance,
+            CompetitionError::InvalidInput { .. } => FailureKind::WeightStage,
+            CompetitionError::NotConverged { .. }
+            | CompetitionError::InvalidParameter { .. }
+            | CompetitionError::WrongLength { .. } => FailureKind::NotConverged,
+        }
+    }
+
+    /// The kind of a transient evaluation's error.
+    pub fn of_transient(e: &TransientError) -> FailureKind {
+        match e {
+            TransientError::Stage(s) => FailureKind::of_competition(s),
+            _ => FailureKind::NotConverged,
+        }
+    }
+
+    /// The kind of an error while building a chip (every decision of that chip fails so).
+    pub fn of_pipeline(e: &PipelineError) -> FailureKind {
+        match e {
+            PipelineError::Competition(c) => FailureKind::of_competition(c),
+            _ => FailureKind::WeightStage,
+        }
+    }
+}
+
+/// Failed decisions counted by kind.
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq, serde::Serialize, serde::Deserialize)]
+pub struct FailureCounts {
+    pub not_converged: u64,
+    pub out_of_supply_compliance: u64,
+    pub weight_stage: u64,
+    pub noise: u64,
+}
+
+impl FailureCounts {
+    /// Count one failure of `kind`.
+    pub fn add(&mut self, kind: FailureKind) {
+        *self.get_mut(kind) += 1;
+    }
+
+    fn get_mut(&mut self, kind: FailureKind) -> &mut u64 {
+        match kind {
+            FailureKind::NotConverged => &mut self.not_converged,
+            FailureKind::OutOfSupplyCompliance => &mut self.out_of_supply_compliance,
+            FailureKind::WeightStage => &mut self.weight_stage,
+            FailureKind::Noise => &mut self.noise,
+        }
+    }
+
+    /// Failures of `kind`.
+    pub fn get(&self, kind: FailureKind) -> u64 {
+        match kind {
+            FailureKind::NotConverged => self.not_converged,
+            FailureKind::OutOfSupplyCompliance => self.out_of_supply_compliance,
+            FailureKind::WeightStage => self.weight_stage,
+            FailureKind::Noise => self.noise,
+        }
+    }
+
+    /// Every failed decision.
+    pub fn total(&self) -> u64 {
+        self.not_converged + self.out_of_supply_compliance + self.weight_stage + self.noise
+    }
+
+    /// Add another count, kind by kind.
+    pub fn merge(&mut self, other: &FailureCounts) {
+        for k in FailureKind::ALL {
+            *self.get_mut(k) += other.get(k);
+        }
+    }
+}
+
+/// What one decision came to, judged against its true class.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum DecisionOutcome {
+    /// A clear winner equal to the true class.
+    Correct,
+    /// A clear winner, not the true class.
+    Wrong { winner: usize },
+    /// The decision rule found no clear winner.
+    Ambiguous,
+    /// No decision, and why.
+    Failed(FailureKind),
+}
+
+impl DecisionOutcome {
+    /// Judge a circuit's result (`Ok((winner, ambiguous))` or the failure's kind) against the
+    /// true class.
+    pub fn judge(result: Result<(usize, bool), FailureKind>, truth: usize) -> DecisionOutcome {
+        match result {
+            Err(k) => DecisionOutcome::Failed(k),
+            Ok((_, true)) => DecisionOutcome::Ambiguous,
+            Ok((w, false)) if w == truth => DecisionOutcome::Correct,
+            Ok((w, false)) => DecisionOutcome::Wrong { winner: w },
+        }
+    }
+}
+
+/// Keep the first failure's reason and return its kind.
+fn failed(
+    first: &mut Option<String>,
+    kind: FailureKind,
+    reason: impl std::fmt::Display,
+) -> FailureKind {
+    if first.is_none() {
+        *first = Some(reason.to_string());
+    }
+    kind
 }
 
 /// Stream index of the competition stage's chip draws (after the weight stages' 0, 1, ...).
@@ -552,11 +897,11 @@ pub fn evaluate_chip(
     let (eff, decider, hidden) = match built {
         Ok(x) => x,
         Err(e) => {
-            // Every decision of an unbuildable chip is a failed one; the reason is kept.
-            out.samples = prep.test_y.len() as u64;
-            out.nonconverged = out.samples;
-            for &t in &prep.test_y {
-                out.confusion[t][n_classes + 1] += 1;
+            // Every decision of an unbuildable chip is a failed one, of the build error's kind;
+            // the reason is kept.
+            let kind = FailureKind::of_pipeline(&e);
+            for (&t, &ideal) in prep.test_y.iter().zip(&prep.ideal_pred) {
+                out.record(DecisionOutcome::Failed(kind), t, ideal);
             }
             out.chip_error = Some(e.to_string());
             return out;
@@ -573,8 +918,9 @@ pub fn evaluate_chip(
     let mut hsol = StageSolution::default();
     let mut hbuf = vec![0.0; eff.stages().first().map_or(0, |s| s.outputs())];
     let mut xbuf: Vec<f64> = Vec::with_capacity(prep.test_u.ncols());
+    // Sum of decision times, energies, and their count (transient evaluation).
+    let mut out_time = (0.0, 0.0, 0u64);
     for (i, (row, &truth)) in prep.test_u.outer_iter().zip(&prep.test_y).enumerate() {
-        out.samples += 1;
         let x: &[f64] = match row.as_slice() {
             Some(s) => s,
             None => {
@@ -583,138 +929,106 @@ pub fn evaluate_chip(
                 &xbuf
             }
         };
-        let r = match (&hidden, eff.stages()) {
-            (Some(h), [first, second]) => {
-                // Hidden stage evaluated as a circuit: first layer, normaliser circuit (its
-                // shares feed the read-out as they do in the closed form), read-out layer.
-                let a = if noisy_weights {
-                    first.forward(x, &mut hbuf, &mut noise_rng)
-                } else {
-                    first.forward_noiseless(x, &mut hbuf)
-                };
-                let hs = match h {
-                    Decider::Argmax => None,
-                    Decider::Wta(c) => Some(c.solve(&hbuf, &mut ws, &mut hsol)),
-                    Decider::DiffPair(c) => Some(c.solve(&hbuf, &mut ws, &mut hsol)),
-                };
-                if let Some(Err(e)) = &hs {
-                    if out.first_failure.is_none() {
-                        out.first_failure = Some(format!("hidden stage: {e}"));
-                    }
-                }
-                match (a, hs) {
-                    (Ok(()), Some(Ok(()))) => if noisy_weights {
-                        second.forward(&hsol.shares, &mut currents, &mut noise_rng)
+        let first = &mut out.first_failure;
+        let result = (|| -> Result<(usize, bool), FailureKind> {
+            // Weight stage(s), and with a hidden circuit its normaliser in between.
+            match (&hidden, eff.stages()) {
+                (Some(h), [stage0, stage1]) => {
+                    // Hidden stage evaluated as a circuit: first layer, normaliser circuit (its
+                    // shares feed the read-out as they do in the closed form), read-out layer.
+                    if noisy_weights {
+                        stage0.forward(x, &mut hbuf, &mut noise_rng)
                     } else {
-                        second.forward_noiseless(&hsol.shares, &mut currents)
+                        stage0.forward_noiseless(x, &mut hbuf)
                     }
-                    .map_err(|_| ()),
-                    _ => Err(()),
-                }
-            }
-            _ => if noisy_weights {
-                eff.forward(x, &mut scratch, &mut currents, &mut noise_rng)
-            } else {
-                eff.forward_noiseless(x, &mut scratch, &mut currents)
-            }
-            .map_err(|_| ()),
-        };
-        if r.is_err() {
-            out.nonconverged += 1;
-            out.confusion[truth][n_classes + 1] += 1;
-            continue;
-        }
-        let inputs: &[f64] = match &d.input_noise {
-            Some(n) => {
-                if n.apply(&currents, &mut noisy, &mut noise_rng).is_err() {
-                    out.nonconverged += 1;
-                    out.confusion[truth][n_classes + 1] += 1;
-                    continue;
-                }
-                &noisy
-            }
-            None => &currents,
-        };
-        let decided = match &decider {
-            Decider::Argmax => crate::training::argmax(inputs).map(|w| (w, false)),
-            Decider::Wta(c) => match &d.transient {
-                None => solve_decide(
-                    c.as_ref(),
-                    inputs,
-                    &mut ws,
-                    &mut sol,
-                    &d.decision,
-                    &mut out.first_failure,
-                ),
-                Some(t) => {
-                    let noise = t
-                        .noise
-                        .as_ref()
-                        .map(|o| (o, &mut noise_rng as &mut dyn rand::RngCore));
-                    match simulate(c.as_ref(), inputs, &t.options, noise, &mut tws) {
-                        Ok(s) => {
-                            // Time-limited: the decision at the read-out time; otherwise the
-                            // decision that held to the end of the run.
-                            let decision = if t.options.read_time.is_some() {
-                                s.decision_at_read
-                            } else {
-                                s.decision
-                            };
-                            if let (Some(td), Some(e)) = (s.decision_time, s.energy_to_decision) {
-                                out.decision_time_sum += td;
-                                out.energy_sum += e;
-                                out.timed += 1;
-                            }
-                            match decision {
-                                Some(dec) => Some((dec.winner, dec.ambiguous)),
-                                // No decision held: as ambiguous as a decision can be.
-                                None => Some((0, true)),
-                            }
-                        }
-                        Err(e) => {
-                            if out.first_failure.is_none() {
-                                out.first_failure = Some(e.to_string());
-                            }
-                            None
-                        }
+                    .map_err(|e| failed(first, FailureKind::WeightStage, e))?;
+                    let solved = match h {
+                        Decider::Argmax => Ok(()),
+                        Decider::Wta(c) => c.solve(&hbuf, &mut ws, &mut hsol),
+                        Decider::DiffPair(c) => c.solve(&hbuf, &mut ws, &mut hsol),
+                    };
+                    solved.map_err(|e| {
+                        failed(
+                            first,
+                            FailureKind::of_competition(&e),
+                            format_args!("hidden stage: {e}"),
+                        )
+                    })?;
+                    if noisy_weights {
+                        stage1.forward(&hsol.shares, &mut currents, &mut noise_rng)
+                    } else {
+                        stage1.forward_noiseless(&hsol.shares, &mut currents)
                     }
+                    .map_err(|e| failed(first, FailureKind::WeightStage, e))?;
                 }
-            },
-            Decider::DiffPair(c) => solve_decide(
-                c.as_ref(),
-                inputs,
-                &mut ws,
-                &mut sol,
-                &d.decision,
-                &mut out.first_failure,
-            ),
-        };
-        match decided {
-            None => {
-                out.nonconverged += 1;
-                out.confusion[truth][n_classes + 1] += 1;
+                _ => if noisy_weights {
+                    eff.forward(x, &mut scratch, &mut currents, &mut noise_rng)
+                } else {
+                    eff.forward_noiseless(x, &mut scratch, &mut currents)
+                }
+                .map_err(|e| failed(first, FailureKind::WeightStage, e))?,
             }
-            Some((_, true)) => {
-                out.ambiguous += 1;
-                out.confusion[truth][n_classes] += 1;
+            // Static (input-referred) noise: only where no transient SDE owns it.
+            let inputs = d
+                .competition_inputs(&currents, &mut noisy, &mut noise_rng)
+                .map_err(|e| failed(first, FailureKind::Noise, e))?;
+            match &decider {
+                Decider::Argmax => crate::training::argmax(inputs)
+                    .map(|w| (w, false))
+                    .ok_or_else(|| {
+                        failed(
+                            first,
+                            FailureKind::WeightStage,
+                            "the weight stage's output currents are not finite",
+                        )
+                    }),
+                Decider::Wta(c) => match &d.transient {
+                    None => solve_decide(c.as_ref(), inputs, &mut ws, &mut sol, &d.decision, first),
+                    Some(t) => {
+                        let noise = t
+                            .noise
+                            .as_ref()
+                            .map(|o| (o, &mut noise_rng as &mut dyn rand::RngCore));
+                        let s = simulate(c.as_ref(), inputs, &t.options, noise, &mut tws)
+                            .map_err(|e| failed(first, FailureKind::of_transient(&e), e))?;
+                        // Time-limited: the decision at the read-out time; otherwise the
+                        // decision that held to the end of the run.
+                        let decision = if t.options.read_time.is_some() {
+                            s.decision_at_read
+                        } else {
+                            s.decision
+                        };
+                        if let (Some(td), Some(e)) = (s.decision_time, s.energy_to_decision) {
+                            out_time.0 += td;
+                            out_time.1 += e;
+                            out_time.2 += 1;
+                        }
+                        Ok(match decision {
+                            Some(dec) => (dec.winner, dec.ambiguous),
+                            // No decision held: as ambiguous as a decision can be.
+                            None => (0, true),
+                        })
+                    }
+                },
+                Decider::DiffPair(c) => {
+                    solve_decide(c.as_ref(), inputs, &mut ws, &mut sol, &d.decision, first)
+                }
             }
-            Some((w, false)) => {
-                if w == truth {
-                    out.correct += 1;
-                }
-                if w == prep.ideal_pred[i] {
-                    out.agree += 1;
-                }
-                if w < n_classes {
-                    out.confusion[truth][w] += 1;
-                }
-            }
-        }
+        })();
+        out.record(
+            DecisionOutcome::judge(result, truth),
+            truth,
+            prep.ideal_pred[i],
+        );
     }
+    out.decision_time_sum = out_time.0;
+    out.energy_sum = out_time.1;
+    out.timed = out_time.2;
     out
 }
 
-/// One DC solve and decision; `None` when the solve failed (counted as non-converged).
+/// One DC solve and decision: `(winner, ambiguous)`, or the failure's kind (its reason kept in
+/// `first_failure` if it is the first).
 fn solve_decide<S: CompetitionStage + ?Sized>(
     stage: &S,
     inputs: &[f64],
@@ -722,17 +1036,98 @@ fn solve_decide<S: CompetitionStage + ?Sized>(
     sol: &mut StageSolution,
     rule: &DecisionRule,
     first_failure: &mut Option<String>,
-) -> Option<(usize, bool)> {
+) -> Result<(usize, bool), FailureKind> {
     match stage.solve(inputs, ws, sol) {
         Ok(()) => {
             let d = sol.decide(rule);
-            Some((d.winner, d.ambiguous))
+            Ok((d.winner, d.ambiguous))
         }
-        Err(e) => {
-            if first_failure.is_none() {
-                *first_failure = Some(e.to_string());
+        Err(e) => Err(failed(first_failure, FailureKind::of_competition(&e), e)),
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::stages::competition::InputSummary;
+
+    /// Every decision lands in exactly one of correct / wrong / ambiguous / failed-by-kind, and
+    /// the kinds follow the error that caused them (DEVELOPERS.md "Decisions and failures";
+    /// before typed outcomes every failure was one bare count).
+    #[test]
+    fn decisions_are_counted_once_with_their_failure_kind() {
+        let inputs = InputSummary::of(&[1e-9, 2e-9]);
+        let compliance = CompetitionError::Compliance {
+            stage: "s",
+            parameter: "p",
+            reason: "r",
+            fix: "f",
+            inputs,
+        };
+        let not_conv = CompetitionError::NotConverged {
+            stage: "s",
+            iterations: 3,
+            residual: 1.0,
+            tolerance: 1e-8,
+            inputs,
+        };
+        let bad_input = CompetitionError::InvalidInput {
+            stage: "s",
+            index: 0,
+            value: f64::NAN,
+            unit: "A",
+            nonnegative: true,
+        };
+        assert_eq!(
+            FailureKind::of_competition(&compliance),
+            FailureKind::OutOfSupplyCompliance
+        );
+        assert_eq!(
+            FailureKind::of_competition(&not_conv),
+            FailureKind::NotConverged
+        );
+        assert_eq!(
+            FailureKind::of_competition(&bad_input),
+            FailureKind::WeightStage
+        );
+        assert_eq!(
+            FailureKind::of_transient(&TransientError::Stage(compliance.clone())),
+            FailureKind::OutOfSupplyCompliance
+        );
+        let mut o = ChipOutcome::empty(0, 3);
+        type Case = (Result<(usize, bool), FailureKind>, usize, usize);
+        let results: [Case; 7] = [
+            (Ok((1, false)), 1, 1),                          // correct, agrees
+            (Ok((2, false)), 1, 2),                          // wrong, agrees with ideal
+            (Ok((0, true)), 0, 0),                           // ambiguous
+            (Err(FailureKind::NotConverged), 2, 2),          // failed
+            (Err(FailureKind::OutOfSupplyCompliance), 2, 2), // failed
+            (Err(FailureKind::WeightStage), 0, 0),           // failed
+            (Err(FailureKind::Noise), 1, 1),                 // failed
+        ];
+        for (r, truth, ideal) in results {
+            o.record(DecisionOutcome::judge(r, truth), truth, ideal);
+        }
+        assert_eq!(o.samples, 7);
+        assert_eq!((o.correct, o.agree, o.ambiguous), (1, 2, 1));
+        assert_eq!(
+            o.failed,
+            FailureCounts {
+                not_converged: 1,
+                out_of_supply_compliance: 1,
+                weight_stage: 1,
+                noise: 1
             }
-            None
-        }
+        );
+        assert_eq!(o.failed.total(), 4);
+        let confusion_total: u64 = o.confusion.iter().flatten().sum();
+        assert_eq!(confusion_total, 7);
+        // Failed decisions sit in the last confusion column, ambiguous ones before it.
+        assert_eq!(o.confusion[2][4], 2);
+        assert_eq!(o.confusion[0][3], 1);
+        assert_eq!(
+            DecisionOutcome::judge(Ok((2, false)), 1),
+            DecisionOutcome::Wrong { winner: 2 }
+        );
     }
 }

@@ -144,6 +144,16 @@ pub const CHIP_COLUMNS: [&str; 8] = [
     "energy_mean_j",
 ];
 
+/// Failed decisions by kind, the last columns of both `points.csv` and `chips.csv` (in the
+/// order of `pipeline::FailureKind::ALL`). Optional when reading: folders written before they
+/// existed read with the kinds unknown.
+pub const FAILURE_COLUMNS: [&str; 4] = [
+    "failed_not_converged",
+    "failed_out_of_supply_compliance",
+    "failed_weight_stage",
+    "failed_noise",
+];
+
 /// Columns of `confusion.csv`.
 pub const CONFUSION_COLUMNS: [&str; 4] = ["point", "true_class", "predicted_class", "count"];
 
@@ -181,6 +191,8 @@ pub struct PointRow {
     pub nonconverged: Option<f64>,
     pub decision_time_mean_s: Option<f64>,
     pub energy_mean_j: Option<f64>,
+    /// Failed decisions by kind (`FAILURE_COLUMNS` order); `None` for older folders.
+    pub failed: Option<[f64; 4]>,
     /// Every cell of the row, in file column order (`None` = empty cell).
     pub cells: Vec<Option<f64>>,
 }
@@ -206,6 +218,8 @@ pub struct ChipRow {
     pub samples: Option<f64>,
     pub decision_time_mean_s: Option<f64>,
     pub energy_mean_j: Option<f64>,
+    /// Failed decisions by kind (`FAILURE_COLUMNS` order); `None` for older folders.
+    pub failed: Option<[f64; 4]>,
 }
 
 /// What a decision was counted as in `confusion.csv`.
@@ -646,6 +660,7 @@ pub fn parse_points(
     let (cols, records) = Columns::read(text, path)?;
     let (point_col, pcols) = cols.point_and_params(manifest)?;
     let stat = cols.find_all(&POINT_STAT_COLUMNS, "population statistics column")?;
+    let failure_cols = failure_columns(&cols.header);
     let mut rows: Vec<PointRow> = Vec::with_capacity(records.len());
     let mut seen = BTreeMap::new();
     for (line, rec) in &records {
@@ -691,6 +706,8 @@ pub fn parse_points(
             nonconverged: get("nonconverged"),
             decision_time_mean_s: get("decision_time_mean_s"),
             energy_mean_j: get("energy_mean_j"),
+            failed: failure_cols
+                .map(|fc| fc.map(|c| cells.get(c).copied().flatten().unwrap_or(0.0))),
             cells,
         });
     }
@@ -710,6 +727,7 @@ pub fn parse_chips(
     let (cols, records) = Columns::read(text, path)?;
     let (point_col, pcols) = cols.point_and_params(manifest)?;
     let c = cols.find_all(&CHIP_COLUMNS, "per-chip column")?;
+    let failure_cols = failure_columns(&cols.header);
     let col = |name: &str| c.get(name).copied().unwrap_or(0);
     let mut out = Vec::with_capacity(records.len());
     for (line, rec) in &records {
@@ -726,9 +744,28 @@ pub fn parse_chips(
             samples: cols.opt_f64(rec, line, col("samples"))?,
             decision_time_mean_s: cols.opt_f64(rec, line, col("decision_time_mean_s"))?,
             energy_mean_j: cols.opt_f64(rec, line, col("energy_mean_j"))?,
+            failed: match failure_cols {
+                Some(fc) => {
+                    let mut v = [0.0; 4];
+                    for (x, c) in v.iter_mut().zip(fc) {
+                        *x = cols.opt_f64(rec, line, c)?.unwrap_or(0.0);
+                    }
+                    Some(v)
+                }
+                None => None,
+            },
         });
     }
     Ok(out)
+}
+
+/// Positions of the failure-kind columns, when the file has all of them.
+fn failure_columns(header: &[String]) -> Option<[usize; 4]> {
+    let mut out = [0; 4];
+    for (o, name) in out.iter_mut().zip(FAILURE_COLUMNS) {
+        *o = header.iter().position(|h| h == name)?;
+    }
+    Some(out)
 }
 
 /// Resolve a class label from `confusion.csv`: a name from `dataset.classes`, or an index.

@@ -13,11 +13,8 @@ use super::folder::{PointRow, ResultsFolder, RunStatus, SweepMode};
 use super::format::{esc, fmt_duration, fmt_kind, fmt_unix_utc, raw_value, NumberKind};
 use super::render::{describe_point, point_label, short_name, Figure};
 
-/// The caution every report carries (DEVELOPERS.md model notes section 8).
-pub const CAUTION: &str = "hardmax gives architecture-stage estimates from compact models and \
-generic parameters. It is not sign-off: final decisions need the foundry's characterised \
-models, corner and Monte Carlo simulation in the team's verification flow, and silicon \
-measurement.";
+/// The caution every report carries: the one constant (DEVELOPERS.md model notes section 8).
+pub use crate::CAUTION;
 
 const CSS: &str = r#"
 :root { --ink: #222831; --muted: #5b6573; --line: #d6dbe2; --teal: #1b6f7a; --amber: #c97a1e;
@@ -420,6 +417,35 @@ fn headline(folder: &ResultsFolder) -> String {
                     }
                 ),
                 r.point
+            );
+        }
+        // Failed decisions by kind, summed over every point (folders that record them).
+        let mut by_kind = [0.0f64; 4];
+        let mut known = false;
+        for r in rows {
+            if let Some(f) = r.failed {
+                known = true;
+                for (t, v) in by_kind.iter_mut().zip(f) {
+                    *t += v;
+                }
+            }
+        }
+        if known {
+            let names = [
+                "not converged",
+                "out of supply compliance",
+                "weight stage",
+                "noise",
+            ];
+            let parts: Vec<String> = names
+                .iter()
+                .zip(by_kind)
+                .map(|(n, v)| format!("{n} {v}"))
+                .collect();
+            let _ = write!(
+                s,
+                " Failed decisions by kind, all points: {}.",
+                esc(&parts.join(", "))
             );
         }
         s.push_str("</p>");
