@@ -4,8 +4,8 @@
 use criterion::{black_box, criterion_group, criterion_main, BenchmarkId, Criterion, Throughput};
 use hardmax::device::{DeviceTech, DrainCoupling, MosMismatch, Polarity, Process, Transistor};
 use hardmax::stages::competition::{
-    CompetitionStage, DiffPairChip, DiffPairDesign, DiffPairInput, StageSolution, TailSource,
-    Workspace, WtaBias, WtaChip, WtaDesign,
+    CompetitionStage, CurrentSource, DiffPairChip, DiffPairDesign, DiffPairInput, StageSolution,
+    Workspace, WtaChip, WtaDesign,
 };
 use rand::Rng;
 use rand_distr::{Distribution, Normal};
@@ -49,7 +49,7 @@ fn wta(c: &mut Criterion) {
             process(),
             nmos(2e-6, 1e-6),
             nmos(2e-6, 1e-6),
-            WtaBias::Ideal { current: 1e-9 },
+            CurrentSource::Ideal { current: 1e-9 },
         );
         let mut rng = hardmax::rng::stream(1, &[hardmax::rng::domain::CHIP]);
         // Per-device sigma of A_VT/sqrt(2WL) with A_VT = 5 mV·µm on 2 µm² (~2.5 mV), 0.7 % beta.
@@ -88,7 +88,7 @@ fn diffpair(c: &mut Criterion) {
             n,
             process(),
             nmos(2e-6, 1e-6),
-            TailSource::Ideal { current: 1e-9 },
+            CurrentSource::Ideal { current: 1e-9 },
             DiffPairInput::Voltage,
         );
         let mut rng = hardmax::rng::stream(2, &[hardmax::rng::domain::CHIP]);

@@ -9,7 +9,7 @@ use hardmax::stages::competition::transient::{
     simulate, NoiseOptions, TransientOptions, TransientWorkspace,
 };
 use hardmax::stages::competition::{
-    CompetitionStage, StageSolution, Workspace, WtaBias, WtaChip, WtaDesign,
+    CompetitionStage, CurrentSource, StageSolution, Workspace, WtaChip, WtaDesign,
 };
 
 fn bench(c: &mut Criterion) {
@@ -19,7 +19,7 @@ fn bench(c: &mut Criterion) {
         w: 2e-6,
         l: 1e-6,
     };
-    let design = WtaDesign::new(10, process, t, t, WtaBias::Ideal { current: 100e-9 });
+    let design = WtaDesign::new(10, process, t, t, CurrentSource::Ideal { current: 100e-9 });
     let circuit = WtaChip::nominal(design)
         .expect("chip")
         .at(300.0)

@@ -9,7 +9,7 @@ mod alloc_support;
 use alloc_support::{thread_allocations, BusyNeighbour, PerThreadCounting};
 use competition_support::*;
 use hardmax::stages::competition::{
-    CompetitionStage, DiffPairChip, DiffPairDesign, DiffPairInput, StageSolution, TailSource,
+    CompetitionStage, CurrentSource, DiffPairChip, DiffPairDesign, DiffPairInput, StageSolution,
     Workspace, WtaChip,
 };
 
@@ -28,7 +28,7 @@ fn solves_do_not_allocate() {
         4,
         generic_process(0.01),
         nmos(2e-6, 1e-6),
-        TailSource::Ideal { current: 1e-9 },
+        CurrentSource::Ideal { current: 1e-9 },
         DiffPairInput::Diode {
             device: nmos(2e-6, 1e-6),
         },

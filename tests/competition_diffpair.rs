@@ -10,8 +10,8 @@ mod competition_support;
 use competition_support::*;
 use hardmax::physics::thermal_voltage;
 use hardmax::stages::competition::{
-    CompetitionError, CompetitionStage, DiffPairChip, DiffPairCircuit, DiffPairDesign,
-    DiffPairInput, StageSolution, TailSource, Workspace,
+    CompetitionError, CompetitionStage, CurrentSource, DiffPairChip, DiffPairCircuit,
+    DiffPairDesign, DiffPairInput, StageSolution, Workspace,
 };
 use proptest::prelude::*;
 
@@ -22,7 +22,7 @@ fn design(n: usize, tail: f64, input: DiffPairInput) -> DiffPairDesign {
         n,
         generic_process(0.01),
         nmos(2e-6, 1e-6),
-        TailSource::Ideal { current: tail },
+        CurrentSource::Ideal { current: tail },
         input,
     )
 }
@@ -143,7 +143,7 @@ fn resistor_inputs_softmax_with_gain() {
 #[test]
 fn transistor_tail() {
     let mut d = design(3, 1e-10, DiffPairInput::Voltage);
-    d.tail = TailSource::Transistor {
+    d.tail = CurrentSource::Transistor {
         device: nmos(2e-6, 1e-6),
         gate_voltage: 0.3,
     };

@@ -19,10 +19,9 @@ use std::process::Command;
 
 use competition_support::*;
 use hardmax::device::Ekv;
-use hardmax::stages::competition::wta::CircuitBias;
 use hardmax::stages::competition::{
-    CompetitionCircuit, CompetitionStage, DiffPairChip, DiffPairDesign, DiffPairInput,
-    StageSolution, TailSource, Workspace, WtaBias, WtaChip,
+    CompetitionCircuit, CompetitionStage, CurrentSource, DiffPairChip, DiffPairDesign,
+    DiffPairInput, StageSolution, Workspace, WtaChip,
 };
 
 /// Agreement required between our node voltages and ngspice's, V.
@@ -64,7 +63,7 @@ fn cases() -> Vec<Case> {
     });
     // N = 16, strong inversion (I/I_S ≈ 5-20), transistor bias, mismatch.
     let mut d = wta_design(16, 0.02, 1e-6);
-    d.bias = WtaBias::Transistor {
+    d.bias = CurrentSource::Transistor {
         device: nmos(4e-6, 1e-6),
         gate_voltage: 0.6,
     };
@@ -82,7 +81,7 @@ fn cases() -> Vec<Case> {
         5,
         generic_process(0.01),
         nmos(2e-6, 1e-6),
-        TailSource::Ideal { current: 1e-8 },
+        CurrentSource::Ideal { current: 1e-8 },
         DiffPairInput::Voltage,
     );
     let mut rng = hardmax::rng::stream(14, &[hardmax::rng::domain::CHIP]);
@@ -97,7 +96,7 @@ fn cases() -> Vec<Case> {
         4,
         generic_process(0.01),
         nmos(2e-6, 1e-6),
-        TailSource::Transistor {
+        CurrentSource::Transistor {
             device: nmos(2e-6, 1e-6),
             gate_voltage: 0.6,
         },
@@ -142,10 +141,10 @@ const HEADER: &str = ".func spl(h) {max(h,0)+ln(1+exp(-abs(h)))}
 .func ekv(vg,vd,vs,is,vt,n,eta,ut) {is*(ekvf(((vg-vt+eta*(vd-vs))/n-vs)/ut)-ekvf(((vg-vt+eta*(vd-vs))/n-vd)/ut))}
 ";
 
-fn bias_line(s: &mut String, name: &str, node: &str, b: &CircuitBias) {
+fn bias_line(s: &mut String, name: &str, node: &str, b: &CurrentSource<Ekv>) {
     match *b {
-        CircuitBias::Ideal(i) => writeln!(s, "I{name} {node} 0 DC {i:e}").unwrap(),
-        CircuitBias::Transistor {
+        CurrentSource::Ideal { current: i } => writeln!(s, "I{name} {node} 0 DC {i:e}").unwrap(),
+        CurrentSource::Transistor {
             device,
             gate_voltage,
         } => writeln!(

@@ -12,9 +12,8 @@ use hardmax::physics::{thermal_voltage, ELEMENTARY_CHARGE};
 use hardmax::stages::competition::transient::{
     simulate, InitialState, NoiseOptions, TransientOptions, TransientSummary, TransientWorkspace,
 };
-use hardmax::stages::competition::wta::CircuitBias;
 use hardmax::stages::competition::{
-    CompetitionStage, StageSolution, Workspace, WtaBias, WtaChip, WtaCircuit,
+    CompetitionStage, CurrentSource, StageSolution, Workspace, WtaChip, WtaCircuit,
 };
 
 fn circuit(n: usize, ib: f64, c_in: f64, c_c: f64) -> WtaCircuit {
@@ -28,7 +27,7 @@ fn circuit(n: usize, ib: f64, c_in: f64, c_c: f64) -> WtaCircuit {
 /// inversion) instead of an ideal sink.
 fn circuit_mos_bias(n: usize) -> WtaCircuit {
     let mut d = wta_design(n, 0.01, 1e-9);
-    d.bias = WtaBias::Transistor {
+    d.bias = CurrentSource::Transistor {
         device: nmos(2e-6, 4e-6),
         gate_voltage: 0.36,
     };
@@ -298,11 +297,11 @@ fn noise_spread_matches_shot_noise_psd() {
     let x0 = d.node_voltages.clone();
     let ut = thermal_voltage(300.0);
     let (bias_dev, vg) = match *c.bias() {
-        CircuitBias::Transistor {
+        CurrentSource::Transistor {
             device,
             gate_voltage,
         } => (device, gate_voltage),
-        CircuitBias::Ideal(_) => unreachable!(),
+        CurrentSource::Ideal { .. } => unreachable!(),
     };
     // KCL currents into each node (A).
     let f = |x: &[f64]| -> [f64; 3] {

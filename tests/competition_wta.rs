@@ -10,9 +10,9 @@ mod competition_support;
 use competition_support::*;
 use hardmax::device::MosMismatch;
 use hardmax::physics::thermal_voltage;
-use hardmax::stages::competition::wta::CircuitBias;
 use hardmax::stages::competition::{
-    CompetitionError, CompetitionStage, StageSolution, Workspace, WtaBias, WtaChip, WtaCircuit,
+    CompetitionError, CompetitionStage, CurrentSource, StageSolution, Workspace, WtaChip,
+    WtaCircuit,
 };
 use proptest::prelude::*;
 
@@ -54,8 +54,8 @@ fn max_kcl(c: &WtaCircuit, inputs: &[f64], out: &StageSolution) -> f64 {
         s += c.output(k).unwrap().id(v[k], c.output_voltage, vc);
     }
     let ib = match *c.bias() {
-        CircuitBias::Ideal(i) => i,
-        CircuitBias::Transistor {
+        CurrentSource::Ideal { current: i } => i,
+        CurrentSource::Transistor {
             device,
             gate_voltage,
         } => device.id(gate_voltage, vc, 0.0),
@@ -308,7 +308,7 @@ fn errors_name_the_problem() {
 #[test]
 fn transistor_bias() {
     let mut d = wta_design(3, 0.01, 1e-9);
-    d.bias = WtaBias::Transistor {
+    d.bias = CurrentSource::Transistor {
         device: nmos(2e-6, 1e-6),
         gate_voltage: 0.35,
     };
@@ -404,7 +404,7 @@ proptest! {
         x[0] = 1e-6;
         let mut rng = hardmax::rng::stream(seed, &[hardmax::rng::domain::CHIP]);
         let mut d = wide_range_design(x.len());
-        d.bias = WtaBias::Ideal { current: 1e-7 };
+        d.bias = CurrentSource::Ideal { current: 1e-7 };
         let chip = gaussian_chip(d, 3e-3, 0.01, &mut rng);
         let c = circuit(&chip);
         let out = try_solve(&c, &x);

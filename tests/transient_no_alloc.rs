@@ -10,7 +10,7 @@ use hardmax::device::{preset, Polarity, Transistor};
 use hardmax::stages::competition::transient::{
     simulate, InitialState, NoiseOptions, TransientOptions, TransientWorkspace,
 };
-use hardmax::stages::competition::{WtaBias, WtaChip, WtaDesign};
+use hardmax::stages::competition::{CurrentSource, WtaChip, WtaDesign};
 
 #[global_allocator]
 static GLOBAL: PerThreadCounting = PerThreadCounting;
@@ -27,7 +27,7 @@ fn transient_runs_do_not_allocate_after_warm_up() {
         preset("generic-180nm").unwrap(),
         t,
         t,
-        WtaBias::Ideal { current: 50e-9 },
+        CurrentSource::Ideal { current: 50e-9 },
     );
     let c = WtaChip::nominal(d).unwrap().at(300.0).unwrap();
     let inputs = [10e-9, 11e-9, 9e-9, 10.5e-9, 9.5e-9];

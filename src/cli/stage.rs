@@ -25,13 +25,16 @@ use serde_json::json;
 use crate::device::{preset, DrainCoupling, Ekv, Polarity, Transistor};
 use crate::io::write_atomic;
 use crate::physics::thermal_voltage;
+use crate::stages::competition::analysis::{
+    closed_form_gain, drain_coupling_for_gain, numerical_gain, ClosedFormGain, Spacing, SweepError,
+    SweepQuantity, TransferSweep,
+};
 use crate::stages::competition::transient::{
     simulate, InitialState, NoiseOptions, TransientOptions, TransientWorkspace,
 };
-use crate::stages::competition::wta::CircuitBias;
 use crate::stages::competition::{
-    CompetitionStage, DecisionRule, DiffPairChip, DiffPairCircuit, DiffPairDesign, DiffPairInput,
-    StageSolution, TailSource, Workspace, WtaBias, WtaChip, WtaCircuit, WtaDesign,
+    CompetitionCircuit, CompetitionStage, CurrentSource, DecisionRule, DiffPairChip,
+    DiffPairDesign, DiffPairInput, StageSolution, Workspace, WtaChip, WtaDesign,
 };
 use crate::units::{format_si, parse_quantity, quantity_from_toml, Dimension};
 
@@ -373,7 +376,7 @@ fn read_file(path: &Path, spec: &mut Spec) -> anyhow::Result<()> {
             "output_voltage" => spec.output_voltage = Some(q(key, v, Dimension::Voltage)?),
             "gain" => {
                 let g = num(key, v)?;
-                set_coupling(spec, "gain", DrainCoupling::Eta(1.0 / g), &file)?;
+                set_coupling(spec, "gain", drain_coupling_for_gain(g), &file)?;
             }
             "eta" => {
                 let e = num(key, v)?;
@@ -452,7 +455,7 @@ fn resolve(args: &StageArgs) -> anyhow::Result<Spec> {
         spec.temperature = x;
     }
     if let Some(g) = args.gain {
-        set_coupling(&mut spec, "gain", DrainCoupling::Eta(1.0 / g), "flags")?;
+        set_coupling(&mut spec, "gain", drain_coupling_for_gain(g), "flags")?;
     }
     if let Some(e) = args.eta {
         set_coupling(&mut spec, "eta", DrainCoupling::Eta(e), "flags")?;
@@ -535,23 +538,8 @@ fn resolve(args: &StageArgs) -> anyhow::Result<Spec> {
     Ok(spec)
 }
 
-/// The evaluated stage.
-enum Stage {
-    Wta(WtaCircuit),
-    Pair(DiffPairCircuit),
-}
-
-impl Stage {
-    fn dyn_stage(&self) -> &dyn CompetitionStage {
-        match self {
-            Stage::Wta(c) => c,
-            Stage::Pair(c) => c,
-        }
-    }
-}
-
 /// Build the process and the circuit; returns it with the process description lines.
-fn build(spec: &Spec) -> anyhow::Result<(Stage, crate::device::Process)> {
+fn build(spec: &Spec) -> anyhow::Result<(CompetitionCircuit, crate::device::Process)> {
     let mut process = preset(&spec.preset).map_err(|e| anyhow!("--preset: {e}"))?;
     if let Some(v) = spec.vt0 {
         process.nmos.vt0 = v;
@@ -595,37 +583,37 @@ fn build(spec: &Spec) -> anyhow::Result<(Stage, crate::device::Process)> {
                 process.clone(),
                 sink,
                 output,
-                WtaBias::Ideal { current: spec.bias },
+                CurrentSource::Ideal { current: spec.bias },
             );
             d.output_voltage = spec.output_voltage.unwrap_or(d.supply);
             d.drain_coupling = spec.coupling.map(|(_, c)| c);
             d.input_capacitance = spec.input_capacitance;
             d.common_capacitance = spec.common_capacitance;
-            Stage::Wta(WtaChip::nominal(d)?.at(spec.temperature)?)
+            CompetitionCircuit::Wta(WtaChip::nominal(d)?.at(spec.temperature)?)
         }
         CircuitArg::DiffPair => {
             let mut d = DiffPairDesign::new(
                 n,
                 process.clone(),
                 output,
-                TailSource::Ideal { current: spec.bias },
+                CurrentSource::Ideal { current: spec.bias },
                 DiffPairInput::Diode { device: sink },
             );
             d.output_voltage = spec.output_voltage.unwrap_or(d.supply);
             d.drain_coupling = spec.coupling.map(|(_, c)| c);
             d.input_capacitance = spec.input_capacitance;
             d.source_capacitance = spec.common_capacitance;
-            Stage::Pair(DiffPairChip::nominal(d)?.at(spec.temperature)?)
+            CompetitionCircuit::DiffPair(DiffPairChip::nominal(d)?.at(spec.temperature)?)
         }
     };
     Ok((stage, process))
 }
 
 /// Every transistor of the stage with its role.
-fn devices(stage: &Stage, n: usize) -> Vec<(String, Ekv)> {
+fn devices(stage: &CompetitionCircuit, n: usize) -> Vec<(String, Ekv)> {
     let mut v = Vec::new();
     match stage {
-        Stage::Wta(c) => {
+        CompetitionCircuit::Wta(c) => {
             for k in 0..n {
                 if let Some(d) = c.sink(k) {
                     v.push((format!("A_{k} (sink)"), *d));
@@ -636,11 +624,11 @@ fn devices(stage: &Stage, n: usize) -> Vec<(String, Ekv)> {
                     v.push((format!("B_{k} (output)"), *d));
                 }
             }
-            if let CircuitBias::Transistor { device, .. } = c.bias() {
+            if let CurrentSource::Transistor { device, .. } = c.bias() {
                 v.push(("bias".into(), *device));
             }
         }
-        Stage::Pair(c) => {
+        CompetitionCircuit::DiffPair(c) => {
             for k in 0..n {
                 if let Some(d) = c.diode(k) {
                     v.push((format!("D_{k} (input diode)"), *d));
@@ -656,45 +644,6 @@ fn devices(stage: &Stage, n: usize) -> Vec<(String, Ekv)> {
     v
 }
 
-/// Numerical gain d ln(out_a/out_b) / d ln(in_a/in_b) between the largest input a and the
-/// next b: the relative output difference over the relative input difference for small
-/// differences (DEVELOPERS.md model notes §4.1).
-fn numerical_gain(stage: &dyn CompetitionStage, inputs: &[f64]) -> anyhow::Result<Option<f64>> {
-    let mut order: Vec<usize> = (0..inputs.len()).collect();
-    order.sort_by(|&x, &y| inputs[y].total_cmp(&inputs[x]));
-    let (a, b) = (order[0], order[1]);
-    if inputs[a] <= 0.0 || inputs[b] <= 0.0 {
-        return Ok(None);
-    }
-    let mut ws = Workspace::new();
-    let mut sol = StageSolution::for_stage(stage);
-    let mut eval = |delta: f64| -> anyhow::Result<(f64, f64)> {
-        let mut x = inputs.to_vec();
-        x[a] *= 1.0 + delta;
-        x[b] *= 1.0 - delta;
-        stage.solve(&x, &mut ws, &mut sol)?;
-        Ok(((sol.outputs[a] / sol.outputs[b]).ln(), (x[a] / x[b]).ln()))
-    };
-    let d = 1e-5;
-    let (op, ip) = eval(d)?;
-    let (om, im) = eval(-d)?;
-    let g = (op - om) / (ip - im);
-    Ok(g.is_finite().then_some(g))
-}
-
-fn closed_form_gain(stage: &Stage) -> (f64, &'static str) {
-    match stage {
-        Stage::Wta(c) => (
-            c.gain(0).unwrap_or(f64::NAN),
-            "kappa/sigma = n_A/(n_B eta_A), weak-inversion closed form (DEVELOPERS.md model notes §4.1)",
-        ),
-        Stage::Pair(_) => (
-            1.0,
-            "1: diode-connected inputs make a plain normaliser in weak inversion (DEVELOPERS.md model notes §4.2)",
-        ),
-    }
-}
-
 pub fn run(args: StageArgs) -> anyhow::Result<()> {
     let spec = resolve(&args)?;
     let (stage, process) = build(&spec)?;
@@ -704,7 +653,7 @@ pub fn run(args: StageArgs) -> anyhow::Result<()> {
     if args.transient {
         return transient(&args, &spec, &stage, &process);
     }
-    let st = stage.dyn_stage();
+    let st = &stage;
     let mut ws = Workspace::new();
     let mut sol = StageSolution::for_stage(st);
     st.solve(&spec.inputs, &mut ws, &mut sol)?;
@@ -724,7 +673,10 @@ pub fn run(args: StageArgs) -> anyhow::Result<()> {
         results.push(Row::new("output", &format!("out_{k}"), o, "A"));
         results.push(Row::new("share", &format!("share_{k}"), s, ""));
     }
-    let (g_cf, g_note) = closed_form_gain(&stage);
+    let ClosedFormGain {
+        value: g_cf,
+        derivation: g_note,
+    } = closed_form_gain(&stage);
     if let Some(g) = gain {
         results.push(Row::new("gain", "numerical", g, ""));
     }
@@ -905,7 +857,7 @@ struct Report {
 }
 
 impl Report {
-    fn new(spec: &Spec, stage: &Stage, process: &crate::device::Process) -> Report {
+    fn new(spec: &Spec, stage: &CompetitionCircuit, process: &crate::device::Process) -> Report {
         let n = spec.inputs.len();
         let devs = devices(stage, n);
         let mut rows = Vec::new();
@@ -922,8 +874,8 @@ impl Report {
             format!("{} ({})", spec.preset, crate::device::presets::PRESET_NOTE),
         ));
         let (supply, vout) = match stage {
-            Stage::Wta(c) => (c.supply, c.output_voltage),
-            Stage::Pair(c) => (c.supply, c.output_voltage),
+            CompetitionCircuit::Wta(c) => (c.supply, c.output_voltage),
+            CompetitionCircuit::DiffPair(c) => (c.supply, c.output_voltage),
         };
         let ut = thermal_voltage(spec.temperature);
         let coupling = match spec.coupling {
@@ -1034,25 +986,32 @@ impl Report {
     }
 }
 
-fn sweep(args: &StageArgs, spec: &Spec, stage: &Stage, what: &str) -> anyhow::Result<()> {
+fn sweep(
+    args: &StageArgs,
+    spec: &Spec,
+    stage: &CompetitionCircuit,
+    what: &str,
+) -> anyhow::Result<()> {
     let n = spec.inputs.len();
-    let (index, diff) = if what == "diff" {
-        (0, true)
+    let quantity = if what == "diff" {
+        SweepQuantity::Difference
     } else if let Some(k) = what.strip_prefix("input:") {
         let k: usize = k
             .trim()
             .parse()
             .map_err(|_| anyhow!("--sweep {what:?}: write input:K with K an input index"))?;
+        SweepQuantity::Input(k)
+    } else {
+        bail!("--sweep {what:?}: write \"diff\" (x = I_0 - I_1) or \"input:K\" (x = I_K)");
+    };
+    if let SweepQuantity::Input(k) = quantity {
         if k >= n {
             bail!(
                 "--sweep {what:?}: input index {k} is out of range (there are {n} inputs, 0 to {})",
                 n - 1
             );
         }
-        (k, false)
-    } else {
-        bail!("--sweep {what:?}: write \"diff\" (x = I_0 - I_1) or \"input:K\" (x = I_K)");
-    };
+    }
     let from = flag(
         "from",
         args.from
@@ -1067,59 +1026,64 @@ fn sweep(args: &StageArgs, spec: &Spec, stage: &Stage, what: &str) -> anyhow::Re
             .ok_or_else(|| anyhow!("--sweep needs --from and --to (currents)"))?,
         Dimension::Current,
     )?;
-    if args.points < 2 {
-        bail!("--points = {} must be at least 2", args.points);
-    }
-    if args.scale == Scale::Log && from * to <= 0.0 {
-        bail!("--scale log needs --from and --to of the same sign and not zero (got {from:e} A, {to:e} A)");
-    }
-    let quantity = if diff {
-        "x = I_0 - I_1 in A (I_0, I_1 = their given mean +/- x/2; other inputs as given)"
-            .to_string()
-    } else {
-        format!("x = I_{index} in A (other inputs as given)")
+    let plan = TransferSweep {
+        quantity,
+        from,
+        to,
+        points: args.points,
+        spacing: match args.scale {
+            Scale::Linear => Spacing::Linear,
+            Scale::Log => Spacing::Log,
+        },
     };
-    let st = stage.dyn_stage();
-    let mut ws = Workspace::new();
-    let mut sol = StageSolution::for_stage(st);
+    match plan.check(n) {
+        Err(SweepError::TooFewPoints(p)) => bail!("--points = {p} must be at least 2"),
+        Err(SweepError::LogEnds { from, to }) => bail!("--scale log needs --from and --to of the same sign and not zero (got {from:e} A, {to:e} A)"),
+        Err(e) => bail!("--sweep {what:?}: {e}"),
+        Ok(()) => {}
+    }
+    let described = match quantity {
+        SweepQuantity::Difference => {
+            "x = I_0 - I_1 in A (I_0, I_1 = their given mean +/- x/2; other inputs as given)"
+                .to_string()
+        }
+        SweepQuantity::Input(index) => format!("x = I_{index} in A (other inputs as given)"),
+    };
     let mut w = csv::Writer::from_writer(Vec::new());
     let mut header = vec!["x".to_string()];
     header.extend((0..n).map(|k| format!("out_{k}")));
     header.extend((0..n).map(|k| format!("share_{k}")));
     w.write_record(&header)?;
-    let mean01 = 0.5 * (spec.inputs[0] + spec.inputs[1]);
-    let mut x_in = spec.inputs.clone();
-    for i in 0..args.points {
-        let f = i as f64 / (args.points - 1) as f64;
-        let x = match args.scale {
-            Scale::Linear => from + (to - from) * f,
-            Scale::Log => from * (to / from).powf(f),
-        };
-        if diff {
-            x_in[0] = mean01 + 0.5 * x;
-            x_in[1] = mean01 - 0.5 * x;
-            if x_in[0] < 0.0 || x_in[1] < 0.0 {
-                bail!("--sweep diff: x = {x:e} A would make an input negative (I_0 and I_1 have mean {mean01:e} A); keep |x| <= {:e} A with --from/--to", 2.0 * mean01);
-            }
-        } else {
-            if x < 0.0 {
-                bail!("--sweep input:{index}: x = {x:e} A is negative; input currents must be >= 0 (--from/--to)");
-            }
-            x_in[index] = x;
-        }
-        st.solve(&x_in, &mut ws, &mut sol)
-            .with_context(|| format!("sweep point {i} (x = {x:e} A)"))?;
+    let mut write_error = None;
+    let run = plan.run(stage, &spec.inputs, |x, sol| {
         let mut rec = vec![format!("{x:e}")];
         rec.extend(sol.outputs.iter().map(|v| format!("{v:e}")));
         rec.extend(sol.shares.iter().map(|v| format!("{v:e}")));
-        w.write_record(&rec)?;
+        if let Err(e) = w.write_record(&rec) {
+            write_error.get_or_insert(e);
+        }
+    });
+    match run {
+        Ok(()) => {}
+        Err(SweepError::NegativeInput { x, mean, .. }) => match quantity {
+            SweepQuantity::Difference => bail!("--sweep diff: x = {x:e} A would make an input negative (I_0 and I_1 have mean {mean:e} A); keep |x| <= {:e} A with --from/--to", 2.0 * mean),
+            SweepQuantity::Input(index) => bail!("--sweep input:{index}: x = {x:e} A is negative; input currents must be >= 0 (--from/--to)"),
+        },
+        Err(SweepError::Solve { point, x, source }) => {
+            return Err(anyhow::Error::new(*source)
+                .context(format!("sweep point {point} (x = {x:e} A)")))
+        }
+        Err(e) => bail!("--sweep {what:?}: {e}"),
+    }
+    if let Some(e) = write_error {
+        return Err(e.into());
     }
     let bytes = w.into_inner().map_err(|e| anyhow!("{e}"))?;
     match &args.out {
         Some(p) => {
             write_atomic(p, &bytes)?;
             println!(
-                "wrote {} points to {}; {quantity}",
+                "wrote {} points to {}; {described}",
                 args.points,
                 p.display()
             );
@@ -1127,7 +1091,7 @@ fn sweep(args: &StageArgs, spec: &Spec, stage: &Stage, what: &str) -> anyhow::Re
         }
         None => {
             // The CSV goes to stdout; what is said about it (quantity, caution) to stderr.
-            eprintln!("{quantity}");
+            eprintln!("{described}");
             print!("{}", String::from_utf8_lossy(&bytes));
             eprintln!("{}", crate::CAUTION);
         }
@@ -1138,10 +1102,10 @@ fn sweep(args: &StageArgs, spec: &Spec, stage: &Stage, what: &str) -> anyhow::Re
 fn transient(
     args: &StageArgs,
     spec: &Spec,
-    stage: &Stage,
+    stage: &CompetitionCircuit,
     process: &crate::device::Process,
 ) -> anyhow::Result<()> {
-    let Stage::Wta(c) = stage else {
+    let CompetitionCircuit::Wta(c) = stage else {
         bail!("--transient is available for the current-mode WTA only (--circuit current-wta)");
     };
     let opts = TransientOptions {

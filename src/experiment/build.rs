@@ -18,10 +18,11 @@ use crate::pipeline::{
     prepare, ClassifierDesign, CompetitionDesign, HiddenSpec, PointSetup, Prepared,
     TransientEvaluation,
 };
-use crate::stages::competition::diffpair::{DiffPairDesign, DiffPairInput, TailSource};
+use crate::stages::competition::diffpair::{DiffPairDesign, DiffPairInput};
 use crate::stages::competition::noise::{InputShotNoise, NoiseBandwidth};
 use crate::stages::competition::transient::{NoiseOptions, TransientOptions};
-use crate::stages::competition::wta::{WtaBias, WtaDesign};
+use crate::stages::competition::wta::WtaDesign;
+use crate::stages::competition::CurrentSource;
 use crate::stages::competition::DecisionRule;
 use crate::stages::weights::{
     Conditions, DriftSpec, ElementDesign, ErrorSpec, HiddenNonlinearity, InputDesign,
@@ -287,13 +288,11 @@ pub fn weight_stage(e: &Experiment) -> WeightStageDesign {
     }
 }
 
-/// The drain coupling that gives a current-mode WTA the gain `g`: g = kappa / sigma and
-/// sigma = eta / n, so g = 1 / eta (DEVELOPERS.md model notes section 4). For the differential pair the same
-/// key sets the same drain coupling of its transistors (its competition gain is set by the input
-/// conversion instead: a diode gives a plain normaliser, a resistor a softmax).
-pub fn drain_coupling_for_gain(g: f64) -> DrainCoupling {
-    DrainCoupling::Eta(1.0 / g)
-}
+/// The drain coupling that gives a competition gain `g` (one conversion, in the core). For the
+/// differential pair the same key sets the same drain coupling of its transistors (its
+/// competition gain is set by the input conversion instead: a diode gives a plain normaliser, a
+/// resistor a softmax).
+pub use crate::stages::competition::analysis::drain_coupling_for_gain;
 
 /// A competition circuit of `n` lines with the `[competition]` sizes, capacitances and output
 /// voltage, the given bias (tail) current and, if given, gain.
@@ -321,7 +320,7 @@ fn circuit(
                 n,
                 process.clone(),
                 transistor(&c.output),
-                TailSource::Ideal { current: bias },
+                CurrentSource::Ideal { current: bias },
                 input,
             );
             if let Some(v) = c.output_voltage {
@@ -338,7 +337,7 @@ fn circuit(
                 process.clone(),
                 transistor(&c.sink),
                 transistor(&c.output),
-                WtaBias::Ideal { current: bias },
+                CurrentSource::Ideal { current: bias },
             );
             if let Some(v) = c.output_voltage {
                 w.output_voltage = v.si();

@@ -6,7 +6,7 @@
 #![allow(dead_code)]
 
 use hardmax::device::{DeviceTech, DrainCoupling, MosMismatch, Polarity, Process, Transistor};
-use hardmax::stages::competition::{WtaBias, WtaChip, WtaDesign};
+use hardmax::stages::competition::{CurrentSource, WtaChip, WtaDesign};
 use rand::Rng;
 use rand_distr::{Distribution, Normal};
 
@@ -54,7 +54,7 @@ pub fn wta_design(n: usize, eta: f64, ib: f64) -> WtaDesign {
         generic_process(eta),
         nmos(2e-6, 1e-6),
         nmos(2e-6, 1e-6),
-        WtaBias::Ideal { current: ib },
+        CurrentSource::Ideal { current: ib },
     )
 }
 
@@ -89,7 +89,7 @@ pub fn wide_range_design(n: usize) -> WtaDesign {
         generic_process(0.01),
         nmos(200e-6, 1e-6),
         nmos(200e-6, 1e-6),
-        WtaBias::Transistor {
+        CurrentSource::Transistor {
             device: nmos(10e-6, 1e-6),
             gate_voltage: 0.55,
         },

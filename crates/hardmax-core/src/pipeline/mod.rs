@@ -458,9 +458,9 @@ impl PointSetup {
                 crate::units::format_si(w.output.w, "m", 3),
                 crate::units::format_si(w.output.l, "m", 3),
                 match w.bias {
-                    crate::stages::competition::wta::WtaBias::Ideal { current } =>
+                    crate::stages::competition::CurrentSource::Ideal { current } =>
                         format!("ideal bias {}", crate::units::format_si(current, "A", 3)),
-                    crate::stages::competition::wta::WtaBias::Transistor {
+                    crate::stages::competition::CurrentSource::Transistor {
                         gate_voltage, ..
                     } => format!(
                         "transistor bias at {}",

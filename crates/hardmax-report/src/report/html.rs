@@ -14,7 +14,7 @@ use super::format::{esc, fmt_duration, fmt_kind, fmt_unix_utc, raw_value, Number
 use super::render::{describe_point, point_label, short_name, Figure};
 
 /// The caution every report carries: the one constant (DEVELOPERS.md model notes section 8).
-pub use crate::CAUTION;
+pub use hardmax_core::CAUTION;
 
 const CSS: &str = r#"
 :root { --ink: #222831; --muted: #5b6573; --line: #d6dbe2; --teal: #1b6f7a; --amber: #c97a1e;

@@ -12,9 +12,12 @@
 //! (gate = drain = V_i, source ground: then the pair is a plain normaliser, `I_i ∝ I_in,i` in weak
 //! inversion) or by a resistor (`V_i = V_ref + R I_in,i`: a softmax with gain `kappa R / U_T`).
 //!
-//! Solve: each diode's gate voltage by a monotone 1-D solve, then the common source V_S by a
-//! monotone scalar solve of `ln Σ I_i(V_S) = ln I_tail(V_S)` (the left side falls and the right
-//! side rises with V_S), started from the weak-inversion closed form.
+//! The circuit implements [`SharedNodeCircuit`] (line i = gate node V_Gi, its load the input
+//! diode, its output the pair transistor, the source the tail) with the lines-first strategy of
+//! the generic DC solver ([`super::dc`]): each diode's gate voltage by a monotone 1-D solve (or
+//! the driven gate voltage), then the common source V_S by a monotone scalar solve of
+//! `ln Σ I_i(V_S) = ln I_tail(V_S)` (the left side falls and the right side rises with V_S),
+//! started from the weak-inversion closed form.
 
 // Index loops run over parallel per-input arrays.
 #![allow(clippy::needless_range_loop)]
@@ -22,17 +25,16 @@
 use crate::device::{DrainCoupling, Ekv, MosMismatch, Process, Transistor};
 use crate::solvers::{solve_monotone, ScalarError, ScalarTolerance};
 
+use super::circuit::{
+    mos_shot_psd, node_currents, Branch, CircuitMessages, DcStrategy, SharedNodeCircuit,
+};
 use super::common::{
-    at_least_two, begin_solve, check_count, check_mismatch, check_residual, common_node_failure,
-    draw_n, ekv_f_inverse, finish_solve, finite, nmos, node_lengths_ok, node_name, nonnegative,
-    not_converged, CommonNodeMessages, Devices, FastSource, SourceKeys, SourceSpec,
+    at_least_two, check_count, check_mismatch, draw_n, ekv_f_inverse, finite, nmos, nonnegative,
+    not_converged, Devices,
 };
 use super::mos::Mos;
-use super::wta::CircuitBias;
-use super::{
-    positive, CompetitionError, CompetitionStage, InputSummary, SolveMethod, StageSolution,
-    Workspace,
-};
+use super::source::{CurrentSource, SourceKeys};
+use super::{positive, CompetitionError, InputSummary};
 
 const STAGE: &str = "multi-input differential pair";
 
@@ -50,12 +52,16 @@ const TAIL_KEYS: SourceKeys = SourceKeys {
     nmos_first: true,
 };
 
-/// What the solve says when V_S has no solution within the supply.
-const COMMON_NODE_MESSAGES: CommonNodeMessages = CommonNodeMessages {
+/// What the solve says when V_S has no solution within the supply (the line texts are those of
+/// the input diodes, which [`DiffPairCircuit`]'s line solve reports itself).
+static MESSAGES: CircuitMessages = CircuitMessages {
+    source_keys: TAIL_KEYS,
     below_reason: "the common source would have to fall below ground to carry the tail current",
     below_fix: "raise the input (gate) voltages or lower the tail current",
     above_reason: "the common source would have to rise above the supply",
     above_fix: "lower the input (gate) voltages or raise the supply",
+    line_reason: "an input diode would need a gate voltage above the supply",
+    line_fix: "widen the input diodes or lower the input currents",
 };
 
 /// Relative KCL tolerance of the DC solve.
@@ -73,19 +79,6 @@ pub enum DiffPairInput {
     Resistor { resistance: f64, reference: f64 },
 }
 
-/// The tail that drains the common source.
-#[derive(Clone, Copy, Debug, PartialEq, serde::Serialize, serde::Deserialize)]
-#[serde(rename_all = "snake_case")]
-pub enum TailSource {
-    /// Ideal current sink, A.
-    Ideal { current: f64 },
-    /// NMOS (drain V_S, source ground) with its gate at `gate_voltage`.
-    Transistor {
-        device: Transistor,
-        gate_voltage: f64,
-    },
-}
-
 /// Nominal design of a multi-input differential pair.
 #[derive(Clone, Debug, PartialEq, serde::Serialize, serde::Deserialize)]
 pub struct DiffPairDesign {
@@ -94,7 +87,7 @@ pub struct DiffPairDesign {
     pub process: Process,
     /// The N pair transistors.
     pub pair: Transistor,
-    pub tail: TailSource,
+    pub tail: CurrentSource,
     pub input: DiffPairInput,
     /// Supply, V (upper limit of every node).
     pub supply: f64,
@@ -115,7 +108,7 @@ impl DiffPairDesign {
         n: usize,
         process: Process,
         pair: Transistor,
-        tail: TailSource,
+        tail: CurrentSource,
         input: DiffPairInput,
     ) -> DiffPairDesign {
         let vdd = process.vdd;
@@ -141,7 +134,7 @@ impl DiffPairDesign {
         positive(STAGE, "pair.l", self.pair.l)?;
         positive(STAGE, "supply", self.supply)?;
         nonnegative(STAGE, "output_voltage", self.output_voltage)?;
-        SourceSpec::from(self.tail).validate(STAGE, &TAIL_KEYS)?;
+        self.tail.validate(STAGE, &TAIL_KEYS)?;
         match self.input {
             DiffPairInput::Voltage => {}
             DiffPairInput::Diode { device } => {
@@ -228,7 +221,7 @@ impl DiffPairChip {
             DiffPairInput::Diode { device } => draw_n(design.n, &device, &mut draw),
             _ => Vec::new(),
         };
-        let tail = SourceSpec::from(design.tail).draw(&mut draw);
+        let tail = design.tail.draw(&mut draw);
         DiffPairChip::from_mismatch(design, pair, diodes, tail)
     }
 
@@ -242,20 +235,22 @@ impl DiffPairChip {
             DiffPairInput::Diode { device } => devices.each(&device, &self.diodes),
             _ => Vec::new(),
         };
-        let tail_desc = SourceSpec::from(d.tail).at(&devices, self.tail);
+        let tail_desc = d.tail.at(&devices, self.tail);
         Ok(DiffPairCircuit {
             n: d.n,
             pair_fast: pair.iter().map(Mos::new).collect(),
             diode_fast: diodes.iter().map(Mos::new).collect(),
             pair,
             diodes,
-            tail: FastSource::of(&tail_desc),
+            tail: tail_desc.fast(),
             tail_desc,
             input: d.input,
             supply: d.supply,
             output_voltage: d.output_voltage,
             vs_min: 0.0,
             temperature,
+            input_capacitance: d.input_capacitance,
+            source_capacitance: d.source_capacitance,
             tolerance: DIFFPAIR_RELATIVE_TOLERANCE,
         })
     }
@@ -269,8 +264,8 @@ pub struct DiffPairCircuit {
     diodes: Vec<Ekv>,
     pair_fast: Vec<Mos>,
     diode_fast: Vec<Mos>,
-    tail: FastSource,
-    tail_desc: CircuitBias,
+    tail: CurrentSource<Mos>,
+    tail_desc: CurrentSource<Ekv>,
     input: DiffPairInput,
     /// Supply, V.
     pub supply: f64,
@@ -280,6 +275,10 @@ pub struct DiffPairCircuit {
     pub vs_min: f64,
     /// Temperature, K.
     pub temperature: f64,
+    /// Gate node capacitance, F (transient with diode inputs).
+    pub input_capacitance: f64,
+    /// Common source capacitance, F.
+    pub source_capacitance: f64,
     /// Relative KCL tolerance.
     pub tolerance: f64,
 }
@@ -296,7 +295,7 @@ impl DiffPairCircuit {
     }
 
     /// The tail (ideal current or evaluated transistor with its gate voltage).
-    pub fn tail(&self) -> &CircuitBias {
+    pub fn tail(&self) -> &CurrentSource<Ekv> {
         &self.tail_desc
     }
 
@@ -337,8 +336,8 @@ impl DiffPairCircuit {
                 Err(CompetitionError::Compliance {
                     stage: STAGE,
                     parameter: "inputs",
-                    reason: "an input diode would need a gate voltage above the supply",
-                    fix: "widen the input diodes or lower the input currents",
+                    reason: MESSAGES.line_reason,
+                    fix: MESSAGES.line_fix,
                     inputs: InputSummary::of(inputs),
                 })
             }
@@ -380,22 +379,7 @@ impl DiffPairCircuit {
     /// driven); entry N is `Σ I_i - I_tail`. Zero at a DC solution; with the node capacitances
     /// it gives the right-hand side of the ODE. Returns `None` on a length mismatch.
     pub fn node_currents(&self, inputs: &[f64], voltages: &[f64], out: &mut [f64]) -> Option<()> {
-        let n = self.n;
-        if !node_lengths_ok(n, inputs, voltages, out) {
-            return None;
-        }
-        let vs = voltages[n];
-        let mut s = 0.0;
-        for k in 0..n {
-            let vg = voltages[k];
-            out[k] = match self.input {
-                DiffPairInput::Diode { .. } => inputs[k] - self.diode_fast[k].id(vg, vg, 0.0),
-                _ => 0.0,
-            };
-            s += self.pair_fast[k].id(vg, self.output_voltage, vs);
-        }
-        out[n] = s - self.tail.eval(vs).0;
-        Some(())
+        node_currents(self, inputs, voltages, out)
     }
 
     /// Relative KCL residual at the common source for gate voltages and V_S.
@@ -411,102 +395,148 @@ impl DiffPairCircuit {
     }
 }
 
-impl CompetitionStage for DiffPairCircuit {
-    fn n(&self) -> usize {
-        self.n
-    }
-
-    fn node_count(&self) -> usize {
-        self.n + 1
-    }
-
-    fn node_name(&self, i: usize) -> String {
-        node_name(i, self.n, "V_S", "V_G")
-    }
-
-    fn stage_name(&self) -> &'static str {
+impl SharedNodeCircuit for DiffPairCircuit {
+    fn name(&self) -> &'static str {
         STAGE
     }
 
-    fn input_unit(&self) -> &'static str {
+    fn common_node_name(&self) -> &'static str {
+        "V_S"
+    }
+
+    fn line_node_prefix(&self) -> &'static str {
+        "V_G"
+    }
+
+    fn inputs_unit(&self) -> &'static str {
         match self.input {
             DiffPairInput::Voltage => "V",
             _ => "A",
         }
     }
 
-    fn solve(
-        &self,
-        inputs: &[f64],
-        ws: &mut Workspace,
-        out: &mut StageSolution,
-    ) -> Result<(), CompetitionError> {
-        let n = self.n;
-        begin_solve(STAGE, n, inputs, self.input_unit(), ws, out)?;
-        let gates = &mut ws.v[..n];
+    #[inline]
+    fn lines(&self) -> usize {
+        self.n
+    }
+
+    #[inline]
+    fn supply(&self) -> f64 {
+        self.supply
+    }
+
+    #[inline]
+    fn common_min(&self) -> f64 {
+        self.vs_min
+    }
+
+    #[inline]
+    fn tolerance(&self) -> f64 {
+        self.tolerance
+    }
+
+    fn strategy(&self) -> DcStrategy {
+        DcStrategy::LinesFirst
+    }
+
+    fn messages(&self) -> &'static CircuitMessages {
+        &MESSAGES
+    }
+
+    fn temperature(&self) -> f64 {
+        self.temperature
+    }
+
+    fn source(&self) -> &CurrentSource<Ekv> {
+        &self.tail_desc
+    }
+
+    #[inline]
+    fn source_fast(&self) -> &CurrentSource<Mos> {
+        &self.tail
+    }
+
+    /// Input diode i (gate = drain = V_Gi, source ground); no current for driven gates.
+    #[inline]
+    fn load(&self, k: usize, v_line: f64, _v_common: f64) -> Branch {
+        match self.diode_fast.get(k) {
+            Some(m) => {
+                let e = m.eval(v_line, v_line, 0.0);
+                Branch {
+                    current: e.id,
+                    d_line: e.d_vg + e.d_vd,
+                    d_common: 0.0,
+                }
+            }
+            None => Branch::default(),
+        }
+    }
+
+    #[inline]
+    fn load_current(&self, k: usize, v_line: f64, _v_common: f64) -> f64 {
+        self.diode_fast
+            .get(k)
+            .map_or(0.0, |m| m.id(v_line, v_line, 0.0))
+    }
+
+    /// Pair transistor i: gate V_Gi, drain at the output voltage, source V_S.
+    #[inline]
+    fn output(&self, k: usize, v_line: f64, v_common: f64) -> Branch {
+        let e = self.pair_fast[k].eval(v_line, self.output_voltage, v_common);
+        Branch {
+            current: e.id,
+            d_line: e.d_vg,
+            d_common: e.d_vs,
+        }
+    }
+
+    #[inline]
+    fn output_current(&self, k: usize, v_line: f64, v_common: f64) -> f64 {
+        self.pair_fast[k].id(v_line, self.output_voltage, v_common)
+    }
+
+    /// The weak-inversion closed form of V_S for the solved gate voltages in `lines`.
+    fn closed_form_start(&self, _inputs: &[f64], _scratch: &mut [f64], lines: &mut [f64]) -> f64 {
+        self.closed_form_vs(lines)
+    }
+
+    /// The gate voltage: the input itself, through the resistor, or the diode's solve.
+    fn line_voltage(&self, k: usize, input: f64, inputs: &[f64]) -> Result<f64, CompetitionError> {
         match self.input {
-            DiffPairInput::Voltage => gates.copy_from_slice(inputs),
+            DiffPairInput::Voltage => Ok(input),
             DiffPairInput::Resistor {
                 resistance,
                 reference,
-            } => {
-                for k in 0..n {
-                    gates[k] = reference + resistance * inputs[k];
-                }
-            }
-            DiffPairInput::Diode { .. } => {
-                for k in 0..n {
-                    gates[k] = self.diode_voltage(k, inputs[k], inputs)?;
-                }
-            }
+            } => Ok(reference + resistance * input),
+            DiffPairInput::Diode { .. } => self.diode_voltage(k, input, inputs),
         }
-        let gates = &ws.v[..n];
-        let vs0 = self.closed_form_vs(gates);
-        let vout = self.output_voltage;
-        let f = |vs: f64| {
-            let mut s = 0.0;
-            let mut ds = 0.0;
-            for (m, &vg) in self.pair_fast.iter().zip(gates) {
-                let e = m.eval(vg, vout, vs);
-                s += e.id;
-                ds += e.d_vs;
-            }
-            let (it, dit) = self.tail.eval(vs);
-            (s.ln() - it.ln(), ds / s - dit / it)
-        };
-        let tol = ScalarTolerance {
-            ftol: 0.5 * self.tolerance,
-            xtol: 1e-15,
-            max_iter: 300,
-        };
-        let root = solve_monotone(f, self.vs_min, self.supply, vs0, false, tol);
-        let (vs, iterations) = match root {
-            Ok(r) => (r.x, r.iterations),
-            Err(err) => {
-                return Err(common_node_failure(
-                    STAGE,
-                    err,
-                    self.tail.key(&TAIL_KEYS),
-                    &COMMON_NODE_MESSAGES,
-                    0,
-                    self.tolerance,
-                    inputs,
-                ))
-            }
-        };
-        for k in 0..n {
-            out.outputs[k] = self.pair_fast[k].id(gates[k], vout, vs);
-        }
-        let residual = self.source_residual(gates, vs).abs();
-        check_residual(STAGE, iterations, residual, self.tolerance, inputs)?;
-        finish_solve(
-            out,
-            gates,
-            vs,
-            iterations,
-            residual,
-            SolveMethod::Bracketing,
-        );
-        Ok(())
+    }
+
+    fn lines_driven(&self) -> bool {
+        !matches!(self.input, DiffPairInput::Diode { .. })
+    }
+
+    fn capacitances(&self) -> (f64, f64) {
+        (self.input_capacitance, self.source_capacitance)
+    }
+
+    fn kappa(&self) -> f64 {
+        self.diodes
+            .first()
+            .or(self.pair.first())
+            .map(|d| 1.0 / d.n)
+            .unwrap_or(1.0)
+    }
+
+    #[inline]
+    fn load_noise_psd(&self, k: usize, v_line: f64, _v_common: f64) -> f64 {
+        self.diode_fast
+            .get(k)
+            .map_or(0.0, |m| mos_shot_psd(m, v_line, v_line, 0.0))
+    }
+
+    #[inline]
+    fn output_noise_psd(&self, k: usize, v_line: f64, v_common: f64) -> f64 {
+        mos_shot_psd(&self.pair_fast[k], v_line, self.output_voltage, v_common)
     }
 }

@@ -13,11 +13,17 @@
 //!
 //! Numerical core: no I/O, no printing.
 
+pub mod analysis;
+pub mod circuit;
 mod common;
+pub mod dc;
 pub mod decision;
 pub mod diffpair;
+#[cfg(test)]
+mod ideal_normaliser;
 pub mod mos;
 pub mod noise;
+pub mod source;
 pub mod transient;
 pub mod wta;
 
@@ -25,10 +31,12 @@ use std::fmt;
 
 use thiserror::Error;
 
+pub use circuit::{Branch, CircuitMessages, DcStrategy, SharedNodeCircuit};
 pub use decision::{Decision, DecisionRule};
-pub use diffpair::{DiffPairChip, DiffPairCircuit, DiffPairDesign, DiffPairInput, TailSource};
+pub use diffpair::{DiffPairChip, DiffPairCircuit, DiffPairDesign, DiffPairInput};
 pub use noise::{InputShotNoise, NoiseBandwidth};
-pub use wta::{WtaBias, WtaChip, WtaCircuit, WtaDesign};
+pub use source::CurrentSource;
+pub use wta::{WtaChip, WtaCircuit, WtaDesign};
 
 /// Which algorithm produced a solution.
 #[derive(Clone, Copy, Debug, Default, PartialEq, Eq)]
@@ -95,15 +103,22 @@ impl StageSolution {
     }
 }
 
-/// Scratch space reused across solves (grows on first use, never shrinks).
+/// Scratch space of the DC solver, reused across solves (grows on first use, never shrinks).
+/// One entry per line in each buffer.
 #[derive(Clone, Debug, Default)]
 pub struct Workspace {
-    pub(crate) a: Vec<f64>,
-    pub(crate) b: Vec<f64>,
-    pub(crate) c: Vec<f64>,
-    pub(crate) d: Vec<f64>,
-    pub(crate) e: Vec<f64>,
-    pub(crate) v: Vec<f64>,
+    /// Line voltages V_k being solved, V.
+    pub(crate) line_voltage: Vec<f64>,
+    /// dI_L,k/dV_k of each line's load (Newton), A/V.
+    pub(crate) load_d_line: Vec<f64>,
+    /// dI_L,k/dV_C of each line's load (Newton), A/V.
+    pub(crate) load_d_common: Vec<f64>,
+    /// Log-form line residual times the load current, `ln(I_L,k/I_k) I_L,k` (Newton), A.
+    pub(crate) scaled_residual: Vec<f64>,
+    /// Closed-form output shares of the start (and any scratch of the circuit's start).
+    pub(crate) start_share: Vec<f64>,
+    /// Lines the bracketing solve found clamped at the supply.
+    pub(crate) clamped: Vec<bool>,
 }
 
 impl Workspace {
@@ -114,16 +129,18 @@ impl Workspace {
 
     pub(crate) fn ensure(&mut self, n: usize) {
         for b in [
-            &mut self.a,
-            &mut self.b,
-            &mut self.c,
-            &mut self.d,
-            &mut self.e,
-            &mut self.v,
+            &mut self.line_voltage,
+            &mut self.load_d_line,
+            &mut self.load_d_common,
+            &mut self.scaled_residual,
+            &mut self.start_share,
         ] {
             if b.len() < n {
                 b.resize(n, 0.0);
             }
+        }
+        if self.clamped.len() < n {
+            self.clamped.resize(n, false);
         }
     }
 }
@@ -246,6 +263,44 @@ pub trait CompetitionStage {
         ws: &mut Workspace,
         out: &mut StageSolution,
     ) -> Result<(), CompetitionError>;
+}
+
+/// Every shared-node circuit is a competition stage: its DC solve is the generic one
+/// ([`dc::solve`]).
+impl<C: SharedNodeCircuit> CompetitionStage for C {
+    fn n(&self) -> usize {
+        self.lines()
+    }
+
+    fn node_count(&self) -> usize {
+        self.lines() + 1
+    }
+
+    fn node_name(&self, i: usize) -> String {
+        if i == self.lines() {
+            self.common_node_name().to_string()
+        } else {
+            format!("{}{i}", self.line_node_prefix())
+        }
+    }
+
+    fn stage_name(&self) -> &'static str {
+        SharedNodeCircuit::name(self)
+    }
+
+    fn input_unit(&self) -> &'static str {
+        SharedNodeCircuit::inputs_unit(self)
+    }
+
+    #[inline]
+    fn solve(
+        &self,
+        inputs: &[f64],
+        ws: &mut Workspace,
+        out: &mut StageSolution,
+    ) -> Result<(), CompetitionError> {
+        dc::solve(self, inputs, ws, out)
+    }
 }
 
 /// Fill `shares` from `outputs`; all-zero outputs give equal shares.

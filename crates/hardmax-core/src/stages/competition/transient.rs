@@ -1,6 +1,9 @@
-//! Transient evaluation of the current-mode WTA (DEVELOPERS.md model notes §4.3): node capacitances turn the
-//! KCL equations of [`WtaCircuit`] into an ODE, integrated here from a reset state; optional
-//! shot noise makes it an SDE.
+//! Transient evaluation of a competition stage (DEVELOPERS.md model notes §4.3): node
+//! capacitances turn the node equations of any [`SharedNodeCircuit`] (the current-mode WTA's
+//! [`WtaCircuit`](super::wta::WtaCircuit), a diode-fed differential pair, ...) into an ODE, integrated here from a reset
+//! state; optional shot noise makes it an SDE. The equations below are written for the WTA
+//! (load of line k = sink A_k, output = B_k, source = the bias); every circuit's own branches
+//! take their place.
 //!
 //! ## Equations
 //!
@@ -86,13 +89,13 @@ use rand::{Rng, RngCore};
 use rand_distr::StandardNormal;
 use thiserror::Error;
 
+use super::circuit::SharedNodeCircuit;
 use super::mos::Mos;
-use super::wta::{CircuitBias, WtaCircuit};
+use super::source::CurrentSource;
 use super::{
-    fill_shares, validate_inputs, CompetitionError, CompetitionStage, Decision, DecisionRule,
-    InputSummary, StageSolution, Workspace,
+    dc, fill_shares, validate_inputs, CompetitionError, Decision, DecisionRule, InputSummary,
+    StageSolution, Workspace,
 };
-use crate::device::noise::shot_noise_psd;
 use crate::physics::{thermal_voltage, ELEMENTARY_CHARGE};
 
 const STAGE: &str = "current-mode WTA transient";
@@ -255,25 +258,25 @@ pub struct WaveformPoint {
     pub outputs: Vec<f64>,
 }
 
-#[derive(Clone, Copy, Debug)]
-enum Bias {
-    Ideal(f64),
-    Mos(Mos, f64),
-}
-
 /// Scratch space and results of [`simulate`], reused across runs (grows, never shrinks).
 #[derive(Clone, Debug, Default)]
 pub struct TransientWorkspace {
-    sink: Vec<Mos>,
-    output: Vec<Mos>,
+    /// Node voltages at the current time, V.
     x: Vec<f64>,
+    /// Node voltages at the previous accepted step, V.
     x_prev: Vec<f64>,
+    /// Node voltages of the step being solved, V.
     x_new: Vec<f64>,
+    /// Noise charge of each node for the step, C.
     noise_q: Vec<f64>,
-    a: Vec<f64>,
-    b: Vec<f64>,
-    c: Vec<f64>,
-    r: Vec<f64>,
+    /// Newton: diagonal entry of each line row (then its update).
+    diag: Vec<f64>,
+    /// Newton: common-node column entry of each line row.
+    line_to_common: Vec<f64>,
+    /// Newton: common-node row entry of each line column.
+    common_to_line: Vec<f64>,
+    /// Newton: residual of each line row.
+    residual: Vec<f64>,
     mean_inputs: Vec<f64>,
     dc_ws: Workspace,
     solution: StageSolution,
@@ -296,24 +299,16 @@ impl TransientWorkspace {
         &self.waveform
     }
 
-    fn prepare(&mut self, c: &WtaCircuit, n: usize) {
-        self.sink.clear();
-        self.output.clear();
-        for k in 0..n {
-            if let (Some(a), Some(b)) = (c.sink(k), c.output(k)) {
-                self.sink.push(Mos::new(a));
-                self.output.push(Mos::new(b));
-            }
-        }
+    fn prepare(&mut self, n: usize) {
         for v in [
             &mut self.x,
             &mut self.x_prev,
             &mut self.x_new,
             &mut self.noise_q,
-            &mut self.a,
-            &mut self.b,
-            &mut self.c,
-            &mut self.r,
+            &mut self.diag,
+            &mut self.common_to_line,
+            &mut self.line_to_common,
+            &mut self.residual,
         ] {
             v.clear();
             v.resize(n + 1, 0.0);
@@ -326,20 +321,18 @@ impl TransientWorkspace {
 }
 
 /// The constant parts of one run.
-struct Model<'a> {
+struct Model<'a, C: SharedNodeCircuit + ?Sized> {
     n: usize,
+    circuit: &'a C,
     inputs: &'a [f64],
-    sink: &'a [Mos],
-    output: &'a [Mos],
-    bias: Bias,
+    bias: CurrentSource<Mos>,
     vdd: f64,
-    vout: f64,
     ut: f64,
     c_in: f64,
     c_c: f64,
 }
 
-impl Model<'_> {
+impl<C: SharedNodeCircuit + ?Sized> Model<'_, C> {
     /// Input source current with its supply compliance, and its derivative in V_k.
     #[inline]
     fn input(&self, k: usize, vk: f64) -> (f64, f64) {
@@ -352,14 +345,11 @@ impl Model<'_> {
     #[inline]
     fn bias(&self, vc: f64) -> (f64, f64) {
         match self.bias {
-            Bias::Ideal(i) => {
+            CurrentSource::Ideal { current: i } => {
                 let e = (-vc / self.ut).exp();
                 (i * (1.0 - e), i * e / self.ut)
             }
-            Bias::Mos(m, vg) => {
-                let e = m.eval(vg, vc, 0.0);
-                (e.id, e.d_vd)
-            }
+            CurrentSource::Transistor { .. } => self.bias.eval(vc),
         }
     }
 
@@ -369,7 +359,7 @@ impl Model<'_> {
         let mut s_in = 0.0;
         let mut s_b = 0.0;
         for k in 0..self.n {
-            let ib = self.output[k].id(x[k], self.vout, vc);
+            let ib = self.circuit.output_current(k, x[k], vc);
             out[k] = ib;
             s_b += ib;
             s_in += self.input(k, x[k]).0;
@@ -384,12 +374,12 @@ impl Model<'_> {
         let mut s = 0.0;
         for k in 0..self.n {
             let (iin, _) = self.input(k, x[k]);
-            let ia = self.sink[k].id(vc, x[k], 0.0);
+            let ia = self.circuit.load_current(k, x[k], vc);
             let scale = iin.abs().max(ia.abs());
             if scale > 0.0 {
                 m = m.max((iin - ia).abs() / scale);
             }
-            s += self.output[k].id(x[k], self.vout, vc);
+            s += self.circuit.output_current(k, x[k], vc);
         }
         let (ib, _) = self.bias(vc);
         let scale = s.abs().max(ib.abs());
@@ -404,19 +394,30 @@ impl Model<'_> {
 /// the equations, the initial state, the outputs and the noise. Without a waveform request the
 /// run does not allocate once `ws` has grown to the circuit's size. `noise` (options and the
 /// caller's generator, e.g. a per-(chip, sample) stream of `rng::stream`) makes it an SDE.
-pub fn simulate(
-    circuit: &WtaCircuit,
+pub fn simulate<C: SharedNodeCircuit + ?Sized>(
+    circuit: &C,
     inputs: &[f64],
     opts: &TransientOptions,
     mut noise: Option<(&NoiseOptions, &mut dyn RngCore)>,
     ws: &mut TransientWorkspace,
 ) -> Result<TransientSummary, TransientError> {
-    let n = circuit.n();
+    let n = circuit.lines();
     validate_inputs(STAGE, n, inputs, "A", true)?;
     check_options(opts, noise.as_ref().map(|(o, _)| *o))?;
+    if circuit.lines_driven() {
+        return Err(CompetitionError::InvalidParameter {
+            stage: STAGE,
+            parameter: "input",
+            value: f64::NAN,
+            reason: "a transient needs current inputs into the line nodes (driven lines have no \
+                     node equation)",
+        }
+        .into());
+    }
+    let (c_line, c_common) = circuit.capacitances();
     for (p, v) in [
-        ("input_capacitance", circuit.input_capacitance),
-        ("common_capacitance", circuit.common_capacitance),
+        ("input_capacitance", c_line),
+        ("common_capacitance", c_common),
     ] {
         if !(v.is_finite() && v > 0.0) {
             return Err(CompetitionError::InvalidParameter {
@@ -428,21 +429,15 @@ pub fn simulate(
             .into());
         }
     }
-    let ut = thermal_voltage(circuit.temperature);
+    let ut = thermal_voltage(circuit.temperature());
     let mean = inputs.iter().sum::<f64>() / n as f64;
-    let kappa = circuit.sink(0).map(|d| 1.0 / d.n).unwrap_or(1.0);
+    let kappa = circuit.kappa();
     let i_scale = if mean > 0.0 {
         mean
     } else {
-        match *circuit.bias() {
-            CircuitBias::Ideal(i) => i,
-            CircuitBias::Transistor {
-                device,
-                gate_voltage,
-            } => device.id(gate_voltage, circuit.supply, 0.0),
-        }
+        circuit.source().current_at(circuit.supply())
     };
-    let time_scale = circuit.input_capacitance * ut / (kappa * i_scale);
+    let time_scale = c_line * ut / (kappa * i_scale);
     if !(time_scale.is_finite() && time_scale > 0.0) {
         return Err(CompetitionError::InvalidParameter {
             stage: STAGE,
@@ -453,14 +448,8 @@ pub fn simulate(
         .into());
     }
 
-    ws.prepare(circuit, n);
-    let bias = match *circuit.bias() {
-        CircuitBias::Ideal(i) => Bias::Ideal(i),
-        CircuitBias::Transistor {
-            device,
-            gate_voltage,
-        } => Bias::Mos(Mos::new(&device), gate_voltage),
-    };
+    ws.prepare(n);
+    let bias = *circuit.source_fast();
 
     // Initial state.
     match opts.initial {
@@ -479,37 +468,33 @@ pub fn simulate(
                 mean_inputs.iter_mut().for_each(|m| *m = mean);
                 mean_inputs
             };
-            circuit.solve(src, dc_ws, solution)?;
+            dc::solve(circuit, src, dc_ws, solution)?;
             x.copy_from_slice(&solution.node_voltages);
         }
     }
 
     let TransientWorkspace {
-        sink,
-        output,
         x,
         x_prev,
         x_new,
         noise_q,
-        a,
-        b,
-        c,
-        r,
+        diag,
+        line_to_common,
+        common_to_line,
+        residual,
         solution,
         waveform,
         ..
     } = ws;
     let model = Model {
         n,
+        circuit,
         inputs,
-        sink,
-        output,
         bias,
-        vdd: circuit.supply,
-        vout: circuit.output_voltage,
+        vdd: circuit.supply(),
         ut,
-        c_in: circuit.input_capacitance,
-        c_c: circuit.common_capacitance,
+        c_in: c_line,
+        c_c: c_common,
     };
     let rule = opts.rule;
     let t_end = match opts.read_time {
@@ -576,10 +561,10 @@ pub fn simulate(
             h,
             opts,
             x_new,
-            a,
-            b,
-            c,
-            r,
+            diag,
+            common_to_line,
+            line_to_common,
+            residual,
         );
         newton_total += iters;
         if !ok {
@@ -766,8 +751,8 @@ fn check_options(o: &TransientOptions, noise: Option<&NoiseOptions>) -> Result<(
 }
 
 /// Noise charge increments (C) per node for a step of `h` at state `x` (module docs).
-fn noise_charges(
-    m: &Model<'_>,
+fn noise_charges<C: SharedNodeCircuit + ?Sized>(
+    m: &Model<'_, C>,
     x: &[f64],
     h: f64,
     o: &NoiseOptions,
@@ -788,39 +773,30 @@ fn noise_charges(
         }
         if o.device_shot {
             // Sink A_k (V_k to ground) and output B_k (V_out to V_C).
-            qk += draw(mos_shot_psd(&m.sink[k], vc, x[k], 0.0));
-            qc += draw(mos_shot_psd(&m.output[k], x[k], m.vout, vc));
+            qk += draw(m.circuit.load_noise_psd(k, x[k], vc));
+            qc += draw(m.circuit.output_noise_psd(k, x[k], vc));
         }
         q[k] = qk;
     }
     if o.device_shot {
         qc += match m.bias {
-            Bias::Ideal(i) => draw(2.0 * ELEMENTARY_CHARGE * i),
-            Bias::Mos(b, vg) => draw(mos_shot_psd(&b, vg, vc, 0.0)),
+            CurrentSource::Ideal { current: i } => draw(2.0 * ELEMENTARY_CHARGE * i),
+            CurrentSource::Transistor {
+                device: b,
+                gate_voltage: vg,
+            } => draw(super::circuit::mos_shot_psd(&b, vg, vc, 0.0)),
         };
     }
     q[n] = qc;
 }
 
-/// `2 q (I_f + I_r)` of a folded device, via [`shot_noise_psd`] on the equivalent EKV device.
-#[inline]
-fn mos_shot_psd(m: &Mos, vg: f64, vd: f64, vs: f64) -> f64 {
-    let d = crate::device::Ekv {
-        polarity: crate::device::Polarity::Nmos,
-        vt0: m.vt0,
-        n: m.n(),
-        beta: m.is / (2.0 * m.n() * m.ut() * m.ut()),
-        eta: m.eta,
-        ut: m.ut(),
-    };
-    shot_noise_psd(&d, vg, vd, vs)
-}
-
 /// One backward-Euler step from `x` of size `h` (plus noise charges): damped Newton on the
-/// arrowhead system, starting from and solving into `x_new`. Returns (converged, iterations, last largest update).
+/// arrowhead system, starting from and solving into `x_new`. Returns (converged, iterations, last
+/// largest update). Buffers: `a` the line rows' diagonal (then their updates), `b` the common
+/// row's line entries, `c` the line rows' common entries, `r` the line residuals.
 #[allow(clippy::too_many_arguments)]
-fn newton_step(
-    m: &Model<'_>,
+fn newton_step<C: SharedNodeCircuit + ?Sized>(
+    m: &Model<'_, C>,
     x: &[f64],
     noise_q: Option<&[f64]>,
     h: f64,
@@ -839,17 +815,17 @@ fn newton_step(
         let mut e = m.c_c;
         for k in 0..n {
             let vk = x_new[k];
-            let ea = m.sink[k].eval(vc, vk, 0.0);
+            let ea = m.circuit.load(k, vk, vc);
             let (iin, diin) = m.input(k, vk);
             let qn = noise_q.map_or(0.0, |q| q[k]);
             // R_k = C (v - v0) - h (I_in - I_A) - q.
-            r[k] = m.c_in * (vk - x[k]) - h * (iin - ea.id) - qn;
-            a[k] = m.c_in + h * (ea.d_vd - diin);
-            c[k] = h * ea.d_vg;
-            let eb = m.output[k].eval(vk, m.vout, vc);
-            s_b += eb.id;
-            b[k] = -h * eb.d_vg;
-            e -= h * eb.d_vs;
+            r[k] = m.c_in * (vk - x[k]) - h * (iin - ea.current) - qn;
+            a[k] = m.c_in + h * (ea.d_line - diin);
+            c[k] = h * ea.d_common;
+            let eb = m.circuit.output(k, vk, vc);
+            s_b += eb.current;
+            b[k] = -h * eb.d_line;
+            e -= h * eb.d_common;
         }
         let (ib, dib) = m.bias(vc);
         e += h * dib;
@@ -898,7 +874,7 @@ fn newton_step(
 mod tests {
     use super::*;
     use crate::device::{DeviceTech, DrainCoupling, Polarity, Process, Transistor};
-    use crate::stages::competition::{WtaBias, WtaChip, WtaDesign};
+    use crate::stages::competition::{CurrentSource, WtaChip, WtaCircuit, WtaDesign};
 
     fn process(eta: f64) -> Process {
         // Generic 0.18 µm-class numbers (from memory, not foundry data).
@@ -929,7 +905,7 @@ mod tests {
             w: 2e-6,
             l: 1e-6,
         };
-        let d = WtaDesign::new(3, process(0.01), t, t, WtaBias::Ideal { current: ib });
+        let d = WtaDesign::new(3, process(0.01), t, t, CurrentSource::Ideal { current: ib });
         WtaChip::nominal(d).unwrap().at(300.0).unwrap()
     }
 
@@ -942,7 +918,13 @@ mod tests {
         let s = simulate(&c, &inputs, &TransientOptions::default(), None, &mut ws).unwrap();
         assert!(s.settled, "{s:?}");
         let mut dc = StageSolution::for_stage(&c);
-        c.solve(&inputs, &mut Workspace::new(), &mut dc).unwrap();
+        crate::stages::competition::CompetitionStage::solve(
+            &c,
+            &inputs,
+            &mut Workspace::new(),
+            &mut dc,
+        )
+        .unwrap();
         for (a, b) in ws.solution().node_voltages.iter().zip(&dc.node_voltages) {
             assert!((a - b).abs() < 1e-6, "{a} vs {b}");
         }

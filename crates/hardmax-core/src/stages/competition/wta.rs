@@ -22,33 +22,27 @@
 //!
 //! ## Solver
 //!
-//! Damped Newton on all N+1 node voltages with the KCL residuals taken in log form
-//! (`ln(I_A,k/I_k)`, `ln(Σ I_B/I_bias)`, which are close to linear in the voltages in weak
-//! inversion). The Jacobian is an arrowhead (each V_k couples only to V_C), so each step
-//! eliminates the V_k and solves one scalar equation for V_C: O(N) per step, no allocation.
-//! When Newton has not converged within its budget, a bracketing solve takes over: an outer
-//! monotone scalar solve on V_C (h(V_C) = ln Σ I_B,k(V_k(V_C), V_C) - ln I_bias(V_C) is
-//! decreasing, because each V_k(V_C) decreases and each I_B,k falls with its source voltage)
-//! with an inner monotone 1-D solve of each V_k on [0, V_dd]. The bracketing solve converges
-//! whenever an operating point exists inside the supply, and otherwise says which parameter the
-//! supply cannot carry.
+//! The circuit implements [`SharedNodeCircuit`] once (load of line k = sink A_k, output of line
+//! k = B_k, source = the bias): the generic DC solver ([`super::dc`]: damped Newton on the
+//! arrowhead with the KCL residuals in log form, then a nested bracketing solve) and the
+//! transient ([`super::transient`]) use these node equations. The closed form above gives the
+//! starting point.
 
 // Index loops run over parallel per-cell arrays; iterators would zip five of them.
 #![allow(clippy::needless_range_loop)]
 
 use crate::device::{DrainCoupling, Ekv, MosMismatch, Process, Transistor};
-use crate::solvers::{solve_monotone, ScalarError, ScalarTolerance};
 
+use super::circuit::{
+    kcl_residuals, mos_shot_psd, node_currents, Branch, CircuitMessages, DcStrategy,
+    SharedNodeCircuit,
+};
 use super::common::{
-    at_least_two, begin_solve, check_count, check_mismatch, check_residual, common_node_failure,
-    draw_n, ekv_f_inverse, finish_solve, nmos, node_lengths_ok, node_name, nonnegative,
-    CommonNodeMessages, Devices, FastSource, SourceKeys, SourceSpec,
+    at_least_two, check_count, check_mismatch, draw_n, ekv_f_inverse, nmos, nonnegative, Devices,
 };
 use super::mos::Mos;
-use super::{
-    positive, CompetitionError, CompetitionStage, InputSummary, SolveMethod, StageSolution,
-    Workspace,
-};
+use super::source::{CurrentSource, SourceKeys};
+use super::{positive, CompetitionError};
 
 const STAGE: &str = "current-mode WTA";
 
@@ -63,32 +57,23 @@ const BIAS_KEYS: SourceKeys = SourceKeys {
     nmos_first: false,
 };
 
-/// What the bracketing solve says when V_C has no solution within the supply.
-const COMMON_NODE_MESSAGES: CommonNodeMessages = CommonNodeMessages {
+/// What the DC solve says when it finds no operating point within the supply.
+static MESSAGES: CircuitMessages = CircuitMessages {
+    source_keys: BIAS_KEYS,
     below_reason: "the inputs cannot carry the bias current with the common node V_C \
                    at or above ground",
     below_fix: "raise the input currents or lower the bias current",
     above_reason: "the common node V_C would have to rise above the supply",
     above_fix: "raise the supply, widen the sink transistors, or lower the input currents",
+    line_reason: "an input node would have to rise above the supply: its sink transistor \
+                  cannot carry the input current",
+    line_fix: "widen the sink transistors (W/L), lower the input currents, or raise the supply",
 };
 
 /// Relative KCL tolerance of the DC solve (at every node, relative to that node's current).
 /// At 1e-8 the node voltages are within about `1e-8 n U_T / eta` (≈ 30 nV at eta = 0.01) of the
 /// exact solution, far below any mismatch or noise effect.
 pub const WTA_RELATIVE_TOLERANCE: f64 = 1e-8;
-
-/// The current that drains the common node V_C.
-#[derive(Clone, Copy, Debug, PartialEq, serde::Serialize, serde::Deserialize)]
-#[serde(rename_all = "snake_case")]
-pub enum WtaBias {
-    /// An ideal current sink of `current` amperes (needs V_C above ground to work).
-    Ideal { current: f64 },
-    /// An NMOS (drain V_C, source and bulk at ground) with its gate at `gate_voltage` volts.
-    Transistor {
-        device: Transistor,
-        gate_voltage: f64,
-    },
-}
 
 /// Nominal design of a current-mode WTA (every quantity SI).
 #[derive(Clone, Debug, PartialEq, serde::Serialize, serde::Deserialize)]
@@ -102,7 +87,7 @@ pub struct WtaDesign {
     /// Output transistor B_k (gate V_k, source V_C, drain at `output_voltage`).
     pub output: Transistor,
     /// Bias of the common node.
-    pub bias: WtaBias,
+    pub bias: CurrentSource,
     /// Supply V_dd, V: upper limit of every node (the input sources' compliance).
     pub supply: f64,
     /// Voltage at which the output drains are held (a current read-out), V.
@@ -125,7 +110,7 @@ impl WtaDesign {
         process: Process,
         sink: Transistor,
         output: Transistor,
-        bias: WtaBias,
+        bias: CurrentSource,
     ) -> WtaDesign {
         let vdd = process.vdd;
         WtaDesign {
@@ -156,7 +141,7 @@ impl WtaDesign {
         nonnegative(STAGE, "output_voltage", self.output_voltage)?;
         nonnegative(STAGE, "input_capacitance", self.input_capacitance)?;
         nonnegative(STAGE, "common_capacitance", self.common_capacitance)?;
-        SourceSpec::from(self.bias).validate(STAGE, &BIAS_KEYS)?;
+        self.bias.validate(STAGE, &BIAS_KEYS)?;
         if let Some(dc) = self.drain_coupling {
             let v = match dc {
                 DrainCoupling::Eta(x)
@@ -190,7 +175,7 @@ impl WtaDesign {
 
     /// Number of transistors per chip: N sinks, N outputs, and the bias transistor if any.
     pub fn transistor_count(&self) -> usize {
-        2 * self.n + usize::from(matches!(self.bias, WtaBias::Transistor { .. }))
+        2 * self.n + usize::from(self.bias.is_transistor())
     }
 }
 
@@ -250,7 +235,7 @@ impl WtaChip {
         design.validate()?;
         let sink = draw_n(design.n, &design.sink, &mut draw);
         let output = draw_n(design.n, &design.output, &mut draw);
-        let bias = SourceSpec::from(design.bias).draw(&mut draw);
+        let bias = design.bias.draw(&mut draw);
         WtaChip::from_mismatch(design, sink, output, bias)
     }
 
@@ -261,14 +246,14 @@ impl WtaChip {
         let devices = Devices::new(&d.process, d.drain_coupling, temperature);
         let sink = devices.each(&d.sink, &self.sink);
         let output = devices.each(&d.output, &self.output);
-        let bias = SourceSpec::from(d.bias).at(&devices, self.bias);
+        let bias = d.bias.at(&devices, self.bias);
         Ok(WtaCircuit {
             n: d.n,
             sink_fast: sink.iter().map(Mos::new).collect(),
             output_fast: output.iter().map(Mos::new).collect(),
             sink,
             output,
-            bias_fast: FastSource::of(&bias),
+            bias_fast: bias.fast(),
             bias,
             supply: d.supply,
             output_voltage: d.output_voltage,
@@ -282,25 +267,16 @@ impl WtaChip {
     }
 }
 
-/// The bias of an evaluated circuit.
-#[derive(Clone, Copy, Debug, PartialEq)]
-pub enum CircuitBias {
-    /// Ideal sink current, A.
-    Ideal(f64),
-    /// Bias NMOS (drain V_C, source ground) and its gate voltage.
-    Transistor { device: Ekv, gate_voltage: f64 },
-}
-
 /// A WTA chip at a temperature: one EKV device per transistor, ready to solve.
 #[derive(Clone, Debug, PartialEq)]
 pub struct WtaCircuit {
     n: usize,
     sink: Vec<Ekv>,
     output: Vec<Ekv>,
-    bias: CircuitBias,
+    bias: CurrentSource<Ekv>,
     sink_fast: Vec<Mos>,
     output_fast: Vec<Mos>,
-    bias_fast: FastSource,
+    bias_fast: CurrentSource<Mos>,
     /// Supply V_dd, V.
     pub supply: f64,
     /// Output drain voltage, V.
@@ -319,12 +295,6 @@ pub struct WtaCircuit {
     pub max_newton: usize,
 }
 
-/// Where the Newton phase ended.
-enum NewtonEnd {
-    Converged(usize, f64),
-    Gave(usize),
-}
-
 impl WtaCircuit {
     /// Sink transistor A_k.
     pub fn sink(&self, k: usize) -> Option<&Ekv> {
@@ -337,7 +307,7 @@ impl WtaCircuit {
     }
 
     /// The bias.
-    pub fn bias(&self) -> &CircuitBias {
+    pub fn bias(&self) -> &CurrentSource<Ekv> {
         &self.bias
     }
 
@@ -355,20 +325,7 @@ impl WtaCircuit {
     /// full relative precision when a sink's V_DS is a tiny fraction of U_T (where a plain
     /// difference of EKV F values cannot). Returns `None` on a length mismatch.
     pub fn kcl_residuals(&self, inputs: &[f64], voltages: &[f64], out: &mut [f64]) -> Option<()> {
-        let n = self.n;
-        if !node_lengths_ok(n, inputs, voltages, out) {
-            return None;
-        }
-        let (s, ib) = self.cell_currents(voltages, |k, ia| {
-            let scale = inputs[k].abs().max(ia.abs());
-            out[k] = if scale > 0.0 {
-                (inputs[k] - ia) / scale
-            } else {
-                0.0
-            };
-        });
-        out[n] = (s - ib) / ib.abs().max(f64::MIN_POSITIVE);
-        Some(())
+        kcl_residuals(self, inputs, voltages, out)
     }
 
     /// Net current (A) flowing into each node for node voltages `[V_0..V_{N-1}, V_C]`:
@@ -376,28 +333,7 @@ impl WtaCircuit {
     /// node capacitances it gives the right-hand side of the circuit's ODE,
     /// `C dV/dt = node current`. Returns `None` on a length mismatch.
     pub fn node_currents(&self, inputs: &[f64], voltages: &[f64], out: &mut [f64]) -> Option<()> {
-        let n = self.n;
-        if !node_lengths_ok(n, inputs, voltages, out) {
-            return None;
-        }
-        let (s, ib) = self.cell_currents(voltages, |k, ia| out[k] = inputs[k] - ia);
-        out[n] = s - ib;
-        Some(())
-    }
-
-    /// At node voltages `[V_0..V_{N-1}, V_C]` (N + 1 of them): passes each sink current
-    /// `I_A,k` to `cell(k, I_A,k)` and returns `(Σ I_B,k, I_bias)`.
-    #[inline]
-    fn cell_currents(&self, voltages: &[f64], mut cell: impl FnMut(usize, f64)) -> (f64, f64) {
-        let n = self.n;
-        let vc = voltages[n];
-        let mut s = 0.0;
-        for k in 0..n {
-            let vk = voltages[k];
-            cell(k, self.sink_fast[k].id(vc, vk, 0.0));
-            s += self.output_fast[k].id(vk, self.output_voltage, vc);
-        }
-        (s, self.bias_fast.eval(vc).0)
+        node_currents(self, inputs, voltages, out)
     }
 
     /// Starting V_C from the weak-inversion closed form (module docs), clamped to the supply.
@@ -499,288 +435,141 @@ impl WtaCircuit {
             0.5 * self.supply
         }
     }
-
-    fn newton(&self, inputs: &[f64], ws: &mut Workspace, out: &mut StageSolution) -> NewtonEnd {
-        let n = self.n;
-        let vout = self.output_voltage;
-        let vmax = self.supply;
-        let (mut vc, ln_ib) = self.closed_form_vc(inputs, &mut ws.e[..n]);
-        {
-            // Cells expected to carry a visible share of the bias start from their output
-            // transistor's law (the closed form makes V_C and these consistent with KCL at V_C);
-            // the others from their sink's law.
-            let ib = ln_ib.exp();
-            let (v, share) = (&mut ws.v[..n], &ws.e[..n]);
-            for k in 0..n {
-                let from_b = if inputs[k] > 0.0 && share[k] > 1e-3 {
-                    self.cell_guess_from_output(k, share[k] * ib, vc)
-                } else {
-                    f64::NAN
-                };
-                v[k] = if from_b.is_finite() && from_b > 0.0 {
-                    from_b.min(0.999 * vmax)
-                } else {
-                    self.cell_guess(k, inputs[k], vc)
-                };
-            }
-        }
-        let Workspace { a, b, c, d, v, .. } = ws;
-        let (a, b, c, d, v) = (
-            &mut a[..n],
-            &mut b[..n],
-            &mut c[..n],
-            &mut d[..n],
-            &mut v[..n],
-        );
-        for it in 1..=self.max_newton {
-            out.node_voltages[n] = vc;
-            let mut s_sum = 0.0;
-            let mut e_sum = 0.0;
-            let mut bca = 0.0;
-            let mut bqa = 0.0;
-            let mut res: f64 = 0.0;
-            for k in 0..n {
-                let i = inputs[k];
-                let vk = v[k];
-                let eb = self.output_fast[k].eval(vk, vout, vc);
-                out.outputs[k] = eb.id;
-                s_sum += eb.id;
-                e_sum += eb.d_vs;
-                if i <= 0.0 {
-                    a[k] = 0.0;
-                    continue;
-                }
-                let ea = self.sink_fast[k].eval(vc, vk, 0.0);
-                if !(ea.id > 0.0 && ea.d_vd > 0.0 && ea.id.is_finite()) {
-                    return NewtonEnd::Gave(it);
-                }
-                let rho = (ea.id / i).ln();
-                res = res.max(rho.abs());
-                let q = rho * ea.id;
-                a[k] = ea.d_vd;
-                b[k] = eb.d_vg;
-                c[k] = ea.d_vg;
-                d[k] = q;
-                bca += eb.d_vg * ea.d_vg / ea.d_vd;
-                bqa += eb.d_vg * q / ea.d_vd;
-            }
-            let (ib, p) = self.bias_fast.eval(vc);
-            if !(s_sum > 0.0 && ib > 0.0 && s_sum.is_finite()) {
-                return NewtonEnd::Gave(it);
-            }
-            let r = (s_sum / ib).ln();
-            res = res.max(r.abs());
-            // |ln(x)| <= tol implies |x - 1| <= tol (1 + tol): report the relative residual.
-            if res <= 0.5 * self.tolerance {
-                return NewtonEnd::Converged(it, res.exp_m1());
-            }
-            let den = e_sum / s_sum - p / ib - bca / s_sum;
-            let mut dvc = (-r + bqa / s_sum) / den;
-            if !dvc.is_finite() {
-                return NewtonEnd::Gave(it);
-            }
-            dvc = dvc.clamp(-0.1, 0.1);
-            for k in 0..n {
-                if a[k] == 0.0 {
-                    continue;
-                }
-                // Newton in y_k = ln V_k: the linear step is the same (the Jacobian's columns
-                // scale by V_k), only the update is multiplicative. ln I_A is close to linear in
-                // ln V_k in triode and convex in saturation, so Newton does not overshoot into
-                // negative voltages the way it does in V_k, where ln I_A is concave.
-                let vk = v[k];
-                let dy = (-(d[k] + c[k] * dvc) / (a[k] * vk)).clamp(-20.0, 2.0);
-                let mut nv = vk * dy.exp();
-                if nv >= vmax {
-                    nv = 0.5 * (vk + vmax);
-                }
-                v[k] = nv;
-            }
-            let mut nvc = vc + dvc;
-            if nvc < self.vc_min {
-                nvc = 0.5 * (vc + self.vc_min);
-            } else if nvc > self.supply {
-                nvc = 0.5 * (vc + self.supply);
-            }
-            vc = nvc;
-        }
-        NewtonEnd::Gave(self.max_newton)
-    }
-
-    /// Inner solve of cell k at a given V_C: V_k with I_A,k(V_C, V_k) = I_k on [0, V_dd].
-    /// Returns (V_k, clamped at the supply).
-    fn solve_cell(&self, k: usize, i: f64, vc: f64, start: f64) -> (f64, bool) {
-        if i <= 0.0 {
-            return (0.0, false);
-        }
-        let a = &self.sink_fast[k];
-        let vmax = self.supply;
-        let top = a.id(vc, vmax, 0.0);
-        if top < i {
-            return (vmax, true);
-        }
-        let f = |vk: f64| {
-            let e = a.eval(vc, vk, 0.0);
-            if e.id > 0.0 {
-                ((e.id / i).ln(), e.d_vd / e.id)
-            } else {
-                (f64::NEG_INFINITY, f64::INFINITY)
-            }
-        };
-        let tol = ScalarTolerance {
-            ftol: 1e-13,
-            xtol: 0.0,
-            max_iter: 300,
-        };
-        match solve_monotone(f, 0.0, vmax, start, true, tol) {
-            Ok(r) => (r.x, false),
-            Err(ScalarError::NotBracketed { below: false, .. }) => (vmax, true),
-            Err(ScalarError::NotBracketed { lo, .. }) => (lo, false),
-            Err(ScalarError::NoConvergence { x, .. }) => (x, false),
-        }
-    }
-
-    /// h(V_C) = ln Σ I_B - ln I_bias and its derivative, solving every cell at V_C.
-    fn outer(&self, inputs: &[f64], vc: f64, v: &mut [f64], clamped: &mut [f64]) -> (f64, f64) {
-        let vout = self.output_voltage;
-        let mut s = 0.0;
-        let mut ds = 0.0;
-        for k in 0..self.n {
-            let (vk, cl) = self.solve_cell(k, inputs[k], vc, v[k]);
-            v[k] = vk;
-            clamped[k] = if cl { 1.0 } else { 0.0 };
-            let eb = self.output_fast[k].eval(vk, vout, vc);
-            s += eb.id;
-            let dvk = if inputs[k] > 0.0 && !cl {
-                let ea = self.sink_fast[k].eval(vc, vk, 0.0);
-                -ea.d_vg / ea.d_vd
-            } else {
-                0.0
-            };
-            ds += eb.d_vs + eb.d_vg * if dvk.is_finite() { dvk } else { 0.0 };
-        }
-        let (ib, p) = self.bias_fast.eval(vc);
-        let h = s.ln() - ib.ln();
-        let dh = ds / s - p / ib;
-        (h, dh)
-    }
-
-    fn bracketing(
-        &self,
-        inputs: &[f64],
-        ws: &mut Workspace,
-        spent: usize,
-    ) -> Result<(f64, usize), CompetitionError> {
-        let n = self.n;
-        let (vc0, _) = self.closed_form_vc(inputs, &mut ws.d[..n]);
-        let Workspace { v, e, .. } = ws;
-        let (v, clamped) = (&mut v[..n], &mut e[..n]);
-        for k in 0..n {
-            v[k] = self.cell_guess(k, inputs[k], vc0);
-        }
-        let tol = ScalarTolerance {
-            ftol: 0.1 * self.tolerance,
-            xtol: 1e-15,
-            max_iter: 400,
-        };
-        let root = solve_monotone(
-            |vc| self.outer(inputs, vc, v, clamped),
-            self.vc_min,
-            self.supply,
-            vc0,
-            false,
-            tol,
-        );
-        let vc = match root {
-            Ok(r) => {
-                // Leave the cells solved at the root.
-                self.outer(inputs, r.x, v, clamped);
-                (r.x, spent + r.iterations)
-            }
-            Err(err) => {
-                return Err(common_node_failure(
-                    STAGE,
-                    err,
-                    self.bias_fast.key(&BIAS_KEYS),
-                    &COMMON_NODE_MESSAGES,
-                    spent,
-                    self.tolerance,
-                    inputs,
-                ))
-            }
-        };
-        if clamped.iter().any(|&c| c > 0.0) {
-            return Err(CompetitionError::Compliance {
-                stage: STAGE,
-                parameter: "inputs",
-                reason: "an input node would have to rise above the supply: its sink transistor \
-                         cannot carry the input current",
-                fix: "widen the sink transistors (W/L), lower the input currents, or raise the supply",
-                inputs: InputSummary::of(inputs),
-            });
-        }
-        Ok(vc)
-    }
-
-    /// Evaluate outputs and the relative residual at the voltages in `ws.v`, `vc`.
-    fn finish(&self, inputs: &[f64], vc: f64, ws: &Workspace, out: &mut StageSolution) -> f64 {
-        let n = self.n;
-        let mut res: f64 = 0.0;
-        let mut s = 0.0;
-        for k in 0..n {
-            let vk = ws.v[k];
-            let ib = self.output_fast[k].id(vk, self.output_voltage, vc);
-            out.outputs[k] = ib;
-            s += ib;
-            if inputs[k] > 0.0 {
-                let ia = self.sink_fast[k].id(vc, vk, 0.0);
-                res = res.max(((ia - inputs[k]) / inputs[k]).abs());
-            }
-        }
-        let (ibias, _) = self.bias_fast.eval(vc);
-        res.max(((s - ibias) / ibias).abs())
-    }
 }
 
-impl CompetitionStage for WtaCircuit {
-    fn n(&self) -> usize {
-        self.n
-    }
-
-    fn node_count(&self) -> usize {
-        self.n + 1
-    }
-
-    fn node_name(&self, i: usize) -> String {
-        node_name(i, self.n, "V_C", "V_")
-    }
-
-    fn stage_name(&self) -> &'static str {
+impl SharedNodeCircuit for WtaCircuit {
+    fn name(&self) -> &'static str {
         STAGE
     }
 
-    fn input_unit(&self) -> &'static str {
-        "A"
+    fn common_node_name(&self) -> &'static str {
+        "V_C"
     }
 
-    fn solve(
-        &self,
-        inputs: &[f64],
-        ws: &mut Workspace,
-        out: &mut StageSolution,
-    ) -> Result<(), CompetitionError> {
+    fn line_node_prefix(&self) -> &'static str {
+        "V_"
+    }
+
+    #[inline]
+    fn lines(&self) -> usize {
+        self.n
+    }
+
+    #[inline]
+    fn supply(&self) -> f64 {
+        self.supply
+    }
+
+    #[inline]
+    fn common_min(&self) -> f64 {
+        self.vc_min
+    }
+
+    #[inline]
+    fn tolerance(&self) -> f64 {
+        self.tolerance
+    }
+
+    #[inline]
+    fn strategy(&self) -> DcStrategy {
+        DcStrategy::Coupled {
+            max_newton: self.max_newton,
+        }
+    }
+
+    fn messages(&self) -> &'static CircuitMessages {
+        &MESSAGES
+    }
+
+    fn temperature(&self) -> f64 {
+        self.temperature
+    }
+
+    fn source(&self) -> &CurrentSource<Ekv> {
+        &self.bias
+    }
+
+    #[inline]
+    fn source_fast(&self) -> &CurrentSource<Mos> {
+        &self.bias_fast
+    }
+
+    /// Sink A_k: gate V_C, drain V_k, source ground.
+    #[inline]
+    fn load(&self, k: usize, v_line: f64, v_common: f64) -> Branch {
+        let e = self.sink_fast[k].eval(v_common, v_line, 0.0);
+        Branch {
+            current: e.id,
+            d_line: e.d_vd,
+            d_common: e.d_vg,
+        }
+    }
+
+    #[inline]
+    fn load_current(&self, k: usize, v_line: f64, v_common: f64) -> f64 {
+        self.sink_fast[k].id(v_common, v_line, 0.0)
+    }
+
+    /// Output B_k: gate V_k, drain at the output voltage, source V_C.
+    #[inline]
+    fn output(&self, k: usize, v_line: f64, v_common: f64) -> Branch {
+        let e = self.output_fast[k].eval(v_line, self.output_voltage, v_common);
+        Branch {
+            current: e.id,
+            d_line: e.d_vg,
+            d_common: e.d_vs,
+        }
+    }
+
+    #[inline]
+    fn output_current(&self, k: usize, v_line: f64, v_common: f64) -> f64 {
+        self.output_fast[k].id(v_line, self.output_voltage, v_common)
+    }
+
+    /// V_C from the weak-inversion closed form; cells expected to carry a visible share of the
+    /// bias start from their output transistor's law (the closed form makes V_C and these
+    /// consistent with KCL at V_C), the others from their sink's law.
+    #[inline]
+    fn closed_form_start(&self, inputs: &[f64], scratch: &mut [f64], lines: &mut [f64]) -> f64 {
         let n = self.n;
-        begin_solve(STAGE, n, inputs, self.input_unit(), ws, out)?;
-        let (vc, iterations, residual, method) = match self.newton(inputs, ws, out) {
-            NewtonEnd::Converged(it, res) => (out.node_voltages[n], it, res, SolveMethod::Newton),
-            NewtonEnd::Gave(spent) => {
-                let (vc, it) = self.bracketing(inputs, ws, spent)?;
-                let res = self.finish(inputs, vc, ws, out);
-                check_residual(STAGE, it, res, self.tolerance, inputs)?;
-                (vc, it, res, SolveMethod::Bracketing)
-            }
-        };
-        finish_solve(out, &ws.v[..n], vc, iterations, residual, method);
-        Ok(())
+        let vmax = self.supply;
+        let (vc, ln_ib) = self.closed_form_vc(inputs, &mut scratch[..n]);
+        let ib = ln_ib.exp();
+        let (v, share) = (&mut lines[..n], &scratch[..n]);
+        for k in 0..n {
+            let from_b = if inputs[k] > 0.0 && share[k] > 1e-3 {
+                self.cell_guess_from_output(k, share[k] * ib, vc)
+            } else {
+                f64::NAN
+            };
+            v[k] = if from_b.is_finite() && from_b > 0.0 {
+                from_b.min(0.999 * vmax)
+            } else {
+                self.cell_guess(k, inputs[k], vc)
+            };
+        }
+        vc
+    }
+
+    fn line_start(&self, k: usize, input: f64, v_common: f64) -> f64 {
+        self.cell_guess(k, input, v_common)
+    }
+
+    fn capacitances(&self) -> (f64, f64) {
+        (self.input_capacitance, self.common_capacitance)
+    }
+
+    fn kappa(&self) -> f64 {
+        self.sink.first().map(|d| 1.0 / d.n).unwrap_or(1.0)
+    }
+
+    #[inline]
+    fn load_noise_psd(&self, k: usize, v_line: f64, v_common: f64) -> f64 {
+        mos_shot_psd(&self.sink_fast[k], v_common, v_line, 0.0)
+    }
+
+    #[inline]
+    fn output_noise_psd(&self, k: usize, v_line: f64, v_common: f64) -> f64 {
+        mos_shot_psd(&self.output_fast[k], v_line, self.output_voltage, v_common)
     }
 }

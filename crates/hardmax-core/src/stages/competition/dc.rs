@@ -1,0 +1,387 @@
+//! The DC solver of every [`SharedNodeCircuit`] (module docs of [`super::circuit`] for the
+//! circuit shape).
+//!
+//! ## Coupled circuits ([`DcStrategy::Coupled`])
+//!
+//! Damped Newton on all N+1 node voltages with the KCL residuals taken in log form
+//! (`ln(I_L,k/I_k)` at line k, `ln(Σ I_O/I_bias)` at the common node, close to linear in the
+//! voltages for exponential devices). The Jacobian is an arrowhead (each V_k couples only to
+//! V_C), so each step eliminates the V_k and solves one scalar equation for V_C: O(N) per step,
+//! no allocation. The line updates are taken in `ln V_k` (the linear step is the same, the update
+//! multiplicative), which keeps the lines above ground. Steps of V_C are limited to 0.1 V and
+//! halved back inside `[common_min, supply]`. When Newton has not converged within its budget, a
+//! bracketing solve takes over: an outer monotone scalar solve on V_C
+//! (`h(V_C) = ln Σ I_O,k(V_k(V_C), V_C) - ln I_bias(V_C)`, decreasing) with an inner monotone
+//! 1-D solve of each V_k on `[0, V_dd]`. It converges whenever an operating point exists inside
+//! the supply, and otherwise says which parameter the supply cannot carry.
+//!
+//! ## Lines first ([`DcStrategy::LinesFirst`])
+//!
+//! Each line voltage from its input alone, then the common node by one monotone scalar solve of
+//! `ln Σ I_O,k(V_C) = ln I_bias(V_C)`, started from the circuit's closed form.
+//!
+//! Numerical core: no I/O, no printing.
+
+// Index loops run over parallel per-line arrays.
+#![allow(clippy::needless_range_loop)]
+
+use crate::solvers::{solve_monotone, ScalarError, ScalarTolerance};
+
+use super::circuit::{DcStrategy, SharedNodeCircuit};
+use super::common::{begin_solve, check_residual, common_node_failure, finish_solve};
+use super::{CompetitionError, InputSummary, SolveMethod, StageSolution, Workspace};
+
+/// Where the Newton phase ended.
+enum NewtonEnd {
+    Converged(usize, f64),
+    Gave(usize),
+}
+
+/// DC operating point of `c` for `inputs` (one per line) into `out`, using `ws` as scratch
+/// (no allocation once both have grown to the circuit's size).
+pub fn solve<C: SharedNodeCircuit + ?Sized>(
+    c: &C,
+    inputs: &[f64],
+    ws: &mut Workspace,
+    out: &mut StageSolution,
+) -> Result<(), CompetitionError> {
+    let n = c.lines();
+    begin_solve(c.name(), n, inputs, c.inputs_unit(), ws, out)?;
+    match c.strategy() {
+        DcStrategy::Coupled { max_newton } => {
+            let (vc, iterations, residual, method) = match newton(c, inputs, max_newton, ws, out) {
+                NewtonEnd::Converged(it, res) => {
+                    (out.node_voltages[n], it, res, SolveMethod::Newton)
+                }
+                NewtonEnd::Gave(spent) => {
+                    let (vc, it) = bracketing(c, inputs, ws, spent)?;
+                    let res = finish(c, inputs, vc, ws, out);
+                    check_residual(c.name(), it, res, c.tolerance(), inputs)?;
+                    (vc, it, res, SolveMethod::Bracketing)
+                }
+            };
+            finish_solve(out, &ws.line_voltage[..n], vc, iterations, residual, method);
+        }
+        DcStrategy::LinesFirst => lines_first(c, inputs, ws, out)?,
+    }
+    Ok(())
+}
+
+fn newton<C: SharedNodeCircuit + ?Sized>(
+    c: &C,
+    inputs: &[f64],
+    max_newton: usize,
+    ws: &mut Workspace,
+    out: &mut StageSolution,
+) -> NewtonEnd {
+    let n = c.lines();
+    let vmax = c.supply();
+    let vc_min = c.common_min();
+    let tolerance = c.tolerance();
+    let mut vc = c.closed_form_start(inputs, &mut ws.start_share[..n], &mut ws.line_voltage[..n]);
+    let source = c.source_fast();
+    let Workspace {
+        load_d_line,
+        load_d_common,
+        scaled_residual,
+        line_voltage,
+        ..
+    } = ws;
+    let (a, cc, q, v) = (
+        &mut load_d_line[..n],
+        &mut load_d_common[..n],
+        &mut scaled_residual[..n],
+        &mut line_voltage[..n],
+    );
+    for it in 1..=max_newton {
+        out.node_voltages[n] = vc;
+        let mut s_sum = 0.0;
+        let mut e_sum = 0.0;
+        let mut bca = 0.0;
+        let mut bqa = 0.0;
+        let mut res: f64 = 0.0;
+        for k in 0..n {
+            let i = inputs[k];
+            let vk = v[k];
+            let eb = c.output(k, vk, vc);
+            out.outputs[k] = eb.current;
+            s_sum += eb.current;
+            e_sum += eb.d_common;
+            if i <= 0.0 {
+                a[k] = 0.0;
+                continue;
+            }
+            let ea = c.load(k, vk, vc);
+            if !(ea.current > 0.0 && ea.d_line > 0.0 && ea.current.is_finite()) {
+                return NewtonEnd::Gave(it);
+            }
+            let rho = (ea.current / i).ln();
+            res = res.max(rho.abs());
+            let qk = rho * ea.current;
+            a[k] = ea.d_line;
+            cc[k] = ea.d_common;
+            q[k] = qk;
+            bca += eb.d_line * ea.d_common / ea.d_line;
+            bqa += eb.d_line * qk / ea.d_line;
+        }
+        let (ib, p) = source.eval(vc);
+        if !(s_sum > 0.0 && ib > 0.0 && s_sum.is_finite()) {
+            return NewtonEnd::Gave(it);
+        }
+        let r = (s_sum / ib).ln();
+        res = res.max(r.abs());
+        // |ln(x)| <= tol implies |x - 1| <= tol (1 + tol): report the relative residual.
+        if res <= 0.5 * tolerance {
+            return NewtonEnd::Converged(it, res.exp_m1());
+        }
+        let den = e_sum / s_sum - p / ib - bca / s_sum;
+        let mut dvc = (-r + bqa / s_sum) / den;
+        if !dvc.is_finite() {
+            return NewtonEnd::Gave(it);
+        }
+        dvc = dvc.clamp(-0.1, 0.1);
+        for k in 0..n {
+            if a[k] == 0.0 {
+                continue;
+            }
+            // Newton in y_k = ln V_k: the linear step is the same (the Jacobian's columns
+            // scale by V_k), only the update is multiplicative. ln I_L is close to linear in
+            // ln V_k in triode and convex in saturation, so Newton does not overshoot into
+            // negative voltages the way it does in V_k, where ln I_L is concave.
+            let vk = v[k];
+            let dy = (-(q[k] + cc[k] * dvc) / (a[k] * vk)).clamp(-20.0, 2.0);
+            let mut nv = vk * dy.exp();
+            if nv >= vmax {
+                nv = 0.5 * (vk + vmax);
+            }
+            v[k] = nv;
+        }
+        let mut nvc = vc + dvc;
+        if nvc < vc_min {
+            nvc = 0.5 * (vc + vc_min);
+        } else if nvc > vmax {
+            nvc = 0.5 * (vc + vmax);
+        }
+        vc = nvc;
+    }
+    NewtonEnd::Gave(max_newton)
+}
+
+/// Inner solve of line k at a given V_C: V_k with I_L,k(V_k, V_C) = I_k on [0, V_dd].
+/// Returns (V_k, clamped at the supply).
+fn solve_line<C: SharedNodeCircuit + ?Sized>(
+    c: &C,
+    k: usize,
+    i: f64,
+    vc: f64,
+    start: f64,
+) -> (f64, bool) {
+    if i <= 0.0 {
+        return (0.0, false);
+    }
+    let vmax = c.supply();
+    let top = c.load_current(k, vmax, vc);
+    if top < i {
+        return (vmax, true);
+    }
+    let f = |vk: f64| {
+        let e = c.load(k, vk, vc);
+        if e.current > 0.0 {
+            ((e.current / i).ln(), e.d_line / e.current)
+        } else {
+            (f64::NEG_INFINITY, f64::INFINITY)
+        }
+    };
+    let tol = ScalarTolerance {
+        ftol: 1e-13,
+        xtol: 0.0,
+        max_iter: 300,
+    };
+    match solve_monotone(f, 0.0, vmax, start, true, tol) {
+        Ok(r) => (r.x, false),
+        Err(ScalarError::NotBracketed { below: false, .. }) => (vmax, true),
+        Err(ScalarError::NotBracketed { lo, .. }) => (lo, false),
+        Err(ScalarError::NoConvergence { x, .. }) => (x, false),
+    }
+}
+
+/// h(V_C) = ln Σ I_O - ln I_bias and its derivative, solving every line at V_C.
+fn outer<C: SharedNodeCircuit + ?Sized>(
+    c: &C,
+    inputs: &[f64],
+    vc: f64,
+    v: &mut [f64],
+    clamped: &mut [bool],
+) -> (f64, f64) {
+    let mut s = 0.0;
+    let mut ds = 0.0;
+    for k in 0..c.lines() {
+        let (vk, cl) = solve_line(c, k, inputs[k], vc, v[k]);
+        v[k] = vk;
+        clamped[k] = cl;
+        let eb = c.output(k, vk, vc);
+        s += eb.current;
+        let dvk = if inputs[k] > 0.0 && !cl {
+            let ea = c.load(k, vk, vc);
+            -ea.d_common / ea.d_line
+        } else {
+            0.0
+        };
+        ds += eb.d_common + eb.d_line * if dvk.is_finite() { dvk } else { 0.0 };
+    }
+    let (ib, p) = c.source_fast().eval(vc);
+    let h = s.ln() - ib.ln();
+    let dh = ds / s - p / ib;
+    (h, dh)
+}
+
+fn bracketing<C: SharedNodeCircuit + ?Sized>(
+    c: &C,
+    inputs: &[f64],
+    ws: &mut Workspace,
+    spent: usize,
+) -> Result<(f64, usize), CompetitionError> {
+    let n = c.lines();
+    let vc0 = c.closed_form_start(inputs, &mut ws.start_share[..n], &mut ws.line_voltage[..n]);
+    let Workspace {
+        line_voltage,
+        clamped,
+        ..
+    } = ws;
+    let (v, clamped) = (&mut line_voltage[..n], &mut clamped[..n]);
+    for k in 0..n {
+        v[k] = c.line_start(k, inputs[k], vc0);
+    }
+    let tol = ScalarTolerance {
+        ftol: 0.1 * c.tolerance(),
+        xtol: 1e-15,
+        max_iter: 400,
+    };
+    let root = solve_monotone(
+        |vc| outer(c, inputs, vc, v, clamped),
+        c.common_min(),
+        c.supply(),
+        vc0,
+        false,
+        tol,
+    );
+    let msgs = c.messages();
+    let vc = match root {
+        Ok(r) => {
+            // Leave the lines solved at the root.
+            outer(c, inputs, r.x, v, clamped);
+            (r.x, spent + r.iterations)
+        }
+        Err(err) => {
+            return Err(common_node_failure(
+                c.name(),
+                err,
+                c.source_fast().key(&msgs.source_keys),
+                msgs,
+                spent,
+                c.tolerance(),
+                inputs,
+            ))
+        }
+    };
+    if clamped.iter().any(|&x| x) {
+        return Err(CompetitionError::Compliance {
+            stage: c.name(),
+            parameter: "inputs",
+            reason: msgs.line_reason,
+            fix: msgs.line_fix,
+            inputs: InputSummary::of(inputs),
+        });
+    }
+    Ok(vc)
+}
+
+/// Evaluate outputs and the relative residual at the line voltages in `ws` and `vc`.
+fn finish<C: SharedNodeCircuit + ?Sized>(
+    c: &C,
+    inputs: &[f64],
+    vc: f64,
+    ws: &Workspace,
+    out: &mut StageSolution,
+) -> f64 {
+    let mut res: f64 = 0.0;
+    let mut s = 0.0;
+    for k in 0..c.lines() {
+        let vk = ws.line_voltage[k];
+        let io = c.output_current(k, vk, vc);
+        out.outputs[k] = io;
+        s += io;
+        if inputs[k] > 0.0 {
+            let il = c.load_current(k, vk, vc);
+            res = res.max(((il - inputs[k]) / inputs[k]).abs());
+        }
+    }
+    let (ibias, _) = c.source_fast().eval(vc);
+    res.max(((s - ibias) / ibias).abs())
+}
+
+fn lines_first<C: SharedNodeCircuit + ?Sized>(
+    c: &C,
+    inputs: &[f64],
+    ws: &mut Workspace,
+    out: &mut StageSolution,
+) -> Result<(), CompetitionError> {
+    let n = c.lines();
+    let tolerance = c.tolerance();
+    for k in 0..n {
+        ws.line_voltage[k] = c.line_voltage(k, inputs[k], inputs)?;
+    }
+    let vs0 = c.closed_form_start(inputs, &mut ws.start_share[..n], &mut ws.line_voltage[..n]);
+    let lines = &ws.line_voltage[..n];
+    let source = c.source_fast();
+    let f = |vs: f64| {
+        let mut s = 0.0;
+        let mut ds = 0.0;
+        for (k, &vg) in lines.iter().enumerate() {
+            let e = c.output(k, vg, vs);
+            s += e.current;
+            ds += e.d_common;
+        }
+        let (it, dit) = source.eval(vs);
+        (s.ln() - it.ln(), ds / s - dit / it)
+    };
+    let tol = ScalarTolerance {
+        ftol: 0.5 * tolerance,
+        xtol: 1e-15,
+        max_iter: 300,
+    };
+    let root = solve_monotone(f, c.common_min(), c.supply(), vs0, false, tol);
+    let msgs = c.messages();
+    let (vs, iterations) = match root {
+        Ok(r) => (r.x, r.iterations),
+        Err(err) => {
+            return Err(common_node_failure(
+                c.name(),
+                err,
+                source.key(&msgs.source_keys),
+                msgs,
+                0,
+                tolerance,
+                inputs,
+            ))
+        }
+    };
+    let mut s = 0.0;
+    for k in 0..n {
+        let o = c.output_current(k, lines[k], vs);
+        out.outputs[k] = o;
+        s += o;
+    }
+    let it = source.eval(vs).0;
+    let residual = ((s - it) / it).abs();
+    check_residual(c.name(), iterations, residual, tolerance, inputs)?;
+    finish_solve(
+        out,
+        lines,
+        vs,
+        iterations,
+        residual,
+        SolveMethod::Bracketing,
+    );
+    Ok(())
+}
