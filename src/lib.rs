@@ -5,16 +5,18 @@
 //! a design -> chip (sampled instance) -> per-sample evaluation -> per-chip metrics ->
 //! population statistics -> files and reports.
 //!
-//! The numerical core (`physics`, `units`, `device`, `solvers`, `stages`, `pipeline`, `rng`,
+//! The numerical core (`physics`, `units`, `device`, `solvers`, `stages`, `pipeline`, `rng`, `netlist`, `calibration`,
 //! `data` parsing of in-memory text, `training`) does no I/O beyond reading a dataset file when
 //! asked and never prints. Files, progress and plots live in `io`, `experiment`, `report` and
 //! `cli`.
 
+pub mod calibration;
 pub mod cli;
 pub mod data;
 pub mod device;
 pub mod experiment;
 pub mod io;
+pub mod netlist;
 pub mod physics;
 pub mod pipeline;
 pub mod report;

@@ -2,5 +2,6 @@
 //! use this module; the numerical core never touches files.
 
 pub mod atomic;
+pub mod ivcsv;
 
 pub use atomic::{write_atomic, AtomicWriteError};
