@@ -212,6 +212,8 @@ fn start(points: &[IvPoint], opts: &FitOptions) -> Result<EkvParams, FitError> {
                         && q.w == p.w
                         && q.l == p.l
                         && q.vg != p.vg
+                        // One sweep runs one way: a step back starts another device's sweep.
+                        && (s.len() < 2 || (p.vg - q.vg).signum() == (s[1].vg - s[0].vg).signum())
                 }) =>
             {
                 s.push(*p)

@@ -424,7 +424,9 @@ pub fn build(
         ),
         DeviceForm::ModelCard { .. } => writeln!(
             w.s,
-            ".options reltol=1e-9 abstol=1e-21 vntol=1e-12 gmin=1e-21 itl1=5000"
+            // Tolerances of a transistor-level run (the tight ones above make BSIM3 decks of
+            // hundreds of instances crawl); 1 fA absolute against nA currents.
+            ".options reltol=1e-6 abstol=1e-15 vntol=1e-9 gmin=1e-18 itl1=500"
         ),
     }
     .unwrap();
