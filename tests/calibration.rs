@@ -316,3 +316,57 @@ fn wta_model_error(dir: &Path, fit: &serde_json::Value) {
 /// 0.0013 (max 0.0175); bounds are the measured values with a margin.
 const WTA_MIN_SAME_WINNER: usize = 196;
 const WTA_MAX_MEAN_SHARE_DIFF: f64 = 0.003;
+
+/// Bad I-V input through the command: a missing column and a gate sweep that turns back are
+/// refused with the file and line; a fit region holding no points is refused naming the region.
+#[test]
+fn bad_iv_files_are_refused() {
+    let tmp = tempfile::tempdir().unwrap();
+    let f = tmp.path().join("iv.csv");
+    let check = |text: &str, extra: &[&str], want: &[&str]| {
+        std::fs::write(&f, text).unwrap();
+        let out = hardmax()
+            .arg("fit-device")
+            .arg(&f)
+            .args(["--temperature", "300 K"])
+            .args(extra)
+            .output()
+            .unwrap();
+        assert!(!out.status.success());
+        let err = String::from_utf8_lossy(&out.stderr);
+        for w in want {
+            assert!(err.contains(w), "{err}");
+        }
+    };
+    check(
+        "vg,vd,w,l\n0.1,0.9,2e-6,1e-6\n",
+        &[],
+        &["iv.csv:1:", "`id`"],
+    );
+    check(
+        "vg,vd,id,w,l\n0.1,0.9,1e-9,2e-6,1e-6\n0.2,0.9,1e-8,2e-6,1e-6\n0.15,0.9,5e-9,2e-6,1e-6\n",
+        &[],
+        &["iv.csv:4:", "monotone"],
+    );
+    check(
+        "vg,vd,id,w,l\n0.1,0.9,-1e-9,2e-6,1e-6\n",
+        &[],
+        &["iv.csv:2:", "negative"],
+    );
+    // EKV-shaped weak-inversion data, but a region of strong inversion only.
+    let mut t = String::from("vg,vd,id,w,l\n");
+    for k in 0..30 {
+        let vg = 0.01 * k as f64;
+        writeln!(
+            t,
+            "{vg},0.9,{:e},2e-6,1e-6",
+            1e-12 * (vg / (1.3 * 0.02585)).exp()
+        )
+        .unwrap();
+    }
+    check(
+        &t,
+        &["--ic-min", "1000", "--ic-max", "10000"],
+        &["region IC = 1000 to 10000", "0 point(s)"],
+    );
+}

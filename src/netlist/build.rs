@@ -101,7 +101,7 @@ pub enum NetlistError {
 
 /// The EKV helper functions of the behavioural form: softplus in its overflow-free form,
 /// `F(x) = ln^2(1 + e^(x/2))` and the drain current with voltages bulk (ground) referred.
-const EKV_FUNCTIONS: &str = ".func spl(h) {max(h,0)+ln(1+exp(-abs(h)))}
+pub const EKV_FUNCTIONS: &str = ".func spl(h) {max(h,0)+ln(1+exp(-abs(h)))}
 .func ekvf(x) {spl(x/2)*spl(x/2)}
 .func ekv(vg,vd,vs,is,vt,n,eta,ut) {is*(ekvf(((vg-vt+eta*(vd-vs))/n-vs)/ut)-ekvf(((vg-vt+eta*(vd-vs))/n-vd)/ut))}
 ";
