@@ -7,14 +7,15 @@
 //!
 //! The workspace has three layers:
 //! - `hardmax-core` (re-exported here: `physics`, `units`, `device`, `solvers`, `stages`,
-//!   `pipeline`, `rng`, `data`, `training`): the numerical core; no I/O beyond reading a dataset
-//!   file when asked, never prints, no CLI/progress/plot dependency.
+//!   `pipeline`, `rng`, `data`, `training`, `netlist`, `calibration`): the numerical core; no I/O
+//!   beyond reading a dataset file when asked, never prints, no CLI/progress/plot dependency.
 //! - `hardmax-report` (re-exported: `io`, `report`, and `experiment::{results, stats}`): the
 //!   results-folder format, statistics, plots and the HTML report.
 //! - this crate: experiment files, the Monte Carlo runner and the command line.
 
 pub use hardmax_core::{
-    data, device, physics, pipeline, rng, solvers, stages, training, units, CAUTION,
+    calibration, data, device, netlist, physics, pipeline, rng, solvers, stages, training, units,
+    CAUTION,
 };
 pub use hardmax_report::{io, report};
 

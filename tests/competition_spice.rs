@@ -125,21 +125,9 @@ fn diffpair_chip<R: rand::Rng>(d: DiffPairDesign, rng: &mut R) -> DiffPairChip {
     .unwrap()
 }
 
-fn ekv_call(d: &Ekv, vg: &str, vd: &str, vs: &str) -> String {
-    format!(
-        "ekv({vg},{vd},{vs},{:e},{:e},{:e},{:e},{:e})",
-        d.specific_current(),
-        d.vt0,
-        d.n,
-        d.eta,
-        d.ut
-    )
-}
-
-const HEADER: &str = ".func spl(h) {max(h,0)+ln(1+exp(-abs(h)))}
-.func ekvf(x) {spl(x/2)*spl(x/2)}
-.func ekv(vg,vd,vs,is,vt,n,eta,ut) {is*(ekvf(((vg-vt+eta*(vd-vs))/n-vs)/ut)-ekvf(((vg-vt+eta*(vd-vs))/n-vd)/ut))}
-";
+// The behavioural EKV call and helper functions are the netlist exporter's own
+// (`hardmax::netlist`), so this check and `hardmax export-netlist` write the same equations.
+use hardmax::netlist::build::{ekv_call, EKV_FUNCTIONS as HEADER};
 
 fn bias_line(s: &mut String, name: &str, node: &str, b: &CurrentSource<Ekv>) {
     match *b {

@@ -6,6 +6,8 @@ use clap::{Parser, Subcommand};
 pub mod baseline;
 pub mod batch;
 pub mod merge;
+pub mod fit;
+pub mod netlist;
 pub mod progress;
 pub mod render;
 pub mod resolve;
@@ -42,6 +44,14 @@ pub enum Command {
     Render(render::RenderArgs),
     /// Train the float classifier on a dataset; print the linfa baseline and ideal-argmax accuracy.
     Baseline(baseline::BaselineArgs),
+    /// Write a SPICE netlist of a stage or of one sampled die, with hardmax's answers beside it.
+    ExportNetlist(Box<netlist::ExportArgs>),
+    /// Read a simulator's answers to an exported netlist (optionally run ngspice) and compare.
+    CompareNetlist(netlist::CompareArgs),
+    /// Fit NMOS EKV parameters to I-V sweeps (CSV); write a [process] block.
+    FitDevice(fit::FitArgs),
+    /// Fit the Pelgrom threshold constant A_VT to sweeps of many devices at several sizes.
+    FitPelgrom(fit::PelgromArgs),
 }
 
 /// Parse the command line and run the chosen subcommand.
@@ -56,5 +66,9 @@ pub fn main_entry() -> anyhow::Result<()> {
         Command::SlurmScript(a) => slurm::run(a),
         Command::Render(a) => render::run(a),
         Command::Baseline(a) => baseline::run(a),
+        Command::ExportNetlist(a) => netlist::export(*a),
+        Command::CompareNetlist(a) => netlist::compare_cmd(a),
+        Command::FitDevice(a) => fit::fit_device(a),
+        Command::FitPelgrom(a) => fit::fit_pelgrom_cmd(a),
     }
 }

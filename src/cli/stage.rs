@@ -33,8 +33,8 @@ use crate::stages::competition::transient::{
     simulate, InitialState, NoiseOptions, TransientOptions, TransientWorkspace,
 };
 use crate::stages::competition::{
-    CompetitionCircuit, CompetitionStage, CurrentSource, DecisionRule, DiffPairChip,
-    DiffPairDesign, DiffPairInput, StageSolution, Workspace, WtaChip, WtaDesign,
+    CompetitionChip, CompetitionCircuit, CompetitionStage, CurrentSource, DecisionRule,
+    DiffPairChip, DiffPairDesign, DiffPairInput, StageSolution, Workspace, WtaChip, WtaDesign,
 };
 use crate::units::{format_si, parse_quantity, quantity_from_toml, Dimension};
 
@@ -538,8 +538,8 @@ fn resolve(args: &StageArgs) -> anyhow::Result<Spec> {
     Ok(spec)
 }
 
-/// Build the process and the circuit; returns it with the process description lines.
-fn build(spec: &Spec) -> anyhow::Result<(CompetitionCircuit, crate::device::Process)> {
+/// Build the process and the nominal chip.
+fn build_chip(spec: &Spec) -> anyhow::Result<(CompetitionChip, crate::device::Process)> {
     let mut process = preset(&spec.preset).map_err(|e| anyhow!("--preset: {e}"))?;
     if let Some(v) = spec.vt0 {
         process.nmos.vt0 = v;
@@ -589,7 +589,7 @@ fn build(spec: &Spec) -> anyhow::Result<(CompetitionCircuit, crate::device::Proc
             d.drain_coupling = spec.coupling.map(|(_, c)| c);
             d.input_capacitance = spec.input_capacitance;
             d.common_capacitance = spec.common_capacitance;
-            CompetitionCircuit::Wta(WtaChip::nominal(d)?.at(spec.temperature)?)
+            CompetitionChip::Wta(WtaChip::nominal(d)?)
         }
         CircuitArg::DiffPair => {
             let mut d = DiffPairDesign::new(
@@ -603,10 +603,52 @@ fn build(spec: &Spec) -> anyhow::Result<(CompetitionCircuit, crate::device::Proc
             d.drain_coupling = spec.coupling.map(|(_, c)| c);
             d.input_capacitance = spec.input_capacitance;
             d.source_capacitance = spec.common_capacitance;
-            CompetitionCircuit::DiffPair(DiffPairChip::nominal(d)?.at(spec.temperature)?)
+            CompetitionChip::DiffPair(DiffPairChip::nominal(d)?)
         }
     };
     Ok((stage, process))
+}
+
+/// Build the process and the circuit at the stage's temperature.
+fn build(spec: &Spec) -> anyhow::Result<(CompetitionCircuit, crate::device::Process)> {
+    let (chip, process) = build_chip(spec)?;
+    Ok((chip.at(spec.temperature)?, process))
+}
+
+/// A stage file (with optional input lists overriding its `inputs`, one per sample) as a nominal
+/// chip: the chip, its temperature (K), the inputs of every sample, and the decision rule.
+pub(crate) fn stage_file_chip(
+    file: &Path,
+    inputs: &[String],
+) -> anyhow::Result<(CompetitionChip, f64, Vec<Vec<f64>>, DecisionRule)> {
+    #[derive(clap::Parser)]
+    struct Wrap {
+        #[command(flatten)]
+        a: StageArgs,
+    }
+    use clap::Parser as _;
+    let mut argv: Vec<std::ffi::OsString> = vec!["stage".into(), "--stage".into(), file.into()];
+    if let Some(first) = inputs.first() {
+        argv.push("--inputs".into());
+        argv.push(first.into());
+    }
+    let args = Wrap::try_parse_from(argv)?.a;
+    let spec = resolve(&args)?;
+    let mut samples = vec![spec.inputs.clone()];
+    for (k, t) in inputs.iter().enumerate().skip(1) {
+        let items: Vec<String> = t.split(',').map(|s| s.trim().to_string()).collect();
+        let x = parse_inputs(&format!("--inputs (sample {k})"), &items)?;
+        if x.len() != spec.inputs.len() {
+            bail!(
+                "--inputs (sample {k}) has {} values; the first sample has {}: every sample needs one per class line",
+                x.len(),
+                spec.inputs.len()
+            );
+        }
+        samples.push(x);
+    }
+    let (chip, _) = build_chip(&spec)?;
+    Ok((chip, spec.temperature, samples, spec.rule))
 }
 
 /// Every transistor of the stage with its role.

@@ -1,6 +1,7 @@
 //! hardmax-core: the numerical core of hardmax.
 //!
-//! Devices (EKV MOSFET, Pelgrom mismatch, noise), weight stages, competition stages (current-mode
+//! Devices (EKV MOSFET, Pelgrom mismatch, noise), their calibration from I-V data, SPICE netlist
+//! text of sampled dies, weight stages, competition stages (current-mode
 //! WTA, multi-input differential pair, their transient), solvers, chip sampling, datasets in
 //! memory, training, reproducible random streams and SI quantities.
 //!
@@ -8,8 +9,10 @@
 //! depends on no command-line, progress-bar or plotting crate (checked in CI). Everything that
 //! writes files, draws progress or plots lives in `hardmax-report` and the `hardmax` binary.
 
+pub mod calibration;
 pub mod data;
 pub mod device;
+pub mod netlist;
 pub mod physics;
 pub mod pipeline;
 pub mod rng;

@@ -22,7 +22,7 @@ use crate::stages::competition::transient::{
 };
 use crate::stages::competition::wta::{WtaChip, WtaDesign};
 use crate::stages::competition::{
-    CompetitionError, CompetitionStage, DecisionRule, StageSolution, Workspace,
+    CompetitionChip, CompetitionError, CompetitionStage, DecisionRule, StageSolution, Workspace,
 };
 use crate::stages::weights::{
     random_hidden_weights, ChainDesign, ChainScratch, Conditions, HiddenNonlinearity, MappedChain,
@@ -837,6 +837,27 @@ pub const COMPETITION_STREAM: u64 = 1000;
 /// Stream index of the hidden normaliser circuit's chip draws.
 pub const HIDDEN_CIRCUIT_STREAM: u64 = 1001;
 
+/// Sample the competition chip of a design from its chip stream (`None` for the exact argmax).
+pub fn sample_competition(
+    design: &CompetitionDesign,
+    process: &Process,
+    rng: &mut crate::rng::Stream,
+) -> Result<Option<CompetitionChip>, PipelineError> {
+    let tech = process.nmos.clone();
+    Ok(match design {
+        CompetitionDesign::Argmax => None,
+        CompetitionDesign::CurrentWta(w) => {
+            Some(CompetitionChip::Wta(WtaChip::sample((**w).clone(), |t| {
+                sample_mismatch(rng, &tech, t)
+            })?))
+        }
+        CompetitionDesign::DiffPair(w) => Some(CompetitionChip::DiffPair(DiffPairChip::sample(
+            (**w).clone(),
+            |t| sample_mismatch(rng, &tech, t),
+        )?)),
+    })
+}
+
 /// Sample and evaluate a competition circuit of a chip at its temperature.
 fn build_decider(
     design: &CompetitionDesign,
@@ -844,17 +865,79 @@ fn build_decider(
     temperature: f64,
     rng: &mut crate::rng::Stream,
 ) -> Result<Decider, PipelineError> {
-    let tech = process.nmos.clone();
-    Ok(match design {
-        CompetitionDesign::Argmax => Decider::Argmax,
-        CompetitionDesign::CurrentWta(w) => {
-            let c = WtaChip::sample((**w).clone(), |t| sample_mismatch(rng, &tech, t))?;
-            Decider::Wta(Box::new(c.at(temperature)?))
+    Ok(match sample_competition(design, process, rng)? {
+        None => Decider::Argmax,
+        Some(CompetitionChip::Wta(c)) => Decider::Wta(Box::new(c.at(temperature)?)),
+        Some(CompetitionChip::DiffPair(c)) => Decider::DiffPair(Box::new(c.at(temperature)?)),
+    })
+}
+
+/// One die of a sweep point rebuilt from (seed, point, chip) with the same streams as
+/// [`evaluate_chip`]: its competition chip, its temperature, and the competition stage's inputs
+/// (the weight stage's output currents) for chosen test samples, without per-decision noise
+/// (the die's static state only).
+#[derive(Debug, Clone)]
+pub struct DieSamples {
+    pub chip: CompetitionChip,
+    pub temperature: f64,
+    /// Test-sample indices, as asked.
+    pub test_indices: Vec<usize>,
+    /// Competition inputs per chosen sample, A.
+    pub inputs: Vec<Vec<f64>>,
+    /// True class and ideal-argmax class per chosen sample.
+    pub truth: Vec<usize>,
+    pub ideal: Vec<usize>,
+}
+
+/// Rebuild chip `chip` of sweep point `point` and compute its competition inputs for the test
+/// samples `indices` (see [`DieSamples`]).
+pub fn sample_die(
+    setup: &PointSetup,
+    prep: &Prepared,
+    seed: u64,
+    point: u64,
+    chip: u64,
+    indices: &[usize],
+) -> Result<DieSamples, PipelineError> {
+    let d = &setup.design;
+    if d.hidden_circuit.is_some() && prep.hidden.is_some() {
+        return Err(PipelineError::Unsupported {
+            what: "netlist export of a design whose hidden normaliser is evaluated as a circuit \
+                   is not supported; export a design without hidden.circuit",
+        });
+    }
+    let wchip = setup.mapped.sample_chip(&d.process, |k| {
+        stream(seed, &[domain::CHIP, point, chip, k as u64])
+    });
+    let mut chip_rng = stream(seed, &[domain::CHIP, point, chip, COMPETITION_STREAM]);
+    let eff = wchip.effective(&d.conditions)?;
+    let comp = sample_competition(&d.competition, &d.process, &mut chip_rng)?.ok_or(
+        PipelineError::Unsupported {
+            what: "the design's competition stage is the exact argmax (no circuit to export); \
+                   set competition.circuit to a circuit",
+        },
+    )?;
+    let n_test = prep.test_y.len();
+    let mut scratch: ChainScratch = eff.scratch();
+    let mut inputs = Vec::with_capacity(indices.len());
+    for &i in indices {
+        if i >= n_test {
+            return Err(PipelineError::Shape {
+                what: format!("test sample {i} does not exist (the test split has {n_test})"),
+            });
         }
-        CompetitionDesign::DiffPair(w) => {
-            let c = DiffPairChip::sample((**w).clone(), |t| sample_mismatch(rng, &tech, t))?;
-            Decider::DiffPair(Box::new(c.at(temperature)?))
-        }
+        let x: Vec<f64> = prep.test_u.row(i).to_vec();
+        let mut currents = vec![0.0; eff.outputs()];
+        eff.forward_noiseless(&x, &mut scratch, &mut currents)?;
+        inputs.push(currents);
+    }
+    Ok(DieSamples {
+        chip: comp,
+        temperature: d.conditions.temperature_k,
+        test_indices: indices.to_vec(),
+        inputs,
+        truth: indices.iter().map(|&i| prep.test_y[i]).collect(),
+        ideal: indices.iter().map(|&i| prep.ideal_pred[i]).collect(),
     })
 }
 

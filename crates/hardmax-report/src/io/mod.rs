@@ -2,5 +2,6 @@
 //! use this module; the numerical core never touches files.
 
 pub mod atomic;
+pub mod ivcsv;
 
 pub use atomic::{is_temp_name, remove_stale_temps, write_atomic, AtomicWriteError};

@@ -366,6 +366,33 @@ pub(crate) fn positive(
     }
 }
 
+/// One sampled competition stage of either kind (design plus every transistor's mismatch), for
+/// code that picks the stage at run time and needs the chip itself, not only its evaluation
+/// (e.g. netlist export).
+#[derive(Clone, Debug, PartialEq)]
+pub enum CompetitionChip {
+    Wta(WtaChip),
+    DiffPair(DiffPairChip),
+}
+
+impl CompetitionChip {
+    /// Number of class lines.
+    pub fn n(&self) -> usize {
+        match self {
+            CompetitionChip::Wta(c) => c.design.n,
+            CompetitionChip::DiffPair(c) => c.design.n,
+        }
+    }
+
+    /// The chip at a temperature (K), ready to solve.
+    pub fn at(&self, temperature: f64) -> Result<CompetitionCircuit, CompetitionError> {
+        Ok(match self {
+            CompetitionChip::Wta(c) => CompetitionCircuit::Wta(c.at(temperature)?),
+            CompetitionChip::DiffPair(c) => CompetitionCircuit::DiffPair(c.at(temperature)?),
+        })
+    }
+}
+
 /// Any competition stage evaluated at its conditions (for code that picks the stage at run
 /// time, e.g. from an experiment file).
 #[derive(Clone, Debug, PartialEq)]
