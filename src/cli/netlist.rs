@@ -184,8 +184,14 @@ pub fn export(args: ExportArgs) -> anyhow::Result<()> {
             if let Ok(h) = std::fs::read_to_string(dir.join("experiment.hash")) {
                 // The identity covers the input files' contents too: a changed dataset is
                 // refused here as well.
-                let now = experiment_hash(&resolved).with_context(|| {
-                    format!("checking the inputs of the results folder `{}`", dir.display())
+                // Relative input paths are taken from --data-dir, as for the run itself.
+                let mut at_data_dir = resolved.clone();
+                at_data_dir.file = args.data_dir.join("experiment.toml");
+                let now = experiment_hash(&at_data_dir).with_context(|| {
+                    format!(
+                        "checking the inputs of the results folder `{}`",
+                        dir.display()
+                    )
                 })?;
                 if h.trim() != now {
                     bail!(
