@@ -5,6 +5,7 @@ use clap::{Parser, Subcommand};
 
 pub mod baseline;
 pub mod batch;
+pub mod budget;
 pub mod progress;
 pub mod render;
 pub mod resolve;
@@ -34,6 +35,8 @@ pub enum Command {
     Stage(Box<stage::StageArgs>),
     /// Re-render plots and the HTML report of an existing results folder from its CSV files.
     Render(render::RenderArgs),
+    /// Error budget of one design point: what each nonideality costs, on the same dies.
+    Budget(budget::BudgetArgs),
     /// Train the float classifier on a dataset; print the linfa baseline and ideal-argmax accuracy.
     Baseline(baseline::BaselineArgs),
 }
@@ -48,5 +51,6 @@ pub fn main_entry() -> anyhow::Result<()> {
         Command::Stage(a) => stage::run(*a),
         Command::Render(a) => render::run(a),
         Command::Baseline(a) => baseline::run(a),
+        Command::Budget(a) => budget::run(a),
     }
 }

@@ -9,7 +9,11 @@
 //!
 //! So a chip's outcome depends only on (seed, point, chip), never on thread scheduling.
 
+pub mod budget;
+
 use ndarray::{Array1, Array2, Axis};
+
+pub use budget::ChipToggles;
 
 use crate::data::{stratified_split, Dataset, MinMaxScaler};
 use crate::device::mismatch::sample_mismatch;
@@ -466,22 +470,50 @@ pub const COMPETITION_STREAM: u64 = 1000;
 /// Stream index of the hidden normaliser circuit's chip draws.
 pub const HIDDEN_CIRCUIT_STREAM: u64 = 1001;
 
-/// Sample and evaluate a competition circuit of a chip at its temperature.
+/// Sample and evaluate a competition circuit of a chip at its temperature. Its Pelgrom draws
+/// are multiplied by `mismatch` (the draws are made whatever the scale); `infinite_gain` gives
+/// the current-mode WTA's infinite-gain limit (see [`budget`]).
 fn build_decider(
     design: &CompetitionDesign,
     process: &Process,
     temperature: f64,
     rng: &mut crate::rng::Stream,
+    mismatch: f64,
+    infinite_gain: bool,
 ) -> Result<Decider, PipelineError> {
     let tech = process.nmos.clone();
+    let mut draw = |t: &crate::device::Transistor| {
+        let m = sample_mismatch(rng, &tech, t);
+        crate::device::MosMismatch {
+            dvt0: mismatch * m.dvt0,
+            dbeta_rel: mismatch * m.dbeta_rel,
+        }
+    };
     Ok(match design {
         CompetitionDesign::Argmax => Decider::Argmax,
         CompetitionDesign::CurrentWta(w) => {
-            let c = WtaChip::sample((**w).clone(), |t| sample_mismatch(rng, &tech, t))?;
-            Decider::Wta(Box::new(c.at(temperature)?))
+            let c = WtaChip::sample((**w).clone(), &mut draw)?;
+            if infinite_gain {
+                // Input-referred factor of each cell's sink transistor (module `budget` docs).
+                let ut = crate::physics::thermal_voltage(temperature);
+                let kappa = 1.0 / process.nmos.n;
+                Decider::Limit(
+                    c.sink
+                        .iter()
+                        .map(|m| (kappa * m.dvt0 / ut).exp() / (1.0 + m.dbeta_rel).max(1e-300))
+                        .collect(),
+                )
+            } else {
+                Decider::Wta(Box::new(c.at(temperature)?))
+            }
         }
         CompetitionDesign::DiffPair(w) => {
-            let c = DiffPairChip::sample((**w).clone(), |t| sample_mismatch(rng, &tech, t))?;
+            if infinite_gain {
+                return Err(PipelineError::Unsupported {
+                    what: "the differential pair's infinite-gain limit is not modelled",
+                });
+            }
+            let c = DiffPairChip::sample((**w).clone(), &mut draw)?;
             Decider::DiffPair(Box::new(c.at(temperature)?))
         }
     })
@@ -491,6 +523,8 @@ enum Decider {
     Wta(Box<crate::stages::competition::wta::WtaCircuit>),
     DiffPair(Box<crate::stages::competition::diffpair::DiffPairCircuit>),
     Argmax,
+    /// Infinite-gain limit: argmax of the inputs times these input-referred factors.
+    Limit(Vec<f64>),
 }
 
 /// Evaluate chip `chip` of sweep point `point` over the whole test split.
@@ -501,23 +535,63 @@ pub fn evaluate_chip(
     point: u64,
     chip: u64,
 ) -> ChipOutcome {
+    evaluate_chip_with(setup, prep, seed, point, chip, &ChipToggles::default())
+}
+
+/// [`evaluate_chip`] with some nonidealities scaled (by zero, for an error budget) or the
+/// competition stage at its infinite-gain limit. The draws are the same whatever `toggles`.
+pub fn evaluate_chip_with(
+    setup: &PointSetup,
+    prep: &Prepared,
+    seed: u64,
+    point: u64,
+    chip: u64,
+    toggles: &ChipToggles,
+) -> ChipOutcome {
     let n_classes = prep.class_names.len();
     let mut out = ChipOutcome::empty(chip, n_classes);
     let d = &setup.design;
     // Weight stage k draws from [CHIP, point, chip, k]; the competition stage from
     // [CHIP, point, chip, COMPETITION_STREAM].
-    let wchip = setup.mapped.sample_chip(&d.process, |k| {
+    let weight_process = if toggles.weight_mismatch == 1.0 {
+        std::borrow::Cow::Borrowed(&d.process)
+    } else {
+        let mut p = d.process.clone();
+        for tech in [&mut p.nmos, &mut p.pmos] {
+            tech.a_vt_pair *= toggles.weight_mismatch;
+            tech.a_beta_pair *= toggles.weight_mismatch;
+        }
+        std::borrow::Cow::Owned(p)
+    };
+    let wchip = setup.mapped.sample_chip(&weight_process, |k| {
         stream(seed, &[domain::CHIP, point, chip, k as u64])
     });
     let mut chip_rng = stream(seed, &[domain::CHIP, point, chip, COMPETITION_STREAM]);
     let built = (|| -> Result<_, PipelineError> {
-        let eff = wchip.effective(&d.conditions)?;
+        let mut eff = wchip.effective(&d.conditions)?;
+        if toggles.read_noise != 1.0 {
+            eff.scale_read_noise(toggles.read_noise);
+        }
         let t = d.conditions.temperature_k;
-        let decider = build_decider(&d.competition, &d.process, t, &mut chip_rng)?;
+        let decider = build_decider(
+            &d.competition,
+            &d.process,
+            t,
+            &mut chip_rng,
+            toggles.competition_mismatch,
+            toggles.infinite_gain,
+        )?;
         let hidden = match &d.hidden_circuit {
             Some(h) if eff.stages().len() == 2 => {
                 let mut r = stream(seed, &[domain::CHIP, point, chip, HIDDEN_CIRCUIT_STREAM]);
-                Some(build_decider(h, &d.process, t, &mut r)?)
+                Some(build_decider(
+                    h,
+                    &d.process,
+                    t,
+                    &mut r,
+                    toggles.hidden_mismatch,
+                    false,
+                )?)
             }
             _ => None,
         };
@@ -567,7 +641,7 @@ pub fn evaluate_chip(
                     first.forward_noiseless(x, &mut hbuf)
                 };
                 let hs = match h {
-                    Decider::Argmax => None,
+                    Decider::Argmax | Decider::Limit(_) => None,
                     Decider::Wta(c) => Some(c.solve(&hbuf, &mut ws, &mut hsol)),
                     Decider::DiffPair(c) => Some(c.solve(&hbuf, &mut ws, &mut hsol)),
                 };
@@ -600,7 +674,10 @@ pub fn evaluate_chip(
         }
         let inputs: &[f64] = match &d.input_noise {
             Some(n) => {
-                if n.apply(&currents, &mut noisy, &mut noise_rng).is_err() {
+                if n
+                    .apply_scaled(&currents, &mut noisy, &mut noise_rng, toggles.shot_noise)
+                    .is_err()
+                {
                     out.nonconverged += 1;
                     out.confusion[truth][n_classes + 1] += 1;
                     continue;
@@ -611,6 +688,20 @@ pub fn evaluate_chip(
         };
         let decided = match &decider {
             Decider::Argmax => crate::training::argmax(inputs).map(|w| (w, false)),
+            Decider::Limit(f) => {
+                let mut best: Option<(usize, f64)> = None;
+                for (k, (&i, &g)) in inputs.iter().zip(f).enumerate() {
+                    let v = i * g;
+                    if v.is_nan() {
+                        best = None;
+                        break;
+                    }
+                    if best.is_none_or(|(_, b)| v > b) {
+                        best = Some((k, v));
+                    }
+                }
+                best.map(|(w, _)| (w, false))
+            }
             Decider::Wta(c) => match &d.transient {
                 None => solve_decide(
                     c.as_ref(),
