@@ -128,12 +128,71 @@ pub fn run_budget(resolved: &Resolved, opts: &BudgetOptions) -> Result<Budget, B
         .unwrap_or_default();
     let prep: Prepared = prepare_data(e, &base_dir).map_err(|m| build_err(m.to_string()))?;
     let nominal = design(e, prep.class_names.len()).map_err(|m| build_err(m.to_string()))?;
+    let settings = resolved
+        .points
+        .get(opts.point)
+        .map(|p| resolved.describe_point(p))
+        .unwrap_or_default();
+    let spec = BudgetSpec {
+        experiment: e.name.clone(),
+        settings,
+        point: opts.point,
+        chips,
+        seed: e.population.seed,
+        target_accuracy: e.target.accuracy,
+        confidence: e.target.confidence,
+        threads: opts.threads,
+        command: opts.command.clone(),
+    };
+    let mut b = budget_of(&nominal, &prep, &spec).map_err(|err| match err {
+        BudgetError::NothingActive { .. } => BudgetError::NothingActive {
+            file: file.clone(),
+            point: opts.point,
+        },
+        BudgetError::Build { message, .. } => build_err(message),
+        other => other,
+    })?;
+    b.elapsed_s = t0.elapsed().as_secs_f64();
+    Ok(b)
+}
+
+/// What a budget needs beside the design and the prepared classifier.
+#[derive(Clone, Debug)]
+pub struct BudgetSpec {
+    pub experiment: String,
+    pub settings: String,
+    /// Sweep point index: the chip streams' point index, the same for every variant.
+    pub point: usize,
+    pub chips: u64,
+    pub seed: u64,
+    pub target_accuracy: f64,
+    pub confidence: f64,
+    pub threads: Option<usize>,
+    pub command: String,
+}
+
+/// The budget of `nominal` (the design of one point) over `spec.chips` paired dies.
+pub fn budget_of(
+    nominal: &crate::pipeline::ClassifierDesign,
+    prep: &Prepared,
+    spec: &BudgetSpec,
+) -> Result<Budget, BudgetError> {
+    let t0 = std::time::Instant::now();
+    let build_err = |m: String| BudgetError::Build {
+        file: spec.experiment.clone(),
+        point: spec.point,
+        message: m,
+    };
+    let chips = spec.chips;
+    if chips < 2 {
+        return Err(BudgetError::TooFewChips(chips));
+    }
     let layers = prep.layers.len();
-    let active = active_nonidealities(&nominal, layers).map_err(|m| build_err(m.to_string()))?;
+    let active = active_nonidealities(nominal, layers).map_err(|m| build_err(m.to_string()))?;
     if active.is_empty() {
         return Err(BudgetError::NothingActive {
-            file,
-            point: opts.point,
+            file: spec.experiment.clone(),
+            point: spec.point,
         });
     }
 
@@ -169,8 +228,8 @@ pub fn run_budget(resolved: &Resolved, opts: &BudgetOptions) -> Result<Budget, B
     let setups: Vec<(PointSetup, ChipToggles)> = variants
         .iter()
         .map(|v| {
-            let (d, t) = variant(&nominal, |n| v.on.contains(&n));
-            PointSetup::new(d, &prep)
+            let (d, t) = variant(nominal, |n| v.on.contains(&n));
+            PointSetup::new(d, prep)
                 .map(|s| (s, t))
                 .map_err(|m: PipelineError| build_err(BuildError::from(m).to_string()))
         })
@@ -178,16 +237,16 @@ pub fn run_budget(resolved: &Resolved, opts: &BudgetOptions) -> Result<Budget, B
 
     let pool = {
         let mut b = rayon::ThreadPoolBuilder::new();
-        if let Some(t) = opts.threads {
+        if let Some(t) = spec.threads {
             b = b.num_threads(t.max(1));
         }
         b.build().map_err(|e| BudgetError::Threads {
-            threads: opts.threads.unwrap_or(0),
+            threads: spec.threads.unwrap_or(0),
             message: e.to_string(),
         })?
     };
-    let seed = e.population.seed;
-    let point = opts.point as u64;
+    let seed = spec.seed;
+    let point = spec.point as u64;
     // per_die[die][variant]; each die evaluates every variant (same draws in each).
     let per_die: Vec<Vec<f64>> = pool.install(|| {
         (0..chips)
@@ -195,7 +254,7 @@ pub fn run_budget(resolved: &Resolved, opts: &BudgetOptions) -> Result<Budget, B
             .map(|c| {
                 setups
                     .iter()
-                    .map(|(s, t)| evaluate_chip_with(s, &prep, seed, point, c, t).accuracy())
+                    .map(|(s, t)| evaluate_chip_with(s, prep, seed, point, c, t).accuracy())
                     .collect()
             })
             .collect()
@@ -205,8 +264,8 @@ pub fn run_budget(resolved: &Resolved, opts: &BudgetOptions) -> Result<Budget, B
         .map(|v| per_die.iter().map(|d| d[v]).collect())
         .collect();
 
-    let target = e.target.accuracy;
-    let conf = e.target.confidence;
+    let target = spec.target_accuracy;
+    let conf = spec.confidence;
     let z = normal_quantile(conf);
     let exact = prep.ideal_acc;
     let n = chips as usize;
@@ -357,21 +416,16 @@ pub fn run_budget(resolved: &Resolved, opts: &BudgetOptions) -> Result<Budget, B
         loo_yield_gain: None,
     });
 
-    let settings = resolved
-        .points
-        .get(opts.point)
-        .map(|p| resolved.describe_point(p))
-        .unwrap_or_default();
     let table = BudgetTable {
-        experiment: e.name.clone(),
-        point: opts.point,
-        settings,
+        experiment: spec.experiment.clone(),
+        point: spec.point,
+        settings: spec.settings.clone(),
         dies: n,
         samples: prep.test_y.len(),
         target_accuracy: target,
         confidence: conf,
         seed,
-        command: opts.command.clone(),
+        command: spec.command.clone(),
         items,
     };
     Ok(Budget {
