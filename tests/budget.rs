@@ -222,3 +222,45 @@ fn point_out_of_range_names_the_option() {
     let e = String::from_utf8_lossy(&o.stderr);
     assert!(e.contains("--point 3") && e.contains("1 sweep point"), "{e}");
 }
+
+/// Draw order: switching read noise off must not shift the shot-noise draws that follow it in
+/// the same per-decision stream. The budget's "shot noise alone" variant must equal the design
+/// whose read noise is present but negligible (1e-300 relative: drawn, adds nothing); the same
+/// design without read noise at all (nothing drawn) gives different decisions, which shows the
+/// check can fail (invariant 3 of DEVELOPERS.md; no outside source needed for bit equality).
+#[test]
+fn switched_off_noise_keeps_the_draws_of_later_noise() {
+    use hardmax::pipeline::budget::{variant, Nonideality};
+    use hardmax::pipeline::{evaluate_chip, evaluate_chip_with, PointSetup};
+    use hardmax::stages::competition::noise::{InputShotNoise, NoiseBandwidth};
+    use hardmax::stages::weights::{ErrorSpec, SigmaKind};
+    let prep = invented_two_class(300);
+    let with_read = |sigma: f64| {
+        let mut d = offset_only_design(1e-9, 0.0);
+        if let ElementDesign::Linear(e) = &mut d.weights.element {
+            e.read_noise = ErrorSpec {
+                sigma,
+                kind: SigmaKind::Relative,
+            };
+        }
+        d.input_noise = Some(InputShotNoise {
+            bandwidth: NoiseBandwidth::Fixed(1e9),
+            temperature: 300.0,
+        });
+        d
+    };
+    let design = with_read(0.3);
+    let (vd, vt) = variant(&design, |n| n == Nonideality::ShotNoise);
+    let shot_only = PointSetup::new(vd, &prep).unwrap();
+    let tiny = PointSetup::new(with_read(1e-300), &prep).unwrap();
+    let none = PointSetup::new(with_read(0.0), &prep).unwrap();
+    let mut differs = false;
+    for chip in 0..4 {
+        let a = evaluate_chip_with(&shot_only, &prep, 3, 0, chip, &vt);
+        let b = evaluate_chip(&tiny, &prep, 3, 0, chip);
+        assert_eq!(a.correct, b.correct, "chip {chip}");
+        assert_eq!(a.confusion, b.confusion, "chip {chip}");
+        differs |= evaluate_chip(&none, &prep, 3, 0, chip).confusion != a.confusion;
+    }
+    assert!(differs, "the control should draw differently");
+}
