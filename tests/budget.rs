@@ -124,10 +124,16 @@ fn input_referred_offset_cost_matches_the_normal_cdf() {
     let sd = 2f64.sqrt() * i_off * sigma * RANGE / (1e-9 * dw);
     let phi = StatNormal::standard();
     let closed = phi.cdf(MU / S) - phi.cdf(MU / (S * S + sd * sd).sqrt());
-    assert!(closed > 0.01, "the check needs a visible cost, got {closed}");
+    assert!(
+        closed > 0.01,
+        "the check needs a visible cost, got {closed}"
+    );
 
     let b = budget_of(&design, &prep, &spec(300)).unwrap();
-    assert_eq!(b.active, vec![hardmax::pipeline::budget::Nonideality::WeightMismatch]);
+    assert_eq!(
+        b.active,
+        vec![hardmax::pipeline::budget::Nonideality::WeightMismatch]
+    );
     let item = b
         .table
         .items
@@ -145,7 +151,12 @@ fn input_referred_offset_cost_matches_the_normal_cdf() {
         ci.hi
     );
     // The quantised ideal equals the exact ideal here (continuous element, ideal DAC).
-    let q = b.table.items.iter().find(|i| i.key == "quantisation").unwrap();
+    let q = b
+        .table
+        .items
+        .iter()
+        .find(|i| i.key == "quantisation")
+        .unwrap();
     assert!(q.acc_cost.unwrap().estimate.abs() < 1e-12);
 }
 
@@ -156,7 +167,10 @@ fn nothing_to_budget_is_an_error_naming_the_keys() {
     let e = budget_of(&offset_only_design(1e-9, 0.0), &prep, &spec(10)).unwrap_err();
     assert!(matches!(e, BudgetError::NothingActive { .. }));
     let m = e.to_string();
-    assert!(m.contains("weights.programming_error") && m.contains("no nonideality"), "{m}");
+    assert!(
+        m.contains("weights.programming_error") && m.contains("no nonideality"),
+        "{m}"
+    );
 }
 
 fn hardmax() -> Command {
@@ -178,7 +192,10 @@ fn budget_command_on_digits_writes_its_files() {
         .unwrap();
     assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
     let stdout = String::from_utf8_lossy(&o.stdout);
-    assert!(stdout.contains("Spend on") || stdout.contains("No single"), "{stdout}");
+    assert!(
+        stdout.contains("Spend on") || stdout.contains("No single"),
+        "{stdout}"
+    );
     assert!(stdout.contains(hardmax::CAUTION));
     for f in ["budget.csv", "budget-dies.csv", "budget.svg", "budget.html"] {
         assert!(out.join(f).is_file(), "{f} missing");
@@ -194,9 +211,18 @@ fn budget_command_on_digits_writes_its_files() {
     let all = rows.iter().find(|r| &r[col("kind")] == "all_on").unwrap();
     let total = f(all, "accuracy_cost");
     let total_hi = f(all, "accuracy_cost_hi");
-    let singles: Vec<_> = rows.iter().filter(|r| &r[col("kind")] == "single").collect();
-    assert!(singles.len() >= 6, "digits-budget switches on eight nonidealities");
-    let mut ranks: Vec<usize> = singles.iter().map(|r| r[col("rank")].parse().unwrap()).collect();
+    let singles: Vec<_> = rows
+        .iter()
+        .filter(|r| &r[col("kind")] == "single")
+        .collect();
+    assert!(
+        singles.len() >= 6,
+        "digits-budget switches on eight nonidealities"
+    );
+    let mut ranks: Vec<usize> = singles
+        .iter()
+        .map(|r| r[col("rank")].parse().unwrap())
+        .collect();
     ranks.sort_unstable();
     assert_eq!(ranks, (1..=singles.len()).collect::<Vec<_>>());
     for s in &singles {
@@ -215,12 +241,22 @@ fn budget_command_on_digits_writes_its_files() {
 fn point_out_of_range_names_the_option() {
     let exp = Path::new(env!("CARGO_MANIFEST_DIR")).join("experiments/digits-budget.toml");
     let o = hardmax()
-        .args(["budget", exp.to_str().unwrap(), "--point", "3", "--chips", "4"])
+        .args([
+            "budget",
+            exp.to_str().unwrap(),
+            "--point",
+            "3",
+            "--chips",
+            "4",
+        ])
         .output()
         .unwrap();
     assert!(!o.status.success());
     let e = String::from_utf8_lossy(&o.stderr);
-    assert!(e.contains("--point 3") && e.contains("1 sweep point"), "{e}");
+    assert!(
+        e.contains("--point 3") && e.contains("1 sweep point"),
+        "{e}"
+    );
 }
 
 /// Draw order: switching read noise off must not shift the shot-noise draws that follow it in

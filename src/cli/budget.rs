@@ -64,7 +64,10 @@ pub fn run(args: BudgetArgs) -> anyhow::Result<()> {
     }
     if !args.quiet {
         print!("{}", stdout_table(&b.table));
-        println!("{}", hardmax_report::report::budget::recommendation(&b.table));
+        println!(
+            "{}",
+            hardmax_report::report::budget::recommendation(&b.table)
+        );
         println!(
             "{} variants x {} dies in {:.1} s; files in {}",
             b.variant_names.len(),

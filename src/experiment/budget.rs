@@ -272,7 +272,8 @@ pub fn budget_of(
     let diff = |a: &[f64], b: &[f64]| -> Vec<f64> { a.iter().zip(b).map(|(x, y)| x - y).collect() };
     let pass = |a: &[f64]| -> Vec<bool> { a.iter().map(|&x| x >= target).collect() };
     let mean = |a: &[f64]| a.iter().sum::<f64>() / a.len().max(1) as f64;
-    let yield_of = |a: &[f64]| pass(a).iter().filter(|&&p| p).count() as f64 / a.len().max(1) as f64;
+    let yield_of =
+        |a: &[f64]| pass(a).iter().filter(|&&p| p).count() as f64 / a.len().max(1) as f64;
     let acc = |v: usize| accuracies[v].as_slice();
     // Cost of variant `v` against reference `r` (r - v on each die).
     let cost = |r: &[f64], v: &[f64]| -> (PairedInterval, PairedInterval) {
@@ -378,11 +379,8 @@ pub fn budget_of(
         })
         .collect();
     let yq = yield_of(acc(v_quant));
-    let y_inter = (yq - yield_of(acc(v_all)))
-        - v_single
-            .iter()
-            .map(|&v| yq - yield_of(acc(v)))
-            .sum::<f64>();
+    let y_inter =
+        (yq - yield_of(acc(v_all))) - v_single.iter().map(|&v| yq - yield_of(acc(v))).sum::<f64>();
     items.push(BudgetItem {
         key: "interaction".into(),
         kind: ItemKind::Interaction,

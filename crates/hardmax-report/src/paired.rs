@@ -150,10 +150,16 @@ mod tests {
         let ci = paired_t_interval(&d, 0.95);
         assert_relative_eq!(ci.estimate, 5.5, epsilon = 1e-12);
         let s = (82.5f64 / 9.0).sqrt();
-        assert_relative_eq!(ci.half_width(), 2.262 * s / 10f64.sqrt(), max_relative = 1e-3);
+        assert_relative_eq!(
+            ci.half_width(),
+            2.262 * s / 10f64.sqrt(),
+            max_relative = 1e-3
+        );
         let one = paired_t_interval(&[2.0; 200], 0.95);
         assert_eq!((one.lo, one.hi), (2.0, 2.0));
-        let alt: Vec<f64> = (0..200).map(|i| if i % 2 == 0 { 1.0 } else { -1.0 }).collect();
+        let alt: Vec<f64> = (0..200)
+            .map(|i| if i % 2 == 0 { 1.0 } else { -1.0 })
+            .collect();
         let ci = paired_t_interval(&alt, 0.95);
         // s = sqrt(200/199), half width 1.972 s / sqrt(200) (table value t(0.975, 199)).
         assert_relative_eq!(

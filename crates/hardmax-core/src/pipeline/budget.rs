@@ -146,7 +146,9 @@ impl Nonideality {
     /// What it is, in words (tables, report).
     pub fn label(self) -> &'static str {
         match self {
-            Nonideality::WeightMismatch => "mismatch of the weight elements, mirrors, offset sources",
+            Nonideality::WeightMismatch => {
+                "mismatch of the weight elements, mirrors, offset sources"
+            }
             Nonideality::DacMismatch => "mismatch of the input DAC lines",
             Nonideality::ProgrammingError => "programming error of the weights",
             Nonideality::ReadNoise => "read noise of the weights",
@@ -165,9 +167,9 @@ impl Nonideality {
     pub fn stage(self) -> StageGroup {
         match self {
             Nonideality::HiddenStage => StageGroup::Hidden,
-            Nonideality::CompetitionMismatch
-            | Nonideality::FiniteGain
-            | Nonideality::ShotNoise => StageGroup::Competition,
+            Nonideality::CompetitionMismatch | Nonideality::FiniteGain | Nonideality::ShotNoise => {
+                StageGroup::Competition
+            }
             _ => StageGroup::Weights,
         }
     }
@@ -337,7 +339,13 @@ mod tests {
             w: 1e-6,
             l: 1e-6,
         };
-        let mut d = WtaDesign::new(10, process.clone(), dev, dev, WtaBias::Ideal { current: 1e-7 });
+        let mut d = WtaDesign::new(
+            10,
+            process.clone(),
+            dev,
+            dev,
+            WtaBias::Ideal { current: 1e-7 },
+        );
         d.drain_coupling = Some(crate::device::DrainCoupling::Eta(1e-3));
         let comp = CompetitionDesign::CurrentWta(Box::new(d));
         let mut inputs_rng = crate::rng::stream(5, &[0]);
@@ -345,12 +353,11 @@ mod tests {
         for chip in 0..20u64 {
             let mut r1 = crate::rng::stream(9, &[chip]);
             let mut r2 = crate::rng::stream(9, &[chip]);
-            let circuit = super::super::build_decider(&comp, &process, 300.0, &mut r1, 1.0, false)
-                .unwrap();
+            let circuit =
+                super::super::build_decider(&comp, &process, 300.0, &mut r1, 1.0, false).unwrap();
             let limit =
                 super::super::build_decider(&comp, &process, 300.0, &mut r2, 1.0, true).unwrap();
-            let (super::super::Decider::Wta(c), super::super::Decider::Limit(f)) =
-                (circuit, limit)
+            let (super::super::Decider::Wta(c), super::super::Decider::Limit(f)) = (circuit, limit)
             else {
                 panic!("unexpected deciders");
             };
@@ -370,7 +377,10 @@ mod tests {
         }
         let share = same as f64 / total as f64;
         assert!(share >= 0.97, "agreement {share}");
-        assert!((same_flipped as f64 / total as f64) < 0.9, "flipped {same_flipped}/{total}");
+        assert!(
+            (same_flipped as f64 / total as f64) < 0.9,
+            "flipped {same_flipped}/{total}"
+        );
     }
 
     #[test]

@@ -674,8 +674,7 @@ pub fn evaluate_chip_with(
         }
         let inputs: &[f64] = match &d.input_noise {
             Some(n) => {
-                if n
-                    .apply_scaled(&currents, &mut noisy, &mut noise_rng, toggles.shot_noise)
+                if n.apply_scaled(&currents, &mut noisy, &mut noise_rng, toggles.shot_noise)
                     .is_err()
                 {
                     out.nonconverged += 1;

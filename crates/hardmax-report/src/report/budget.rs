@@ -536,7 +536,10 @@ mod tests {
             assert_eq!(l.split(',').count(), COLUMNS.len(), "{l}");
         }
         let s = recommendation(&t);
-        assert!(s.contains("a described") && s.contains("competition"), "{s}");
+        assert!(
+            s.contains("a described") && s.contains("competition"),
+            "{s}"
+        );
         let svg = budget_svg(&t).unwrap();
         assert!(svg.starts_with("<svg") || svg.contains("<svg"));
         let html = budget_html(&t, &svg, "CAUTION TEXT");
