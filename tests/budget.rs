@@ -300,3 +300,47 @@ fn switched_off_noise_keeps_the_draws_of_later_noise() {
     }
     assert!(differs, "the control should draw differently");
 }
+
+/// The all-on variant is the design as `hardmax run` evaluates it: on the same point and seed,
+/// each die's accuracy in `budget-dies.csv` equals that chip's accuracy in the run's
+/// `chips.csv` (bit equality of the same computation; no outside source needed).
+#[test]
+fn all_on_dies_are_the_run_chips() {
+    let dir = tempfile::tempdir().unwrap();
+    let exp = Path::new(env!("CARGO_MANIFEST_DIR")).join("experiments/digits-budget.toml");
+    let run = dir.path().join("run");
+    let o = hardmax()
+        .args(["run", exp.to_str().unwrap(), "--quiet", "--no-report"])
+        .args(["--set", "population.chips=4", "--out"])
+        .arg(&run)
+        .output()
+        .unwrap();
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    let bud = dir.path().join("budget");
+    let o = hardmax()
+        .args([
+            "budget",
+            exp.to_str().unwrap(),
+            "--quiet",
+            "--chips",
+            "4",
+            "--out",
+        ])
+        .arg(&bud)
+        .output()
+        .unwrap();
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    let read = |p: std::path::PathBuf, col: &str| -> Vec<f64> {
+        let mut r = csv::Reader::from_path(p).unwrap();
+        let k = r.headers().unwrap().iter().position(|c| c == col).unwrap();
+        r.records()
+            .map(|x| x.unwrap()[k].parse().unwrap())
+            .collect()
+    };
+    let chips = read(run.join("chips.csv"), "accuracy");
+    let dies = read(bud.join("budget-dies.csv"), "all_on");
+    assert_eq!(chips.len(), 4);
+    for (a, b) in chips.iter().zip(&dies) {
+        assert!((a - b).abs() < 1e-12, "run {a} vs budget {b}");
+    }
+}
