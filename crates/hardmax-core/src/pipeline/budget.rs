@@ -383,6 +383,110 @@ mod tests {
         );
     }
 
+    /// Bookkeeping (no outside source): a linear-element design with every static nonideality
+    /// on reports each as active; switching all off zeroes their sigmas in the design and sets
+    /// the chip toggles; switching all on returns the design unchanged.
+    #[test]
+    fn variants_switch_each_nonideality() {
+        use crate::stages::competition::noise::{InputShotNoise, NoiseBandwidth};
+        use crate::stages::weights::{
+            Conditions, DriftSpec, ErrorSpec, LinearElement, SigmaKind, WeightStageDesign,
+        };
+        let err = ErrorSpec {
+            sigma: 0.01,
+            kind: SigmaKind::Relative,
+        };
+        let mut weights = WeightStageDesign::default();
+        weights.input.gain_sigma_rel = 0.01;
+        weights.offset_sigma_rel = 0.01;
+        weights.element = ElementDesign::Linear(LinearElement {
+            programming_error: err,
+            read_noise: err,
+            drift: DriftSpec {
+                nu: 0.05,
+                nu_sigma: 0.01,
+                t0_s: 1.0,
+            },
+            stuck_at_min_fraction: 0.01,
+            ..LinearElement::default()
+        });
+        let process = crate::device::presets::preset("generic-180nm").unwrap();
+        let dev = crate::device::Transistor {
+            polarity: crate::device::Polarity::Nmos,
+            w: 1e-6,
+            l: 1e-6,
+        };
+        let design = ClassifierDesign {
+            competition: CompetitionDesign::CurrentWta(Box::new(WtaDesign::new(
+                3,
+                process.clone(),
+                dev,
+                dev,
+                WtaBias::Ideal { current: 1e-7 },
+            ))),
+            process,
+            weights,
+            decision: Default::default(),
+            input_noise: Some(InputShotNoise {
+                bandwidth: NoiseBandwidth::Fixed(1e6),
+                temperature: 300.0,
+            }),
+            transient: None,
+            hidden_circuit: None,
+            conditions: Conditions {
+                temperature_k: 300.0,
+                time_since_programming_s: 100.0,
+            },
+        };
+        let active = active_nonidealities(&design, 1).unwrap();
+        for n in [
+            Nonideality::WeightMismatch,
+            Nonideality::DacMismatch,
+            Nonideality::ProgrammingError,
+            Nonideality::ReadNoise,
+            Nonideality::Drift,
+            Nonideality::StuckElements,
+            Nonideality::CompetitionMismatch,
+            Nonideality::FiniteGain,
+            Nonideality::ShotNoise,
+        ] {
+            assert!(active.contains(&n), "{n:?} not detected");
+        }
+        assert!(!active.contains(&Nonideality::Temperature));
+        assert!(!active.contains(&Nonideality::HiddenStage));
+        let (off, t) = variant(&design, |_| false);
+        let still = active_nonidealities(&off, 1).unwrap();
+        for n in [
+            Nonideality::DacMismatch,
+            Nonideality::ProgrammingError,
+            Nonideality::Drift,
+            Nonideality::StuckElements,
+        ] {
+            assert!(!still.contains(&n), "{n:?} still on");
+        }
+        assert_eq!(off.weights.offset_sigma_rel, 0.0);
+        assert_eq!(
+            (
+                t.weight_mismatch,
+                t.competition_mismatch,
+                t.read_noise,
+                t.shot_noise
+            ),
+            (0.0, 0.0, 0.0, 0.0)
+        );
+        assert!(t.infinite_gain);
+        let (on, t) = variant(&design, |n| active.contains(&n));
+        assert_eq!(format!("{on:?}"), format!("{design:?}"));
+        // No hidden stage here: its scale is 0 and acts on nothing.
+        assert_eq!(
+            t,
+            ChipToggles {
+                hidden_mismatch: 0.0,
+                ..ChipToggles::default()
+            }
+        );
+    }
+
     #[test]
     fn keys_are_unique_and_every_stage_is_used() {
         let mut keys: Vec<_> = Nonideality::ALL.iter().map(|n| n.key()).collect();
