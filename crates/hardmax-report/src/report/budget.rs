@@ -183,9 +183,18 @@ pub fn recommendation(t: &BudgetTable) -> String {
             let cost = i.acc_cost.map(|c| c.estimate).unwrap_or(f64::NAN);
             let lo = i.acc_cost.map(|c| c.lo).unwrap_or(f64::NAN);
             let gain = i.loo_acc_gain.map(|c| c.estimate).unwrap_or(f64::NAN);
-            if lo > 0.0 {
+            let gain_lo = i.loo_acc_gain.map(|c| c.lo).unwrap_or(f64::NAN);
+            if lo > 0.0 && gain_lo > 0.0 {
                 format!(
                     "Spend on the {} stage first: {} costs {:.2} points of accuracy alone (95 % interval above zero), and removing it from the full design recovers {:.2} points.",
+                    i.stage,
+                    i.description,
+                    100.0 * cost,
+                    100.0 * gain
+                )
+            } else if lo > 0.0 {
+                format!(
+                    "Spend on the {} stage first, but not on it alone: {} costs {:.2} points of accuracy alone (95 % interval above zero), yet removing only it from the full design recovers {:.2} points (interval not above zero), so the next items of the table limit this design too.",
                     i.stage,
                     i.description,
                     100.0 * cost,
