@@ -5,6 +5,7 @@ use clap::{Parser, Subcommand};
 
 pub mod baseline;
 pub mod batch;
+pub mod budget;
 pub mod fit;
 pub mod merge;
 pub mod netlist;
@@ -42,6 +43,8 @@ pub enum Command {
     SlurmScript(slurm::SlurmArgs),
     /// Re-render plots and the HTML report of an existing results folder from its CSV files.
     Render(render::RenderArgs),
+    /// Error budget of one design point: what each nonideality costs, on the same dies.
+    Budget(budget::BudgetArgs),
     /// Train the float classifier on a dataset; print the linfa baseline and ideal-argmax accuracy.
     Baseline(baseline::BaselineArgs),
     /// Write a SPICE netlist of a stage or of one sampled die, with hardmax's answers beside it.
@@ -70,5 +73,6 @@ pub fn main_entry() -> anyhow::Result<()> {
         Command::CompareNetlist(a) => netlist::compare_cmd(a),
         Command::FitDevice(a) => fit::fit_device(a),
         Command::FitPelgrom(a) => fit::fit_pelgrom_cmd(a),
+        Command::Budget(a) => budget::run(a),
     }
 }

@@ -1,5 +1,6 @@
 //! Experiment files, sweeps, Monte Carlo populations, results folders, batch runs (edge layer).
 
+pub mod budget;
 pub mod build;
 pub mod config;
 pub mod quantity;

@@ -9,6 +9,7 @@
 //! crate.
 
 pub mod io;
+pub mod paired;
 pub mod report;
 pub mod results;
 pub mod stats;

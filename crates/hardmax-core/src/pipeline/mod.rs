@@ -9,7 +9,11 @@
 //!
 //! So a chip's outcome depends only on (seed, point, chip), never on thread scheduling.
 
+pub mod budget;
+
 use ndarray::{Array1, Array2, Axis};
+
+pub use budget::ChipToggles;
 
 use crate::data::{Dataset, MinMaxScaler};
 use crate::device::mismatch::sample_mismatch;
@@ -386,9 +390,21 @@ impl ClassifierDesign {
         noisy: &'a mut [f64],
         rng: &mut R,
     ) -> Result<&'a [f64], CompetitionError> {
+        self.competition_inputs_scaled(currents, noisy, rng, 1.0)
+    }
+
+    /// [`Self::competition_inputs`] with the static noise multiplied by `scale` (the draws are
+    /// the same whatever the scale; 0 switches it off for an error budget).
+    pub fn competition_inputs_scaled<'a, R: rand::Rng + ?Sized>(
+        &self,
+        currents: &'a [f64],
+        noisy: &'a mut [f64],
+        rng: &mut R,
+        scale: f64,
+    ) -> Result<&'a [f64], CompetitionError> {
         match &self.input_noise {
             Some(n) if self.static_input_noise() => {
-                n.apply(currents, noisy, rng)?;
+                n.apply_scaled(currents, noisy, rng, scale)?;
                 Ok(noisy)
             }
             _ => Ok(currents),
@@ -838,36 +854,64 @@ pub const COMPETITION_STREAM: u64 = 1000;
 pub const HIDDEN_CIRCUIT_STREAM: u64 = 1001;
 
 /// Sample the competition chip of a design from its chip stream (`None` for the exact argmax).
+/// Its Pelgrom draws are multiplied by `mismatch` (the draws are made whatever the scale).
 pub fn sample_competition(
     design: &CompetitionDesign,
     process: &Process,
     rng: &mut crate::rng::Stream,
+    mismatch: f64,
 ) -> Result<Option<CompetitionChip>, PipelineError> {
     let tech = process.nmos.clone();
+    let mut draw = |t: &crate::device::Transistor| {
+        let m = sample_mismatch(rng, &tech, t);
+        crate::device::MosMismatch {
+            dvt0: mismatch * m.dvt0,
+            dbeta_rel: mismatch * m.dbeta_rel,
+        }
+    };
     Ok(match design {
         CompetitionDesign::Argmax => None,
-        CompetitionDesign::CurrentWta(w) => {
-            Some(CompetitionChip::Wta(WtaChip::sample((**w).clone(), |t| {
-                sample_mismatch(rng, &tech, t)
-            })?))
-        }
+        CompetitionDesign::CurrentWta(w) => Some(CompetitionChip::Wta(WtaChip::sample(
+            (**w).clone(),
+            &mut draw,
+        )?)),
         CompetitionDesign::DiffPair(w) => Some(CompetitionChip::DiffPair(DiffPairChip::sample(
             (**w).clone(),
-            |t| sample_mismatch(rng, &tech, t),
+            &mut draw,
         )?)),
     })
 }
 
-/// Sample and evaluate a competition circuit of a chip at its temperature.
+/// Sample and evaluate a competition circuit of a chip at its temperature. Its Pelgrom draws
+/// are multiplied by `mismatch` (the draws are made whatever the scale); `infinite_gain` gives
+/// the current-mode WTA's infinite-gain limit (see [`budget`]).
 fn build_decider(
     design: &CompetitionDesign,
     process: &Process,
     temperature: f64,
     rng: &mut crate::rng::Stream,
+    mismatch: f64,
+    infinite_gain: bool,
 ) -> Result<Decider, PipelineError> {
-    Ok(match sample_competition(design, process, rng)? {
+    Ok(match sample_competition(design, process, rng, mismatch)? {
         None => Decider::Argmax,
+        Some(CompetitionChip::Wta(c)) if infinite_gain => {
+            // Input-referred factor of each cell's sink transistor (module `budget` docs).
+            let ut = crate::physics::thermal_voltage(temperature);
+            let kappa = 1.0 / process.nmos.n;
+            Decider::Limit(
+                c.sink
+                    .iter()
+                    .map(|m| (kappa * m.dvt0 / ut).exp() / (1.0 + m.dbeta_rel).max(1e-300))
+                    .collect(),
+            )
+        }
         Some(CompetitionChip::Wta(c)) => Decider::Wta(Box::new(c.at(temperature)?)),
+        Some(CompetitionChip::DiffPair(_)) if infinite_gain => {
+            return Err(PipelineError::Unsupported {
+                what: "the differential pair's infinite-gain limit is not modelled",
+            })
+        }
         Some(CompetitionChip::DiffPair(c)) => Decider::DiffPair(Box::new(c.at(temperature)?)),
     })
 }
@@ -911,7 +955,7 @@ pub fn sample_die(
     });
     let mut chip_rng = stream(seed, &[domain::CHIP, point, chip, COMPETITION_STREAM]);
     let eff = wchip.effective(&d.conditions)?;
-    let comp = sample_competition(&d.competition, &d.process, &mut chip_rng)?.ok_or(
+    let comp = sample_competition(&d.competition, &d.process, &mut chip_rng, 1.0)?.ok_or(
         PipelineError::Unsupported {
             what: "the design's competition stage is the exact argmax (no circuit to export); \
                    set competition.circuit to a circuit",
@@ -945,6 +989,8 @@ enum Decider {
     Wta(Box<crate::stages::competition::wta::WtaCircuit>),
     DiffPair(Box<crate::stages::competition::diffpair::DiffPairCircuit>),
     Argmax,
+    /// Infinite-gain limit: argmax of the inputs times these input-referred factors.
+    Limit(Vec<f64>),
 }
 
 /// Evaluate chip `chip` of sweep point `point` over the whole test split.
@@ -955,23 +1001,63 @@ pub fn evaluate_chip(
     point: u64,
     chip: u64,
 ) -> ChipOutcome {
+    evaluate_chip_with(setup, prep, seed, point, chip, &ChipToggles::default())
+}
+
+/// [`evaluate_chip`] with some nonidealities scaled (by zero, for an error budget) or the
+/// competition stage at its infinite-gain limit. The draws are the same whatever `toggles`.
+pub fn evaluate_chip_with(
+    setup: &PointSetup,
+    prep: &Prepared,
+    seed: u64,
+    point: u64,
+    chip: u64,
+    toggles: &ChipToggles,
+) -> ChipOutcome {
     let n_classes = prep.class_names.len();
     let mut out = ChipOutcome::empty(chip, n_classes);
     let d = &setup.design;
     // Weight stage k draws from [CHIP, point, chip, k]; the competition stage from
     // [CHIP, point, chip, COMPETITION_STREAM].
-    let wchip = setup.mapped.sample_chip(&d.process, |k| {
+    let weight_process = if toggles.weight_mismatch == 1.0 {
+        std::borrow::Cow::Borrowed(&d.process)
+    } else {
+        let mut p = d.process.clone();
+        for tech in [&mut p.nmos, &mut p.pmos] {
+            tech.a_vt_pair *= toggles.weight_mismatch;
+            tech.a_beta_pair *= toggles.weight_mismatch;
+        }
+        std::borrow::Cow::Owned(p)
+    };
+    let wchip = setup.mapped.sample_chip(&weight_process, |k| {
         stream(seed, &[domain::CHIP, point, chip, k as u64])
     });
     let mut chip_rng = stream(seed, &[domain::CHIP, point, chip, COMPETITION_STREAM]);
     let built = (|| -> Result<_, PipelineError> {
-        let eff = wchip.effective(&d.conditions)?;
+        let mut eff = wchip.effective(&d.conditions)?;
+        if toggles.read_noise != 1.0 {
+            eff.scale_read_noise(toggles.read_noise);
+        }
         let t = d.conditions.temperature_k;
-        let decider = build_decider(&d.competition, &d.process, t, &mut chip_rng)?;
+        let decider = build_decider(
+            &d.competition,
+            &d.process,
+            t,
+            &mut chip_rng,
+            toggles.competition_mismatch,
+            toggles.infinite_gain,
+        )?;
         let hidden = match &d.hidden_circuit {
             Some(h) if eff.stages().len() == 2 => {
                 let mut r = stream(seed, &[domain::CHIP, point, chip, HIDDEN_CIRCUIT_STREAM]);
-                Some(build_decider(h, &d.process, t, &mut r)?)
+                Some(build_decider(
+                    h,
+                    &d.process,
+                    t,
+                    &mut r,
+                    toggles.hidden_mismatch,
+                    false,
+                )?)
             }
             _ => None,
         };
@@ -1026,7 +1112,7 @@ pub fn evaluate_chip(
                     }
                     .map_err(|e| failed(first, FailureKind::WeightStage, e))?;
                     let solved = match h {
-                        Decider::Argmax => Ok(()),
+                        Decider::Argmax | Decider::Limit(_) => Ok(()),
                         Decider::Wta(c) => c.solve(&hbuf, &mut ws, &mut hsol),
                         Decider::DiffPair(c) => c.solve(&hbuf, &mut ws, &mut hsol),
                     };
@@ -1053,7 +1139,12 @@ pub fn evaluate_chip(
             }
             // Static (input-referred) noise: only where no transient SDE owns it.
             let inputs = d
-                .competition_inputs(&currents, &mut noisy, &mut noise_rng)
+                .competition_inputs_scaled(
+                    &currents,
+                    &mut noisy,
+                    &mut noise_rng,
+                    toggles.shot_noise,
+                )
                 .map_err(|e| failed(first, FailureKind::Noise, e))?;
             match &decider {
                 Decider::Argmax => crate::training::argmax(inputs)
@@ -1065,6 +1156,27 @@ pub fn evaluate_chip(
                             "the weight stage's output currents are not finite",
                         )
                     }),
+                Decider::Limit(f) => {
+                    // Argmax of the inputs referred through each cell's sink mismatch.
+                    let mut best: Option<(usize, f64)> = None;
+                    for (k, (&i, &g)) in inputs.iter().zip(f).enumerate() {
+                        let v = i * g;
+                        if v.is_nan() {
+                            best = None;
+                            break;
+                        }
+                        if best.is_none_or(|(_, b)| v > b) {
+                            best = Some((k, v));
+                        }
+                    }
+                    best.map(|(w, _)| (w, false)).ok_or_else(|| {
+                        failed(
+                            first,
+                            FailureKind::WeightStage,
+                            "the weight stage's output currents are not finite",
+                        )
+                    })
+                }
                 Decider::Wta(c) => match &d.transient {
                     None => solve_decide(c.as_ref(), inputs, &mut ws, &mut sol, &d.decision, first),
                     Some(t) => {

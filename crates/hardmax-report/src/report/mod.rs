@@ -5,6 +5,7 @@
 //! - [`render`] / [`render_with`] write `plots/*.svg` and `report.html` into the folder;
 //!   [`add_transfer`] stores a stage transfer curve in the folder so renders include it.
 
+pub mod budget;
 pub mod error;
 pub mod folder;
 pub mod format;

@@ -106,6 +106,18 @@ impl InputShotNoise {
         noisy: &mut [f64],
         rng: &mut R,
     ) -> Result<(), CompetitionError> {
+        self.apply_scaled(inputs, noisy, rng, 1.0)
+    }
+
+    /// [`Self::apply`] with the noise multiplied by `scale`: the same draws are made whatever
+    /// the scale (0 switches the noise off without shifting later draws of the stream).
+    pub fn apply_scaled<R: Rng + ?Sized>(
+        &self,
+        inputs: &[f64],
+        noisy: &mut [f64],
+        rng: &mut R,
+        scale: f64,
+    ) -> Result<(), CompetitionError> {
         if noisy.len() != inputs.len() {
             return Err(CompetitionError::WrongLength {
                 stage: STAGE,
@@ -125,7 +137,7 @@ impl InputShotNoise {
                 });
             }
             let z: f64 = rng.sample(StandardNormal);
-            *o = (i + self.sigma_for(i) * z).max(0.0);
+            *o = (i + scale * self.sigma_for(i) * z).max(0.0);
         }
         Ok(())
     }

@@ -237,6 +237,13 @@ impl EffectiveChain {
     pub fn stages(&self) -> &[EffectiveStage] {
         &self.stages
     }
+    /// Multiply every stage's read-noise standard deviation by `scale` (draws are kept; see
+    /// [`EffectiveStage::scale_read_noise`]).
+    pub fn scale_read_noise(&mut self, scale: f64) {
+        self.stages
+            .iter_mut()
+            .for_each(|s| s.scale_read_noise(scale));
+    }
     /// Number of feature inputs of the first stage.
     pub fn inputs(&self) -> usize {
         self.stages.first().map_or(0, EffectiveStage::inputs)

@@ -63,6 +63,16 @@ impl EffectiveStage {
     pub fn has_read_noise(&self) -> bool {
         self.noise_var.is_some()
     }
+    /// Multiply the read noise's standard deviation by `scale`. A stage with read noise keeps
+    /// drawing one normal per output line per decision whatever the scale (0 switches the noise
+    /// off without shifting later draws of the same stream).
+    pub fn scale_read_noise(&mut self, scale: f64) {
+        let s2 = scale * scale;
+        if let Some(v) = &mut self.noise_var {
+            v.iter_mut().for_each(|x| *x *= s2);
+            self.noise_base_var.iter_mut().for_each(|x| *x *= s2);
+        }
+    }
     /// Effective matrix, input-major: entry (i, j) at `i * outputs + j`, A per unit input.
     pub fn matrix(&self) -> &[f64] {
         &self.matrix
