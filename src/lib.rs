@@ -16,7 +16,7 @@
 pub use hardmax_core::{
     data, device, physics, pipeline, rng, solvers, stages, training, units, CAUTION,
 };
-pub use hardmax_report::{io, report};
+pub use hardmax_report::{answers, io, report};
 
 pub mod cli;
 pub mod experiment;

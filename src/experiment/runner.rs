@@ -13,11 +13,12 @@ use rayon::prelude::*;
 use serde_json::json;
 use sha2::{Digest, Sha256};
 
-use super::build::{build_point, prepare_data};
+use super::build::{build_point, cost_settings, prepare_data};
 use super::config::Resolved;
 use super::results::{ChipRow, PointRecord, ResultsDir, ResultsError, FORMAT_NAME, FORMAT_VERSION};
 use crate::io::write_atomic;
-use crate::pipeline::{evaluate_chip, Prepared};
+use crate::pipeline::cost::{mean_input, point_cost};
+use crate::pipeline::{evaluate_chip, Dies, Prepared};
 
 /// Errors of a run; each says which point or file.
 #[derive(Debug, thiserror::Error)]
@@ -187,6 +188,7 @@ pub fn run(
     let base = &resolved.base;
     let chips = base.population.chips;
     let seed = base.population.seed;
+    let paired = base.population.pairing == super::config::PairingKind::Paired;
     let z = normal_quantile_two_sided(base.target.confidence);
 
     let pool = {
@@ -268,7 +270,14 @@ pub fn run(
             (0..chips)
                 .into_par_iter()
                 .map(|c| {
-                    let o = evaluate_chip(setup, prep, seed, p.point as u64, c);
+                    let dies = if paired {
+                        Dies::Paired
+                    } else {
+                        Dies::Independent {
+                            point: p.point as u64,
+                        }
+                    };
+                    let o = evaluate_chip(setup, prep, seed, dies, c);
                     observer.chip_done();
                     o
                 })
@@ -303,6 +312,15 @@ pub fn run(
             .zip(&p.value_index)
             .map(|(a, &i)| a.values[i])
             .collect();
+        let e = &resolved.at_point[p.point];
+        let cost =
+            point_cost(setup, prep, &mean_input(&prep.test_u), &cost_settings(e)).map_err(|m| {
+                RunError::Point {
+                    point: p.point,
+                    settings: resolved.describe_point(p),
+                    message: format!("cost.{m}"),
+                }
+            })?;
         let rec = PointRecord {
             point: p.point,
             params,
@@ -314,6 +332,15 @@ pub fn run(
             z,
             elapsed_s: tp.elapsed().as_secs_f64(),
             first_failure,
+            yield_target: Some(e.target.yield_target),
+            cost: Some(crate::answers::PointCost {
+                gate_area_m2: cost.gate_area_m2,
+                area_m2: cost.area_m2,
+                supply_current_a: cost.supply_current_a,
+                power_w: cost.power_w,
+                read_out_time_s: e.cost.read_out_time.si(),
+            }),
+            paired,
         };
         dir.save_point(&rec)?;
         let s = rec.summary();

@@ -56,6 +56,15 @@ pub struct PointRecord {
     /// Why the first failed decision (in chip order) failed, if any decision failed.
     #[serde(default)]
     pub first_failure: Option<String>,
+    /// Yield target of the pass rule (`crate::answers`), if the experiment gives one.
+    #[serde(default)]
+    pub yield_target: Option<f64>,
+    /// What the design point costs.
+    #[serde(default)]
+    pub cost: Option<crate::answers::PointCost>,
+    /// Chip c is the same die at every sweep point (paired differences).
+    #[serde(default)]
+    pub paired: bool,
 }
 
 /// Population statistics of one point (a `points.csv` row).
@@ -238,6 +247,10 @@ impl ResultsDir {
             &self.root.join("confusion.csv"),
             &confusion_csv(records, class_names),
         )?;
+        write_atomic(
+            &self.root.join("differences.csv"),
+            &crate::answers::differences_csv(records),
+        )?;
         Ok(())
     }
 }
@@ -269,9 +282,11 @@ pub fn points_csv(records: &[PointRecord], axis_paths: &[String]) -> Vec<u8> {
     let mut header = vec!["point".to_string()];
     header.extend(axis_paths.iter().cloned());
     header.extend(POINT_STAT_COLUMNS.map(String::from));
+    header.extend(crate::answers::DESIGN_COLUMNS.map(String::from));
     let mut rows = vec![header];
     for r in records {
         let s = r.summary();
+        let design = crate::answers::design_cells(r, &s);
         let mut row = vec![r.point.to_string()];
         row.extend(r.params.iter().map(|v| fmt(*v)));
         row.extend([
@@ -294,6 +309,7 @@ pub fn points_csv(records: &[PointRecord], axis_paths: &[String]) -> Vec<u8> {
             opt(s.decision_time_mean_s),
             opt(s.energy_mean_j),
         ]);
+        row.extend(design);
         rows.push(row);
     }
     to_bytes(rows)
@@ -378,6 +394,9 @@ mod tests {
             ideal_acc: 0.9,
             baseline_acc: 0.9,
             target: 0.8,
+            yield_target: None,
+            cost: None,
+            paired: true,
             z: 1.96,
             elapsed_s: 0.1,
             first_failure: None,
