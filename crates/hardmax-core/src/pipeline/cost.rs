@@ -252,3 +252,130 @@ pub fn mean_input(u: &ndarray::Array2<f64>) -> Vec<f64> {
         .map(|c| c.iter().map(|v| v.clamp(0.0, 1.0)).sum::<f64>() / n)
         .collect()
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::device::{preset, Polarity};
+    use crate::pipeline::{ClassifierDesign, CompetitionDesign, PointSetup, Prepared};
+    use crate::stages::competition::wta::{WtaBias, WtaDesign};
+    use crate::stages::competition::DecisionRule;
+    use crate::stages::weights::{
+        Conditions, ElementDesign, InputDesign, LinearElement, OffsetSetting, WeightStageDesign,
+    };
+    use approx::assert_relative_eq;
+    use ndarray::array;
+
+    fn nmos(w_um: f64, l_um: f64) -> Transistor {
+        Transistor {
+            polarity: Polarity::Nmos,
+            w: w_um * 1e-6,
+            l: l_um * 1e-6,
+        }
+    }
+
+    /// A two-class, one-feature classifier (invented numbers) with weights W = [[1], [-1]],
+    /// b = [-0.5, 0.5] and test inputs 0.2 and 0.6 (mean 0.4).
+    fn setup() -> (PointSetup, Prepared) {
+        let mut process = preset("generic-180nm").unwrap_or_else(|e| panic!("{e}"));
+        process.vdd = 1.8;
+        let prep = Prepared {
+            dataset_name: "invented".into(),
+            class_names: vec!["a".into(), "b".into()],
+            n_features: 1,
+            n_train: 2,
+            test_u: array![[0.2], [0.6]],
+            test_y: vec![1, 0],
+            layers: vec![(array![[1.0], [-1.0]], array![-0.5, 0.5])],
+            hidden: None,
+            ideal_pred: vec![1, 0],
+            baseline_pred: vec![1, 0],
+            ideal_acc: 1.0,
+            baseline_acc: 1.0,
+        };
+        let weights = WeightStageDesign {
+            input: InputDesign {
+                dac_bits: Some(4),
+                full_scale_current_a: 10e-9,
+                gain_sigma_rel: 0.0,
+            },
+            element: ElementDesign::Linear(LinearElement {
+                levels: None,
+                ..LinearElement::default()
+            }),
+            offset: OffsetSetting::Fixed { current_a: 2e-9 },
+            ..WeightStageDesign::default()
+        };
+        let wta = WtaDesign::new(
+            2,
+            process.clone(),
+            nmos(1.0, 2.0),
+            nmos(3.0, 1.0),
+            WtaBias::Ideal { current: 100e-9 },
+        );
+        let design = ClassifierDesign {
+            process,
+            weights,
+            competition: CompetitionDesign::CurrentWta(Box::new(wta)),
+            decision: DecisionRule::default(),
+            input_noise: None,
+            transient: None,
+            hidden_circuit: None,
+            conditions: Conditions::default(),
+        };
+        let s = PointSetup::new(design, &prep).unwrap_or_else(|e| panic!("{e}"));
+        (s, prep)
+    }
+
+    fn settings() -> CostSettings {
+        CostSettings {
+            layout_overhead: 2.0,
+            dac_unit: nmos(1.0, 0.5),
+            linear_element: nmos(2.0, 1.0),
+            read_out_time_s: 1e-6,
+        }
+    }
+
+    /// Hand calculation (DEVELOPERS.md model notes §11; the mapping of the shifted encoding is
+    /// model notes §5). Lines: 1 feature + bias = 2, classes 2.
+    /// Shifted encoding: columns [1, -1] and [-0.5, 0.5] minus their minima -> [[2, 0], [0, 1]],
+    /// scaled by 1/2 onto the element range [0, 1]: targets [[1, 0], [0, 0.5]].
+    /// Area: elements 2 x 2 x (2 um x 1 um) = 8 um^2; DAC 2 lines x (2^4 - 1) x 0.5 um^2
+    /// = 15 um^2; WTA 2 x (1 x 2 + 3 x 1) = 10 um^2; gate area 33 um^2, x 2 = 66 um^2.
+    /// Current at the mean input 0.4 (a 4-bit DAC holds 6/15 = 0.4 exactly): input lines
+    /// 10 nA x (0.4 + 1) = 14 nA; elements 10 nA x (1 x 0.4 + 0 x 1 + 0 x 0.4 + 0.5 x 1) = 9 nA;
+    /// offsets 2 x 2 nA = 4 nA; bias 100 nA: 127 nA, x 1.8 V = 228.6 nW, x 1 us = 0.2286 pJ.
+    #[test]
+    fn cost_matches_a_hand_calculation() {
+        let (s, prep) = setup();
+        let c = point_cost(&s, &prep, &mean_input(&prep.test_u), &settings())
+            .unwrap_or_else(|e| panic!("{e}"));
+        let um2 = 1e-12;
+        assert_relative_eq!(c.weights_area_m2, 8.0 * um2, max_relative = 1e-12);
+        assert_relative_eq!(c.dac_area_m2, 15.0 * um2, max_relative = 1e-12);
+        assert_relative_eq!(c.competition_area_m2, 10.0 * um2, max_relative = 1e-12);
+        assert_relative_eq!(c.hidden_area_m2, 0.0);
+        assert_relative_eq!(c.gate_area_m2, 33.0 * um2, max_relative = 1e-12);
+        assert_relative_eq!(c.area_m2, 66.0 * um2, max_relative = 1e-12);
+        assert_relative_eq!(c.bias_current_a, 100e-9, max_relative = 1e-12);
+        assert_relative_eq!(c.weights_current_a, 27e-9, max_relative = 1e-9);
+        assert_relative_eq!(c.supply_current_a, 127e-9, max_relative = 1e-9);
+        assert_relative_eq!(c.power_w, 228.6e-9, max_relative = 1e-9);
+        assert_relative_eq!(c.energy_per_decision(1e-6), 0.2286e-12, max_relative = 1e-9);
+    }
+
+    /// A layout overhead below 1 (negative included) or a zero read-out time is refused, naming
+    /// the setting.
+    #[test]
+    fn bad_settings_name_the_setting() {
+        let (s, prep) = setup();
+        let mut bad = settings();
+        bad.layout_overhead = -1.0;
+        let e = point_cost(&s, &prep, &[0.4], &bad).unwrap_err().to_string();
+        assert!(e.contains("layout_overhead"), "{e}");
+        let mut bad = settings();
+        bad.read_out_time_s = 0.0;
+        let e = point_cost(&s, &prep, &[0.4], &bad).unwrap_err().to_string();
+        assert!(e.contains("read_out_time"), "{e}");
+    }
+}
