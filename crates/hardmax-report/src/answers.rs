@@ -349,69 +349,6 @@ mod tests {
         }
     }
 
-    /// A sweep point as a candidate design: its pass margin and cost.
-    #[derive(Clone, Copy, Debug, PartialEq)]
-    pub struct Candidate {
-        pub point: u64,
-        /// `yield_lo - yield_target` (passes when >= 0).
-        pub margin: f64,
-        pub area_m2: Option<f64>,
-        pub current_a: Option<f64>,
-    }
-
-    /// The answer to "which point do I build?": the cheapest passing point (smallest layout area,
-    /// then smallest supply current), or, when none passes, the nearest (largest margin, then
-    /// cheapest).
-    #[derive(Clone, Copy, Debug, PartialEq)]
-    pub struct Choice {
-        pub point: u64,
-        pub passes: bool,
-    }
-
-    /// Pick the point to name in a headline (none without candidates).
-    pub fn choose(candidates: &[Candidate]) -> Option<Choice> {
-        let key = |v: Option<f64>| v.filter(|x| x.is_finite()).unwrap_or(f64::INFINITY);
-        let cheaper = |a: &Candidate, b: &Candidate| {
-            key(a.area_m2)
-                .total_cmp(&key(b.area_m2))
-                .then(key(a.current_a).total_cmp(&key(b.current_a)))
-                .then(a.point.cmp(&b.point))
-        };
-        let valid = candidates.iter().filter(|c| c.margin.is_finite());
-        let passing = valid
-            .clone()
-            .filter(|c| c.margin >= 0.0)
-            .min_by(|a, b| cheaper(a, b));
-        if let Some(c) = passing {
-            return Some(Choice {
-                point: c.point,
-                passes: true,
-            });
-        }
-        valid
-            .max_by(|a, b| a.margin.total_cmp(&b.margin).then(cheaper(b, a)))
-            .map(|c| Choice {
-                point: c.point,
-                passes: false,
-            })
-    }
-
-    /// Candidates from point records.
-    pub fn candidates(records: &[PointRecord]) -> Vec<Candidate> {
-        records
-            .iter()
-            .filter_map(|r| {
-                let s = r.summary();
-                yield_margin(r, &s).map(|margin| Candidate {
-                    point: r.point as u64,
-                    margin,
-                    area_m2: r.cost.as_ref().map(|c| c.area_m2),
-                    current_a: r.cost.as_ref().map(|c| c.supply_current_a),
-                })
-            })
-            .collect()
-    }
-
     /// Student t quantiles (Abramowitz & Stegun Table 26.10; any statistics handbook):
     /// t_{0.975} = 2.571 (5 df), 2.228 (10), 2.042 (30), 1.972 (199, from memory to 3 digits).
     #[test]
@@ -434,15 +371,15 @@ mod tests {
         assert_relative_eq!(d.mean, -0.05, epsilon = 1e-12);
         assert_relative_eq!(d.std_error, (0.0025f64 / 3.0).sqrt(), epsilon = 1e-12);
         assert!(d.lo < d.mean && d.mean < d.hi);
-        // var(a) = 0.01, var(b) = 0.015833: independent dies for the same precision
-        // 3 (0.01 + 0.015833) / 0.0025 = 31.
-        assert_relative_eq!(d.independent_dies.unwrap_or(0.0), 31.0, max_relative = 1e-9);
+        // var(a) = 0.01, var(b) = (0.01 + 0.0025 + 0.0225) / 2 = 0.0175: independent dies for
+        // the same precision 3 (0.01 + 0.0175) / 0.0025 = 33.
+        assert_relative_eq!(d.independent_dies.unwrap_or(0.0), 33.0, max_relative = 1e-9);
         let w = difference(&a, &b, false, 1.959_964).unwrap_or_else(|| panic!("no difference"));
         assert_eq!(w.method, "welch");
         assert_relative_eq!(w.mean, -0.05, epsilon = 1e-12);
         assert_relative_eq!(
             w.std_error,
-            ((0.01 + 0.095f64 / 6.0) / 3.0).sqrt(),
+            ((0.01 + 0.0175f64) / 3.0).sqrt(),
             max_relative = 1e-9
         );
     }

@@ -445,7 +445,8 @@ mod tests {
         let p = String::from_utf8(points_csv(&recs, &["competition.bias_current".into()])).unwrap();
         let header = p.lines().next().unwrap();
         assert!(header.starts_with("point,competition.bias_current,chips,samples,acc_mean"));
-        assert!(header.ends_with("decision_time_mean_s,energy_mean_j"));
+        assert!(header.contains("decision_time_mean_s,energy_mean_j,yield_target,pass"));
+        assert!(header.ends_with("decision_time_s,energy_per_decision_j"));
         let c = String::from_utf8(confusion_csv(&recs, &["a".into(), "b".into()])).unwrap();
         assert!(c.contains("0,b,ambiguous,1"), "{c}");
         let ch = String::from_utf8(chips_csv(&recs, &["x".into()])).unwrap();
