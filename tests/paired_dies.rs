@@ -121,14 +121,12 @@ fn a_paired_die_never_improves_when_its_mismatch_grows() {
         .iter()
         .map(|&s| accuracies(&prep, s, 11, &vec![Dies::Paired; dies]))
         .collect();
-    for c in 0..dies {
-        for k in 1..scales.len() {
+    for k in 1..scales.len() {
+        for (c, (now, before)) in paired[k].iter().zip(&paired[k - 1]).enumerate() {
             assert!(
-                paired[k][c] <= paired[k - 1][c] + tol,
-                "die {c}: accuracy {} at scale {} above {} at {}",
-                paired[k][c],
+                *now <= *before + tol,
+                "die {c}: accuracy {now} at scale {} above {before} at {}",
                 scales[k],
-                paired[k - 1][c],
                 scales[k - 1]
             );
         }
