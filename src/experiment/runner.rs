@@ -217,6 +217,8 @@ pub fn run(
             "points_done": records.len(),
             "chips_per_point": chips,
             "target_accuracy": base.target.accuracy,
+            "target_yield": base.target.yield_target,
+            "pairing": if paired { "paired" } else { "independent" },
             "threads": threads,
             "transient": base.competition.evaluation == super::config::EvaluationKind::Transient,
             "dataset": prepared.first().map(|(_, p)| json!({
