@@ -150,11 +150,11 @@ fn differences_table(folder: &ResultsFolder) -> String {
     };
     let p = |v: String| -> String {
         v.parse::<f64>()
-            .map(|x| format!("{:+.2} %", 100.0 * x))
+            .map(|x| format!("{:+.2} pp", 100.0 * x))
             .unwrap_or_else(|_| "—".into())
     };
     let mut s = String::from(
-        r#"<div class="tablewrap" id="differences"><table><thead><tr><th>from point</th><th>to point</th><th>dies</th><th>accuracy change</th><th>interval</th><th>method</th><th>independent dies for the same precision</th></tr></thead><tbody>"#,
+        r#"<div class="tablewrap" id="differences"><table><thead><tr><th>from point</th><th>to point</th><th>dies</th><th>accuracy change (percentage points)</th><th>interval</th><th>method</th><th>independent dies for the same precision</th></tr></thead><tbody>"#,
     );
     for row in &rows {
         let _ = write!(
