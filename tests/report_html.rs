@@ -604,5 +604,6 @@ values = ["1 um", "4 um"]
     assert!(html.contains(r#"id="design-answer""#));
     assert!(html.contains("Wilson"));
     assert!(html.contains(r#"id="differences""#));
+    assert!(html.contains(r#"id="yield-area""#));
     check_traceability(&out);
 }

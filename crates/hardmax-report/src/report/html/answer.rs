@@ -118,7 +118,90 @@ pub(super) fn design_answer(folder: &ResultsFolder) -> String {
         r#"<p class="small">{} Passing points are ranked by layout area, then supply current. Area = sum of W L over every device × the layout overhead; current = biases + weight-stage currents at the test set's mean input; energy = power × decision time (the transient's mean, or the stated read-out time in DC evaluation). Every number is in <code>points.csv</code>.</p></div>"#,
         esc(rule)
     );
+    s.push_str(&yield_area_figure(folder, &cands));
     s.push_str(&differences_table(folder));
+    s
+}
+
+/// An inline SVG: the yield low end of every point against its layout area, with the yield
+/// target as a dashed line (passing points filled). Nothing when fewer than two points have an
+/// area.
+fn yield_area_figure(folder: &ResultsFolder, cands: &[Candidate]) -> String {
+    let pts: Vec<(u64, f64, f64, f64)> = cands
+        .iter()
+        .filter_map(|c| {
+            let row = folder.point(c.point)?;
+            let area = c.area_m2.filter(|a| a.is_finite() && *a > 0.0)? * 1e12;
+            let lo = row.yield_lo?;
+            Some((c.point, area, lo, lo - c.margin))
+        })
+        .collect();
+    if pts.len() < 2 {
+        return String::new();
+    }
+    let (w, h, l, r, t, b) = (640.0, 300.0, 70.0, 20.0, 20.0, 50.0);
+    let amin = pts.iter().map(|p| p.1).fold(f64::INFINITY, f64::min);
+    let amax = pts.iter().map(|p| p.1).fold(f64::NEG_INFINITY, f64::max);
+    let span = if amax > amin {
+        amax - amin
+    } else {
+        amax.abs().max(1.0)
+    };
+    let (x0, x1) = (amin - 0.05 * span, amax + 0.05 * span);
+    let x = |a: f64| l + (a - x0) / (x1 - x0) * (w - l - r);
+    let y = |v: f64| t + (1.0 - v.clamp(0.0, 1.0)) * (h - t - b);
+    let mut s = format!(
+        r##"<figure id="yield-area"><div class="plot"><svg xmlns="http://www.w3.org/2000/svg" viewBox="0 0 {w} {h}" width="{w}" height="{h}"><rect x="{l}" y="{t}" width="{}" height="{}" fill="none" stroke="#888"/>"##,
+        w - l - r,
+        h - t - b
+    );
+    for v in [0.0, 0.25, 0.5, 0.75, 1.0] {
+        let _ = write!(
+            s,
+            r##"<text x="{}" y="{}" font-size="11" text-anchor="end">{:.0} %</text>"##,
+            l - 6.0,
+            y(v) + 4.0,
+            100.0 * v
+        );
+    }
+    for a in [x0 + 0.05 * span, x1 - 0.05 * span] {
+        let _ = write!(
+            s,
+            r##"<text x="{}" y="{}" font-size="11" text-anchor="middle">{:.0}</text>"##,
+            x(a),
+            h - b + 16.0,
+            a
+        );
+    }
+    if let Some(target) = pts.first().map(|p| p.3) {
+        let _ = write!(
+            s,
+            r##"<line x1="{l}" x2="{}" y1="{y}" y2="{y}" stroke="#c97a1e" stroke-dasharray="6 4"/><text x="{}" y="{}" font-size="11" text-anchor="start" fill="#8a4b08">yield target</text>"##,
+            w - r,
+            l + 4.0,
+            y(target) - 4.0,
+            y = y(target)
+        );
+    }
+    for (point, a, lo, target) in &pts {
+        let fill = if lo >= target { "#1b6f7a" } else { "#ffffff" };
+        let _ = write!(
+            s,
+            r##"<circle cx="{:.2}" cy="{:.2}" r="5" fill="{fill}" stroke="#1b6f7a" stroke-width="2"/><text x="{:.2}" y="{:.2}" font-size="10">{point}</text>"##,
+            x(*a),
+            y(*lo),
+            x(*a) + 7.0,
+            y(*lo) - 6.0
+        );
+    }
+    let _ = write!(
+        s,
+        r##"<text x="{}" y="{}" font-size="12" text-anchor="middle">layout area (µm²)</text><text x="16" y="{}" font-size="12" text-anchor="middle" transform="rotate(-90 16 {})">yield, Wilson low end</text></svg></div><figcaption><b>Cost against yield.</b> Each sweep point (labelled by its index) at its layout area and the low end of its yield interval; filled points pass the yield target (dashed). Values: <code>area_m2</code> and <code>yield_lo</code> in <code>points.csv</code>.</figcaption></figure>"##,
+        l + (w - l - r) / 2.0,
+        h - 12.0,
+        t + (h - t - b) / 2.0,
+        t + (h - t - b) / 2.0
+    );
     s
 }
 
