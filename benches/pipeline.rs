@@ -10,7 +10,7 @@ use criterion::{criterion_group, criterion_main, Criterion, Throughput};
 
 use hardmax::experiment::build::{build_point, prepare_data};
 use hardmax::experiment::config::load_str;
-use hardmax::pipeline::evaluate_chip;
+use hardmax::pipeline::{evaluate_chip, Dies};
 
 fn setup(circuit: &str) -> (hardmax::pipeline::PointSetup, hardmax::pipeline::Prepared) {
     let text = format!(
@@ -34,7 +34,7 @@ fn bench(c: &mut Criterion) {
         g.bench_function(circuit, |b| {
             b.iter(|| {
                 chip += 1;
-                evaluate_chip(&setup, &prep, 1, 0, chip)
+                evaluate_chip(&setup, &prep, 1, Dies::Paired, chip)
             })
         });
     }

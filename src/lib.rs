@@ -17,7 +17,7 @@ pub use hardmax_core::{
     calibration, data, device, netlist, physics, pipeline, rng, solvers, stages, training, units,
     CAUTION,
 };
-pub use hardmax_report::{io, report};
+pub use hardmax_report::{answers, io, report};
 
 pub mod cli;
 pub mod experiment;

@@ -10,7 +10,7 @@ use rand_distr::{Distribution, Normal};
 use statrs::distribution::{ContinuousCDF, Normal as StatNormal};
 
 use hardmax::experiment::budget::{budget_of, BudgetError, BudgetSpec};
-use hardmax::pipeline::{ClassifierDesign, CompetitionDesign, Prepared};
+use hardmax::pipeline::{ClassifierDesign, CompetitionDesign, Dies, Prepared};
 use hardmax::stages::competition::DecisionRule;
 use hardmax::stages::weights::{
     Conditions, ElementDesign, InputDesign, LinearElement, OffsetSetting, SignedEncoding,
@@ -95,6 +95,7 @@ fn spec(chips: u64) -> BudgetSpec {
         experiment: "invented-two-gaussians".into(),
         settings: String::new(),
         point: 0,
+        dies: hardmax::pipeline::Dies::Paired,
         chips,
         seed: 11,
         target_accuracy: 0.8,
@@ -293,11 +294,11 @@ fn switched_off_noise_keeps_the_draws_of_later_noise() {
     let none = PointSetup::new(with_read(0.0), &prep).unwrap();
     let mut differs = false;
     for chip in 0..4 {
-        let a = evaluate_chip_with(&shot_only, &prep, 3, 0, chip, &vt);
-        let b = evaluate_chip(&tiny, &prep, 3, 0, chip);
+        let a = evaluate_chip_with(&shot_only, &prep, 3, Dies::Paired, chip, &vt);
+        let b = evaluate_chip(&tiny, &prep, 3, Dies::Paired, chip);
         assert_eq!(a.correct, b.correct, "chip {chip}");
         assert_eq!(a.confusion, b.confusion, "chip {chip}");
-        differs |= evaluate_chip(&none, &prep, 3, 0, chip).confusion != a.confusion;
+        differs |= evaluate_chip(&none, &prep, 3, Dies::Paired, chip).confusion != a.confusion;
     }
     assert!(differs, "the control should draw differently");
 }

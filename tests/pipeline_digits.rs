@@ -5,7 +5,7 @@ use std::path::Path;
 
 use hardmax::experiment::build::{build_point, prepare_data};
 use hardmax::experiment::config::load_str;
-use hardmax::pipeline::{evaluate_chip, ChipOutcome, PointSetup, Prepared};
+use hardmax::pipeline::{evaluate_chip, ChipOutcome, Dies, PointSetup, Prepared};
 
 fn point(text: &str) -> (PointSetup, Prepared) {
     let r = load_str(text, Path::new("t.toml"), &[]).expect("experiment");
@@ -17,7 +17,7 @@ fn point(text: &str) -> (PointSetup, Prepared) {
 
 fn chips(setup: &PointSetup, prep: &Prepared, n: u64) -> Vec<ChipOutcome> {
     (0..n)
-        .map(|c| evaluate_chip(setup, prep, 7, 0, c))
+        .map(|c| evaluate_chip(setup, prep, 7, Dies::Paired, c))
         .collect()
 }
 
@@ -116,12 +116,22 @@ circuit = "argmax"
 #[test]
 fn chip_outcomes_are_keyed_by_seed_point_and_chip() {
     let (setup, prep) = point("[dataset]\nname = \"iris\"\n");
-    let a = evaluate_chip(&setup, &prep, 3, 2, 5);
-    let b = evaluate_chip(&setup, &prep, 3, 2, 5);
+    let ind = Dies::Independent { point: 2 };
+    let a = evaluate_chip(&setup, &prep, 3, ind, 5);
+    let b = evaluate_chip(&setup, &prep, 3, ind, 5);
     assert_eq!(a, b);
     // Other chips are other draws: over a few chips, some outcome differs.
-    let differs = (6..16).any(|c| evaluate_chip(&setup, &prep, 3, 2, c).confusion != a.confusion);
+    let differs = (6..16).any(|c| evaluate_chip(&setup, &prep, 3, ind, c).confusion != a.confusion);
     assert!(differs);
+    // Independent dies: another point is another die; paired dies: the same die whatever the
+    // point (the paired key has no point index).
+    let other_point = (5..15).any(|c| {
+        evaluate_chip(&setup, &prep, 3, ind, c).confusion
+            != evaluate_chip(&setup, &prep, 3, Dies::Independent { point: 3 }, c).confusion
+    });
+    assert!(other_point);
+    let p = evaluate_chip(&setup, &prep, 3, Dies::Paired, 5);
+    assert_eq!(p, evaluate_chip(&setup, &prep, 3, Dies::Paired, 5));
 }
 
 /// The hidden normaliser evaluated as circuits (diode-fed differential pair, current-mode WTA)

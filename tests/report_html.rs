@@ -226,8 +226,10 @@ fn check_traceability(dir: &Path) -> usize {
             "si" => {
                 let col = a.get("data-col").cloned().unwrap_or_default();
                 let unit = match col.as_str() {
-                    "decision_time_mean_s" => "s".to_string(),
-                    "energy_mean_j" => "J".to_string(),
+                    "decision_time_mean_s" | "decision_time_s" => "s".to_string(),
+                    "energy_mean_j" | "energy_per_decision_j" => "J".to_string(),
+                    "supply_current_a" => "A".to_string(),
+                    "power_w" => "W".to_string(),
                     c => units
                         .get(c)
                         .cloned()
@@ -555,4 +557,53 @@ fn zip_sweeps_draw_one_curve_and_grids_one_per_other_value() {
     let texts = svg_texts(acc);
     assert!(!texts.iter().any(|t| t.starts_with("bits =")));
     assert!(texts.iter().any(|t| t == "mean over chips"));
+}
+
+/// A run of the binary (iris, 30 chips, two WTA widths) writes the design columns and
+/// differences.csv; its report names the point that answers the design question, and every
+/// number of that answer traces back to its points.csv cell (the checks above).
+#[test]
+fn design_answer_of_a_real_run_is_traceable() {
+    use assert_cmd::prelude::*;
+    let dir = tempfile::tempdir().unwrap();
+    let exp = dir.path().join("answer.toml");
+    fs::write(
+        &exp,
+        r#"
+[dataset]
+name = "iris"
+[population]
+chips = 30
+[target]
+accuracy = 0.8
+yield = 0.9
+[[sweep.axis]]
+path = "competition.sink.w"
+values = ["1 um", "4 um"]
+"#,
+    )
+    .unwrap();
+    let out = dir.path().join("out");
+    std::process::Command::cargo_bin("hardmax")
+        .unwrap()
+        .args(["run", "-q", "--threads", "2", "--out"])
+        .arg(&out)
+        .arg(&exp)
+        .assert()
+        .success();
+    let (header, _) = points_cells(&out);
+    for c in hardmax::answers::DESIGN_COLUMNS {
+        assert!(header.iter().any(|h| h == c), "points.csv lacks {c}");
+    }
+    let diffs = fs::read_to_string(out.join("differences.csv")).unwrap();
+    assert!(
+        diffs.lines().nth(1).unwrap().contains("paired_t"),
+        "{diffs}"
+    );
+    let html = fs::read_to_string(out.join("report.html")).unwrap();
+    assert!(html.contains(r#"id="design-answer""#));
+    assert!(html.contains("Wilson"));
+    assert!(html.contains(r#"id="differences""#));
+    assert!(html.contains(r#"id="yield-area""#));
+    check_traceability(&out);
 }

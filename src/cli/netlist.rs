@@ -219,7 +219,7 @@ pub fn export(args: ExportArgs) -> anyhow::Result<()> {
                 &setup,
                 &prep,
                 seed,
-                args.point as u64,
+                resolved.base.population.pairing.dies_at(args.point),
                 chip_index,
                 &wanted,
             )?;

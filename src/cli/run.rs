@@ -164,6 +164,41 @@ pub fn print_summary(s: &RunSummary, axes: &[crate::experiment::sweep::Axis]) {
         "{} points ({} run now, {} resumed) in {:.1} s",
         s.points_total, s.points_run, s.points_resumed, s.elapsed_s
     );
+    if let Some(line) = verdict_line(&s.records) {
+        println!("{line}");
+    }
+}
+
+/// One sentence answering the design question from the finished points.
+pub fn verdict_line(records: &[crate::experiment::results::PointRecord]) -> Option<String> {
+    let choice = crate::answers::choose(&crate::answers::candidates(records))?;
+    let r = records.iter().find(|r| r.point as u64 == choice.point)?;
+    let m = r.summary();
+    let margin = crate::answers::yield_margin(r, &m)?;
+    let cost = r.cost.as_ref().map_or_else(String::new, |c| {
+        format!(
+            ", {:.0} um2 layout area, {} supply current",
+            c.area_m2 * 1e12,
+            crate::units::format_si(c.supply_current_a, "A", 3)
+        )
+    });
+    let target = r.yield_target.unwrap_or(f64::NAN);
+    Some(if choice.passes {
+        format!(
+            "cheapest passing point: {} (yield low end {:.3} >= target {:.3}, margin {:+.3}{cost})",
+            r.point, m.yield_lo, target, margin
+        )
+    } else {
+        format!(
+            "no point passes: nearest is point {} (yield low end {:.3} < target {:.3}, short by {:.3}; {:.1} % of chips reach {:.1} % accuracy{cost})",
+            r.point,
+            m.yield_lo,
+            target,
+            -margin,
+            100.0 * m.yield_,
+            100.0 * r.target
+        )
+    })
 }
 
 /// One line per point: the swept values (with units), yield first, then accuracy and failures.
@@ -199,25 +234,47 @@ pub fn print_table(records: &[crate::experiment::results::PointRecord], axes: &[
         head += &format!("  {n:>w$}");
     }
     println!(
-        "{head}  {:>6}  {:>16}  {:>9}  {:>9}  {:>9}  {:>9}  {:>6}",
-        "yield", "yield 95% CI", "acc mean", "acc p05", "ideal", "baseline", "failed"
+        "{head}  {:>6}  {:>16}  {:>4}  {:>9}  {:>9}  {:>9}  {:>9}  {:>6}  {:>11}  {:>10}  {:>10}  {:>10}",
+        "yield",
+        "yield 95% CI",
+        "pass",
+        "acc mean",
+        "acc p05",
+        "ideal",
+        "baseline",
+        "failed",
+        "area",
+        "current",
+        "power",
+        "energy"
     );
+    let si = |v: Option<f64>, unit: &str| {
+        v.map_or_else(|| "-".into(), |v| crate::units::format_si(v, unit, 3))
+    };
     for r in records {
         let m = r.summary();
+        let margin = crate::answers::yield_margin(r, &m);
+        let c = r.cost.as_ref();
+        let t = crate::answers::decision_time(r, &m);
         let mut line = format!("{:>5}", r.point);
         for ((a, w), v) in axes.iter().zip(&widths).zip(&r.params) {
             line += &format!("  {:>w$}", cell(a, *v));
         }
         println!(
-            "{line}  {:>6.3}  [{:>6.3}, {:>6.3}]  {:>9.4}  {:>9.4}  {:>9.4}  {:>9.4}  {:>6}",
+            "{line}  {:>6.3}  [{:>6.3}, {:>6.3}]  {:>4}  {:>9.4}  {:>9.4}  {:>9.4}  {:>9.4}  {:>6}  {:>11}  {:>10}  {:>10}  {:>10}",
             m.yield_,
             m.yield_lo,
             m.yield_hi,
+            margin.map_or("-", |x| if x >= 0.0 { "yes" } else { "no" }),
             m.acc_mean,
             m.acc_p05,
             r.ideal_acc,
             r.baseline_acc,
-            m.nonconverged
+            m.nonconverged,
+            c.map_or_else(|| "-".into(), |c| format!("{:.0} um2", c.area_m2 * 1e12)),
+            si(c.map(|c| c.supply_current_a), "A"),
+            si(c.map(|c| c.power_w), "W"),
+            si(c.and_then(|c| t.map(|t| c.power_w * t)), "J"),
         );
     }
 }

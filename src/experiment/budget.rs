@@ -137,6 +137,7 @@ pub fn run_budget(resolved: &Resolved, opts: &BudgetOptions) -> Result<Budget, B
         experiment: e.name.clone(),
         settings,
         point: opts.point,
+        dies: e.population.pairing.dies_at(opts.point),
         chips,
         seed: e.population.seed,
         target_accuracy: e.target.accuracy,
@@ -161,8 +162,11 @@ pub fn run_budget(resolved: &Resolved, opts: &BudgetOptions) -> Result<Budget, B
 pub struct BudgetSpec {
     pub experiment: String,
     pub settings: String,
-    /// Sweep point index: the chip streams' point index, the same for every variant.
+    /// Sweep point index.
     pub point: usize,
+    /// How the point's chip streams are keyed (paired dies or the point's own); the same for
+    /// every variant.
+    pub dies: crate::pipeline::Dies,
     pub chips: u64,
     pub seed: u64,
     pub target_accuracy: f64,
@@ -246,7 +250,7 @@ pub fn budget_of(
         })?
     };
     let seed = spec.seed;
-    let point = spec.point as u64;
+    let dies = spec.dies;
     // per_die[die][variant]; each die evaluates every variant (same draws in each).
     let per_die: Vec<Vec<f64>> = pool.install(|| {
         (0..chips)
@@ -254,7 +258,7 @@ pub fn budget_of(
             .map(|c| {
                 setups
                     .iter()
-                    .map(|(s, t)| evaluate_chip_with(s, prep, seed, point, c, t).accuracy())
+                    .map(|(s, t)| evaluate_chip_with(s, prep, seed, dies, c, t).accuracy())
                     .collect()
             })
             .collect()

@@ -639,3 +639,14 @@ pub fn build_point(e: &Experiment, prep: &Prepared) -> Result<PointSetup, BuildE
     let d = design(e, prep.class_names.len())?;
     Ok(PointSetup::new(d, prep)?)
 }
+
+/// The cost model settings of an experiment (`[cost]`; the weight element's own size for a
+/// linear element comes from `cost.linear_element`).
+pub fn cost_settings(e: &Experiment) -> crate::pipeline::cost::CostSettings {
+    crate::pipeline::cost::CostSettings {
+        layout_overhead: e.cost.layout_overhead,
+        dac_unit: transistor(&e.cost.dac_unit),
+        linear_element: transistor(&e.cost.linear_element),
+        read_out_time_s: e.cost.read_out_time.si(),
+    }
+}

@@ -496,6 +496,9 @@ impl Default for ConditionsCfg {
 pub struct PopulationCfg {
     pub chips: u64,
     pub seed: u64,
+    /// Whether chip c is the same die at every sweep point (`paired`, common random numbers)
+    /// or a fresh die per point (`independent`).
+    pub pairing: PairingKind,
 }
 
 impl Default for PopulationCfg {
@@ -503,6 +506,54 @@ impl Default for PopulationCfg {
         Self {
             chips: 100,
             seed: 1,
+            pairing: PairingKind::Paired,
+        }
+    }
+}
+
+/// `population.pairing`: how dies relate across sweep points.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum PairingKind {
+    /// Die c draws the same standard normals at every point (differences are paired).
+    Paired,
+    /// Fresh dies at every point.
+    Independent,
+}
+
+impl PairingKind {
+    /// How sweep point `point`'s chip streams are keyed (the core's [`crate::pipeline::Dies`]).
+    pub fn dies_at(self, point: usize) -> crate::pipeline::Dies {
+        match self {
+            PairingKind::Paired => crate::pipeline::Dies::Paired,
+            PairingKind::Independent => crate::pipeline::Dies::Independent {
+                point: point as u64,
+            },
+        }
+    }
+}
+
+/// `[cost]`: the area and power model (DEVELOPERS.md, model notes §11).
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields, default)]
+pub struct CostCfg {
+    /// Layout area / gate area (routing, wells, guard rings); 2 is common practice, no source.
+    pub layout_overhead: f64,
+    /// Unit device of the input DAC (2^B - 1 per input line).
+    pub dac_unit: SizeCfg,
+    /// The device a linear weight element counts as.
+    pub linear_element: SizeCfg,
+    /// How long a DC decision keeps the circuit biased (energy = power x this time).
+    pub read_out_time: Q<Time>,
+}
+
+impl Default for CostCfg {
+    fn default() -> Self {
+        Self {
+            layout_overhead: 2.0,
+            dac_unit: SizeCfg::um(1.0, 1.0),
+            linear_element: SizeCfg::um(1.0, 1.0),
+            read_out_time: Q::new(1e-6),
         }
     }
 }
@@ -514,6 +565,10 @@ pub struct TargetCfg {
     pub accuracy: f64,
     /// Confidence level of the yield interval (0.95 -> z = 1.96).
     pub confidence: f64,
+    /// Yield target: a point passes when the low end of the Wilson interval of the share of
+    /// chips reaching `accuracy` is at least this.
+    #[serde(rename = "yield")]
+    pub yield_target: f64,
 }
 
 impl Default for TargetCfg {
@@ -521,6 +576,7 @@ impl Default for TargetCfg {
         Self {
             accuracy: 0.9,
             confidence: 0.95,
+            yield_target: 0.95,
         }
     }
 }
@@ -577,6 +633,8 @@ pub struct Experiment {
     #[serde(default)]
     pub target: TargetCfg,
     #[serde(default)]
+    pub cost: CostCfg,
+    #[serde(default)]
     pub sweep: SweepSpec,
     /// Batch-scheduler settings (taken out of the resolved experiment, see [`ClusterCfg`]).
     #[serde(default, skip_serializing_if = "Option::is_none")]
@@ -608,6 +666,7 @@ impl Experiment {
             conditions: ConditionsCfg::default(),
             population: PopulationCfg::default(),
             target: TargetCfg::default(),
+            cost: CostCfg::default(),
             sweep: SweepSpec::default(),
             cluster: None,
         };
@@ -1172,6 +1231,16 @@ fn check(e: &Experiment, text: &str, file: &Path) -> Result<(), ConfigError> {
     frac("dataset.test_fraction", e.dataset.test_fraction, true, true)?;
     frac("target.accuracy", e.target.accuracy, false, false)?;
     frac("target.confidence", e.target.confidence, true, true)?;
+    frac("target.yield", e.target.yield_target, true, true)?;
+    if !(e.cost.layout_overhead.is_finite() && e.cost.layout_overhead >= 1.0) {
+        return Err(bad(
+            "cost.layout_overhead",
+            format!(
+                "{}: expected a factor of at least 1 (layout area over gate area; 2 is common practice)",
+                e.cost.layout_overhead
+            ),
+        ));
+    }
     frac(
         "competition.min_winner_share",
         e.competition.min_winner_share,
@@ -1269,6 +1338,11 @@ fn check(e: &Experiment, text: &str, file: &Path) -> Result<(), ConfigError> {
         ("weights.device.l", e.weights.device.l.si()),
         ("weights.mirror.w", e.weights.mirror.w.si()),
         ("weights.mirror.l", e.weights.mirror.l.si()),
+        ("cost.dac_unit.w", e.cost.dac_unit.w.si()),
+        ("cost.dac_unit.l", e.cost.dac_unit.l.si()),
+        ("cost.linear_element.w", e.cost.linear_element.w.si()),
+        ("cost.linear_element.l", e.cost.linear_element.l.si()),
+        ("cost.read_out_time", e.cost.read_out_time.si()),
         (
             "weights.drift_reference_time",
             e.weights.drift_reference_time.si(),
@@ -1530,5 +1604,31 @@ mod tests {
             .unwrap_err()
             .to_string();
         assert!(e.contains("did you mean `iris`"), "{e}");
+    }
+
+    /// A yield target outside (0, 1), a layout overhead below 1 (negative included), an unknown
+    /// pairing: errors naming the key (and its line).
+    #[test]
+    fn design_answer_keys_are_checked() {
+        for (text, key) in [
+            ("[target]\nyield = 1.0\n", "target.yield"),
+            ("[target]\nyield = 0\n", "target.yield"),
+            ("[target]\nconfidence = 1.5\n", "target.confidence"),
+            ("[cost]\nlayout_overhead = -2\n", "cost.layout_overhead"),
+            ("[cost]\nread_out_time = \"0 s\"\n", "cost.read_out_time"),
+        ] {
+            let e = load_text(&format!("[dataset]\nname = \"iris\"\n{text}"))
+                .unwrap_err()
+                .to_string();
+            assert!(e.contains(key) && e.contains("line 4"), "{key}: {e}");
+        }
+        let e = load_text("[dataset]\nname = \"iris\"\n[population]\npairing = \"same\"\n")
+            .unwrap_err()
+            .to_string();
+        assert!(e.contains("pairing"), "{e}");
+        let r = load_text("[dataset]\nname = \"iris\"\n").unwrap_or_else(|e| panic!("{e}"));
+        assert_eq!(r.base.population.pairing, PairingKind::Paired);
+        assert!(r.to_toml().contains("pairing = \"paired\""));
+        assert!(r.to_toml().contains("yield = 0.95"));
     }
 }

@@ -13,12 +13,13 @@ use rayon::prelude::*;
 use serde_json::json;
 use sha2::{Digest, Sha256};
 
-use super::build::{build_point, prepare_data};
+use super::build::{build_point, cost_settings, prepare_data};
 use super::config::Resolved;
 use super::results::{ChipRow, PointRecord, ResultsDir, ResultsError, FORMAT_NAME, FORMAT_VERSION};
 use super::shard::{Plan, ShardError, ShardSpec};
 use crate::io::write_atomic;
-use crate::pipeline::{evaluate_chip, Prepared};
+use crate::pipeline::cost::{mean_input, point_cost};
+use crate::pipeline::{evaluate_chip, Dies, Prepared};
 
 /// Errors of a run; each says which point or file.
 #[derive(Debug, thiserror::Error)]
@@ -322,6 +323,7 @@ pub fn run(
     let base = &resolved.base;
     let chips = base.population.chips;
     let seed = base.population.seed;
+    let paired = base.population.pairing == super::config::PairingKind::Paired;
     let z = normal_quantile_two_sided(base.target.confidence);
 
     let pool = {
@@ -353,6 +355,8 @@ pub fn run(
             "points_done": records.len(),
             "chips_per_point": chips,
             "target_accuracy": base.target.accuracy,
+            "target_yield": base.target.yield_target,
+            "pairing": if paired { "paired" } else { "independent" },
             "threads": threads,
             "transient": base.competition.evaluation == super::config::EvaluationKind::Transient,
             "dataset": prepared.first().map(|(_, p)| json!({
@@ -419,7 +423,14 @@ pub fn run(
                     if observer.should_stop() {
                         return None;
                     }
-                    let o = evaluate_chip(setup, prep, seed, p.point as u64, c);
+                    let dies = if paired {
+                        Dies::Paired
+                    } else {
+                        Dies::Independent {
+                            point: p.point as u64,
+                        }
+                    };
+                    let o = evaluate_chip(setup, prep, seed, dies, c);
                     observer.chip_done();
                     Some(o)
                 })
@@ -461,6 +472,15 @@ pub fn run(
             .zip(&p.value_index)
             .map(|(a, &i)| a.values[i])
             .collect();
+        let e = &resolved.at_point[p.point];
+        let cost =
+            point_cost(setup, prep, &mean_input(&prep.test_u), &cost_settings(e)).map_err(|m| {
+                RunError::Point {
+                    point: p.point,
+                    settings: resolved.describe_point(p),
+                    message: format!("cost.{m}"),
+                }
+            })?;
         let rec = PointRecord {
             point: p.point,
             params,
@@ -472,6 +492,15 @@ pub fn run(
             z,
             elapsed_s: tp.elapsed().as_secs_f64(),
             first_failure,
+            yield_target: Some(e.target.yield_target),
+            cost: Some(crate::answers::PointCost {
+                gate_area_m2: cost.gate_area_m2,
+                area_m2: cost.area_m2,
+                supply_current_a: cost.supply_current_a,
+                power_w: cost.power_w,
+                read_out_time_s: e.cost.read_out_time.si(),
+            }),
+            paired,
         };
         dir.save_point(&rec)?;
         let s = rec.summary();

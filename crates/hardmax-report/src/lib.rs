@@ -8,6 +8,7 @@
 //! Depends on the numerical core only for quantity formatting; the core never depends on this
 //! crate.
 
+pub mod answers;
 pub mod io;
 pub mod paired;
 pub mod report;

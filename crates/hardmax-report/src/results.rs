@@ -61,6 +61,15 @@ pub struct PointRecord {
     /// Why the first failed decision (in chip order) failed, if any decision failed.
     #[serde(default)]
     pub first_failure: Option<String>,
+    /// Yield target of the pass rule (`crate::answers`), if the experiment gives one.
+    #[serde(default)]
+    pub yield_target: Option<f64>,
+    /// What the design point costs.
+    #[serde(default)]
+    pub cost: Option<crate::answers::PointCost>,
+    /// Chip c is the same die at every sweep point (paired differences).
+    #[serde(default)]
+    pub paired: bool,
 }
 
 /// Population statistics of one point (a `points.csv` row).
@@ -278,6 +287,10 @@ impl ResultsDir {
             &self.root.join("confusion.csv"),
             &confusion_csv(records, class_names),
         )?;
+        write_atomic(
+            &self.root.join("differences.csv"),
+            &crate::answers::differences_csv(records),
+        )?;
         Ok(())
     }
 }
@@ -310,9 +323,11 @@ pub fn points_csv(records: &[PointRecord], axis_paths: &[String]) -> Vec<u8> {
     header.extend(axis_paths.iter().cloned());
     header.extend(POINT_STAT_COLUMNS.map(String::from));
     header.extend(FAILURE_COLUMNS.map(String::from));
+    header.extend(crate::answers::DESIGN_COLUMNS.map(String::from));
     let mut rows = vec![header];
     for r in records {
         let s = r.summary();
+        let design = crate::answers::design_cells(r, &s);
         let mut row = vec![r.point.to_string()];
         row.extend(r.params.iter().map(|v| fmt(*v)));
         row.extend([
@@ -336,6 +351,7 @@ pub fn points_csv(records: &[PointRecord], axis_paths: &[String]) -> Vec<u8> {
             opt(s.energy_mean_j),
         ]);
         row.extend(FailureKind::ALL.map(|k| s.failed.get(k).to_string()));
+        row.extend(design);
         rows.push(row);
     }
     to_bytes(rows)
@@ -428,6 +444,9 @@ mod tests {
             ideal_acc: 0.9,
             baseline_acc: 0.9,
             target: 0.8,
+            yield_target: None,
+            cost: None,
+            paired: true,
             z: 1.96,
             elapsed_s: 0.1,
             first_failure: None,
@@ -500,12 +519,13 @@ mod tests {
         let p = String::from_utf8(points_csv(&recs, &["competition.bias_current".into()])).unwrap();
         let header = p.lines().next().unwrap();
         assert!(header.starts_with("point,competition.bias_current,chips,samples,acc_mean"));
-        assert!(header.ends_with(
+        assert!(header.contains(
             "decision_time_mean_s,energy_mean_j,failed_not_converged,\
-             failed_out_of_supply_compliance,failed_weight_stage,failed_noise"
+             failed_out_of_supply_compliance,failed_weight_stage,failed_noise,yield_target,pass"
         ));
+        assert!(header.ends_with("decision_time_s,energy_per_decision_j"));
         // Two chips with 1 not converged and 2 out of compliance each: 2 and 4 at the point.
-        assert!(p.lines().nth(1).unwrap().ends_with(",6,,,2,4,0,0"), "{p}");
+        assert!(p.lines().nth(1).unwrap().contains(",6,,,2,4,0,0,"), "{p}");
         let c = String::from_utf8(confusion_csv(&recs, &["a".into(), "b".into()])).unwrap();
         assert!(c.contains("0,b,ambiguous,1"), "{c}");
         let ch = String::from_utf8(chips_csv(&recs, &["x".into()])).unwrap();

@@ -1,15 +1,23 @@
 //! The classifier on a chip: trained weights mapped onto a weight stage feeding a competition
 //! stage; one chip's forward pass over a test split; per-chip metrics.
 //!
-//! Numerical core: no I/O, no printing. Every random draw comes from keyed streams:
-//! - chip (static) draws: `rng::stream(seed, [CHIP, point, chip])`, weight stage first, then
-//!   the competition stage's transistors, in a fixed order;
-//! - per-decision noise: `rng::stream(seed, [SAMPLE_NOISE, point, chip])`, consumed sample by
-//!   sample in test-set order by the one thread that evaluates the chip.
+//! Numerical core: no I/O, no printing. Every random draw comes from keyed streams (see
+//! [`Dies`]): with paired dies (the default) the keys leave out the sweep point, so die `c` is
+//! the same physical die at every point; with independent dies the point index is part of every
+//! key.
+//! - chip (static) draws: `rng::stream(seed, [CHIP, (point,) chip, block])`, one stream per
+//!   block (weight stage `k`, competition stage, hidden circuit), each drawn in a fixed order
+//!   and count whatever the swept values (standard normals scaled by the point's sigmas);
+//! - per-decision noise: `rng::stream(seed, [SAMPLE_NOISE, (point,) chip, sample, source])`,
+//!   one stream per test sample and noise source (read noise, input noise, transient noise), so
+//!   a source's draws for a sample never shift when another source or another sample draws
+//!   more or fewer numbers (a transient's step count depends on swept values).
 //!
-//! So a chip's outcome depends only on (seed, point, chip), never on thread scheduling.
+//! So a chip's outcome depends only on (seed, point if independent, chip), never on thread
+//! scheduling.
 
 pub mod budget;
+pub mod cost;
 
 use ndarray::{Array1, Array2, Axis};
 
@@ -848,6 +856,45 @@ fn failed(
     kind
 }
 
+/// Which dies a sweep point evaluates: how chip streams are keyed.
+///
+/// Paired dies (common random numbers): die `c` draws the same standard normals at every sweep
+/// point, scaled by that point's sigmas and sizes (dV_T = z A_VT / sqrt(2 W L) with the same
+/// z), so the difference between two points is a paired difference: its variance is
+/// var(a) + var(b) - 2 cov(a, b), well below that of two independent populations.
+/// Independent dies: fresh dies at every point (the point index is part of every key).
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+pub enum Dies {
+    /// The same dies at every sweep point (keys without the point index).
+    #[default]
+    Paired,
+    /// Fresh dies at every sweep point (keys with the point index).
+    Independent { point: u64 },
+}
+
+impl Dies {
+    /// The stream `[domain, (point,) tail...]`.
+    pub fn stream(self, seed: u64, domain: u64, tail: &[u64]) -> crate::rng::Stream {
+        let mut path = Vec::with_capacity(tail.len() + 2);
+        path.push(domain);
+        if let Dies::Independent { point } = self {
+            path.push(point);
+        }
+        path.extend_from_slice(tail);
+        stream(seed, &path)
+    }
+}
+
+/// Per-decision noise sources: the last element of a sample-noise stream key.
+pub mod noise_source {
+    /// Read noise of the weight elements (every stage, in chain order).
+    pub const READ: u64 = 0;
+    /// Input-referred shot noise of the competition stage (DC evaluation).
+    pub const INPUT: u64 = 1;
+    /// Noise integrated by the transient evaluation.
+    pub const TRANSIENT: u64 = 2;
+}
+
 /// Stream index of the competition stage's chip draws (after the weight stages' 0, 1, ...).
 pub const COMPETITION_STREAM: u64 = 1000;
 /// Stream index of the hidden normaliser circuit's chip draws.
@@ -939,7 +986,7 @@ pub fn sample_die(
     setup: &PointSetup,
     prep: &Prepared,
     seed: u64,
-    point: u64,
+    dies: Dies,
     chip: u64,
     indices: &[usize],
 ) -> Result<DieSamples, PipelineError> {
@@ -951,9 +998,9 @@ pub fn sample_die(
         });
     }
     let wchip = setup.mapped.sample_chip(&d.process, |k| {
-        stream(seed, &[domain::CHIP, point, chip, k as u64])
+        dies.stream(seed, domain::CHIP, &[chip, k as u64])
     });
-    let mut chip_rng = stream(seed, &[domain::CHIP, point, chip, COMPETITION_STREAM]);
+    let mut chip_rng = dies.stream(seed, domain::CHIP, &[chip, COMPETITION_STREAM]);
     let eff = wchip.effective(&d.conditions)?;
     let comp = sample_competition(&d.competition, &d.process, &mut chip_rng, 1.0)?.ok_or(
         PipelineError::Unsupported {
@@ -998,10 +1045,10 @@ pub fn evaluate_chip(
     setup: &PointSetup,
     prep: &Prepared,
     seed: u64,
-    point: u64,
+    dies: Dies,
     chip: u64,
 ) -> ChipOutcome {
-    evaluate_chip_with(setup, prep, seed, point, chip, &ChipToggles::default())
+    evaluate_chip_with(setup, prep, seed, dies, chip, &ChipToggles::default())
 }
 
 /// [`evaluate_chip`] with some nonidealities scaled (by zero, for an error budget) or the
@@ -1010,15 +1057,15 @@ pub fn evaluate_chip_with(
     setup: &PointSetup,
     prep: &Prepared,
     seed: u64,
-    point: u64,
+    dies: Dies,
     chip: u64,
     toggles: &ChipToggles,
 ) -> ChipOutcome {
     let n_classes = prep.class_names.len();
     let mut out = ChipOutcome::empty(chip, n_classes);
     let d = &setup.design;
-    // Weight stage k draws from [CHIP, point, chip, k]; the competition stage from
-    // [CHIP, point, chip, COMPETITION_STREAM].
+    // Weight stage k draws from [CHIP, (point,) chip, k]; the competition stage from
+    // [CHIP, (point,) chip, COMPETITION_STREAM].
     let weight_process = if toggles.weight_mismatch == 1.0 {
         std::borrow::Cow::Borrowed(&d.process)
     } else {
@@ -1030,9 +1077,9 @@ pub fn evaluate_chip_with(
         std::borrow::Cow::Owned(p)
     };
     let wchip = setup.mapped.sample_chip(&weight_process, |k| {
-        stream(seed, &[domain::CHIP, point, chip, k as u64])
+        dies.stream(seed, domain::CHIP, &[chip, k as u64])
     });
-    let mut chip_rng = stream(seed, &[domain::CHIP, point, chip, COMPETITION_STREAM]);
+    let mut chip_rng = dies.stream(seed, domain::CHIP, &[chip, COMPETITION_STREAM]);
     let built = (|| -> Result<_, PipelineError> {
         let mut eff = wchip.effective(&d.conditions)?;
         if toggles.read_noise != 1.0 {
@@ -1049,7 +1096,7 @@ pub fn evaluate_chip_with(
         )?;
         let hidden = match &d.hidden_circuit {
             Some(h) if eff.stages().len() == 2 => {
-                let mut r = stream(seed, &[domain::CHIP, point, chip, HIDDEN_CIRCUIT_STREAM]);
+                let mut r = dies.stream(seed, domain::CHIP, &[chip, HIDDEN_CIRCUIT_STREAM]);
                 Some(build_decider(
                     h,
                     &d.process,
@@ -1076,7 +1123,6 @@ pub fn evaluate_chip_with(
             return out;
         }
     };
-    let mut noise_rng = stream(seed, &[domain::SAMPLE_NOISE, point, chip]);
     let mut currents = vec![0.0; eff.outputs()];
     let mut noisy = vec![0.0; eff.outputs()];
     let mut scratch: ChainScratch = eff.scratch();
@@ -1089,7 +1135,11 @@ pub fn evaluate_chip_with(
     let mut xbuf: Vec<f64> = Vec::with_capacity(prep.test_u.ncols());
     // Sum of decision times, energies, and their count (transient evaluation).
     let mut out_time = (0.0, 0.0, 0u64);
+    let noise_stream =
+        |i: usize, source: u64| dies.stream(seed, domain::SAMPLE_NOISE, &[chip, i as u64, source]);
     for (i, (row, &truth)) in prep.test_u.outer_iter().zip(&prep.test_y).enumerate() {
+        // One stream per sample and noise source, made only when the source draws.
+        let mut read_rng = noisy_weights.then(|| noise_stream(i, noise_source::READ));
         let x: &[f64] = match row.as_slice() {
             Some(s) => s,
             None => {
@@ -1105,10 +1155,9 @@ pub fn evaluate_chip_with(
                 (Some(h), [stage0, stage1]) => {
                     // Hidden stage evaluated as a circuit: first layer, normaliser circuit (its
                     // shares feed the read-out as they do in the closed form), read-out layer.
-                    if noisy_weights {
-                        stage0.forward(x, &mut hbuf, &mut noise_rng)
-                    } else {
-                        stage0.forward_noiseless(x, &mut hbuf)
+                    match read_rng.as_mut() {
+                        Some(r) => stage0.forward(x, &mut hbuf, r),
+                        None => stage0.forward_noiseless(x, &mut hbuf),
                     }
                     .map_err(|e| failed(first, FailureKind::WeightStage, e))?;
                     let solved = match h {
@@ -1123,26 +1172,25 @@ pub fn evaluate_chip_with(
                             format_args!("hidden stage: {e}"),
                         )
                     })?;
-                    if noisy_weights {
-                        stage1.forward(&hsol.shares, &mut currents, &mut noise_rng)
-                    } else {
-                        stage1.forward_noiseless(&hsol.shares, &mut currents)
+                    match read_rng.as_mut() {
+                        Some(r) => stage1.forward(&hsol.shares, &mut currents, r),
+                        None => stage1.forward_noiseless(&hsol.shares, &mut currents),
                     }
                     .map_err(|e| failed(first, FailureKind::WeightStage, e))?;
                 }
-                _ => if noisy_weights {
-                    eff.forward(x, &mut scratch, &mut currents, &mut noise_rng)
-                } else {
-                    eff.forward_noiseless(x, &mut scratch, &mut currents)
+                _ => match read_rng.as_mut() {
+                    Some(r) => eff.forward(x, &mut scratch, &mut currents, r),
+                    None => eff.forward_noiseless(x, &mut scratch, &mut currents),
                 }
                 .map_err(|e| failed(first, FailureKind::WeightStage, e))?,
             }
             // Static (input-referred) noise: only where no transient SDE owns it.
+            let mut input_rng = noise_stream(i, noise_source::INPUT);
             let inputs = d
                 .competition_inputs_scaled(
                     &currents,
                     &mut noisy,
-                    &mut noise_rng,
+                    &mut input_rng,
                     toggles.shot_noise,
                 )
                 .map_err(|e| failed(first, FailureKind::Noise, e))?;
@@ -1180,6 +1228,7 @@ pub fn evaluate_chip_with(
                 Decider::Wta(c) => match &d.transient {
                     None => solve_decide(c.as_ref(), inputs, &mut ws, &mut sol, &d.decision, first),
                     Some(t) => {
+                        let mut noise_rng = noise_stream(i, noise_source::TRANSIENT);
                         let noise = t
                             .noise
                             .as_ref()

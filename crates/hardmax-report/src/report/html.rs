@@ -9,6 +9,8 @@
 
 use std::fmt::Write as _;
 
+mod answer;
+
 use super::folder::{PointRow, ResultsFolder, RunStatus, SweepMode};
 use super::format::{esc, fmt_duration, fmt_kind, fmt_unix_utc, raw_value, NumberKind};
 use super::render::{describe_point, point_label, short_name, Figure};
@@ -171,7 +173,7 @@ fn column_kind(folder: &ResultsFolder, col: &str) -> (NumberKind, String) {
         "nonconverged" => (NumberKind::Count, "non-converged"),
         "decision_time_mean_s" => (NumberKind::Si("s".into()), "mean decision time"),
         "energy_mean_j" => (NumberKind::Si("J".into()), "mean energy / decision"),
-        _ => (NumberKind::Plain, col),
+        c => answer::column_kind(c).unwrap_or((NumberKind::Plain, col)),
     };
     (kind, title.to_string())
 }
@@ -626,7 +628,8 @@ pub fn report_html(folder: &ResultsFolder, figures: &[Figure], focus: Option<u64
     );
     let _ = write!(
         s,
-        r#"<section id="headline"><h2><span class="n">2</span>Headline numbers</h2>{}</section>"#,
+        r#"<section id="headline"><h2><span class="n">2</span>Headline numbers</h2>{}{}</section>"#,
+        answer::design_answer(folder),
         headline(folder)
     );
 
