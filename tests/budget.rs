@@ -291,16 +291,23 @@ fn switched_off_noise_keeps_the_draws_of_later_noise() {
     let (vd, vt) = variant(&design, |n| n == Nonideality::ShotNoise);
     let shot_only = PointSetup::new(vd, &prep).unwrap();
     let tiny = PointSetup::new(with_read(1e-300), &prep).unwrap();
-    let none = PointSetup::new(with_read(0.0), &prep).unwrap();
-    let mut differs = false;
     for chip in 0..4 {
         let a = evaluate_chip_with(&shot_only, &prep, 3, Dies::Paired, chip, &vt);
         let b = evaluate_chip(&tiny, &prep, 3, Dies::Paired, chip);
         assert_eq!(a.correct, b.correct, "chip {chip}");
         assert_eq!(a.confusion, b.confusion, "chip {chip}");
-        differs |= evaluate_chip(&none, &prep, 3, Dies::Paired, chip).confusion != a.confusion;
     }
-    assert!(differs, "the control should draw differently");
+    // Each noise source has its own stream per sample (pipeline module docs), so a design
+    // whose read noise draws nothing at all gives the same decisions too.
+    let none = PointSetup::new(with_read(0.0), &prep).unwrap();
+    for chip in 0..4 {
+        let a = evaluate_chip_with(&shot_only, &prep, 3, Dies::Paired, chip, &vt);
+        assert_eq!(
+            evaluate_chip(&none, &prep, 3, Dies::Paired, chip).confusion,
+            a.confusion,
+            "chip {chip}"
+        );
+    }
 }
 
 /// The all-on variant is the design as `hardmax run` evaluates it: on the same point and seed,
