@@ -5,8 +5,8 @@ use clap::{Parser, Subcommand};
 
 pub mod baseline;
 pub mod batch;
-pub mod merge;
 pub mod fit;
+pub mod merge;
 pub mod netlist;
 pub mod progress;
 pub mod render;

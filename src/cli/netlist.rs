@@ -185,7 +185,10 @@ pub fn export(args: ExportArgs) -> anyhow::Result<()> {
                 // The identity covers the input files' contents too: a changed dataset is
                 // refused here as well.
                 let now = experiment_hash(&resolved).with_context(|| {
-                    format!("checking the inputs of the results folder `{}`", dir.display())
+                    format!(
+                        "checking the inputs of the results folder `{}`",
+                        dir.display()
+                    )
                 })?;
                 if h.trim() != now {
                     bail!(

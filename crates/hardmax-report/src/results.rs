@@ -13,8 +13,8 @@ use serde::{Deserialize, Serialize};
 use super::stats::{summarize, wilson_interval};
 use crate::io::write_atomic;
 // One definition of the table schema, shared with the reader in `report`.
-use hardmax_core::pipeline::{FailureCounts, FailureKind};
 use crate::report::folder::{CHIP_COLUMNS, CONFUSION_COLUMNS, FAILURE_COLUMNS, POINT_STAT_COLUMNS};
+use hardmax_core::pipeline::{FailureCounts, FailureKind};
 
 /// Version of the results-folder format (manifest `format_version`).
 pub const FORMAT_VERSION: u32 = 1;

@@ -193,7 +193,9 @@ impl Writer<'_> {
                 },
                 Some(t),
             ) => self.mos(name, node, Gate::Fixed(gate_voltage), "0", &device, t, mm),
-            (CurrentSource::Ideal { current: i }, _) => writeln!(self.s, "I{name} {node} 0 DC {i:e}").unwrap(),
+            (CurrentSource::Ideal { current: i }, _) => {
+                writeln!(self.s, "I{name} {node} 0 DC {i:e}").unwrap()
+            }
             (CurrentSource::Transistor { .. }, None) => return Err(NetlistError::Inconsistent),
         }
         Ok(())
