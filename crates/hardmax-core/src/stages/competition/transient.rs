@@ -45,9 +45,12 @@
 //! bias switched on at t = 0. [`InitialState::CommonMode`]: the DC state of the circuit fed the
 //! mean input on every line (the circuit sat equalised), then the actual inputs from t = 0.
 //! [`InitialState::Dc`]: the DC state of the actual inputs (nothing moves; for checks).
-//! Without a read-out time the run ends when the circuit has settled (every node's relative
-//! KCL residual `|C dV/dt| / current scale` below `settle_tolerance`) or at `t_max`; with a
-//! read-out time it ends exactly there.
+//! Without a read-out time a noiseless run ends when the circuit has settled (every node's
+//! relative KCL residual `|C dV/dt| / current scale` below `settle_tolerance`) or at `t_max`; a
+//! noisy run (which never settles) ends by the *hold rule*: once the decision rule's decision
+//! has been non-ambiguous with the same winner for `hold_time` (default
+//! [`DEFAULT_HOLD_SCALES`] = 10 time scales), or at `t_max`. With a read-out time every run
+//! ends exactly there.
 //!
 //! ## Outputs
 //!
@@ -76,8 +79,22 @@
 //! `2 q (I_f + I_r)` of every sink, output and bias transistor ([`shot_noise_psd`]; R.
 //! Sarpeshkar, T. Delbrück, C. Mead, IEEE Circuits & Devices 9(6), 1993), `2 q I_b` for an
 //! ideal bias, and optionally `2 q I_k` on each input (the input current's own shot noise).
-//! Noisy runs take fixed steps (`NoiseOptions::step`, default a tenth of the time scale): the
-//! local error control of the deterministic run does not apply to a Brownian path. Flicker noise
+//!
+//! Step control of noisy runs (unless `NoiseOptions::step` fixes the step, as reference runs
+//! do): the step is chosen from the *drift* only, as in the adaptive Euler–Maruyama scheme of
+//! H. Lamba, J. C. Mattingly, A. M. Stuart, "An adaptive Euler–Maruyama scheme for SDEs:
+//! convergence and stability", IMA J. Numer. Anal. 27 (2007) 479–506: the drift rate of each
+//! node over a step is its increment with the noise charge removed, `(Δx - q/C)/h`, and the
+//! backward-Euler error estimate above is formed from two consecutive drift rates. A noisy step
+//! is never rejected on that estimate (rejecting on the drawn increment would bias the path;
+//! only a Newton failure halves the step); the estimate sets the *next* step, a function of the
+//! path so far. Its tolerance adds the step's own noise spread `sqrt(Σ S h / 2) / C` per node
+//! to `atol + rtol |x|` (a drift error below the step's noise increment is below the
+//! Euler–Maruyama scheme's own strong error, order 1/2; a choice of ours). The step is capped at
+//! `NoiseOptions::max_step_scales` time scales (default [`DEFAULT_NOISE_MAX_STEP_SCALES`] = 4),
+//! which ties it to the nodes' noise bandwidth kappa I / (4 C U_T). The decision-time
+//! distribution then matches runs with a fixed step of 1/50 time scale (two-sample
+//! Kolmogorov–Smirnov at 1 %, tested). Flicker noise
 //! is not integrated (a 1/f source needs a bank of filtered processes; not built yet).
 //!
 //! Numerical core: no I/O, no printing.
@@ -153,8 +170,8 @@ pub struct TransientOptions {
 pub const DEFAULT_HOLD_SCALES: f64 = 10.0;
 
 /// Default largest step of a noisy run, in time scales C_in U_T / (kappa I_mean) (module docs,
-/// "Noise (SDE)"); chosen so the decision-time distribution matches a run with steps of 1/50
-/// time scale (tested in `tests/competition_transient.rs`).
+/// "Noise (SDE)"); chosen by measurement so the decision-time distribution matches a run with
+/// steps of 1/50 time scale (tested in `tests/competition_transient.rs`; a choice of ours).
 pub const DEFAULT_NOISE_MAX_STEP_SCALES: f64 = 4.0;
 
 impl Default for TransientOptions {
@@ -842,8 +859,7 @@ fn noise_charges<C: SharedNodeCircuit + ?Sized>(
 ) {
     let n = m.n;
     let vc = x[n];
-    // Variance of the charge drawn so far for the node being filled.
-    let mut var = 0.0;
+    // Variance of the common node's charge drawn so far.
     let mut var_c = 0.0;
     let mut draw = |psd: f64, v: &mut f64| -> f64 {
         let z: f64 = rng.sample(StandardNormal);
@@ -853,7 +869,8 @@ fn noise_charges<C: SharedNodeCircuit + ?Sized>(
     };
     let mut qc = 0.0;
     for k in 0..n {
-        var = 0.0;
+        // Variance of line k's charge drawn so far.
+        let mut var = 0.0;
         let mut qk = 0.0;
         if o.input_shot {
             qk += draw(2.0 * ELEMENTARY_CHARGE * m.inputs[k], &mut var);
