@@ -38,8 +38,60 @@ fn bench(c: &mut Criterion) {
     c.bench_function("wta10_transient_read_at_2x_decision_time", |b| {
         b.iter(|| simulate(&circuit, black_box(&inputs), &read, None, &mut ws).expect("run"))
     });
+    // Noisy decisions. "fixed_step": the former scheme (a fixed step of a tenth of the time
+    // scale, the decision read at twice the noiseless decision time), kept for the ratio;
+    // "until_held": the default step control, ended by the hold rule.
+    let fixed = NoiseOptions {
+        step: Some(0.1 * s.time_scale),
+        ..Default::default()
+    };
     let nopts = NoiseOptions::default();
     let mut rng = stream(1, &[domain::SAMPLE_NOISE]);
+    let mut steps = |o: &TransientOptions, n: &NoiseOptions| {
+        let runs = 50;
+        let mut total = 0;
+        for r in 0..runs {
+            let mut rng = stream(2, &[domain::SAMPLE_NOISE, r]);
+            total += simulate(&circuit, &inputs, o, Some((n, &mut rng)), &mut ws)
+                .expect("run")
+                .steps;
+        }
+        total as f64 / runs as f64
+    };
+    println!(
+        "mean accepted steps per noisy decision (50 runs): fixed step, read at 2x: {:.0}; \
+         default step control, until held: {:.0}; noiseless until settled: {}",
+        steps(&read, &fixed),
+        steps(&settle, &nopts),
+        s.steps
+    );
+    c.bench_function(
+        "wta10_transient_shot_noise_fixed_step_read_at_2x_decision_time",
+        |b| {
+            b.iter(|| {
+                simulate(
+                    &circuit,
+                    black_box(&inputs),
+                    &read,
+                    Some((&fixed, &mut rng)),
+                    &mut ws,
+                )
+                .expect("run")
+            })
+        },
+    );
+    c.bench_function("wta10_transient_shot_noise_until_held", |b| {
+        b.iter(|| {
+            simulate(
+                &circuit,
+                black_box(&inputs),
+                &settle,
+                Some((&nopts, &mut rng)),
+                &mut ws,
+            )
+            .expect("run")
+        })
+    });
     c.bench_function("wta10_transient_shot_noise_read_at_2x_decision_time", |b| {
         b.iter(|| {
             simulate(

@@ -393,3 +393,117 @@ fn noise_spread_matches_shot_noise_psd() {
         assert!((p_chain[i][i] / p_cont[i][i] - 1.0).abs() < 0.3);
     }
 }
+
+/// Decision times of `runs` noisy decisions from the reset state, each from its own keyed stream
+/// (`seed`, run index), with the given noise step options; also the mean accepted steps.
+fn noisy_decision_times(
+    c: &WtaCircuit,
+    inputs: &[f64],
+    nopts: &NoiseOptions,
+    seed: u64,
+    runs: u64,
+) -> (Vec<f64>, f64) {
+    let opts = TransientOptions::default();
+    let mut ws = TransientWorkspace::new();
+    let mut times = Vec::new();
+    let mut steps = 0usize;
+    for r in 0..runs {
+        let mut rng = hardmax::rng::stream(seed, &[hardmax::rng::domain::SAMPLE_NOISE, r]);
+        let s = simulate(c, inputs, &opts, Some((nopts, &mut rng)), &mut ws).unwrap();
+        assert!(s.held, "run {r} did not hold a decision: {s:?}");
+        times.push(s.decision_time_in_scales().unwrap());
+        steps += s.steps;
+    }
+    (times, steps as f64 / runs as f64)
+}
+
+/// Two-sample Kolmogorov-Smirnov statistic sup |F_a - F_b|.
+fn ks_statistic(a: &[f64], b: &[f64]) -> f64 {
+    let mut a = a.to_vec();
+    let mut b = b.to_vec();
+    a.sort_by(f64::total_cmp);
+    b.sort_by(f64::total_cmp);
+    let (mut i, mut j, mut d) = (0usize, 0usize, 0.0_f64);
+    while i < a.len() && j < b.len() {
+        let x = a[i].min(b[j]);
+        while i < a.len() && a[i] <= x {
+            i += 1;
+        }
+        while j < b.len() && b[j] <= x {
+            j += 1;
+        }
+        d = d.max((i as f64 / a.len() as f64 - j as f64 / b.len() as f64).abs());
+    }
+    d
+}
+
+/// A noisy decision ends by the hold rule, and the default step control (drift-controlled step
+/// capped at `max_step_scales` time scales) gives the decision-time distribution of a small fixed
+/// step (1/50 time scale): the two-sample Kolmogorov-Smirnov statistic stays below its 1 %
+/// critical value c(0.01) sqrt((n + m)/(n m)), c(0.01) = sqrt(-ln(0.005)/2) = 1.628 (the
+/// asymptotic Kolmogorov distribution; N. Smirnov, "Table for estimating the goodness of fit of
+/// empirical distributions", Ann. Math. Statist. 19 (1948) 279-281), and the mean lies inside
+/// the 99 % interval of the difference of the two means (normal quantile 2.576). Seeded keyed
+/// streams: deterministic. Small nodes (2 fF: about 400 electrons per time scale) so shot
+/// noise spreads the decision time widely.
+#[test]
+fn noisy_decision_time_distribution_matches_small_step_reference() {
+    // (circuit, inputs, runs, noise must spread the time): small nodes with few electrons per
+    // time scale; and the benchmark's 10-line stage (100 fF, inputs 1 % apart).
+    let bench_inputs: Vec<f64> = (0..10).map(|k| 10e-9 * (1.0 + 0.01 * k as f64)).collect();
+    let cases = [
+        (
+            circuit(3, 30e-9, 2e-15, 4e-15),
+            vec![10e-9, 10.3e-9, 9.9e-9],
+            200,
+            true,
+        ),
+        (
+            circuit(10, 100e-9, 100e-15, 200e-15),
+            bench_inputs,
+            60,
+            false,
+        ),
+    ];
+    for (c, inputs, runs, spread) in cases {
+        let tau = run(&c, &inputs, &TransientOptions::default()).0.time_scale;
+        let reference = NoiseOptions {
+            step: Some(tau / 50.0),
+            ..Default::default()
+        };
+        let (t_ref, steps_ref) = noisy_decision_times(&c, &inputs, &reference, 21, runs);
+        let (t_new, steps_new) =
+            noisy_decision_times(&c, &inputs, &NoiseOptions::default(), 22, runs);
+        let mean = |v: &[f64]| v.iter().sum::<f64>() / v.len() as f64;
+        let var = |v: &[f64]| {
+            let m = mean(v);
+            v.iter().map(|x| (x - m) * (x - m)).sum::<f64>() / (v.len() - 1) as f64
+        };
+        let (m_ref, m_new) = (mean(&t_ref), mean(&t_new));
+        let half = 2.576 * (var(&t_ref) / runs as f64 + var(&t_new) / runs as f64).sqrt();
+        let d = ks_statistic(&t_ref, &t_new);
+        let d_crit = 1.628 * ((2 * runs) as f64 / (runs * runs) as f64).sqrt();
+        println!(
+            "N = {}: decision time / tau: reference mean {m_ref:.2} sd {:.2} ({steps_ref:.0} \
+             steps), controlled mean {m_new:.2} sd {:.2} ({steps_new:.0} steps); KS D = {d:.3} \
+             (crit {d_crit:.3})",
+            inputs.len(),
+            var(&t_ref).sqrt(),
+            var(&t_new).sqrt()
+        );
+        assert!(d < d_crit, "KS D = {d} >= {d_crit}");
+        assert!(
+            (m_ref - m_new).abs() < half,
+            "{m_ref} vs {m_new} (+- {half})"
+        );
+        if spread {
+            // The noise must matter here, or the test could not fail on a wrong noise model.
+            assert!(
+                var(&t_ref).sqrt() > 0.05 * m_ref,
+                "sd {}",
+                var(&t_ref).sqrt()
+            );
+        }
+        assert!(steps_new < steps_ref / 20.0, "{steps_new} vs {steps_ref}");
+    }
+}

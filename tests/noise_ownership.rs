@@ -54,7 +54,7 @@ fn transient_noise_counts_input_shot_noise_once() {
         t.noise = Some(NoiseOptions {
             input_shot: true,
             device_shot: false,
-            step: None,
+            ..NoiseOptions::default()
         });
     }
     let t = d.transient.unwrap();

@@ -1207,6 +1207,7 @@ fn transient(
             f64::from(u8::from(s.settled)),
             "bool",
         ),
+        Row::new("transient", "held", f64::from(u8::from(s.held)), "bool"),
         Row::new("transient", "steps", s.steps as f64, ""),
         Row::new("transient", "rejected_steps", s.rejected_steps as f64, ""),
         Row::new("transient", "final_residual", s.final_residual, ""),
@@ -1248,6 +1249,7 @@ fn transient(
                     "energy_j": s.energy,
                     "end_time_s": s.end_time,
                     "settled": s.settled,
+                    "held": s.held,
                     "time_scale_s": s.time_scale,
                     "decision_time_in_scales": s.decision_time_in_scales(),
                     "winner": s.decision.map(|d| d.winner),
@@ -1309,6 +1311,8 @@ fn transient(
                 format_si(s.end_time, "s", 4),
                 if s.settled {
                     "settled"
+                } else if s.held {
+                    "decision held for the hold time"
                 } else if spec.read_time.is_some() {
                     "ended at the read-out time"
                 } else {

@@ -399,12 +399,13 @@ pub fn design(e: &Experiment, n_classes: usize) -> Result<ClassifierDesign, Buil
                 max_runner_up_share: c.max_runner_up_share,
             },
             read_time: c.read_time.map(|t| t.si()),
+            hold_time: c.hold_time.map(|t| t.si()),
             ..TransientOptions::default()
         },
         noise: c.noise.then_some(NoiseOptions {
             input_shot: true,
             device_shot: true,
-            step: None,
+            ..NoiseOptions::default()
         }),
     });
     Ok(ClassifierDesign {

@@ -442,6 +442,10 @@ pub struct CompetitionCfg {
     /// Time at which the decision is read (transient); absent = run until settled.
     #[serde(skip_serializing_if = "Option::is_none")]
     pub read_time: Option<Q<Time>>,
+    /// Transient with `noise`: the decision is taken once it has held this long (same winner,
+    /// inside the decision rule); absent = 10 time scales C U_T / (kappa I_mean).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub hold_time: Option<Q<Time>>,
     /// Diff pair fed through resistors instead of diode-connected devices: the resistance.
     #[serde(skip_serializing_if = "Option::is_none")]
     pub input_resistance: Option<Q<Resistance>>,
@@ -467,6 +471,7 @@ impl Default for CompetitionCfg {
             node_capacitance: Q::new(100e-15),
             common_capacitance: Q::new(200e-15),
             read_time: None,
+            hold_time: None,
             input_resistance: None,
             resistor_reference: Q::new(0.4),
         }
@@ -1575,6 +1580,12 @@ mod tests {
         e.competition.read_time = Some(Q::new(-1e-9));
         let r = super::super::build::check_with_core(&e).unwrap_err();
         assert_eq!(r.key, "competition.read_time");
+        let mut e = base.clone();
+        e.competition.evaluation = EvaluationKind::Transient;
+        e.competition.noise = true;
+        e.competition.hold_time = Some(Q::new(0.0));
+        let r = super::super::build::check_with_core(&e).unwrap_err();
+        assert_eq!(r.key, "competition.hold_time");
         let mut e = base.clone();
         e.competition.bias_current = Q::new(-1e-9);
         let r = super::super::build::check_with_core(&e).unwrap_err();
