@@ -215,15 +215,21 @@ impl AxisMap {
     fn label(&self, t: f64) -> String {
         let v = if self.log { 10f64.powf(t) } else { t };
         match &self.labels {
-            Labels::Quantity(unit) => fmt_quantity(snap(v), unit, 3),
-            Labels::Percent => {
-                let decimals = if self.step >= 0.01 - 1e-12 {
-                    0
-                } else if self.step >= 0.001 - 1e-12 {
-                    1
-                } else {
-                    2
+            Labels::Quantity(unit) => {
+                // Enough significant digits to tell neighbouring ticks apart (1.125 µA on a
+                // 25 nA step), at least 3.
+                let digits = match resolution_exp(self.step) {
+                    Some(k) if v != 0.0 && !self.log => {
+                        (snap(v).abs().log10().floor() as i32 - k + 1).clamp(3, 9) as usize
+                    }
+                    _ => 3,
                 };
+                fmt_quantity(snap(v), unit, digits)
+            }
+            Labels::Percent => {
+                // As many decimals as the step needs: a 2.5 % step labels 87.5 %, not "88 %".
+                let decimals =
+                    resolution_exp(self.step * 100.0).map_or(0, |k| (-k).clamp(0, 4) as usize);
                 format!("{:.*} %", decimals, v * 100.0)
             }
             Labels::Count => fmt_plain(snap(v), 6),
@@ -323,6 +329,24 @@ impl Ranged for TickedCoord {
 }
 
 /// Round away binary noise from tick values (0.30000000000000004 -> 0.3).
+/// The decimal exponent k of the finest digit a tick step needs: the largest k with `step`
+/// an integer multiple of 10^k (2.5 -> -1, 0.2 -> -1, 50 -> 1). None for a zero or
+/// non-finite step (log axes).
+fn resolution_exp(step: f64) -> Option<i32> {
+    if !(step.is_finite() && step > 0.0) {
+        return None;
+    }
+    let mut k = step.log10().floor() as i32;
+    for _ in 0..6 {
+        let m = step / 10f64.powi(k);
+        if (m - m.round()).abs() <= 1e-6 * m {
+            return Some(k);
+        }
+        k -= 1;
+    }
+    Some(k)
+}
+
 fn snap(v: f64) -> f64 {
     if v == 0.0 || !v.is_finite() {
         return v;
@@ -1260,6 +1284,25 @@ fn draw_confusion(m: &ConfusionMatrix, buf: &mut String) -> Result<(), String> {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    /// Tick labels carry the digits their spacing needs: a 2.5 % step gives 87.5 %, not
+    /// "88 %" (two ticks would otherwise read alike or wrong); a 25 nA step on 1 µA gives
+    /// 1.025 µA.
+    #[test]
+    fn tick_labels_have_the_digits_of_their_step() {
+        let a = AxisMap::linear(0.8, 0.95, 0.0, Labels::Percent);
+        assert!((a.step - 0.025).abs() < 1e-12, "step {}", a.step);
+        assert_eq!(a.label(0.875), "87.5 %");
+        assert_eq!(a.label(0.9), "90.0 %");
+        let a = AxisMap::linear(0.0, 1.0, 0.0, Labels::Percent);
+        assert_eq!(a.label(0.4), "40 %");
+        let a = AxisMap::linear(1.0e-6, 1.15e-6, 0.0, Labels::Quantity("A".into()));
+        assert!((a.step - 25e-9).abs() < 1e-18, "step {}", a.step);
+        assert_eq!(a.label(1.025e-6), "1.025 µA");
+        assert_eq!(resolution_exp(2.5), Some(-1));
+        assert_eq!(resolution_exp(50.0), Some(1));
+        assert_eq!(resolution_exp(0.0), None);
+    }
 
     #[test]
     fn nice_ticks_cover_range_with_round_steps() {
