@@ -571,3 +571,28 @@ fn resolve_without_sweep_and_tiny_floats() {
     assert!(text.contains("kf = 1e-25"), "{text}");
     assert!(!text.contains("0.0000000"), "{text}");
 }
+
+/// Item: the report header (the manifest's competition description) shows a swept size as its
+/// range over the sweep, not sweep point 0's value as if it were the design.
+#[test]
+fn swept_size_shows_as_range_in_the_header() {
+    let dir = tempfile::tempdir().unwrap();
+    let exp = write(
+        dir.path(),
+        "w.toml",
+        "[dataset]\nname = \"iris\"\n[population]\nchips = 2\n[[sweep.axis]]\npath = \"competition.sink.w\"\nvalues = [\"1 um\", \"8 um\"]\n",
+    );
+    let out = dir.path().join("out");
+    hardmax()
+        .args(["run", "--quiet", "--out"])
+        .arg(&out)
+        .arg(&exp)
+        .assert()
+        .success();
+    let m: serde_json::Value =
+        serde_json::from_slice(&std::fs::read(out.join("manifest.json")).unwrap()).unwrap();
+    let c = m["competition"].as_str().unwrap();
+    assert!(c.contains("sink 1 µm ... 8 µm (swept)"), "{c}");
+    let html = std::fs::read_to_string(out.join("report.html")).unwrap();
+    assert!(html.contains("sink 1 µm ... 8 µm (swept)"), "report header");
+}
