@@ -823,12 +823,30 @@ fn draw_accuracy(plot: &AccuracyPlot, buf: &mut String) -> Result<(), String> {
                 keys.push((Key::Band(color(0)), "5–95 % of chips".to_string()));
             }
             type Pick = fn(&AccuracyPoint) -> Option<f64>;
+            // Ideal and baseline equal at every point: one line would hide the other, so draw
+            // one and say in the legend that they are equal.
+            let equal_refs = {
+                let pairs: Vec<(f64, f64)> = plot
+                    .curves
+                    .iter()
+                    .flat_map(|c| c.points.iter().filter_map(|p| Some((p.ideal?, p.baseline?))))
+                    .collect();
+                !pairs.is_empty() && pairs.iter().all(|(a, b)| (a - b).abs() < 1e-12)
+            };
+            let ideal_name = if equal_refs {
+                "ideal = baseline (equal)"
+            } else {
+                "ideal argmax"
+            };
             let refs: [(Pick, RGBColor, Dash, &str); 3] = [
-                (|p| p.ideal, IDEAL, Dash::Dashed, "ideal argmax"),
+                (|p| p.ideal, IDEAL, Dash::Dashed, ideal_name),
                 (|p| p.baseline, BASELINE, Dash::Dotted, "linfa baseline"),
                 (|p| p.target, TARGET, Dash::Solid, "target"),
             ];
             for (pick, col, dash, name) in refs {
+                if equal_refs && name == "linfa baseline" {
+                    continue;
+                }
                 let all: Vec<f64> = plot
                     .curves
                     .iter()
@@ -1386,6 +1404,24 @@ mod tests {
         assert!(svg.contains("test accuracy"));
         assert!(svg.contains("1 nA") && svg.contains("100 nA"), "{svg}");
         assert!(svg.contains("<polygon"));
+    }
+
+    /// When the ideal argmax and the float baseline coincide, the legend says they are equal
+    /// (one drawn line) instead of one line hiding the other unmentioned.
+    #[test]
+    fn equal_ideal_and_baseline_are_named_equal() {
+        let mut points = vec![
+            full_point(1e-9, 0.8, 0.7, 0.9),
+            full_point(1e-7, 0.9, 0.85, 0.95),
+        ];
+        for p in &mut points {
+            p.baseline = p.ideal;
+        }
+        let svg = accuracy_vs_param(&one_curve_plot("stage.bias", "A", true, points)).unwrap();
+        assert!(svg.contains("ideal = baseline (equal)"), "{svg}");
+        let points = vec![full_point(1e-9, 0.8, 0.7, 0.9)];
+        let svg = accuracy_vs_param(&one_curve_plot("stage.bias", "A", true, points)).unwrap();
+        assert!(!svg.contains("(equal)") && svg.contains("linfa baseline"));
     }
 
     #[test]
