@@ -555,4 +555,17 @@ fn zip_sweeps_draw_one_curve_and_grids_one_per_other_value() {
     let texts = svg_texts(acc);
     assert!(!texts.iter().any(|t| t.starts_with("bits =")));
     assert!(texts.iter().any(|t| t == "mean over chips"));
+    // A zip sweep draws one accuracy and one yield figure, not one duplicate per zipped key;
+    // the caption names the other zipped parameter.
+    let count = |figs: &[hardmax::report::Figure], prefix: &str| {
+        figs.iter().filter(|g| g.file.starts_with(prefix)).count()
+    };
+    assert_eq!(count(&grid, "accuracy_vs_"), 2);
+    assert_eq!(count(&zip, "accuracy_vs_"), 1);
+    assert_eq!(count(&zip, "yield_vs_"), 1);
+    let first = zip
+        .iter()
+        .find(|g| g.file.starts_with("accuracy_vs_"))
+        .unwrap();
+    assert!(first.caption.contains("step together"), "{}", first.caption);
 }

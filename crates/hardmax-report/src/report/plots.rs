@@ -7,7 +7,8 @@
 //! Axes: tick positions are computed here (nice 1-2-2.5-5 steps on linear axes, 1-2-5 per decade
 //! on log axes) and tick labels are written with SI prefixes ([`crate::units::format_si`]) or in
 //! per cent for shares. A parameter axis is logarithmic when its values are all positive and span
-//! at least two decades, or when the experiment asked for a log scale ([`use_log_axis`]).
+//! at least two decades, step by a constant ratio (a geometric sweep), or when the experiment
+//! asked for a log scale ([`use_log_axis`]).
 
 use plotters::coord::ranged1d::{DefaultFormatting, KeyPointHint, Ranged};
 use plotters::coord::Shift;
@@ -61,11 +62,27 @@ pub fn use_log_axis(values: &[f64], scale: Option<Scale>) -> bool {
     if finite.is_empty() || finite.iter().any(|v| *v <= 0.0) {
         return false;
     }
-    if scale == Some(Scale::Log) {
+    if scale == Some(Scale::Log) || is_geometric(&finite) {
         return true;
     }
     let (lo, hi) = min_max(&finite).unwrap_or((1.0, 1.0));
     spans_two_decades(lo, hi)
+}
+
+/// Whether positive values, once sorted and without repeats, are at least three and step by one
+/// constant ratio (a geometric sweep given as a list, e.g. 1, 2, 4, 8 µm): such a sweep is
+/// evenly spaced on a log axis.
+fn is_geometric(values: &[f64]) -> bool {
+    let mut v: Vec<f64> = values.to_vec();
+    v.sort_by(f64::total_cmp);
+    v.dedup_by(|a, b| (*a - *b).abs() <= 1e-12 * b.abs());
+    if v.len() < 3 {
+        return false;
+    }
+    let r0 = v[1] / v[0];
+    r0 > 1.0 + 1e-9
+        && v.windows(2)
+            .all(|w| ((w[1] / w[0]) / r0 - 1.0).abs() < 1e-6)
 }
 
 /// Whether [lo, hi] (both > 0) spans at least two decades (with a little float slack, so that
@@ -829,7 +846,11 @@ fn draw_accuracy(plot: &AccuracyPlot, buf: &mut String) -> Result<(), String> {
                 let pairs: Vec<(f64, f64)> = plot
                     .curves
                     .iter()
-                    .flat_map(|c| c.points.iter().filter_map(|p| Some((p.ideal?, p.baseline?))))
+                    .flat_map(|c| {
+                        c.points
+                            .iter()
+                            .filter_map(|p| Some((p.ideal?, p.baseline?)))
+                    })
                     .collect();
                 !pairs.is_empty() && pairs.iter().all(|(a, b)| (a - b).abs() < 1e-12)
             };
@@ -1422,6 +1443,20 @@ mod tests {
         let points = vec![full_point(1e-9, 0.8, 0.7, 0.9)];
         let svg = accuracy_vs_param(&one_curve_plot("stage.bias", "A", true, points)).unwrap();
         assert!(!svg.contains("(equal)") && svg.contains("linfa baseline"));
+    }
+
+    /// A geometric sweep given as a value list (constant ratio) goes on a log axis, where its
+    /// points are evenly spaced; an arithmetic one stays linear.
+    #[test]
+    fn geometric_value_lists_use_a_log_axis() {
+        assert!(use_log_axis(&[1e-6, 2e-6, 4e-6, 8e-6], Some(Scale::Linear)));
+        assert!(use_log_axis(&[8e-6, 4e-6, 2e-6, 1e-6, 2e-6], None));
+        assert!(!use_log_axis(
+            &[1e-6, 2e-6, 3e-6, 4e-6],
+            Some(Scale::Linear)
+        ));
+        assert!(!use_log_axis(&[1e-6, 2e-6], None));
+        assert!(!use_log_axis(&[-1.0, -2.0, -4.0], None));
     }
 
     #[test]
