@@ -48,7 +48,7 @@ pub enum BuildError {
     #[error("`{key}`: {source}")]
     Keyed {
         key: &'static str,
-        source: PipelineError,
+        source: Box<PipelineError>,
     },
 }
 
@@ -652,11 +652,11 @@ pub fn build_point(e: &Experiment, prep: &Prepared) -> Result<PointSetup, BuildE
     PointSetup::new(d, prep).map_err(|err| match err {
         err @ PipelineError::HiddenReadoutLevels { .. } => BuildError::Keyed {
             key: "weights.levels",
-            source: err,
+            source: Box::new(err),
         },
         err @ PipelineError::HiddenWtaOutOfSaturation { .. } => BuildError::Keyed {
             key: "hidden.exponent",
-            source: err,
+            source: Box::new(err),
         },
         other => other.into(),
     })

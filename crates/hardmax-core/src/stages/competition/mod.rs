@@ -154,8 +154,9 @@ pub struct InputSummary {
     pub sum: f64,
     /// Index of the largest input.
     pub argmax: usize,
-    /// SI unit of the inputs (`A` for currents, `V` for voltages).
-    pub unit: &'static str,
+    /// The inputs are voltages (V); otherwise currents (A). A flag, not a string, keeps the
+    /// errors that carry a summary small.
+    pub volts: bool,
 }
 
 impl InputSummary {
@@ -164,15 +165,15 @@ impl InputSummary {
         Self::of_in(x, "A")
     }
 
-    /// Summarise inputs `x` in the SI unit `unit`.
-    pub fn of_in(x: &[f64], unit: &'static str) -> InputSummary {
+    /// Summarise inputs `x` in the SI unit `unit` (`"V"` for voltages, otherwise currents).
+    pub fn of_in(x: &[f64], unit: &str) -> InputSummary {
         let mut s = InputSummary {
             n: x.len(),
             min: f64::INFINITY,
             max: f64::NEG_INFINITY,
             sum: 0.0,
             argmax: 0,
-            unit,
+            volts: unit == "V",
         };
         for (i, &v) in x.iter().enumerate() {
             s.min = s.min.min(v);
@@ -188,7 +189,8 @@ impl InputSummary {
 
 impl fmt::Display for InputSummary {
     fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
-        let q = |v: f64| crate::units::format_si(v, self.unit, 5);
+        let unit = if self.volts { "V" } else { "A" };
+        let q = |v: f64| crate::units::format_si(v, unit, 5);
         write!(
             f,
             "{} inputs, min {}, max {} (input {}), sum {}",
