@@ -261,7 +261,7 @@ fn wta_model_error(dir: &Path, fit: &serde_json::Value) {
     std::fs::write(
         &stage,
         format!(
-            "circuit = \"current-wta\"\ninputs = [\"10 nA\", \"10 nA\", \"10 nA\", \"10 nA\"]\nbias = \"20 nA\"\n\
+            "circuit = \"current_wta\"\ninputs = [\"10 nA\", \"10 nA\", \"10 nA\", \"10 nA\"]\nbias_current = \"20 nA\"\n\
              temperature = \"300 K\"\neta = {}\n[sink]\nw = \"2 um\"\nl = \"1 um\"\n[output]\nw = \"2 um\"\nl = \"1 um\"\n\
              [nmos]\nvt0 = \"{} V\"\nn = {}\nmu_cox = \"{} A/V^2\"\n",
             p["eta"], p["vt0"], p["n"], p["mu_cox"]
@@ -275,7 +275,7 @@ fn wta_model_error(dir: &Path, fit: &serde_json::Value) {
     cmd.args(["export-netlist", "--stage"]).arg(&stage);
     for _ in 0..200 {
         let x: Vec<String> = (0..4)
-            .map(|_| format!("{:e}", u.sample(&mut rng)))
+            .map(|_| format!("{:e} A", u.sample(&mut rng)))
             .collect();
         cmd.args(["--inputs", &x.join(",")]);
     }
