@@ -159,7 +159,7 @@ fn csv_results_and_sample_count_errors() {
     let stage = tmp.path().join("s.toml");
     std::fs::write(
         &stage,
-        "circuit = \"current-wta\"\ninputs = [\"10 nA\", \"12 nA\", \"9 nA\"]\nbias = \"20 nA\"\n",
+        "circuit = \"current_wta\"\ninputs = [\"10 nA\", \"12 nA\", \"9 nA\"]\nbias_current = \"20 nA\"\n",
     )
     .unwrap();
     let cir = tmp.path().join("s.cir");
