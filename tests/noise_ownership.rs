@@ -17,8 +17,8 @@
 //! Tolerance: 400 runs; the standard error of a sample variance is sqrt(2/400) = 7 %, so 25 %
 //! is about 3.5 standard errors (our choice); the Euler-Maruyama bias at a step of h = tau/200
 //! (tau = C/G) is about h/(2 tau) = 0.25 %, and the tanh curvature over the +-1.5 mV spread of
-//! V_0 - V_1 is below 0.1 %. Double counting would add the static draw, whose bandwidth
-//! kappa I/(4 C U_T) is g = 20 times B here: far outside.
+//! V_0 - V_1 is below 0.1 %. Double counting would add the static draw, whose bandwidth is B
+//! too (the sink's drain conductance over 4C): a ratio of 2, far outside.
 
 use hardmax::experiment::build::design;
 use hardmax::experiment::config::load;
@@ -118,4 +118,42 @@ fn transient_noise_counts_input_shot_noise_once() {
     );
     // The mean stays at the tie, I_b/2.
     assert!((mean - 10e-9).abs() <= 5.0 * (var / runs as f64).sqrt() + 1e-12);
+
+    // A DC evaluation owns the same input shot noise as a static draw. Its bandwidth must be
+    // the input node's own single pole, B = G/(4C) with G = sigma I / U_T the sink's drain
+    // conductance (DEVELOPERS.md model notes, "static noise bandwidth"), so the DC output
+    // variance matches the transient's settled one. Before the fix the draw used
+    // kappa I/(4 C U_T), g = 20 times B here. Tolerance: the ratio of a 2000-draw variance
+    // (standard error sqrt(2/2000) = 3 %) to the 400-run one (7 %) has a standard error of
+    // about 8 %; 30 % is under 4 standard errors (our choice) and far from the factor 20.
+    let mut dc = design(&resolved.base, 2).unwrap();
+    dc.transient = None;
+    assert!(
+        dc.static_input_noise(),
+        "a DC evaluation owns the static draw"
+    );
+    let draws = 2000;
+    let mut ys = Vec::with_capacity(draws);
+    let mut rng = hardmax::rng::stream(11, &[hardmax::rng::domain::SAMPLE_NOISE, 0, 1]);
+    for _ in 0..draws {
+        let inputs = dc
+            .competition_inputs(&currents, &mut noisy, &mut rng)
+            .unwrap();
+        c.solve(inputs, &mut ws, &mut sol).unwrap();
+        ys.push(sol.outputs[0]);
+    }
+    let mean_dc = ys.iter().sum::<f64>() / draws as f64;
+    let var_dc = ys.iter().map(|y| (y - mean_dc).powi(2)).sum::<f64>() / (draws - 1) as f64;
+    let r = var_dc / var;
+    assert!(
+        (r - 1.0).abs() <= 0.30,
+        "DC static-draw output variance {var_dc:e} A^2 vs transient {var:e} A^2 (ratio {r:.3})"
+    );
+    // And against the small-signal figure (2000 draws: 15 %, about 5 standard errors plus the
+    // difference between sigma I / U_T and the EKV conductance at this moderate current).
+    let r = var_dc / expected;
+    assert!(
+        (r - 1.0).abs() <= 0.15,
+        "DC static-draw output variance {var_dc:e} A^2 vs small-signal {expected:e} A^2 (ratio {r:.3})"
+    );
 }

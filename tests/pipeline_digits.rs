@@ -158,3 +158,36 @@ fn hidden_stage_as_a_circuit() {
         assert_eq!(o.failed.total(), 0, "{:?}", o.first_failure);
     }
 }
+
+/// A read-out trained on soft hidden shares can need finer weights than 16 element levels
+/// hold: on digits with 32 hidden lines a perfect chip (targets rounded to the levels, nothing
+/// else) classifies about half of the test split against 0.94 with exact weights (chance is
+/// about 0.10: ten classes of about 180 samples each, UCI optical digits). Point setup refuses
+/// it, naming the levels and a level count that works, instead of running a confident
+/// near-chance population; with continuous elements the same point is accepted and its
+/// perfect chips agree with the ideal argmax.
+#[test]
+fn hidden_readout_levels_too_coarse_are_refused() {
+    let text = |levels: u32| {
+        format!(
+            "[dataset]\nname = \"digits\"\n[hidden]\nunits = 32\n[input]\ndac_bits = 0\n\
+             [weights]\nlevels = {levels}\n[process]\nmismatch_scale = 0.0\n\
+             [competition]\ncircuit = \"argmax\"\n"
+        )
+    };
+    let r = load_str(&text(16), Path::new("t.toml"), &[]).expect("experiment");
+    let e = &r.at_point[0];
+    let prep = prepare_data(e, Path::new(".")).expect("data");
+    assert!(prep.ideal_acc > 0.8, "ideal accuracy {}", prep.ideal_acc);
+    let err = match build_point(e, &prep) {
+        Ok(_) => panic!("16 levels must be refused"),
+        Err(err) => err.to_string(),
+    };
+    assert!(err.contains("`weights.levels`"), "{err}");
+    assert!(err.contains("with 16 element levels"), "{err}");
+    assert!(err.contains("use at least 64 element levels"), "{err}");
+    let (setup, prep) = point(&text(0));
+    for o in chips(&setup, &prep, 2) {
+        assert_eq!(o.agree, o.samples, "{:?}", o.first_failure);
+    }
+}

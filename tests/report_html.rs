@@ -557,6 +557,53 @@ fn zip_sweeps_draw_one_curve_and_grids_one_per_other_value() {
     let texts = svg_texts(acc);
     assert!(!texts.iter().any(|t| t.starts_with("bits =")));
     assert!(texts.iter().any(|t| t == "mean over chips"));
+    // A zip sweep draws one accuracy and one yield figure, not one duplicate per zipped key;
+    // the caption names the other zipped parameter.
+    let count = |figs: &[hardmax::report::Figure], prefix: &str| {
+        figs.iter().filter(|g| g.file.starts_with(prefix)).count()
+    };
+    assert_eq!(count(&grid, "accuracy_vs_"), 2);
+    assert_eq!(count(&zip, "accuracy_vs_"), 1);
+    assert_eq!(count(&zip, "yield_vs_"), 1);
+    let first = zip
+        .iter()
+        .find(|g| g.file.starts_with("accuracy_vs_"))
+        .unwrap();
+    assert!(first.caption.contains("step together"), "{}", first.caption);
+}
+
+/// The points table puts the yield columns right after the point number and the swept values,
+/// so yield is visible without scrolling sideways; every cell still traces to its own column of
+/// points.csv (checked by `check_traceability`).
+#[test]
+fn points_table_shows_yield_after_the_swept_values() {
+    let d = copy_of("complete");
+    let summary = hardmax::report::render(d.path()).unwrap();
+    let html = fs::read_to_string(&summary.report).unwrap();
+    let start = html.find(r#"<table id="points-table">"#).unwrap();
+    let head = &html[start..start + html[start..].find("</thead>").unwrap()];
+    let codes: Vec<&str> = head
+        .split("<code>")
+        .skip(1)
+        .map(|c| &c[..c.find("</code>").unwrap()])
+        .collect();
+    let m: serde_json::Value =
+        serde_json::from_str(&fs::read_to_string(d.path().join("manifest.json")).unwrap()).unwrap();
+    let swept: Vec<&str> = m["sweep"]["parameters"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|p| p["path"].as_str().unwrap())
+        .collect();
+    let n = 1 + swept.len();
+    assert_eq!(codes[0], "point");
+    assert_eq!(&codes[1..n], &swept[..]);
+    assert_eq!(
+        &codes[n..n + 3],
+        &["yield", "yield_lo", "yield_hi"],
+        "{codes:?}"
+    );
+    check_traceability(d.path());
 }
 
 /// A run of the binary (iris, 30 chips, two WTA widths) writes the design columns and

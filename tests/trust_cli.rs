@@ -372,10 +372,13 @@ fn sigint_keeps_points_and_says_how_to_resume() {
         "[dataset]\nname = \"digits\"\n[population]\nchips = 40\n[[sweep.axis]]\npath = \"competition.gain\"\nvalues = [50, 100, 200, 400, 800, 1600, 3200, 6400]\n",
     );
     let out = dir.path().join("out");
+    // The test hook holds the run after its first saved point until the signal arrives, so the
+    // signal certainly lands mid-run (no race with a fast machine finishing all 8 points).
     let child = hardmax()
         .args(["run", "--no-report", "--threads", "1", "--out"])
         .arg(&out)
         .arg(&exp)
+        .env("HARDMAX_TEST_HOLD_AFTER_POINT", "300")
         .stdout(Stdio::null())
         .stderr(Stdio::piped())
         .spawn()
@@ -397,10 +400,8 @@ fn sigint_keeps_points_and_says_how_to_resume() {
     let output = child.wait_with_output().unwrap();
     let stderr = String::from_utf8_lossy(&output.stderr);
     let kept = std::fs::read_dir(out.join("points")).unwrap().count();
-    if kept == 8 {
-        // The run finished before the signal arrived: nothing to check on this machine.
-        return;
-    }
+    // The signal landed while the run was held after its first point: exactly that one is kept.
+    assert_eq!(kept, 1, "{stderr}");
     assert_eq!(output.status.code(), Some(130), "{stderr}");
     assert!(
         stderr.contains(&format!(
@@ -542,4 +543,56 @@ fn points_keep_their_digits() {
             "# point 0: conditions.temperature = 233.15 K",
         ))
         .stdout(predicate::str::contains("300.15 K"));
+}
+
+/// Item: `resolve --points` without a sweep says so instead of an empty `# point 0:` line, and
+/// resolved dimensionless floats print without a long run of zeros (`kf = 1e-25`).
+#[test]
+fn resolve_without_sweep_and_tiny_floats() {
+    let dir = tempfile::tempdir().unwrap();
+    let exp = write(dir.path(), "t.toml", "[dataset]\nname = \"iris\"\n");
+    let out = hardmax()
+        .args(["resolve", "--points"])
+        .arg(&exp)
+        .assert()
+        .success()
+        .get_output()
+        .stdout
+        .clone();
+    let text = String::from_utf8_lossy(&out);
+    assert!(
+        text.contains("# point 0: the experiment as resolved above (no sweep axis)"),
+        "{text}"
+    );
+    assert!(
+        !text.lines().any(|l| l.trim_end() == "# point 0:"),
+        "{text}"
+    );
+    assert!(text.contains("kf = 1e-25"), "{text}");
+    assert!(!text.contains("0.0000000"), "{text}");
+}
+
+/// Item: the report header (the manifest's competition description) shows a swept size as its
+/// range over the sweep, not sweep point 0's value as if it were the design.
+#[test]
+fn swept_size_shows_as_range_in_the_header() {
+    let dir = tempfile::tempdir().unwrap();
+    let exp = write(
+        dir.path(),
+        "w.toml",
+        "[dataset]\nname = \"iris\"\n[population]\nchips = 2\n[[sweep.axis]]\npath = \"competition.sink.w\"\nvalues = [\"1 um\", \"8 um\"]\n",
+    );
+    let out = dir.path().join("out");
+    hardmax()
+        .args(["run", "--quiet", "--out"])
+        .arg(&out)
+        .arg(&exp)
+        .assert()
+        .success();
+    let m: serde_json::Value =
+        serde_json::from_slice(&std::fs::read(out.join("manifest.json")).unwrap()).unwrap();
+    let c = m["competition"].as_str().unwrap();
+    assert!(c.contains("sink 1 µm ... 8 µm (swept)"), "{c}");
+    let html = std::fs::read_to_string(out.join("report.html")).unwrap();
+    assert!(html.contains("sink 1 µm ... 8 µm (swept)"), "report header");
 }

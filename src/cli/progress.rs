@@ -45,6 +45,24 @@ pub fn interrupted() -> bool {
     INTERRUPTED.load(Ordering::SeqCst)
 }
 
+/// Test hook: with `HARDMAX_TEST_HOLD_AFTER_POINT=SECONDS` in the environment, the run waits
+/// after each finished (saved) point until Ctrl-C arrives or SECONDS pass. It lets the
+/// interrupt test signal a run that is certainly still going, with exactly one point kept.
+/// Not a user option (no effect unless the variable is set).
+fn hold_for_tests() {
+    let Some(secs) = std::env::var("HARDMAX_TEST_HOLD_AFTER_POINT")
+        .ok()
+        .and_then(|v| v.parse::<f64>().ok())
+        .filter(|s| s.is_finite() && *s > 0.0)
+    else {
+        return;
+    };
+    let t0 = Instant::now();
+    while !interrupted() && t0.elapsed().as_secs_f64() < secs {
+        std::thread::sleep(std::time::Duration::from_millis(5));
+    }
+}
+
 /// Reports a run's progress on stderr.
 pub struct Progress {
     bar: Option<ProgressBar>,
@@ -170,6 +188,7 @@ impl Observer for Progress {
         } else if self.plain {
             eprintln!("{}: {line}", self.prefix);
         }
+        hold_for_tests();
     }
 }
 

@@ -39,8 +39,12 @@ pub fn run(args: ResolveArgs) -> anyhow::Result<()> {
     print!("{}", r.to_toml());
     if args.points {
         println!();
-        for p in &r.points {
-            println!("# point {}: {}", p.point, r.describe_point(p));
+        if r.axes.is_empty() {
+            println!("# point 0: the experiment as resolved above (no sweep axis)");
+        } else {
+            for p in &r.points {
+                println!("# point {}: {}", p.point, r.describe_point(p));
+            }
         }
     }
     Ok(())

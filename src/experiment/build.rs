@@ -44,6 +44,12 @@ pub enum BuildError {
     Pipeline(#[from] PipelineError),
     #[error("hidden.weights_file `{path}`: {message}")]
     HiddenWeights { path: String, message: String },
+    /// A core refusal of the point that one experiment key decides.
+    #[error("`{key}`: {source}")]
+    Keyed {
+        key: &'static str,
+        source: Box<PipelineError>,
+    },
 }
 
 /// Read a hidden layer: CSV without header, one row per unit, the weights then the bias.
@@ -382,15 +388,16 @@ pub fn design(e: &Experiment, n_classes: usize) -> Result<ClassifierDesign, Buil
             None,
         )),
     };
-    let input_noise = c.noise.then(|| InputShotNoise {
-        bandwidth: match c.noise_bandwidth {
-            Some(b) => NoiseBandwidth::Fixed(b.si()),
-            None => NoiseBandwidth::SinglePole {
-                capacitance: c.node_capacitance.si(),
-                kappa: 1.0 / process.nmos.n,
-            },
+    let input_noise = c.noise.then(|| match c.noise_bandwidth {
+        Some(b) => InputShotNoise {
+            bandwidth: NoiseBandwidth::Fixed(b.si()),
+            temperature: e.conditions.temperature.si(),
         },
-        temperature: e.conditions.temperature.si(),
+        None => competition.static_noise(
+            &process,
+            c.node_capacitance.si(),
+            e.conditions.temperature.si(),
+        ),
     });
     let transient = (c.evaluation == EvaluationKind::Transient).then(|| TransientEvaluation {
         options: TransientOptions {
@@ -564,10 +571,15 @@ pub fn check_with_core(e: &Experiment) -> Result<(), CoreRefusal> {
             name,
             value,
             accepted,
-        } => CoreRefusal {
-            key: weight_key(&name),
-            value: None,
-            message: format!("{value} is out of range: {accepted}"),
+        } => match value.parse::<f64>() {
+            // A plain number: the config layer shows it with the key's unit.
+            Ok(v) => refusal(weight_key(&name), v, accepted),
+            // Already a quantity with its unit ("-1 mV").
+            Err(_) => CoreRefusal {
+                key: weight_key(&name),
+                value: None,
+                message: format!("{value} is out of range: {accepted}"),
+            },
         },
         other => CoreRefusal {
             key: "weights".into(),
@@ -638,7 +650,17 @@ pub fn check_with_core(e: &Experiment) -> Result<(), CoreRefusal> {
 /// Build a point's setup (weights mapped) from its experiment and prepared classifier.
 pub fn build_point(e: &Experiment, prep: &Prepared) -> Result<PointSetup, BuildError> {
     let d = design(e, prep.class_names.len())?;
-    Ok(PointSetup::new(d, prep)?)
+    PointSetup::new(d, prep).map_err(|err| match err {
+        err @ PipelineError::HiddenReadoutLevels { .. } => BuildError::Keyed {
+            key: "weights.levels",
+            source: Box::new(err),
+        },
+        err @ PipelineError::HiddenWtaOutOfSaturation { .. } => BuildError::Keyed {
+            key: "hidden.exponent",
+            source: Box::new(err),
+        },
+        other => other.into(),
+    })
 }
 
 /// The cost model settings of an experiment (`[cost]`; the weight element's own size for a

@@ -728,13 +728,102 @@ impl Resolved {
     /// The resolved experiment as TOML text (what `hardmax resolve` prints and what a results
     /// folder keeps).
     pub fn to_toml(&self) -> String {
-        toml::to_string_pretty(&self.tree).unwrap_or_default()
+        tidy_floats(&toml::to_string_pretty(&self.tree).unwrap_or_default())
     }
 
     /// "path = value unit, ..." of a sweep point, for messages.
     pub fn describe_point(&self, p: &PointIndex) -> String {
         describe_point(&self.axes, p)
     }
+}
+
+/// A float as written in TOML without a long run of zeros: the shortest digits that read back
+/// to exactly this value, in exponent form for very small or large magnitudes (`1e-25`, not
+/// `0.0000000000000000000000001`). Lossless (the identity hash hashes this text) and still a
+/// TOML float.
+fn tidy_float(r: f64) -> String {
+    let s = if r != 0.0 && (r.abs() < 1e-4 || r.abs() >= 1e15) {
+        format!("{r:e}")
+    } else {
+        format!("{r:?}")
+    };
+    if s.contains(['.', 'e', 'E']) || s.contains("inf") || s.contains("nan") {
+        s
+    } else {
+        format!("{s}.0")
+    }
+}
+
+/// Rewrite every float literal of a TOML text (outside strings and comments) with
+/// [`tidy_float`]; integers, strings, keys and the rest are kept byte for byte.
+fn tidy_floats(text: &str) -> String {
+    let mut out = String::with_capacity(text.len());
+    for line in text.split_inclusive('\n') {
+        let b: Vec<char> = line.chars().collect();
+        let mut i = 0;
+        // Keys and table headers come before `=`; only values are rewritten (a line of a
+        // multi-line array starts with its value).
+        let mut in_value = line
+            .trim_start()
+            .starts_with(|c: char| c.is_ascii_digit() || c == '-' || c == '+');
+        let mut quote: Option<char> = None;
+        while i < b.len() {
+            let c = b[i];
+            if let Some(q) = quote {
+                out.push(c);
+                if c == '\\' && q == '"' && i + 1 < b.len() {
+                    out.push(b[i + 1]);
+                    i += 2;
+                    continue;
+                }
+                if c == q {
+                    quote = None;
+                }
+                i += 1;
+                continue;
+            }
+            match c {
+                '"' | '\'' => {
+                    quote = Some(c);
+                    out.push(c);
+                    i += 1;
+                }
+                '#' => {
+                    out.extend(&b[i..]);
+                    i = b.len();
+                }
+                '=' => {
+                    in_value = true;
+                    out.push(c);
+                    i += 1;
+                }
+                _ if in_value
+                    && (c.is_ascii_digit() || c == '-' || c == '+')
+                    && (i == 0 || matches!(b[i - 1], ' ' | '[' | ',' | '=')) =>
+                {
+                    let start = i;
+                    while i < b.len()
+                        && (b[i].is_ascii_alphanumeric() || matches!(b[i], '.' | '-' | '+' | '_'))
+                    {
+                        i += 1;
+                    }
+                    let tok: String = b[start..i].iter().collect();
+                    let is_float = tok.contains(['.', 'e', 'E'])
+                        && !tok.contains(['_', ':', 'T'])
+                        && !tok.starts_with("0x");
+                    match tok.parse::<f64>() {
+                        Ok(x) if is_float && x.is_finite() => out.push_str(&tidy_float(x)),
+                        _ => out.push_str(&tok),
+                    }
+                }
+                _ => {
+                    out.push(c);
+                    i += 1;
+                }
+            }
+        }
+    }
+    out
 }
 
 fn describe_point(axes: &[Axis], p: &PointIndex) -> String {
@@ -1298,27 +1387,12 @@ fn check(e: &Experiment, text: &str, file: &Path) -> Result<(), ConfigError> {
             ));
         }
     }
+    // Weight sigmas, drift, offsets and the time since programming are the core's to check
+    // (`check_with_core`); these two have no core constructor (the trainer's penalty and the
+    // edge's scaling of the process's Pelgrom constants).
     for (key, v) in [
         ("training.l2", e.training.l2),
         ("process.mismatch_scale", e.process.mismatch_scale),
-        ("input.gain_mismatch", e.input.gain_mismatch),
-        ("weights.programming_error", e.weights.programming_error),
-        ("weights.read_noise", e.weights.read_noise),
-        ("weights.offset_margin", e.weights.offset_margin),
-        ("weights.offset_mismatch", e.weights.offset_mismatch),
-        ("weights.drift_exponent", e.weights.drift_exponent),
-        (
-            "weights.drift_exponent_sigma",
-            e.weights.drift_exponent_sigma,
-        ),
-        (
-            "weights.programming_error_voltage",
-            e.weights.programming_error_voltage.si(),
-        ),
-        (
-            "conditions.time_since_programming",
-            e.conditions.time_since_programming.si(),
-        ),
     ] {
         if !(v.is_finite() && v >= 0.0) {
             return Err(bad(
@@ -1600,6 +1674,82 @@ mod tests {
         let r = super::super::build::check_with_core(&e).unwrap_err();
         assert_eq!(r.key, "weights.programming_error_voltage");
         assert!(super::super::build::check_with_core(&base).is_ok());
+    }
+
+    /// Weight sigmas, drift and the time since programming are checked once, by the core's
+    /// validators; the refusal names the user's key and shows a quantity with its unit.
+    #[test]
+    fn weight_and_drift_refusals_come_from_the_core_with_units() {
+        for (extra, key) in [
+            ("[weights]\nread_noise = -0.01\n", "weights.read_noise"),
+            (
+                "[weights]\nprogramming_error = -0.01\n",
+                "weights.programming_error",
+            ),
+            (
+                "[weights]\ndrift_exponent = -0.1\n",
+                "weights.drift_exponent",
+            ),
+            (
+                "[weights]\ndrift_exponent_sigma = -0.1\n",
+                "weights.drift_exponent_sigma",
+            ),
+            (
+                "[weights]\noffset_mismatch = -0.1\n",
+                "weights.offset_mismatch",
+            ),
+            ("[input]\ngain_mismatch = -0.1\n", "input.gain_mismatch"),
+        ] {
+            let e = load_text(&format!("[dataset]\nname = \"iris\"\n{extra}"))
+                .unwrap_err()
+                .to_string();
+            assert!(e.contains(key), "{e}");
+            assert!(e.contains(">= 0"), "{e}");
+        }
+        let e = load_text(
+            "[dataset]\nname = \"iris\"\n[weights]\nelement = \"subthreshold\"\nw_min = 0.0625\n\
+             programming_error_voltage = \"-1 mV\"\n",
+        )
+        .unwrap_err()
+        .to_string();
+        assert!(e.contains("weights.programming_error_voltage"), "{e}");
+        assert!(e.contains("-1 mV"), "{e}");
+        assert!(!e.contains("-0.001"), "{e}");
+        let e = load_text(
+            "[dataset]\nname = \"iris\"\n[conditions]\ntime_since_programming = \"-1 s\"\n",
+        )
+        .unwrap_err()
+        .to_string();
+        assert!(e.contains("conditions.time_since_programming"), "{e}");
+        assert!(e.contains("-1 s"), "{e}");
+    }
+
+    /// Resolved floats print in their shortest exact form (exponent form for tiny and huge
+    /// magnitudes) and stay floats that read back to the same value.
+    #[test]
+    fn resolved_floats_without_noise() {
+        assert_eq!(tidy_float(1e-25), "1e-25");
+        assert_eq!(tidy_float(0.25), "0.25");
+        assert_eq!(tidy_float(2e16), "2e16");
+        assert_eq!(tidy_float(1.0), "1.0");
+        assert_eq!(tidy_float(300.15), "300.15");
+        let t = tidy_floats(
+            "a = 0.0000000000000000000000001\nb = [0.000001, 2]\nc = \"0.0000000000000000000000001\"\nd = 7\n",
+        );
+        assert_eq!(
+            t,
+            "a = 1e-25\nb = [1e-6, 2]\nc = \"0.0000000000000000000000001\"\nd = 7\n"
+        );
+        assert_eq!(
+            tidy_floats("v = [\n    0.00001,\n    2,\n]\n"),
+            "v = [\n    1e-5,\n    2,\n]\n"
+        );
+        let r = load_text("[dataset]\nname = \"iris\"\n").unwrap();
+        let text = r.to_toml();
+        assert!(text.contains("kf = 1e-25"), "{text}");
+        // Reads back to the same experiment.
+        let back: Value = toml::from_str(&text).unwrap();
+        assert_eq!(back, r.tree);
     }
 
     #[test]

@@ -366,7 +366,9 @@ pub fn run(
                 "train_samples": p.n_train,
                 "test_samples": p.test_y.len(),
             })),
-            "competition": setups.first().map(|s| s.describe()).unwrap_or_default(),
+            "competition": describe_over_points(
+                &setups.iter().map(|s| s.describe()).collect::<Vec<_>>()
+            ),
             "sweep": {
                 "mode": match base.sweep.combine { super::sweep::Combine::Grid => "grid", super::sweep::Combine::Zip => "zip" },
                 "parameters": resolved.axes.iter().map(|a| json!({
@@ -550,6 +552,60 @@ pub fn run(
     })
 }
 
+/// One description of the competition stage for every sweep point: a part that differs between
+/// points (a swept size or bias) is shown as its range over the sweep, "sink 1 µm ... 8 µm
+/// (swept) x 1 µm", never as the first point's value alone. Parts are compared word by word
+/// within each comma-separated field; the range runs from the first point's words to the last
+/// point's.
+pub fn describe_over_points(descriptions: &[String]) -> String {
+    let (Some(first), Some(last)) = (descriptions.first(), descriptions.last()) else {
+        return String::new();
+    };
+    if descriptions.iter().all(|d| d == first) {
+        return first.clone();
+    }
+    let split = |d: &str| d.split(", ").map(str::to_string).collect::<Vec<_>>();
+    let fields: Vec<Vec<String>> = descriptions.iter().map(|d| split(d)).collect();
+    let n = fields[0].len();
+    if fields.iter().any(|f| f.len() != n) {
+        return format!("{first} ... {last} (swept)");
+    }
+    let mut out = Vec::with_capacity(n);
+    for j in 0..n {
+        let a = &fields[0][j];
+        let b = &fields[fields.len() - 1][j];
+        if fields.iter().all(|f| &f[j] == a) {
+            out.push(a.clone());
+            continue;
+        }
+        let (wa, wb): (Vec<&str>, Vec<&str>) = (a.split(' ').collect(), b.split(' ').collect());
+        // Words that differ anywhere in the sweep (not only between first and last).
+        let all: Vec<Vec<&str>> = fields.iter().map(|f| f[j].split(' ').collect()).collect();
+        if all.iter().any(|w| w.len() != wa.len()) || wa.len() != wb.len() {
+            out.push(format!("{a} ... {b} (swept)"));
+            continue;
+        }
+        let differs = |k: usize| all.iter().any(|w| w[k] != wa[k]);
+        let lo = (0..wa.len()).find(|&k| differs(k)).unwrap_or(0);
+        let hi = (0..wa.len()).rev().find(|&k| differs(k)).unwrap_or(lo);
+        // Keep a number's unit with it ("1 µm", not "1").
+        let hi = if hi + 1 < wa.len() && wa[hi].parse::<f64>().is_ok() {
+            hi + 1
+        } else {
+            hi
+        };
+        let mut words: Vec<String> = wa[..lo].iter().map(|w| w.to_string()).collect();
+        words.push(format!(
+            "{} ... {} (swept)",
+            wa[lo..=hi].join(" "),
+            wb[lo..=hi].join(" ")
+        ));
+        words.extend(wa[hi + 1..].iter().map(|w| w.to_string()));
+        out.push(words.join(" "));
+    }
+    out.join(", ")
+}
+
 fn hostname() -> String {
     std::fs::read_to_string("/etc/hostname")
         .map(|s| s.trim().to_string())
@@ -593,6 +649,24 @@ mod tests {
 
     /// Standard normal two-sided quantiles (Abramowitz & Stegun, Table 26.1): 95 % -> 1.959964,
     /// 99 % -> 2.575829, 90 % -> 1.644854.
+    /// The report header describes the design over the whole sweep: a swept size shows as its
+    /// range, fixed parts once.
+    #[test]
+    fn swept_values_show_as_their_range() {
+        let d = |w: &str| {
+            format!(
+                "current-mode WTA, 3 cells, sink {w} x 1 µm, output 2 µm x 2 µm, ideal bias 10 nA"
+            )
+        };
+        let all = [d("1 µm"), d("2 µm"), d("8 µm")];
+        assert_eq!(
+            describe_over_points(&all),
+            "current-mode WTA, 3 cells, sink 1 µm ... 8 µm (swept) x 1 µm, output 2 µm x 2 µm, ideal bias 10 nA"
+        );
+        assert_eq!(describe_over_points(&[d("1 µm")]), d("1 µm"));
+        assert_eq!(describe_over_points(&[]), "");
+    }
+
     #[test]
     fn normal_quantiles() {
         assert!((normal_quantile_two_sided(0.95) - 1.959964).abs() < 1e-5);

@@ -19,7 +19,7 @@
 pub mod budget;
 pub mod cost;
 
-use ndarray::{Array1, Array2, Axis};
+use ndarray::{Array1, Array2, ArrayView1, ArrayView2, Axis};
 
 pub use budget::ChipToggles;
 
@@ -37,8 +37,8 @@ use crate::stages::competition::{
     CompetitionChip, CompetitionError, CompetitionStage, DecisionRule, StageSolution, Workspace,
 };
 use crate::stages::weights::{
-    random_hidden_weights, ChainDesign, ChainScratch, Conditions, HiddenNonlinearity, MappedChain,
-    WeightStageDesign,
+    random_hidden_weights, ChainDesign, ChainScratch, Conditions, EffectiveChain,
+    HiddenNonlinearity, MappedChain, WeightStageDesign,
 };
 use crate::training::{accuracy, Trainer};
 
@@ -59,6 +59,17 @@ pub enum PipelineError {
     Unsupported { what: &'static str },
     #[error("{what}; give one row per hidden unit with one weight per feature and the bias last")]
     Shape { what: String },
+    /// A read-out trained on soft hidden shares can need finer weights than the elements'
+    /// levels hold: a perfect chip (targets rounded to the levels, nothing else) then keeps
+    /// less than half of the exact weights' margin over chance. Refused, never run as a result.
+    #[error("hidden stage read-out: with {levels} element levels, a perfect chip (every element target rounded to its level, no other error) classifies {acc_levels:.3} of the test split against {acc_ideal:.3} with exact weights and {chance:.3} by chance (the largest class): less than half of the exact weights' margin over chance is left, so every chip would sit near chance. The read-out trained on the hidden shares needs finer weights: {}", match needed { Some(n) => format!("use at least {n} element levels, or continuous elements (no levels)"), None => "no level count up to 65536 is enough: use continuous elements (no levels) or no hidden stage".to_string() })]
+    HiddenReadoutLevels {
+        levels: u32,
+        acc_levels: f64,
+        acc_ideal: f64,
+        chance: f64,
+        needed: Option<u32>,
+    },
     /// The hidden normaliser built as a current-mode WTA cannot follow the power law the
     /// read-out was trained on at this gain: its sink transistors leave saturation.
     #[error("hidden normaliser (current-mode WTA): at gain g = {gain} the winning cell's sink transistor leaves saturation (drain voltage {vk_min:.4} V, below 4 U_T = {four_ut:.4} V), so the circuit does not follow the I^g law the read-out is trained on (its shares depart from it by a total-variation distance of {departure:.2}); {}", if g_min.is_finite() { format!("the circuit works for g >= {g_min} with these sizes, bias and supply: use a gain in that range, or the closed-form normaliser") } else { "no gain up to 10000 works with these sizes, bias and supply: use the closed-form normaliser or change the hidden bias".to_string() })]
@@ -349,6 +360,32 @@ pub enum CompetitionDesign {
     Argmax,
 }
 
+impl CompetitionDesign {
+    /// The static input shot noise of this stage over a single-pole bandwidth of its input
+    /// nodes (capacitance `capacitance`, F): the current-mode WTA's input node conductance is
+    /// its sink's drain coupling ([`InputShotNoise::for_wta`]); the other stages use
+    /// kappa = 1/n of the process's NMOS (their input node is diode-like).
+    pub fn static_noise(
+        &self,
+        process: &Process,
+        capacitance: f64,
+        temperature: f64,
+    ) -> InputShotNoise {
+        match self {
+            CompetitionDesign::CurrentWta(w) => {
+                InputShotNoise::for_wta(w, capacitance, temperature)
+            }
+            _ => InputShotNoise {
+                bandwidth: crate::stages::competition::noise::NoiseBandwidth::SinglePole {
+                    capacitance,
+                    slope: 1.0 / process.nmos.n,
+                },
+                temperature,
+            },
+        }
+    }
+}
+
 /// Transient evaluation of each decision (current-mode WTA only).
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub struct TransientEvaluation {
@@ -455,6 +492,9 @@ impl PointSetup {
             .map(|(w, b)| (w.view(), b.view()))
             .collect();
         let mapped = chain.map(&layers)?;
+        if prep.hidden.is_some() {
+            check_readout_levels(&design.weights, &mapped, &layers, prep)?;
+        }
         if let (Some(CompetitionDesign::CurrentWta(w)), Some(spec)) =
             (&design.hidden_circuit, &prep.hidden)
         {
@@ -494,6 +534,86 @@ impl PointSetup {
             ),
         }
     }
+}
+
+/// Accuracy over the test split of a noiseless chain (argmax of its output currents).
+fn chain_accuracy(chain: &EffectiveChain, prep: &Prepared) -> Result<f64, PipelineError> {
+    let mut scratch = chain.scratch();
+    let mut out = vec![0.0; chain.outputs()];
+    let mut correct = 0usize;
+    for (row, &y) in prep.test_u.outer_iter().zip(&prep.test_y) {
+        chain.forward_noiseless(&row.to_vec(), &mut scratch, &mut out)?;
+        if crate::training::argmax(&out) == Some(y) {
+            correct += 1;
+        }
+    }
+    Ok(correct as f64 / prep.test_y.len().max(1) as f64)
+}
+
+/// Does a perfect chip with `levels` element levels keep at least half of the exact weights'
+/// margin over chance? (The half is the project's own threshold, no source: it separates a
+/// collapse to chance from the ordinary loss of a few levels.)
+fn levels_keep_margin(acc_levels: f64, acc_ideal: f64, chance: f64) -> bool {
+    acc_levels - chance >= 0.5 * (acc_ideal - chance)
+}
+
+/// With a hidden stage, the read-out acts on shares that vary over a small part of [0, 1]; its
+/// weights (the min-max scaling folded in, see `prepare_hidden`) then carry the class
+/// differences in small departures from large common values, which a few element levels
+/// cannot hold. Evaluate a perfect chip (targets rounded to the levels, no other error) and
+/// refuse the point when it falls to chance while the exact weights classify well, with the
+/// smallest power-of-two level count that works.
+fn check_readout_levels(
+    stage: &WeightStageDesign,
+    mapped: &MappedChain,
+    layers: &[(ArrayView2<f64>, ArrayView1<f64>)],
+    prep: &Prepared,
+) -> Result<(), PipelineError> {
+    let levels_of = |d: &WeightStageDesign| match &d.element {
+        crate::stages::weights::ElementDesign::Linear(e) => e.levels,
+        crate::stages::weights::ElementDesign::Subthreshold(e) => e.levels,
+    };
+    let Some(levels) = levels_of(stage) else {
+        return Ok(());
+    };
+    let acc_ideal = chain_accuracy(&mapped.ideal(), prep)?;
+    let mut counts = vec![0usize; prep.class_names.len().max(1)];
+    for &y in &prep.test_y {
+        if let Some(c) = counts.get_mut(y) {
+            *c += 1;
+        }
+    }
+    let chance = counts.iter().copied().max().unwrap_or(0) as f64 / prep.test_y.len().max(1) as f64;
+    let acc_levels = chain_accuracy(&mapped.nominal_levels(), prep)?;
+    if levels_keep_margin(acc_levels, acc_ideal, chance) || acc_ideal - chance < 0.05 {
+        return Ok(());
+    }
+    let mut needed = None;
+    let mut n = levels.max(2).next_power_of_two().max(4) * 2;
+    while n <= 65536 {
+        let mut d = stage.clone();
+        match &mut d.element {
+            crate::stages::weights::ElementDesign::Linear(e) => e.levels = Some(n),
+            crate::stages::weights::ElementDesign::Subthreshold(e) => e.levels = Some(n),
+        }
+        let m = chain_design(&d, layers.len(), prep.hidden.as_ref()).map(layers)?;
+        if levels_keep_margin(
+            chain_accuracy(&m.nominal_levels(), prep)?,
+            acc_ideal,
+            chance,
+        ) {
+            needed = Some(n);
+            break;
+        }
+        n *= 2;
+    }
+    Err(PipelineError::HiddenReadoutLevels {
+        levels,
+        acc_levels,
+        acc_ideal,
+        chance,
+        needed,
+    })
 }
 
 /// Samples of the test split used to check the hidden WTA's operating region.

@@ -455,8 +455,29 @@ fn headline(folder: &ResultsFolder) -> String {
     s
 }
 
+/// The order of the points table's columns: the point number and the swept values first, then
+/// the yield columns (so yield is visible without scrolling sideways), then the rest in the
+/// order of `points.csv`.
+fn points_column_order(cols: &[String], swept: &[&str]) -> Vec<usize> {
+    let is_lead = |c: &str| c == "point" || swept.contains(&c);
+    let is_yield = |c: &str| c.starts_with("yield");
+    let mut order: Vec<usize> = (0..cols.len()).filter(|&i| is_lead(&cols[i])).collect();
+    order.extend((0..cols.len()).filter(|&i| !is_lead(&cols[i]) && is_yield(&cols[i])));
+    order.extend((0..cols.len()).filter(|&i| !is_lead(&cols[i]) && !is_yield(&cols[i])));
+    order
+}
+
 fn points_table(folder: &ResultsFolder, focus: Option<u64>) -> String {
-    let cols = &folder.points.columns;
+    let all_cols = &folder.points.columns;
+    let swept: Vec<&str> = folder
+        .manifest
+        .sweep
+        .parameters
+        .iter()
+        .map(|p| p.path.as_str())
+        .collect();
+    let order = points_column_order(all_cols, &swept);
+    let cols: Vec<&String> = order.iter().map(|&i| &all_cols[i]).collect();
     let kinds: Vec<(NumberKind, String)> = cols.iter().map(|c| column_kind(folder, c)).collect();
     let mut s = String::from(r#"<div class="tablewrap"><table id="points-table"><thead><tr>"#);
     for (c, (_, title)) in cols.iter().zip(&kinds) {
@@ -470,11 +491,12 @@ fn points_table(folder: &ResultsFolder, focus: Option<u64>) -> String {
             ""
         };
         let _ = write!(s, r#"<tr{class} id="point-{}">"#, r.point);
-        for ((c, (kind, _)), v) in cols.iter().zip(&kinds).zip(&r.cells) {
+        let cells = order.iter().map(|&i| r.cells.get(i).copied().flatten());
+        for ((c, (kind, _)), v) in cols.iter().zip(&kinds).zip(cells) {
             s.push_str(&num_el(
                 "td",
                 "",
-                *v,
+                v,
                 kind,
                 Src::Point {
                     point: r.point,

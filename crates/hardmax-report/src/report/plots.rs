@@ -7,7 +7,8 @@
 //! Axes: tick positions are computed here (nice 1-2-2.5-5 steps on linear axes, 1-2-5 per decade
 //! on log axes) and tick labels are written with SI prefixes ([`crate::units::format_si`]) or in
 //! per cent for shares. A parameter axis is logarithmic when its values are all positive and span
-//! at least two decades, or when the experiment asked for a log scale ([`use_log_axis`]).
+//! at least two decades, step by a constant ratio (a geometric sweep), or when the experiment
+//! asked for a log scale ([`use_log_axis`]).
 
 use plotters::coord::ranged1d::{DefaultFormatting, KeyPointHint, Ranged};
 use plotters::coord::Shift;
@@ -61,11 +62,27 @@ pub fn use_log_axis(values: &[f64], scale: Option<Scale>) -> bool {
     if finite.is_empty() || finite.iter().any(|v| *v <= 0.0) {
         return false;
     }
-    if scale == Some(Scale::Log) {
+    if scale == Some(Scale::Log) || is_geometric(&finite) {
         return true;
     }
     let (lo, hi) = min_max(&finite).unwrap_or((1.0, 1.0));
     spans_two_decades(lo, hi)
+}
+
+/// Whether positive values, once sorted and without repeats, are at least three and step by one
+/// constant ratio (a geometric sweep given as a list, e.g. 1, 2, 4, 8 µm): such a sweep is
+/// evenly spaced on a log axis.
+fn is_geometric(values: &[f64]) -> bool {
+    let mut v: Vec<f64> = values.to_vec();
+    v.sort_by(f64::total_cmp);
+    v.dedup_by(|a, b| (*a - *b).abs() <= 1e-12 * b.abs());
+    if v.len() < 3 {
+        return false;
+    }
+    let r0 = v[1] / v[0];
+    r0 > 1.0 + 1e-9
+        && v.windows(2)
+            .all(|w| ((w[1] / w[0]) / r0 - 1.0).abs() < 1e-6)
 }
 
 /// Whether [lo, hi] (both > 0) spans at least two decades (with a little float slack, so that
@@ -215,15 +232,21 @@ impl AxisMap {
     fn label(&self, t: f64) -> String {
         let v = if self.log { 10f64.powf(t) } else { t };
         match &self.labels {
-            Labels::Quantity(unit) => fmt_quantity(snap(v), unit, 3),
-            Labels::Percent => {
-                let decimals = if self.step >= 0.01 - 1e-12 {
-                    0
-                } else if self.step >= 0.001 - 1e-12 {
-                    1
-                } else {
-                    2
+            Labels::Quantity(unit) => {
+                // Enough significant digits to tell neighbouring ticks apart (1.125 µA on a
+                // 25 nA step), at least 3.
+                let digits = match resolution_exp(self.step) {
+                    Some(k) if v != 0.0 && !self.log => {
+                        (snap(v).abs().log10().floor() as i32 - k + 1).clamp(3, 9) as usize
+                    }
+                    _ => 3,
                 };
+                fmt_quantity(snap(v), unit, digits)
+            }
+            Labels::Percent => {
+                // As many decimals as the step needs: a 2.5 % step labels 87.5 %, not "88 %".
+                let decimals =
+                    resolution_exp(self.step * 100.0).map_or(0, |k| (-k).clamp(0, 4) as usize);
                 format!("{:.*} %", decimals, v * 100.0)
             }
             Labels::Count => fmt_plain(snap(v), 6),
@@ -323,6 +346,24 @@ impl Ranged for TickedCoord {
 }
 
 /// Round away binary noise from tick values (0.30000000000000004 -> 0.3).
+/// The decimal exponent k of the finest digit a tick step needs: the largest k with `step`
+/// an integer multiple of 10^k (2.5 -> -1, 0.2 -> -1, 50 -> 1). None for a zero or
+/// non-finite step (log axes).
+fn resolution_exp(step: f64) -> Option<i32> {
+    if !(step.is_finite() && step > 0.0) {
+        return None;
+    }
+    let mut k = step.log10().floor() as i32;
+    for _ in 0..6 {
+        let m = step / 10f64.powi(k);
+        if (m - m.round()).abs() <= 1e-6 * m {
+            return Some(k);
+        }
+        k -= 1;
+    }
+    Some(k)
+}
+
 fn snap(v: f64) -> f64 {
     if v == 0.0 || !v.is_finite() {
         return v;
@@ -799,12 +840,34 @@ fn draw_accuracy(plot: &AccuracyPlot, buf: &mut String) -> Result<(), String> {
                 keys.push((Key::Band(color(0)), "5–95 % of chips".to_string()));
             }
             type Pick = fn(&AccuracyPoint) -> Option<f64>;
+            // Ideal and baseline equal at every point: one line would hide the other, so draw
+            // one and say in the legend that they are equal.
+            let equal_refs = {
+                let pairs: Vec<(f64, f64)> = plot
+                    .curves
+                    .iter()
+                    .flat_map(|c| {
+                        c.points
+                            .iter()
+                            .filter_map(|p| Some((p.ideal?, p.baseline?)))
+                    })
+                    .collect();
+                !pairs.is_empty() && pairs.iter().all(|(a, b)| (a - b).abs() < 1e-12)
+            };
+            let ideal_name = if equal_refs {
+                "ideal = baseline (equal)"
+            } else {
+                "ideal argmax"
+            };
             let refs: [(Pick, RGBColor, Dash, &str); 3] = [
-                (|p| p.ideal, IDEAL, Dash::Dashed, "ideal argmax"),
+                (|p| p.ideal, IDEAL, Dash::Dashed, ideal_name),
                 (|p| p.baseline, BASELINE, Dash::Dotted, "linfa baseline"),
                 (|p| p.target, TARGET, Dash::Solid, "target"),
             ];
             for (pick, col, dash, name) in refs {
+                if equal_refs && name == "linfa baseline" {
+                    continue;
+                }
                 let all: Vec<f64> = plot
                     .curves
                     .iter()
@@ -1261,6 +1324,25 @@ fn draw_confusion(m: &ConfusionMatrix, buf: &mut String) -> Result<(), String> {
 mod tests {
     use super::*;
 
+    /// Tick labels carry the digits their spacing needs: a 2.5 % step gives 87.5 %, not
+    /// "88 %" (two ticks would otherwise read alike or wrong); a 25 nA step on 1 µA gives
+    /// 1.025 µA.
+    #[test]
+    fn tick_labels_have_the_digits_of_their_step() {
+        let a = AxisMap::linear(0.8, 0.95, 0.0, Labels::Percent);
+        assert!((a.step - 0.025).abs() < 1e-12, "step {}", a.step);
+        assert_eq!(a.label(0.875), "87.5 %");
+        assert_eq!(a.label(0.9), "90.0 %");
+        let a = AxisMap::linear(0.0, 1.0, 0.0, Labels::Percent);
+        assert_eq!(a.label(0.4), "40 %");
+        let a = AxisMap::linear(1.0e-6, 1.15e-6, 0.0, Labels::Quantity("A".into()));
+        assert!((a.step - 25e-9).abs() < 1e-18, "step {}", a.step);
+        assert_eq!(a.label(1.025e-6), "1.025 µA");
+        assert_eq!(resolution_exp(2.5), Some(-1));
+        assert_eq!(resolution_exp(50.0), Some(1));
+        assert_eq!(resolution_exp(0.0), None);
+    }
+
     #[test]
     fn nice_ticks_cover_range_with_round_steps() {
         let (t, step) = nice_ticks(0.0, 1.0, 6);
@@ -1343,6 +1425,38 @@ mod tests {
         assert!(svg.contains("test accuracy"));
         assert!(svg.contains("1 nA") && svg.contains("100 nA"), "{svg}");
         assert!(svg.contains("<polygon"));
+    }
+
+    /// When the ideal argmax and the float baseline coincide, the legend says they are equal
+    /// (one drawn line) instead of one line hiding the other unmentioned.
+    #[test]
+    fn equal_ideal_and_baseline_are_named_equal() {
+        let mut points = vec![
+            full_point(1e-9, 0.8, 0.7, 0.9),
+            full_point(1e-7, 0.9, 0.85, 0.95),
+        ];
+        for p in &mut points {
+            p.baseline = p.ideal;
+        }
+        let svg = accuracy_vs_param(&one_curve_plot("stage.bias", "A", true, points)).unwrap();
+        assert!(svg.contains("ideal = baseline (equal)"), "{svg}");
+        let points = vec![full_point(1e-9, 0.8, 0.7, 0.9)];
+        let svg = accuracy_vs_param(&one_curve_plot("stage.bias", "A", true, points)).unwrap();
+        assert!(!svg.contains("(equal)") && svg.contains("linfa baseline"));
+    }
+
+    /// A geometric sweep given as a value list (constant ratio) goes on a log axis, where its
+    /// points are evenly spaced; an arithmetic one stays linear.
+    #[test]
+    fn geometric_value_lists_use_a_log_axis() {
+        assert!(use_log_axis(&[1e-6, 2e-6, 4e-6, 8e-6], Some(Scale::Linear)));
+        assert!(use_log_axis(&[8e-6, 4e-6, 2e-6, 1e-6, 2e-6], None));
+        assert!(!use_log_axis(
+            &[1e-6, 2e-6, 3e-6, 4e-6],
+            Some(Scale::Linear)
+        ));
+        assert!(!use_log_axis(&[1e-6, 2e-6], None));
+        assert!(!use_log_axis(&[-1.0, -2.0, -4.0], None));
     }
 
     #[test]

@@ -299,7 +299,25 @@ pub fn build_figures(
     };
 
     if !rows.is_empty() {
-        for (i, p) in m.sweep.parameters.iter().enumerate() {
+        // A zip sweep steps its parameters together: one set of figures, against the first
+        // parameter (the others are named in the caption), not one duplicate per zipped key.
+        let zip = m.sweep.mode == SweepMode::Zip && m.sweep.parameters.len() > 1;
+        let zipped_note = if zip {
+            format!(
+                " The zipped parameters {} step together with it (one figure for the zip).",
+                m.sweep
+                    .parameters
+                    .iter()
+                    .skip(1)
+                    .map(|p| p.path.as_str())
+                    .collect::<Vec<_>>()
+                    .join(", ")
+            )
+        } else {
+            String::new()
+        };
+        let drawn = if zip { 1 } else { m.sweep.parameters.len() };
+        for (i, p) in m.sweep.parameters.iter().enumerate().take(drawn) {
             let xs: Vec<f64> = rows
                 .iter()
                 .filter_map(|r| r.params.get(i).copied())
@@ -338,7 +356,7 @@ pub fn build_figures(
                     "Test accuracy of the chip population against {}: line = mean over chips, \
                      band = 5th to 95th percentile of chips, dashed = ideal argmax, dotted = \
                      linfa float baseline, red = accuracy target (one reference line per curve \
-                     where its value differs between curves).{}",
+                     where its value differs between curves).{}{zipped_note}",
                     p.path,
                     if groups.len() > 1 {
                         " One curve per value of the other swept parameters."
@@ -369,7 +387,7 @@ pub fn build_figures(
                 id: format!("fig-yield-{pslug}"),
                 caption: format!(
                     "Yield (share of chips whose accuracy meets the target) against {}, with \
-                     Wilson score interval error bars.",
+                     Wilson score interval error bars.{zipped_note}",
                     p.path
                 ),
                 svg: plots::yield_vs_param(&yp)?,

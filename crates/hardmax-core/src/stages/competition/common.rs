@@ -176,14 +176,14 @@ pub(super) fn not_converged(
     iterations: usize,
     residual: f64,
     tolerance: f64,
-    inputs: &[f64],
+    inputs: InputSummary,
 ) -> CompetitionError {
     CompetitionError::NotConverged {
         stage,
         iterations,
         residual,
         tolerance,
-        inputs: InputSummary::of(inputs),
+        inputs,
     }
 }
 
@@ -194,10 +194,15 @@ pub(super) fn check_residual(
     residual: f64,
     tolerance: f64,
     inputs: &[f64],
+    unit: &'static str,
 ) -> Result<(), CompetitionError> {
     if residual.is_nan() || residual > tolerance {
         return Err(not_converged(
-            stage, iterations, residual, tolerance, inputs,
+            stage,
+            iterations,
+            residual,
+            tolerance,
+            InputSummary::of_in(inputs, unit),
         ));
     }
     Ok(())
@@ -213,7 +218,7 @@ pub(super) fn common_node_failure(
     msgs: &CircuitMessages,
     spent: usize,
     tolerance: f64,
-    inputs: &[f64],
+    inputs: InputSummary,
 ) -> CompetitionError {
     match err {
         ScalarError::NotBracketed { below: true, .. } => CompetitionError::Compliance {
@@ -221,14 +226,14 @@ pub(super) fn common_node_failure(
             parameter: source_key,
             reason: msgs.below_reason,
             fix: msgs.below_fix,
-            inputs: InputSummary::of(inputs),
+            inputs,
         },
         ScalarError::NotBracketed { below: false, .. } => CompetitionError::Compliance {
             stage,
             parameter: "supply",
             reason: msgs.above_reason,
             fix: msgs.above_fix,
-            inputs: InputSummary::of(inputs),
+            inputs,
         },
         ScalarError::NoConvergence { f, iterations, .. } => not_converged(
             stage,

@@ -56,7 +56,7 @@ pub fn solve<C: SharedNodeCircuit + ?Sized>(
                 NewtonEnd::Gave(spent) => {
                     let (vc, it) = bracketing(c, inputs, ws, spent)?;
                     let res = finish(c, inputs, vc, ws, out);
-                    check_residual(c.name(), it, res, c.tolerance(), inputs)?;
+                    check_residual(c.name(), it, res, c.tolerance(), inputs, c.inputs_unit())?;
                     (vc, it, res, SolveMethod::Bracketing)
                 }
             };
@@ -280,7 +280,7 @@ fn bracketing<C: SharedNodeCircuit + ?Sized>(
                 msgs,
                 spent,
                 c.tolerance(),
-                inputs,
+                InputSummary::of_in(inputs, c.inputs_unit()),
             ))
         }
     };
@@ -290,7 +290,7 @@ fn bracketing<C: SharedNodeCircuit + ?Sized>(
             parameter: "inputs",
             reason: msgs.line_reason,
             fix: msgs.line_fix,
-            inputs: InputSummary::of(inputs),
+            inputs: InputSummary::of_in(inputs, c.inputs_unit()),
         });
     }
     Ok(vc)
@@ -362,7 +362,7 @@ fn lines_first<C: SharedNodeCircuit + ?Sized>(
                 msgs,
                 0,
                 tolerance,
-                inputs,
+                InputSummary::of_in(inputs, c.inputs_unit()),
             ))
         }
     };
@@ -374,7 +374,14 @@ fn lines_first<C: SharedNodeCircuit + ?Sized>(
     }
     let it = source.eval(vs).0;
     let residual = ((s - it) / it).abs();
-    check_residual(c.name(), iterations, residual, tolerance, inputs)?;
+    check_residual(
+        c.name(),
+        iterations,
+        residual,
+        tolerance,
+        inputs,
+        c.inputs_unit(),
+    )?;
     finish_solve(
         out,
         lines,

@@ -338,7 +338,7 @@ impl DiffPairCircuit {
                     parameter: "inputs",
                     reason: MESSAGES.line_reason,
                     fix: MESSAGES.line_fix,
-                    inputs: InputSummary::of(inputs),
+                    inputs: InputSummary::of_in(inputs, self.inputs_unit()),
                 })
             }
             Err(ScalarError::NotBracketed { f, .. })
@@ -347,7 +347,7 @@ impl DiffPairCircuit {
                 tol.max_iter,
                 f.exp_m1().abs(),
                 self.tolerance,
-                inputs,
+                InputSummary::of_in(inputs, self.inputs_unit()),
             )),
         }
     }

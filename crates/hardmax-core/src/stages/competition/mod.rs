@@ -154,17 +154,26 @@ pub struct InputSummary {
     pub sum: f64,
     /// Index of the largest input.
     pub argmax: usize,
+    /// The inputs are voltages (V); otherwise currents (A). A flag, not a string, keeps the
+    /// errors that carry a summary small.
+    pub volts: bool,
 }
 
 impl InputSummary {
-    /// Summarise `x` (non-finite entries propagate into the fields).
+    /// Summarise input currents `x`, A (non-finite entries propagate into the fields).
     pub fn of(x: &[f64]) -> InputSummary {
+        Self::of_in(x, "A")
+    }
+
+    /// Summarise inputs `x` in the SI unit `unit` (`"V"` for voltages, otherwise currents).
+    pub fn of_in(x: &[f64], unit: &str) -> InputSummary {
         let mut s = InputSummary {
             n: x.len(),
             min: f64::INFINITY,
             max: f64::NEG_INFINITY,
             sum: 0.0,
             argmax: 0,
+            volts: unit == "V",
         };
         for (i, &v) in x.iter().enumerate() {
             s.min = s.min.min(v);
@@ -180,10 +189,16 @@ impl InputSummary {
 
 impl fmt::Display for InputSummary {
     fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        let unit = if self.volts { "V" } else { "A" };
+        let q = |v: f64| crate::units::format_si(v, unit, 5);
         write!(
             f,
-            "{} inputs, min {:.4e}, max {:.4e} (input {}), sum {:.4e}",
-            self.n, self.min, self.max, self.argmax, self.sum
+            "{} inputs, min {}, max {} (input {}), sum {}",
+            self.n,
+            q(self.min),
+            q(self.max),
+            self.argmax,
+            q(self.sum)
         )
     }
 }
@@ -447,5 +462,21 @@ impl CompetitionStage for CompetitionCircuit {
             CompetitionCircuit::Wta(c) => c.solve(inputs, ws, out),
             CompetitionCircuit::DiffPair(c) => c.solve(inputs, ws, out),
         }
+    }
+}
+
+#[cfg(test)]
+mod summary_tests {
+    use super::InputSummary;
+
+    /// An input summary in a message shows quantities with their unit and an SI prefix
+    /// (`format_si`), not raw exponents ("9.0000e-9").
+    #[test]
+    fn input_summary_shows_units() {
+        let s = InputSummary::of(&[1e-9, 9e-9]).to_string();
+        assert_eq!(s, "2 inputs, min 1 nA, max 9 nA (input 1), sum 10 nA");
+        let v = InputSummary::of_in(&[0.5, 0.7], "V").to_string();
+        assert!(v.contains("max 700 mV"), "{v}");
+        assert!(!s.contains("e-9") && !v.contains("e-"), "{s} / {v}");
     }
 }

@@ -7,11 +7,15 @@
 //! draw of standard deviation `sqrt(2 q I_k B)` on `I_k`.
 //!
 //! Bandwidth: a user value, or the equivalent noise bandwidth of the input node seen as a single
-//! pole: the node's conductance in weak inversion is `g = kappa I_k / U_T` (the transconductance
-//! that sets it, Mead 1989), its pole `f_c = g / (2 pi C)`, and a single pole's equivalent noise
-//! bandwidth is `(pi/2) f_c` (standard result for a first-order low-pass, from memory; the unit
-//! test integrates it numerically), so `B_k = kappa I_k / (4 C U_T)`. The relative noise is then
-//! `sqrt(q kappa / (2 C U_T))`, a kT/C-like figure independent of the current.
+//! pole: the node's small-signal conductance in weak inversion is `g = s I_k / U_T`, its pole
+//! `f_c = g / (2 pi C)`, and a single pole's equivalent noise bandwidth is `(pi/2) f_c`
+//! (first-order low-pass; the unit test integrates it numerically), so
+//! `B_k = s I_k / (4 C U_T)`. The slope `s` is the circuit's: the current-mode WTA's input node
+//! is the drain of its sink transistor, whose gate (the common node) every cell shares, so the
+//! node's own conductance is the sink's drain coupling, `s = sigma` (d ln I / d V_D = sigma /
+//! U_T), a gain g = kappa/sigma times smaller than the transconductance kappa I / U_T
+//! ([`InputShotNoise::for_wta`]; DEVELOPERS.md model notes, "static noise bandwidth").
+//! The relative noise is then `sqrt(q s / (2 C U_T))`, independent of the current.
 //!
 //! Draws are clamped at zero (an input source does not reverse). Randomness comes from the
 //! caller's generator (a per-(chip, sample) stream of `rng::stream`).
@@ -30,12 +34,13 @@ const STAGE: &str = "input noise";
 pub enum NoiseBandwidth {
     /// A fixed noise bandwidth, Hz.
     Fixed(f64),
-    /// Equivalent noise bandwidth of each input node as a single pole: `kappa I_k / (4 C U_T)`.
+    /// Equivalent noise bandwidth of each input node as a single pole: `slope I_k / (4 C U_T)`.
     SinglePole {
         /// Input node capacitance, F.
         capacitance: f64,
-        /// Gate coupling kappa = 1/n of the transistor that sets the node's conductance.
-        kappa: f64,
+        /// The node's conductance in units of I/U_T: the sink's drain coupling sigma for the
+        /// current-mode WTA (see [`InputShotNoise::for_wta`]).
+        slope: f64,
     },
 }
 
@@ -67,12 +72,12 @@ impl InputShotNoise {
             NoiseBandwidth::Fixed(b) if !(b.is_finite() && b > 0.0) => {
                 return Err(bad("noise.bandwidth", b))
             }
-            NoiseBandwidth::SinglePole { capacitance, kappa } => {
+            NoiseBandwidth::SinglePole { capacitance, slope } => {
                 if !(capacitance.is_finite() && capacitance > 0.0) {
                     return Err(bad("noise.capacitance", capacitance));
                 }
-                if !(kappa.is_finite() && kappa > 0.0) {
-                    return Err(bad("noise.kappa", kappa));
+                if !(slope.is_finite() && slope > 0.0) {
+                    return Err(bad("noise.slope", slope));
                 }
             }
             _ => {}
@@ -83,12 +88,27 @@ impl InputShotNoise {
         Ok(())
     }
 
+    /// The static input noise of a current-mode WTA whose input nodes have capacitance
+    /// `capacitance` (F): single-pole bandwidth with the slope `sigma` of the sink's drain
+    /// coupling. The input node is the sink's drain; its gate (the common node) is shared by
+    /// every cell, so a line's own perturbation sees the drain conductance sigma I / U_T, not
+    /// the transconductance kappa I / U_T (DEVELOPERS.md model notes, "static noise bandwidth").
+    pub fn for_wta(w: &super::wta::WtaDesign, capacitance: f64, temperature: f64) -> Self {
+        InputShotNoise {
+            bandwidth: NoiseBandwidth::SinglePole {
+                capacitance,
+                slope: w.sink_sigma(),
+            },
+            temperature,
+        }
+    }
+
     /// Noise bandwidth (Hz) applied to an input of `i` amperes.
     pub fn bandwidth_for(&self, i: f64) -> f64 {
         match self.bandwidth {
             NoiseBandwidth::Fixed(b) => b,
-            NoiseBandwidth::SinglePole { capacitance, kappa } => {
-                kappa * i.max(0.0) / (4.0 * capacitance * thermal_voltage(self.temperature))
+            NoiseBandwidth::SinglePole { capacitance, slope } => {
+                slope * i.max(0.0) / (4.0 * capacitance * thermal_voltage(self.temperature))
             }
         }
     }
@@ -178,15 +198,15 @@ mod tests {
     /// |H(f)|^2 = 1/(1 + (f/f_c)^2) numerically (the definition of noise bandwidth).
     #[test]
     fn single_pole_bandwidth_matches_integral() {
-        let (c, kappa, i, t) = (100e-15, 0.75, 1e-9, 300.0);
+        let (c, slope, i, t) = (100e-15, 0.75, 1e-9, 300.0);
         let model = InputShotNoise {
             bandwidth: NoiseBandwidth::SinglePole {
                 capacitance: c,
-                kappa,
+                slope,
             },
             temperature: t,
         };
-        let g = kappa * i / thermal_voltage(t);
+        let g = slope * i / thermal_voltage(t);
         let fc = g / (2.0 * std::f64::consts::PI * c);
         // ∫_0^∞ df / (1 + (f/fc)^2) with f = fc tan(theta): midpoint rule in theta.
         let m = 100_000;

@@ -102,6 +102,20 @@ pub struct WtaDesign {
 }
 
 impl WtaDesign {
+    /// The sink's drain coupling sigma = eta / n: the weight of its drain voltage V_k in the
+    /// weak-inversion exponent (d ln I / d V_k = sigma / U_T), with this design's override or
+    /// the process's value at the sink's length. The input node's own conductance is
+    /// sigma I_k / U_T (the common-node gate is shared by every cell).
+    pub fn sink_sigma(&self) -> f64 {
+        let t = &self.process.nmos;
+        let dc = self.drain_coupling.unwrap_or(t.drain_coupling);
+        dc.eta(
+            t.n,
+            self.sink.l,
+            crate::physics::thermal_voltage(self.process.t_nom),
+        ) / t.n
+    }
+
     /// A design with the supply and output voltage at the process's V_dd, the process's drain
     /// coupling, and node capacitances of 50 fF (inputs) and 200 fF (common node): placeholders
     /// of ours, set them from your layout.

@@ -185,6 +185,19 @@ impl MappedChain {
         }
     }
 
+    /// The chain with its element targets rounded to the programmable levels and nothing else
+    /// (see [`MappedStage::nominal_levels`]): ideal DACs, closed-form normalisers, no noise.
+    pub fn nominal_levels(&self) -> EffectiveChain {
+        EffectiveChain {
+            stages: self
+                .stages
+                .iter()
+                .map(MappedStage::nominal_levels)
+                .collect(),
+            hidden: self.hidden.clone(),
+        }
+    }
+
     /// Ideal chain: exact mapped weights, ideal DACs, closed-form normalisers.
     pub fn ideal(&self) -> EffectiveChain {
         EffectiveChain {

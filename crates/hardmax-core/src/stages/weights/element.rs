@@ -18,7 +18,7 @@ use rand::Rng;
 use rand_distr::StandardNormal;
 use serde::{Deserialize, Serialize};
 
-use super::error::{check_nonneg, check_pos, invalid, Result};
+use super::error::{check_nonneg, check_nonneg_in, check_pos, check_pos_in, invalid, Result};
 use super::Conditions;
 use crate::device::mismatch::sample_mismatch;
 use crate::device::{MosMismatch, Process, Transistor};
@@ -247,7 +247,7 @@ impl LinearElement {
         check_nonneg(&format!("{prefix}.read_noise.sigma"), self.read_noise.sigma)?;
         check_nonneg(&format!("{prefix}.drift.nu"), self.drift.nu)?;
         check_nonneg(&format!("{prefix}.drift.nu_sigma"), self.drift.nu_sigma)?;
-        check_pos(&format!("{prefix}.drift.t0_s"), self.drift.t0_s)?;
+        check_pos_in(&format!("{prefix}.drift.t0_s"), self.drift.t0_s, "s")?;
         for (n, f) in [
             ("stuck_at_min_fraction", self.stuck_at_min_fraction),
             ("stuck_at_max_fraction", self.stuck_at_max_fraction),
@@ -285,15 +285,17 @@ impl SubthresholdElement {
             ));
         }
         check_levels(&format!("{prefix}.levels"), self.levels)?;
-        check_nonneg(
+        check_nonneg_in(
             &format!("{prefix}.programming_error_v"),
             self.programming_error_v,
+            "V",
         )?;
-        check_pos(&format!("{prefix}.device.w"), self.device.w)?;
-        check_pos(&format!("{prefix}.device.l"), self.device.l)?;
-        check_pos(
+        check_pos_in(&format!("{prefix}.device.w"), self.device.w, "m")?;
+        check_pos_in(&format!("{prefix}.device.l"), self.device.l, "m")?;
+        check_pos_in(
             &format!("{prefix}.program_temperature_k"),
             self.program_temperature_k,
+            "K",
         )?;
         check_nonneg(&format!("{prefix}.read_noise_rel"), self.read_noise_rel)?;
         Ok(())

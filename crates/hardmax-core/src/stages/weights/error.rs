@@ -85,6 +85,33 @@ pub(crate) fn check_nonneg(name: &str, v: f64) -> Result<()> {
     }
 }
 
+/// `Ok` when `v` is finite and `>= 0`; a refusal shows the quantity with its SI `unit`
+/// ("-1 mV", not "-0.001").
+pub(crate) fn check_nonneg_in(name: &str, v: f64, unit: &str) -> Result<()> {
+    if v.is_finite() && v >= 0.0 {
+        Ok(())
+    } else {
+        Err(invalid(
+            name,
+            crate::units::format_si(v, unit, 6),
+            "a finite value >= 0",
+        ))
+    }
+}
+
+/// `Ok` when `v` is finite and `> 0`; a refusal shows the quantity with its SI `unit`.
+pub(crate) fn check_pos_in(name: &str, v: f64, unit: &str) -> Result<()> {
+    if v.is_finite() && v > 0.0 {
+        Ok(())
+    } else {
+        Err(invalid(
+            name,
+            crate::units::format_si(v, unit, 6),
+            "a finite value > 0",
+        ))
+    }
+}
+
 /// `Ok` when `v` is finite and `> 0`.
 pub(crate) fn check_pos(name: &str, v: f64) -> Result<()> {
     if v.is_finite() && v > 0.0 {

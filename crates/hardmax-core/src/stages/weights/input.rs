@@ -11,7 +11,7 @@ use rand::Rng;
 use rand_distr::StandardNormal;
 use serde::{Deserialize, Serialize};
 
-use super::error::{check_nonneg, check_pos, invalid, Result};
+use super::error::{check_nonneg, check_pos_in, invalid, Result};
 
 /// Largest accepted DAC resolution (bits).
 pub const MAX_DAC_BITS: u32 = 24;
@@ -51,9 +51,10 @@ impl InputDesign {
                 ));
             }
         }
-        check_pos(
+        check_pos_in(
             &format!("{prefix}.full_scale_current_a"),
             self.full_scale_current_a,
+            "A",
         )?;
         check_nonneg(&format!("{prefix}.gain_sigma_rel"), self.gain_sigma_rel)?;
         Ok(())

@@ -25,7 +25,7 @@ use serde::{Deserialize, Serialize};
 
 use super::effective::EffectiveStage;
 use super::element::ElementDesign;
-use super::error::{check_nonneg, invalid, Result, WeightStageError};
+use super::error::{check_nonneg, check_nonneg_in, invalid, Result, WeightStageError};
 use super::input::InputDesign;
 use crate::device::{Polarity, Transistor};
 
@@ -114,7 +114,7 @@ impl WeightStageDesign {
         }
         match self.offset {
             OffsetSetting::Fixed { current_a } => {
-                check_nonneg("offset.fixed.current_a", current_a)?
+                check_nonneg_in("offset.fixed.current_a", current_a, "A")?
             }
             OffsetSetting::Auto { margin } => check_nonneg("offset.auto.margin", margin)?,
         }
@@ -287,11 +287,45 @@ impl MappedStage {
         }
     }
 
+    /// The element targets rounded to the element's programmable levels, with no other
+    /// nonideality: what a perfect chip of this design holds. Linear elements: evenly spaced
+    /// levels of [w_min, w_max]; subthreshold elements: evenly spaced stored voltages, i.e.
+    /// evenly spaced ln(w) (dV = U_T/kappa ln w, so kappa and U_T cancel in the rounding).
+    pub fn nominal_levels(&self) -> EffectiveStage {
+        let round = |t: f64| match &self.design.element {
+            super::element::ElementDesign::Linear(e) => e.quantise(t),
+            super::element::ElementDesign::Subthreshold(e) => {
+                if e.w_min > 0.0 && e.w_max > e.w_min {
+                    super::element::quantise_level(
+                        t.clamp(e.w_min, e.w_max).ln(),
+                        e.w_min.ln(),
+                        e.w_max.ln(),
+                        e.levels,
+                    )
+                    .exp()
+                } else {
+                    t
+                }
+            }
+        };
+        let plus = self.plus.mapv(round);
+        let minus = self.minus.as_ref().map(|m| m.mapv(round));
+        let net = match &minus {
+            Some(m) => &plus - m,
+            None => plus,
+        };
+        self.effective_of(net)
+    }
+
     /// The ideal evaluation: exact mapped weights, no DAC quantisation (inputs only clipped to
     /// [0, 1]), no mismatch, no noise, no clamping. Its argmax is the "ideal argmax".
     pub fn ideal(&self) -> EffectiveStage {
+        self.effective_of(self.net_weights())
+    }
+
+    /// A noiseless effective stage holding the net weights `net` (classes x (features + 1)).
+    fn effective_of(&self, net: Array2<f64>) -> EffectiveStage {
         let iu = self.design.input.full_scale_current_a;
-        let net = self.net_weights();
         let mut matrix = vec![0.0; self.features * self.classes];
         for ((j, i), &d) in net.indexed_iter() {
             if i < self.features {
