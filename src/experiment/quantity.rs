@@ -98,19 +98,7 @@ impl<'de, D: Dim> Deserialize<'de> for Q<D> {
 /// only the decimal point moves, so the (correctly rounded) parser returns the same double.
 /// Outside the prefix range, or for zero, the plain shortest form with the base unit.
 pub fn exact_si(value: f64, unit: &str) -> String {
-    const PREFIXES: [(i32, &str); 11] = [
-        (-18, "a"),
-        (-15, "f"),
-        (-12, "p"),
-        (-9, "n"),
-        (-6, "µ"),
-        (-3, "m"),
-        (0, ""),
-        (3, "k"),
-        (6, "M"),
-        (9, "G"),
-        (12, "T"),
-    ];
+    const PREFIXES: [(i32, &str); 11] = crate::units::ENGINEERING_PREFIXES;
     let plain = || {
         let t = format!("{value:?}");
         let t = t.strip_suffix(".0").map(str::to_string).unwrap_or(t);

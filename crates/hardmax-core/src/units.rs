@@ -636,23 +636,25 @@ pub fn quantity_from_toml(value: &toml::Value, dim: Dimension) -> Result<f64, Un
     }
 }
 
+/// The engineering SI prefixes used when writing quantities: (power of ten, prefix).
+pub const ENGINEERING_PREFIXES: [(i32, &str); 11] = [
+    (-18, "a"),
+    (-15, "f"),
+    (-12, "p"),
+    (-9, "n"),
+    (-6, "µ"),
+    (-3, "m"),
+    (0, ""),
+    (3, "k"),
+    (6, "M"),
+    (9, "G"),
+    (12, "T"),
+];
+
 /// Format `value` (in base SI units) with an engineering SI prefix and `unit`, e.g.
 /// `format_si(1.0e-8, "A", 3)` = `"10 nA"`. `digits` is the number of significant digits.
 /// Zero, non-finite values and values outside the prefix range are written plainly.
 pub fn format_si(value: f64, unit: &str, digits: usize) -> String {
-    const PREFIXES: [(i32, &str); 11] = [
-        (-18, "a"),
-        (-15, "f"),
-        (-12, "p"),
-        (-9, "n"),
-        (-6, "µ"),
-        (-3, "m"),
-        (0, ""),
-        (3, "k"),
-        (6, "M"),
-        (9, "G"),
-        (12, "T"),
-    ];
     let sep = if unit.is_empty() { "" } else { " " };
     if value == 0.0 || !value.is_finite() {
         return format!("{value}{sep}{unit}");
@@ -663,7 +665,7 @@ pub fn format_si(value: f64, unit: &str, digits: usize) -> String {
     let scale = 10f64.powi(digits as i32 - 1 - mag);
     let rounded = (value * scale).round() / scale;
     let exp3 = (rounded.abs().log10().floor() as i32).div_euclid(3) * 3;
-    let Some(&(e, p)) = PREFIXES.iter().find(|(e, _)| *e == exp3) else {
+    let Some(&(e, p)) = ENGINEERING_PREFIXES.iter().find(|(e, _)| *e == exp3) else {
         return format!("{value:e}{sep}{unit}");
     };
     let mantissa = rounded / 10f64.powi(e);
