@@ -1257,6 +1257,7 @@ pub fn evaluate_chip_with(
     let mut out_time = (0.0, 0.0, 0u64);
     let noise_stream =
         |i: usize, source: u64| dies.stream(seed, domain::SAMPLE_NOISE, &[chip, i as u64, source]);
+    let static_noise = d.static_input_noise();
     for (i, (row, &truth)) in prep.test_u.outer_iter().zip(&prep.test_y).enumerate() {
         // One stream per sample and noise source, made only when the source draws.
         let mut read_rng = noisy_weights.then(|| noise_stream(i, noise_source::READ));
@@ -1304,16 +1305,20 @@ pub fn evaluate_chip_with(
                 }
                 .map_err(|e| failed(first, FailureKind::WeightStage, e))?,
             }
-            // Static (input-referred) noise: only where no transient SDE owns it.
-            let mut input_rng = noise_stream(i, noise_source::INPUT);
-            let inputs = d
-                .competition_inputs_scaled(
+            // Static (input-referred) noise: only where no transient SDE owns it; its stream
+            // is made only when it draws.
+            let inputs: &[f64] = if static_noise {
+                let mut input_rng = noise_stream(i, noise_source::INPUT);
+                d.competition_inputs_scaled(
                     &currents,
                     &mut noisy,
                     &mut input_rng,
                     toggles.shot_noise,
                 )
-                .map_err(|e| failed(first, FailureKind::Noise, e))?;
+                .map_err(|e| failed(first, FailureKind::Noise, e))?
+            } else {
+                &currents
+            };
             match &decider {
                 Decider::Argmax => crate::training::argmax(inputs)
                     .map(|w| (w, false))
