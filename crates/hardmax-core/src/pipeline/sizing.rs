@@ -197,6 +197,268 @@ pub fn wilson_lower(successes: u64, trials: u64, z: f64) -> f64 {
     (centre - half).max(0.0)
 }
 
+/// What the search minimises and draws on the front: the evaluator's costs of a candidate.
+pub trait Candidate: Verdict {
+    /// The stated cost to minimise (area, current, or a weighted sum).
+    fn cost(&self) -> f64;
+    /// The two costs of the trade-off front: (layout area m^2, supply current A).
+    fn front_costs(&self) -> (f64, f64);
+}
+
+/// Why a candidate was evaluated.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Role {
+    /// An end of the range (the bracket).
+    Bracket,
+    /// A bisection step.
+    Bisect,
+    /// Verification on a fresh population (another seed).
+    Verify,
+}
+
+impl Role {
+    pub fn key(self) -> &'static str {
+        match self {
+            Role::Bracket => "bracket",
+            Role::Bisect => "bisect",
+            Role::Verify => "verify",
+        }
+    }
+}
+
+/// One evaluated candidate.
+#[derive(Debug, Clone)]
+pub struct Step<V> {
+    pub role: Role,
+    /// One value per dimension, in SI base units.
+    pub values: Vec<f64>,
+    /// Population seed the candidate was evaluated with.
+    pub seed: u64,
+    pub verdict: V,
+}
+
+/// Settings of a search.
+#[derive(Debug, Clone, PartialEq)]
+pub struct SearchOptions {
+    /// Relative width of the final bracket of the first dimension (0.05: within 5 %).
+    pub resolution: f64,
+    /// Values per further dimension on its log grid (several dimensions only).
+    pub grid: usize,
+    /// Seed of the search population (paired dies: the same dies at every candidate).
+    pub seed: u64,
+    /// Seed of the verification population (must differ from `seed`).
+    pub verify_seed: u64,
+    /// How many times a failed verification may step the answer up before giving up.
+    pub verify_steps: usize,
+    /// Factor of each step up (above 1).
+    pub step_factor: f64,
+}
+
+/// The search's answer before verification.
+#[derive(Debug, Clone, PartialEq)]
+pub enum Answer {
+    /// The cheapest passing candidate (index into the trace).
+    Met { step: usize },
+    /// Nothing passed inside the ranges: the candidate with the largest margin, and the
+    /// dimensions that were at the top of their range there (the ones to widen).
+    NotMet { best_step: usize, widen: Vec<usize> },
+}
+
+/// What the verification run found.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Verification {
+    /// The last verification candidate passed.
+    pub passed: bool,
+    /// Trace indices of the verification candidates, in order.
+    pub steps: Vec<usize>,
+    /// The verification stopped because every dimension reached its top.
+    pub exhausted: bool,
+}
+
+/// How the search ended, as the headline must say it.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Status {
+    /// The answer passed on the search population and on the fresh one.
+    Verified,
+    /// The search answer failed verification; a stepped-up design passed (the answer moves).
+    VerifiedAfterStepUp,
+    /// The answer failed its verification run and no step up inside the ranges passed.
+    FailedVerification,
+    /// The target is not met inside the ranges.
+    NotMet,
+}
+
+/// A finished search.
+#[derive(Debug, Clone)]
+pub struct SearchResult<V> {
+    pub trace: Vec<Step<V>>,
+    pub answer: Answer,
+    pub verification: Option<Verification>,
+    /// Trace indices of the passing search candidates on the (area, current) front.
+    pub front: Vec<usize>,
+}
+
+impl<V> SearchResult<V> {
+    pub fn status(&self) -> Status {
+        match (&self.answer, &self.verification) {
+            (Answer::NotMet { .. }, _) => Status::NotMet,
+            (Answer::Met { .. }, Some(v)) if v.passed && v.steps.len() == 1 => Status::Verified,
+            (Answer::Met { .. }, Some(v)) if v.passed => Status::VerifiedAfterStepUp,
+            (Answer::Met { .. }, _) => Status::FailedVerification,
+        }
+    }
+
+    /// The design to build: the last passing verification candidate, else the search answer
+    /// (whose status then says it failed verification), else none.
+    pub fn final_step(&self) -> Option<usize> {
+        match (&self.answer, &self.verification) {
+            (Answer::Met { .. }, Some(v)) if v.passed => v.steps.last().copied(),
+            (Answer::Met { step }, _) => Some(*step),
+            _ => None,
+        }
+    }
+}
+
+/// Method of [`search`], for reports.
+pub const METHOD_ONE: &str = "log-scale bracket (both ends of the range) then bisection at the geometric mean until the bracket is within the resolution, on the same dies at every step";
+/// Method of [`search`] with several dimensions, for reports.
+pub const METHOD_SEVERAL: &str = "coarse log grid over every dimension but the first; along the first, bisection to the pass boundary for each grid combination (same dies at every step); the answer is the cheapest passing candidate evaluated; the front is the passing candidates no other passing one beats in both area and current";
+
+/// Minimise the candidates' cost subject to passing, then verify on a fresh population.
+/// One dimension: [`bisect_log`] over `ranges[0]`. Several: for each combination of the other
+/// dimensions' log grids, [`bisect_log`] along the first ([`METHOD_SEVERAL`]). Never evaluates
+/// outside the ranges. Verification: the answer at `verify_seed`; on failure every dimension
+/// steps up by `step_factor` (capped at its top) and is verified again, at most `verify_steps`
+/// times.
+pub fn search<V: Candidate + Clone, E>(
+    ranges: &[LogRange],
+    opts: &SearchOptions,
+    mut eval: impl FnMut(&[f64], u64, Role) -> Result<V, E>,
+) -> Result<Result<SearchResult<V>, SizingError>, E> {
+    let Some(first) = ranges.first() else {
+        return Ok(Err(SizingError::NoDimension));
+    };
+    if !(opts.resolution > 0.0 && opts.resolution < 1.0) {
+        return Ok(Err(SizingError::BadResolution(opts.resolution)));
+    }
+    let mut combos: Vec<Vec<f64>> = vec![vec![]];
+    for r in &ranges[1..] {
+        let g = match r.grid(opts.grid) {
+            Ok(g) => g,
+            Err(e) => return Ok(Err(e)),
+        };
+        combos = combos
+            .iter()
+            .flat_map(|c| {
+                g.iter().map(move |v| {
+                    let mut c = c.clone();
+                    c.push(*v);
+                    c
+                })
+            })
+            .collect();
+    }
+    let mut trace: Vec<Step<V>> = Vec::new();
+    for combo in &combos {
+        let mut n = 0usize;
+        let r = bisect_log(first, opts.resolution, |x| {
+            let mut values = vec![x];
+            values.extend_from_slice(combo);
+            let role = if n < 2 { Role::Bracket } else { Role::Bisect };
+            n += 1;
+            let v = eval(&values, opts.seed, role)?;
+            trace.push(Step {
+                role,
+                values,
+                seed: opts.seed,
+                verdict: v.clone(),
+            });
+            Ok(v)
+        })?;
+        if let Err(e) = r {
+            return Ok(Err(e));
+        }
+    }
+    let passing: Vec<usize> = (0..trace.len())
+        .filter(|&i| trace[i].verdict.passes())
+        .collect();
+    let pts: Vec<(f64, f64)> = passing
+        .iter()
+        .map(|&i| trace[i].verdict.front_costs())
+        .collect();
+    let front: Vec<usize> = pareto_front(&pts).into_iter().map(|k| passing[k]).collect();
+    let best = passing.iter().copied().min_by(|&a, &b| {
+        trace[a]
+            .verdict
+            .cost()
+            .total_cmp(&trace[b].verdict.cost())
+            .then(a.cmp(&b))
+    });
+    let Some(best) = best else {
+        let best_step = (0..trace.len())
+            .max_by(|&a, &b| {
+                trace[a]
+                    .verdict
+                    .margin()
+                    .total_cmp(&trace[b].verdict.margin())
+                    .then(b.cmp(&a))
+            })
+            .unwrap_or(0);
+        let widen = trace
+            .get(best_step)
+            .map(|s| {
+                (0..ranges.len())
+                    .filter(|&d| s.values[d] >= ranges[d].hi)
+                    .collect()
+            })
+            .unwrap_or_default();
+        return Ok(Ok(SearchResult {
+            trace,
+            answer: Answer::NotMet { best_step, widen },
+            verification: None,
+            front,
+        }));
+    };
+    // Verification on a fresh population, stepping up while it fails.
+    let mut values = trace[best].values.clone();
+    let mut steps = Vec::new();
+    let mut exhausted = false;
+    let passed = loop {
+        let v = eval(&values, opts.verify_seed, Role::Verify)?;
+        let ok = v.passes();
+        trace.push(Step {
+            role: Role::Verify,
+            values: values.clone(),
+            seed: opts.verify_seed,
+            verdict: v,
+        });
+        steps.push(trace.len() - 1);
+        if ok {
+            break true;
+        }
+        if steps.len() > opts.verify_steps {
+            break false;
+        }
+        match step_up(&values, ranges, opts.step_factor) {
+            Some(next) => values = next,
+            None => {
+                exhausted = true;
+                break false;
+            }
+        }
+    };
+    Ok(Ok(SearchResult {
+        trace,
+        answer: Answer::Met { step: best },
+        verification: Some(Verification {
+            passed,
+            steps,
+            exhausted,
+        }),
+        front,
+    }))
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -399,5 +661,154 @@ mod tests {
             max_relative = 1e-12
         );
         assert_eq!(wilson_lower(0, 10, 1.96), 0.0);
+    }
+
+    #[derive(Debug, Clone, Copy)]
+    struct C {
+        pass: bool,
+        margin: f64,
+        area: f64,
+        current: f64,
+    }
+    impl Verdict for C {
+        fn passes(&self) -> bool {
+            self.pass
+        }
+        fn margin(&self) -> f64 {
+            self.margin
+        }
+    }
+    impl Candidate for C {
+        fn cost(&self) -> f64 {
+            self.area
+        }
+        fn front_costs(&self) -> (f64, f64) {
+            (self.area, self.current)
+        }
+    }
+
+    fn opts() -> SearchOptions {
+        SearchOptions {
+            resolution: 0.05,
+            grid: 4,
+            seed: 1,
+            verify_seed: 2,
+            verify_steps: 3,
+            step_factor: 1.25,
+        }
+    }
+
+    /// The search never hands back a design that failed its own verification without saying
+    /// so: a verification population that needs more than the range gives ends
+    /// FailedVerification, and a stepped-up pass moves the answer and says so.
+    #[test]
+    fn a_failed_verification_is_never_silent() {
+        let r = [LogRange::new("w", 1.0, 64.0).unwrap()];
+        // The search population passes from 5; the verification population needs 100.
+        let res = search(&r, &opts(), |v, seed, _| {
+            let need = if seed == 1 { 5.0 } else { 100.0 };
+            Ok::<_, ()>(C {
+                pass: v[0] >= need,
+                margin: v[0] - need,
+                area: v[0],
+                current: 1.0,
+            })
+        })
+        .unwrap()
+        .unwrap();
+        assert_eq!(res.status(), Status::FailedVerification);
+        let ver = res.verification.as_ref().unwrap();
+        assert!(!ver.passed);
+        assert!(ver.steps.len() <= opts().verify_steps + 1);
+        // Every verification step is in the trace with its seed.
+        assert!(ver.steps.iter().all(|&i| res.trace[i].seed == 2));
+        // The verification population needs a little more: a step up passes, answer moves.
+        let res = search(&r, &opts(), |v, seed, _| {
+            let need = if seed == 1 { 5.0 } else { 6.0 };
+            Ok::<_, ()>(C {
+                pass: v[0] >= need,
+                margin: v[0] - need,
+                area: v[0],
+                current: 1.0,
+            })
+        })
+        .unwrap()
+        .unwrap();
+        assert_eq!(res.status(), Status::VerifiedAfterStepUp);
+        let f = res.final_step().unwrap();
+        assert!(res.trace[f].values[0] >= 6.0 && res.trace[f].verdict.pass);
+    }
+
+    /// Two dimensions trading against each other (pass when a * b >= 16, area = a + b,
+    /// current = b): the cheapest passing design is near a = b = 4 (AM-GM), and the front
+    /// holds only passing candidates that no other beats in both costs.
+    #[test]
+    fn two_dimensions_minimise_the_cost_on_the_boundary() {
+        let r = [
+            LogRange::new("a", 1.0, 64.0).unwrap(),
+            LogRange::new("b", 1.0, 64.0).unwrap(),
+        ];
+        let mut o = opts();
+        o.grid = 7; // b on 1, 2, 4, ..., 64
+        let res = search(&r, &o, |v, _, _| {
+            Ok::<_, ()>(C {
+                pass: v[0] * v[1] >= 16.0,
+                margin: v[0] * v[1] - 16.0,
+                area: v[0] + v[1],
+                current: v[1],
+            })
+        })
+        .unwrap()
+        .unwrap();
+        assert_eq!(res.status(), Status::Verified);
+        let Answer::Met { step } = res.answer else {
+            panic!()
+        };
+        let best = &res.trace[step];
+        approx::assert_relative_eq!(best.values[1], 4.0, max_relative = 1e-9);
+        assert!(best.values[0] >= 4.0 && best.values[0] <= 4.0 * 1.05);
+        for &i in &res.front {
+            assert!(res.trace[i].verdict.pass);
+            let (a, c) = res.trace[i].verdict.front_costs();
+            assert!(!res.front.iter().any(|&j| {
+                let (a2, c2) = res.trace[j].verdict.front_costs();
+                a2 <= a && c2 <= c && (a2 < a || c2 < c)
+            }));
+        }
+    }
+
+    #[test]
+    fn nothing_passing_names_the_range_to_widen() {
+        let r = [
+            LogRange::new("a", 1.0, 8.0).unwrap(),
+            LogRange::new("b", 1.0, 8.0).unwrap(),
+        ];
+        let res = search(&r, &opts(), |v, _, _| {
+            Ok::<_, ()>(C {
+                pass: false,
+                margin: v[0] * v[1] - 1000.0,
+                area: 1.0,
+                current: 1.0,
+            })
+        })
+        .unwrap()
+        .unwrap();
+        assert_eq!(res.status(), Status::NotMet);
+        assert_eq!(
+            res.answer,
+            Answer::NotMet {
+                best_step: res
+                    .trace
+                    .iter()
+                    .position(|s| s.values == vec![8.0, 8.0])
+                    .unwrap(),
+                widen: vec![0, 1]
+            }
+        );
+        assert!(res
+            .trace
+            .iter()
+            .all(|s| s.values[0] <= 8.0 && s.values[1] <= 8.0));
+        assert!(res.final_step().is_none());
     }
 }
