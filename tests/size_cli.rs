@@ -154,3 +154,96 @@ fn unknown_key_and_missing_search_are_refused() {
     let err = String::from_utf8(a.get_output().stderr.clone()).unwrap();
     assert!(err.contains("no [search] table"), "{err}");
 }
+
+/// Corners from the file: tt, ff, ss as stated sigma shifts.
+const CORNERS: &str = "[corners]\nvt0_sigma = \"15 mV\"\nbeta_sigma = 0.05\nsigmas = 3\n\
+                       process = [\"tt\", \"ff\", \"ss\", \"fs\", \"sf\"]\n";
+
+/// The fast corner gives more drain current at the same gate voltage than typical, the slow
+/// corner less, for NMOS and PMOS, and the cross corners move each polarity its own way
+/// (common practice, no source).
+#[test]
+fn fast_corner_gives_more_current_and_slow_less() {
+    use hardmax::device::{MosMismatch, Polarity, Transistor};
+    let d = tempfile::tempdir().unwrap();
+    let f = write(d.path(), "accuracy = 0.8\nyield = 0.8", 40, "1 um", "8 um");
+    let text = format!("{}{CORNERS}", std::fs::read_to_string(&f).unwrap());
+    std::fs::write(&f, &text).unwrap();
+    let resolved = hardmax::experiment::config::load_str(&text, &f, &[]).unwrap();
+    let corners = hardmax::experiment::sizing::parse_corners(&text, &f, &resolved).unwrap();
+    let names: Vec<&str> = corners.iter().map(|c| c.name.as_str()).collect();
+    assert_eq!(names, ["tt", "ff", "ss", "fs", "sf"]);
+    let current = |name: &str, pol: Polarity| {
+        let c = corners.iter().find(|c| c.name == name).unwrap();
+        let r = hardmax::experiment::config::load_str(&text, &f, &c.overrides).unwrap();
+        let p = hardmax::experiment::build::process(&r.at_point[0]).unwrap();
+        let t = Transistor {
+            polarity: pol,
+            w: 2e-6,
+            l: 1e-6,
+        };
+        // Gate 0.6 V, drain 1 V, source 0, 300 K; the magnitude (a PMOS with these terminal
+        // values conducts in reverse in hardmax's sign convention, DEVELOPERS.md).
+        p.ekv(&t, 300.0, MosMismatch::default())
+            .id(0.6, 1.0, 0.0)
+            .abs()
+    };
+    for pol in [Polarity::Nmos, Polarity::Pmos] {
+        let (tt, ff, ss) = (current("tt", pol), current("ff", pol), current("ss", pol));
+        assert!(ff > tt && tt > ss && ss > 1e-12, "{pol:?}: {ff} {tt} {ss}");
+    }
+    assert!(current("fs", Polarity::Nmos) > current("tt", Polarity::Nmos));
+    assert!(current("fs", Polarity::Pmos) < current("tt", Polarity::Pmos));
+    assert!(current("sf", Polarity::Nmos) < current("tt", Polarity::Nmos));
+}
+
+#[test]
+fn unknown_corner_parameter_and_corner_name_are_refused() {
+    let d = tempfile::tempdir().unwrap();
+    let f = write(d.path(), "accuracy = 0.8\nyield = 0.8", 40, "1 um", "8 um");
+    let base = std::fs::read_to_string(&f).unwrap();
+    std::fs::write(&f, format!("{base}{CORNERS}vt_shift = \"1 mV\"\n")).unwrap();
+    let a = size(&f, &d.path().join("o")).failure();
+    let err = String::from_utf8(a.get_output().stderr.clone()).unwrap();
+    assert!(err.contains("corners") && err.contains("vt_shift"), "{err}");
+    std::fs::write(&f, format!("{base}{}", CORNERS.replace("\"sf\"", "\"xf\""))).unwrap();
+    let a = size(&f, &d.path().join("o")).failure();
+    let err = String::from_utf8(a.get_output().stderr.clone()).unwrap();
+    assert!(err.contains("`xf` is not a process corner"), "{err}");
+    // A process corner without stated sigmas is refused (no assumed default).
+    std::fs::write(&f, format!("{base}[corners]\nprocess = [\"tt\", \"ff\"]\n")).unwrap();
+    let a = size(&f, &d.path().join("o")).failure();
+    let err = String::from_utf8(a.get_output().stderr.clone()).unwrap();
+    assert!(err.contains("corners.vt0_sigma"), "{err}");
+}
+
+#[test]
+fn search_at_corners_names_them_in_the_headline() {
+    let d = tempfile::tempdir().unwrap();
+    let f = write(
+        d.path(),
+        "accuracy = 0.8\nyield = 0.8",
+        40,
+        "0.1 um",
+        "20 um",
+    );
+    let base = std::fs::read_to_string(&f).unwrap();
+    std::fs::write(
+        &f,
+        format!("{base}{CORNERS}vdd = [\"1.62 V\", \"1.98 V\"]\n"),
+    )
+    .unwrap();
+    let out = d.path().join("o");
+    let a = size(&f, &out).success();
+    let stdout = String::from_utf8(a.get_output().stdout.clone()).unwrap();
+    let trace = std::fs::read_to_string(out.join("search.csv")).unwrap();
+    assert!(trace
+        .lines()
+        .next()
+        .unwrap()
+        .ends_with("limiting_corner_current"));
+    if !stdout.contains("NOT MET") {
+        assert!(stdout.contains("at every corner (tt / 1.62 V"), "{stdout}");
+        assert!(stdout.contains("limiting corner"), "{stdout}");
+    }
+}

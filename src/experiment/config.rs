@@ -648,6 +648,10 @@ pub struct Experiment {
     /// resolved experiment like `[cluster]`, so it never changes the experiment hash.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub search: Option<toml::Table>,
+    /// `[corners]`: the corners `hardmax size` checks every candidate at (read by
+    /// `experiment::sizing`); taken out of the resolved experiment like `[search]`.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub corners: Option<toml::Table>,
 }
 
 impl Experiment {
@@ -679,6 +683,7 @@ impl Experiment {
             sweep: SweepSpec::default(),
             cluster: None,
             search: None,
+            corners: None,
         };
         e.process.vdd = Some(Q::new(1.8));
         for d in [&mut e.process.nmos, &mut e.process.pmos] {
@@ -925,6 +930,7 @@ pub fn load_str(text: &str, file: &Path, overrides: &[String]) -> Result<Resolve
     let cluster = base.cluster.take().unwrap_or_default();
     // `[search]` is read from the file by `hardmax size`; not part of the experiment.
     base.search = None;
+    base.corners = None;
     check_cluster(&cluster, text, file).map_err(from_cli)?;
     let resolved_tree = Value::try_from(&base).map_err(|e| ConfigError::Syntax {
         path: file.into(),

@@ -54,6 +54,11 @@ pub struct SizingRow {
     /// The minimised cost (its unit follows `SizingReport::cost_name`).
     pub cost: f64,
     pub elapsed_s: f64,
+    /// With corners: the corner with the lowest yield lower bound (whose numbers this row
+    /// shows), the one with the lowest mean accuracy, the one with the highest supply current.
+    pub limiting_yield: String,
+    pub limiting_accuracy: String,
+    pub limiting_current: String,
 }
 
 /// A finished search, ready to write.
@@ -82,6 +87,8 @@ pub struct SizingReport {
     pub best_row: Option<usize>,
     pub widen: Vec<usize>,
     pub status: Status,
+    /// Names of the corners every candidate was evaluated at (empty: nominal only).
+    pub corners: Vec<String>,
     pub command: String,
     pub elapsed_s: f64,
 }
@@ -138,7 +145,8 @@ pub fn search_csv(r: &SizingReport) -> String {
     }
     s.push_str(
         ",seed,dies,reached,yield,yield_lo,yield_hi,pass,margin,acc_mean,acc_p05,area_m2,\
-         competition_area_m2,supply_current_a,power_w,cost,elapsed_s\n",
+         competition_area_m2,supply_current_a,power_w,cost,elapsed_s,limiting_corner_yield,\
+         limiting_corner_accuracy,limiting_corner_current\n",
     );
     for (k, row) in r.rows.iter().enumerate() {
         s.push_str(&format!("{k},{}", row.role));
@@ -146,7 +154,7 @@ pub fn search_csv(r: &SizingReport) -> String {
             s.push_str(&format!(",{}", num(*v)));
         }
         s.push_str(&format!(
-            ",{},{},{},{},{},{},{},{},{},{},{},{},{},{},{},{}\n",
+            ",{},{},{},{},{},{},{},{},{},{},{},{},{},{},{},{},{},{},{}\n",
             row.seed,
             row.dies,
             row.reached,
@@ -163,6 +171,9 @@ pub fn search_csv(r: &SizingReport) -> String {
             num(row.power_w),
             num(row.cost),
             num(row.elapsed_s),
+            row.limiting_yield,
+            row.limiting_accuracy,
+            row.limiting_current,
         ));
     }
     s
@@ -195,17 +206,33 @@ pub fn front_csv(r: &SizingReport) -> String {
 /// The one-paragraph answer: what passes, at what cost, verified or not (always said), or
 /// which range to widen and how close the best candidate came.
 pub fn headline(r: &SizingReport) -> String {
+    let corners = if r.corners.is_empty() {
+        String::new()
+    } else {
+        format!(
+            " at every corner ({}; a candidate passes only when it passes at each)",
+            r.corners.join(", ")
+        )
+    };
     let target = format!(
-        "{:.1} % accuracy at {:.1} % yield ({:.0} % confidence, Wilson lower bound)",
+        "{:.1} % accuracy at {:.1} % yield ({:.0} % confidence, Wilson lower bound){corners}",
         100.0 * r.target_accuracy,
         100.0 * r.yield_target,
         100.0 * r.confidence
     );
     let describe = |k: usize| {
         let row = &r.rows[k];
+        let lim = if row.limiting_yield.is_empty() {
+            String::new()
+        } else {
+            format!(
+                "; limiting corner: {} for yield, {} for accuracy, {} for current",
+                row.limiting_yield, row.limiting_accuracy, row.limiting_current
+            )
+        };
         format!(
             "{} (area {}, competition-stage gate area {}, supply current {}; yield {:.3}, \
-             interval [{:.3}, {:.3}] over {} dies, seed {})",
+             interval [{:.3}, {:.3}] over {} dies, seed {}{lim})",
             values_text(r, &row.values),
             area_text(row.area_m2),
             area_text(row.competition_area_m2),
@@ -337,7 +364,7 @@ pub fn sizing_svg(r: &SizingReport) -> Result<String, ReportError> {
                 .map_err(|x| e(&x))?;
             chart
                 .configure_mesh()
-                .light_line_style(GRID)
+                .light_line_style(WHITE)
                 .bold_line_style(GRID)
                 .x_desc(format!("{} ({unit}, log scale)", d.name))
                 .y_desc("yield (share of dies reaching the target accuracy)")
@@ -564,6 +591,9 @@ mod tests {
             power_w: 3.6e-6,
             cost: 1e-9,
             elapsed_s: 1.0,
+            limiting_yield: String::new(),
+            limiting_accuracy: String::new(),
+            limiting_current: String::new(),
         }
     }
 
@@ -597,6 +627,7 @@ mod tests {
             best_row: Some(1),
             widen: vec![0],
             status,
+            corners: vec![],
             command: "hardmax size x.toml".into(),
             elapsed_s: 3.0,
         }
