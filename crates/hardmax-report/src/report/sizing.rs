@@ -283,8 +283,9 @@ pub fn headline(r: &SizingReport) -> String {
                      population: {fin}."
                 ),
                 Status::VerifiedAfterStepUp => format!(
-                    "The search answer {ans} FAILED its verification on a fresh population; \
-                     stepped up, {fin} passes: build this one."
+                    "The search answer {ans} met {target} on the search population but FAILED \
+                     its verification on a fresh population; stepped up, {fin} passes: build \
+                     this one."
                 ),
                 _ => format!(
                     "FAILED VERIFICATION: the search answer {ans} met {target} on the search \
