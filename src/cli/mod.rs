@@ -13,6 +13,7 @@ pub mod progress;
 pub mod render;
 pub mod resolve;
 pub mod run;
+pub mod size;
 pub mod slurm;
 pub mod stage;
 
@@ -45,6 +46,8 @@ pub enum Command {
     Render(render::RenderArgs),
     /// Error budget of one design point: what each nonideality costs, on the same dies.
     Budget(budget::BudgetArgs),
+    /// Sizing search: the cheapest design meeting the yield target over the [search] ranges.
+    Size(size::SizeArgs),
     /// Train the float classifier on a dataset; print the linfa baseline and ideal-argmax accuracy.
     Baseline(baseline::BaselineArgs),
     /// Write a SPICE netlist of a stage or of one sampled die, with hardmax's answers beside it.
@@ -74,5 +77,6 @@ pub fn main_entry() -> anyhow::Result<()> {
         Command::FitDevice(a) => fit::fit_device(a),
         Command::FitPelgrom(a) => fit::fit_pelgrom_cmd(a),
         Command::Budget(a) => budget::run(a),
+        Command::Size(a) => size::run(a),
     }
 }

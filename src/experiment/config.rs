@@ -644,6 +644,14 @@ pub struct Experiment {
     /// Batch-scheduler settings (taken out of the resolved experiment, see [`ClusterCfg`]).
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub cluster: Option<ClusterCfg>,
+    /// `[search]`: what `hardmax size` searches (read by `experiment::sizing`); taken out of the
+    /// resolved experiment like `[cluster]`, so it never changes the experiment hash.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub search: Option<toml::Table>,
+    /// `[corners]`: the corners `hardmax size` checks every candidate at (read by
+    /// `experiment::sizing`); taken out of the resolved experiment like `[search]`.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub corners: Option<toml::Table>,
 }
 
 impl Experiment {
@@ -674,6 +682,8 @@ impl Experiment {
             cost: CostCfg::default(),
             sweep: SweepSpec::default(),
             cluster: None,
+            search: None,
+            corners: None,
         };
         e.process.vdd = Some(Q::new(1.8));
         for d in [&mut e.process.nmos, &mut e.process.pmos] {
@@ -918,6 +928,9 @@ pub fn load_str(text: &str, file: &Path, overrides: &[String]) -> Result<Resolve
     fill_process_defaults(&mut base, text, file).map_err(from_cli)?;
     check(&base, text, file).map_err(from_cli)?;
     let cluster = base.cluster.take().unwrap_or_default();
+    // `[search]` is read from the file by `hardmax size`; not part of the experiment.
+    base.search = None;
+    base.corners = None;
     check_cluster(&cluster, text, file).map_err(from_cli)?;
     let resolved_tree = Value::try_from(&base).map_err(|e| ConfigError::Syntax {
         path: file.into(),

@@ -7,6 +7,7 @@ pub mod quantity;
 pub use hardmax_report::results;
 pub mod runner;
 pub mod shard;
+pub mod sizing;
 pub mod slurm;
 pub use hardmax_report::stats;
 pub mod sweep;

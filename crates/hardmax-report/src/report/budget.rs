@@ -472,7 +472,7 @@ pub fn budget_html(t: &BudgetTable, svg: &str, caution: &str) -> String {
     h
 }
 
-const CSS: &str = r#"
+pub(crate) const CSS: &str = r#"
 body { margin: 0; background: #fbfaf7; color: #222831;
        font: 15px/1.5 system-ui, -apple-system, "Segoe UI", sans-serif; }
 main { max-width: 1100px; margin: 0 auto; padding: 24px; }

@@ -12,6 +12,7 @@ pub mod format;
 pub mod html;
 pub mod plots;
 pub mod render;
+pub mod sizing;
 
 pub use error::{ReportError, SUPPORTED_FORMAT_VERSION};
 pub use folder::{
