@@ -19,6 +19,7 @@ mod common;
 pub mod dc;
 pub mod decision;
 pub mod diffpair;
+pub mod hysteretic;
 #[cfg(test)]
 mod ideal_normaliser;
 pub mod mos;
@@ -34,6 +35,7 @@ use thiserror::Error;
 pub use circuit::{Branch, CircuitMessages, DcStrategy, SharedNodeCircuit};
 pub use decision::{Decision, DecisionRule};
 pub use diffpair::{DiffPairChip, DiffPairCircuit, DiffPairDesign, DiffPairInput};
+pub use hysteretic::{HysteresisChip, HysteresisCircuit, HysteresisDesign};
 pub use noise::{InputShotNoise, NoiseBandwidth};
 pub use source::CurrentSource;
 pub use wta::{WtaChip, WtaCircuit, WtaDesign};
@@ -119,12 +121,33 @@ pub struct Workspace {
     pub(crate) start_share: Vec<f64>,
     /// Lines the bracketing solve found clamped at the supply.
     pub(crate) clamped: Vec<bool>,
+    /// The operating point a circuit that holds state ([`SharedNodeCircuit::carries_state`])
+    /// reached in its last solve, `[V_0..V_{N-1}, V_C]`; empty = none yet (a power-up).
+    pub(crate) state: Vec<f64>,
+    /// The transient that settles such a circuit from its state.
+    pub(crate) settle: Option<Box<transient::TransientWorkspace>>,
 }
 
 impl Workspace {
     /// An empty workspace.
     pub fn new() -> Workspace {
         Workspace::default()
+    }
+
+    /// The operating point kept by a circuit that holds state (empty: none, a power-up).
+    pub fn state(&self) -> &[f64] {
+        &self.state
+    }
+
+    /// Set the state a circuit that holds state starts its next solve from.
+    pub fn set_state(&mut self, voltages: &[f64]) {
+        self.state.clear();
+        self.state.extend_from_slice(voltages);
+    }
+
+    /// Forget the state: the next solve of a circuit that holds state starts from a power-up.
+    pub fn clear_state(&mut self) {
+        self.state.clear();
     }
 
     pub(crate) fn ensure(&mut self, n: usize) {
