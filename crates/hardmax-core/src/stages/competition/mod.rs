@@ -411,6 +411,7 @@ pub(crate) fn positive(
 pub enum CompetitionChip {
     Wta(WtaChip),
     DiffPair(DiffPairChip),
+    Hysteretic(HysteresisChip),
 }
 
 impl CompetitionChip {
@@ -419,6 +420,7 @@ impl CompetitionChip {
         match self {
             CompetitionChip::Wta(c) => c.design.n,
             CompetitionChip::DiffPair(c) => c.design.n,
+            CompetitionChip::Hysteretic(c) => c.design.wta.n,
         }
     }
 
@@ -427,6 +429,7 @@ impl CompetitionChip {
         Ok(match self {
             CompetitionChip::Wta(c) => CompetitionCircuit::Wta(c.at(temperature)?),
             CompetitionChip::DiffPair(c) => CompetitionCircuit::DiffPair(c.at(temperature)?),
+            CompetitionChip::Hysteretic(c) => CompetitionCircuit::Hysteretic(c.at(temperature)?),
         })
     }
 }
@@ -437,6 +440,7 @@ impl CompetitionChip {
 pub enum CompetitionCircuit {
     Wta(WtaCircuit),
     DiffPair(DiffPairCircuit),
+    Hysteretic(HysteresisCircuit),
 }
 
 impl CompetitionStage for CompetitionCircuit {
@@ -444,6 +448,7 @@ impl CompetitionStage for CompetitionCircuit {
         match self {
             CompetitionCircuit::Wta(c) => c.n(),
             CompetitionCircuit::DiffPair(c) => c.n(),
+            CompetitionCircuit::Hysteretic(c) => c.n(),
         }
     }
 
@@ -451,6 +456,7 @@ impl CompetitionStage for CompetitionCircuit {
         match self {
             CompetitionCircuit::Wta(c) => c.node_count(),
             CompetitionCircuit::DiffPair(c) => c.node_count(),
+            CompetitionCircuit::Hysteretic(c) => c.node_count(),
         }
     }
 
@@ -458,6 +464,7 @@ impl CompetitionStage for CompetitionCircuit {
         match self {
             CompetitionCircuit::Wta(c) => c.node_name(i),
             CompetitionCircuit::DiffPair(c) => c.node_name(i),
+            CompetitionCircuit::Hysteretic(c) => c.node_name(i),
         }
     }
 
@@ -465,6 +472,7 @@ impl CompetitionStage for CompetitionCircuit {
         match self {
             CompetitionCircuit::Wta(c) => c.stage_name(),
             CompetitionCircuit::DiffPair(c) => c.stage_name(),
+            CompetitionCircuit::Hysteretic(c) => c.stage_name(),
         }
     }
 
@@ -472,6 +480,7 @@ impl CompetitionStage for CompetitionCircuit {
         match self {
             CompetitionCircuit::Wta(c) => c.input_unit(),
             CompetitionCircuit::DiffPair(c) => c.input_unit(),
+            CompetitionCircuit::Hysteretic(c) => c.input_unit(),
         }
     }
 
@@ -484,6 +493,7 @@ impl CompetitionStage for CompetitionCircuit {
         match self {
             CompetitionCircuit::Wta(c) => c.solve(inputs, ws, out),
             CompetitionCircuit::DiffPair(c) => c.solve(inputs, ws, out),
+            CompetitionCircuit::Hysteretic(c) => c.solve(inputs, ws, out),
         }
     }
 }
