@@ -133,7 +133,7 @@ pub fn load_die(
     let prep = prepare_data(e, data_dir)?;
     let setup = build_point(e, &prep)?;
     let n_test = prep.test_y.len();
-    for &s in samples {
+    if let Some(&s) = samples.iter().max() {
         if s >= n_test {
             bail!(
                 "--sample {s}: the test split has {n_test} sample(s) (indices 0 to {})",

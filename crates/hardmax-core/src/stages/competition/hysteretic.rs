@@ -615,4 +615,44 @@ mod tests {
         assert!(sol.shares[0] > 0.99, "{:?}", sol.shares);
         assert!(sol.info.residual <= c.tolerance());
     }
+
+    // (c) Property: after any sequence of two decisions (the second from the state the first
+    // left), the generic node equations' relative KCL residual (circuit::kcl_residuals, with
+    // the feedback in each line's load) meets the solver's tolerance at every node, and the
+    // outputs sum to the bias (KCL at V_C). Invariant of any DC solution (Kirchhoff), no
+    // outside source needed.
+    proptest::proptest! {
+        #![proptest_config(proptest::prelude::ProptestConfig::with_cases(24))]
+        #[test]
+        fn kcl_residual_meets_tolerance(
+            a in proptest::collection::vec(0.2e-9..5e-9f64, 3),
+            b in proptest::collection::vec(0.2e-9..5e-9f64, 3),
+            alpha in 0.0..0.3f64,
+            g in 30.0..1000.0f64,
+            dvt in proptest::collection::vec(-5e-3..5e-3f64, 5),
+        ) {
+            let d = design(3, alpha, g, 2e-9);
+            let mut chip = HysteresisChip::nominal(d).unwrap();
+            chip.wta.sink[0].dvt0 = dvt[0];
+            chip.wta.output[1].dvt0 = dvt[1];
+            chip.mirror_in[2].dvt0 = dvt[2];
+            chip.mirror_out[0].dvt0 = dvt[3];
+            chip.wta.sink[2].dvt0 = dvt[4];
+            let c = chip.at(300.0).unwrap();
+            let mut ws = Workspace::new();
+            let mut sol = StageSolution::for_stage(&c);
+            for x in [&a, &b] {
+                c.solve(x, &mut ws, &mut sol).unwrap();
+                let mut r = vec![0.0; 4];
+                crate::stages::competition::circuit::kcl_residuals(&c, x, &sol.node_voltages, &mut r)
+                    .unwrap();
+                for (i, v) in r.iter().enumerate() {
+                    proptest::prop_assert!(v.abs() <= c.tolerance(), "node {i}: {v:e}");
+                }
+                let s: f64 = sol.outputs.iter().sum();
+                proptest::prop_assert!((s / 2e-9 - 1.0).abs() <= 2.0 * c.tolerance());
+                proptest::prop_assert_eq!(ws.state(), &sol.node_voltages[..]);
+            }
+        }
+    }
 }
