@@ -214,3 +214,78 @@ fn offset_on_a_die_moves_its_node() {
     let shifted = node(&["--offset", "A_0:vt0=10mV"]);
     assert!(shifted > base, "{base} -> {shifted}");
 }
+
+/// The hysteretic WTA in `hardmax stage`: CSV rows with the closed-form width (model notes
+/// §4.5), a sweep up and down whose switching points differ (hysteresis) and agree with that
+/// width within the sweep step plus 3 % (the tolerance of the core test, which derives it),
+/// and a stage-file offset for a device the stage does not have refused.
+#[test]
+fn hysteretic_stage_command() {
+    let file = root().join("experiments/stages/hysteretic-two-class.toml");
+    let o = hardmax()
+        .args(["stage", "--format", "csv", "--stage"])
+        .arg(&file)
+        .output()
+        .unwrap();
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    let text = String::from_utf8_lossy(&o.stdout);
+    let width: f64 = text
+        .lines()
+        .find(|l| l.starts_with("hysteresis,width_closed_form,"))
+        .and_then(|l| l.split(',').nth(2))
+        .and_then(|v| v.parse().ok())
+        .expect("a width row");
+    assert!(width > 0.0);
+    assert!(text.contains("offset,B_1,"), "{text}");
+    let o = hardmax()
+        .args(["stage", "--stage"])
+        .arg(&file)
+        .args([
+            "--sweep",
+            "diff",
+            "--from=-400pA",
+            "--to",
+            "400pA",
+            "--points",
+            "161",
+        ])
+        .output()
+        .unwrap();
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    let csv = String::from_utf8_lossy(&o.stdout);
+    assert!(csv.lines().next().unwrap().ends_with(",direction"));
+    assert_eq!(csv.lines().filter(|l| l.ends_with(",up")).count(), 161);
+    assert_eq!(csv.lines().filter(|l| l.ends_with(",down")).count(), 161);
+    let err = String::from_utf8_lossy(&o.stderr);
+    let at = |dir: &str| -> f64 {
+        let l = err
+            .lines()
+            .find(|l| l.starts_with(&format!("{dir} sweep:")))
+            .unwrap_or_else(|| panic!("{err}"));
+        let v = l.rsplit("x = ").next().unwrap();
+        let pa: f64 = v.trim_end_matches(" pA").trim().parse().unwrap();
+        pa * 1e-12
+    };
+    let measured = at("up") - at("down");
+    let step = 800e-12 / 160.0;
+    assert!(
+        (measured.abs() - width).abs() <= step + 0.03 * width,
+        "sweep {measured:e}, closed form {width:e}"
+    );
+    // Offsets for a transistor the stage does not have.
+    let tmp = tempfile::tempdir().unwrap();
+    let bad = tmp.path().join("bad.toml");
+    let t = std::fs::read_to_string(&file).unwrap();
+    std::fs::write(&bad, t.replace("B_1 = {", "B_7 = {")).unwrap();
+    let o = hardmax()
+        .args(["stage", "--stage"])
+        .arg(&bad)
+        .output()
+        .unwrap();
+    assert!(!o.status.success());
+    let e = String::from_utf8_lossy(&o.stderr);
+    assert!(
+        e.contains("no transistor `B_7`") && e.contains("P_0, P_1") && e.contains("Q_0, Q_1"),
+        "{e}"
+    );
+}

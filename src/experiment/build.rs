@@ -342,7 +342,7 @@ fn circuit(
             // The current-mode WTA of the same keys, with the feedback mirror added.
             match circuit(CircuitKind::CurrentWta, n, process, c, bias, gain) {
                 CompetitionDesign::CurrentWta(w) => {
-                    let mirror = c.mirror.clone().unwrap_or(SizeCfg::um(2.0, 2.0));
+                    let mirror = c.mirror.unwrap_or(SizeCfg::um(2.0, 2.0));
                     CompetitionDesign::Hysteretic(Box::new(HysteresisDesign {
                         wta: *w,
                         feedback: c.feedback.unwrap_or(0.0),

@@ -407,6 +407,8 @@ pub(crate) fn positive(
 /// One sampled competition stage of either kind (design plus every transistor's mismatch), for
 /// code that picks the stage at run time and needs the chip itself, not only its evaluation
 /// (e.g. netlist export).
+// One chip per die, built once per chip (not a hot path): the variants' sizes do not matter.
+#[allow(clippy::large_enum_variant)]
 #[derive(Clone, Debug, PartialEq)]
 pub enum CompetitionChip {
     Wta(WtaChip),
