@@ -173,6 +173,8 @@ fn netlist(name: &str, c: &CompetitionCircuit, inputs: &[f64]) -> (String, Vec<S
                 .chain(["v(nc)".to_string()])
                 .collect()
         }
+        // Cross-checked through the netlist export in hysteretic_spice.rs.
+        CompetitionCircuit::Hysteretic(_) => panic!("no hysteretic case here"),
         CompetitionCircuit::DiffPair(c) => {
             writeln!(
                 s,

@@ -6,6 +6,7 @@ use clap::{Parser, Subcommand};
 pub mod baseline;
 pub mod batch;
 pub mod budget;
+pub mod die;
 pub mod fit;
 pub mod merge;
 pub mod netlist;

@@ -22,6 +22,7 @@ use anyhow::{anyhow, bail, Context};
 use clap::{Args, ValueEnum};
 use serde_json::json;
 
+use crate::device::MosMismatch;
 use crate::device::{preset, DrainCoupling, Ekv, Polarity, Transistor};
 use crate::io::write_atomic;
 use crate::physics::thermal_voltage;
@@ -29,12 +30,14 @@ use crate::stages::competition::analysis::{
     closed_form_gain, drain_coupling_for_gain, numerical_gain, ClosedFormGain, Spacing, SweepError,
     SweepQuantity, TransferSweep,
 };
+use crate::stages::competition::hysteretic;
 use crate::stages::competition::transient::{
     simulate, InitialState, NoiseOptions, TransientOptions, TransientWorkspace,
 };
 use crate::stages::competition::{
     CompetitionChip, CompetitionCircuit, CompetitionStage, CurrentSource, DecisionRule,
-    DiffPairChip, DiffPairDesign, DiffPairInput, StageSolution, Workspace, WtaChip, WtaDesign,
+    DiffPairChip, DiffPairDesign, DiffPairInput, HysteresisChip, HysteresisDesign, StageSolution,
+    Workspace, WtaChip, WtaDesign,
 };
 use crate::units::{format_si, parse_quantity, quantity_from_toml, Dimension};
 
@@ -45,6 +48,9 @@ pub enum CircuitArg {
     CurrentWta,
     /// Multi-input differential pair fed through diode-connected NMOS (sink size).
     DiffPair,
+    /// Current-mode WTA with hysteresis: a fraction (--feedback) of each cell's output current
+    /// mirrored back into its input.
+    HystereticWta,
 }
 
 /// Output format.
@@ -202,6 +208,52 @@ pub struct StageArgs {
     /// Seed of the noise stream.
     #[arg(long, default_value_t = 1)]
     pub seed: u64,
+    /// Hysteretic WTA: fraction of each cell's output current mirrored back into its input
+    /// [default: 0.1].
+    #[arg(long, allow_hyphen_values = true)]
+    pub feedback: Option<f64>,
+    /// Hysteretic WTA: width of the feedback mirror's diode (PMOS) [default: 2 um].
+    #[arg(long, value_name = "LENGTH", allow_hyphen_values = true)]
+    pub mirror_w: Option<String>,
+    /// Hysteretic WTA: length of the feedback mirror's devices [default: 2 um].
+    #[arg(long, value_name = "LENGTH", allow_hyphen_values = true)]
+    pub mirror_l: Option<String>,
+    /// One transistor's deviation from nominal, e.g. "A_0:vt0=2mV,beta=-0.01" (threshold shift,
+    /// relative current-factor deviation); repeat for more. Names as in the device table:
+    /// A_k, B_k (WTA), D_k, M_k (diff pair), P_k, Q_k (hysteretic WTA's mirror), bias, tail.
+    #[arg(
+        long = "offset",
+        value_name = "DEVICE:vt0=V,beta=REL",
+        allow_hyphen_values = true
+    )]
+    pub offsets: Vec<String>,
+    /// A results folder of `hardmax run`: load one die it sampled (--point, --chip), with its
+    /// exact devices; --sample feeds it a test sample's weight-stage currents.
+    #[arg(long, value_name = "DIR", requires = "chip", conflicts_with = "stage")]
+    pub results: Option<PathBuf>,
+    /// Sweep point of the die (with --results).
+    #[arg(long, default_value_t = 0, requires = "results")]
+    pub point: usize,
+    /// Chip index of the die within its sweep point (with --results).
+    #[arg(long, requires = "results")]
+    pub chip: Option<u64>,
+    /// Test sample whose weight-stage output currents (of this die, noiseless) are the inputs
+    /// (with --results; a hysteretic die first replays the samples before it, in order).
+    #[arg(long, requires = "results")]
+    pub sample: Option<usize>,
+    /// Folder the experiment's relative dataset paths are taken from (with --results).
+    #[arg(long, value_name = "DIR", default_value = ".")]
+    pub data_dir: PathBuf,
+}
+
+/// One transistor's explicit deviation (`--offset` or the stage file's `[offsets]`).
+#[derive(Clone, Debug, PartialEq)]
+struct Offset {
+    device: String,
+    dvt0: Option<f64>,
+    dbeta: Option<f64>,
+    /// Where it was given (for messages).
+    source: String,
 }
 
 /// Every parameter of the stage, after file and flags (SI units).
@@ -225,6 +277,9 @@ struct Spec {
     common_capacitance: f64,
     rule: DecisionRule,
     read_time: Option<f64>,
+    feedback: f64,
+    mirror: (f64, f64),
+    offsets: Vec<Offset>,
 }
 
 impl Default for Spec {
@@ -248,8 +303,139 @@ impl Default for Spec {
             common_capacitance: 200e-15,
             rule: DecisionRule::default(),
             read_time: None,
+            feedback: 0.1,
+            mirror: (2e-6, 2e-6),
+            offsets: Vec::new(),
         }
     }
+}
+
+/// Parse `--offset "A_0:vt0=2mV,beta=0.01"`.
+fn parse_offset(text: &str) -> anyhow::Result<Offset> {
+    let (device, rest) = text.split_once(':').ok_or_else(|| {
+        anyhow!("--offset {text:?}: write DEVICE:vt0=VOLTAGE,beta=RELATIVE, e.g. \"A_0:vt0=2mV,beta=0.01\"")
+    })?;
+    let mut o = Offset {
+        device: device.trim().to_string(),
+        dvt0: None,
+        dbeta: None,
+        source: format!("--offset {text:?}"),
+    };
+    for part in rest.split(',') {
+        let (k, v) = part.split_once('=').ok_or_else(|| {
+            anyhow!("--offset {text:?}: `{part}` is not KEY=VALUE (keys vt0, beta)")
+        })?;
+        match k.trim() {
+            "vt0" => o.dvt0 = Some(flag("offset", v.trim(), Dimension::Voltage)?),
+            "beta" => o.dbeta = Some(flag("offset", v.trim(), Dimension::Dimensionless)?),
+            other => bail!("--offset {text:?}: unknown key `{other}`; keys: vt0 (threshold shift, V), beta (relative current-factor deviation)"),
+        }
+    }
+    Ok(o)
+}
+
+/// The deviations of every transistor of a chip, by name, in device-table order.
+fn mismatch_slots(chip: &mut CompetitionChip) -> Vec<(String, &mut MosMismatch)> {
+    fn wta_slots<'a>(c: &'a mut WtaChip, v: &mut Vec<(String, &'a mut MosMismatch)>) {
+        let bias_is_transistor = c.design.bias.is_transistor();
+        for (k, m) in c.sink.iter_mut().enumerate() {
+            v.push((format!("A_{k}"), m));
+        }
+        for (k, m) in c.output.iter_mut().enumerate() {
+            v.push((format!("B_{k}"), m));
+        }
+        if bias_is_transistor {
+            v.push(("bias".to_string(), &mut c.bias));
+        }
+    }
+    let mut v = Vec::new();
+    match chip {
+        CompetitionChip::Wta(c) => wta_slots(c, &mut v),
+        CompetitionChip::Hysteretic(h) => {
+            wta_slots(&mut h.wta, &mut v);
+            for (k, m) in h.mirror_in.iter_mut().enumerate() {
+                v.push((format!("P_{k}"), m));
+            }
+            for (k, m) in h.mirror_out.iter_mut().enumerate() {
+                v.push((format!("Q_{k}"), m));
+            }
+        }
+        CompetitionChip::DiffPair(c) => {
+            if matches!(c.design.input, DiffPairInput::Diode { .. }) {
+                for (k, m) in c.diodes.iter_mut().enumerate() {
+                    v.push((format!("D_{k}"), m));
+                }
+            }
+            for (k, m) in c.pair.iter_mut().enumerate() {
+                v.push((format!("M_{k}"), m));
+            }
+            if c.design.tail.is_transistor() {
+                v.push(("tail".to_string(), &mut c.tail));
+            }
+        }
+    }
+    v
+}
+
+/// Set the explicit deviations on a chip (they replace its own for the named devices); a name
+/// the stage does not have is an error listing what it has.
+fn apply_offsets(chip: &mut CompetitionChip, offsets: &[Offset]) -> anyhow::Result<()> {
+    if offsets.is_empty() {
+        return Ok(());
+    }
+    let mut slots = mismatch_slots(chip);
+    for o in offsets {
+        let Some((_, m)) = slots.iter_mut().find(|(name, _)| *name == o.device) else {
+            let names: Vec<&str> = slots.iter().map(|(n, _)| n.as_str()).collect();
+            let listed = summarise_names(&names);
+            bail!(
+                "{}: this stage has no transistor `{}`; it has {listed}",
+                o.source,
+                o.device
+            );
+        };
+        if let Some(v) = o.dvt0 {
+            if !v.is_finite() {
+                bail!("{}: vt0 must be a finite voltage", o.source);
+            }
+            m.dvt0 = v;
+        }
+        if let Some(b) = o.dbeta {
+            if !(b.is_finite() && b > -1.0) {
+                bail!(
+                    "{}: beta = {b} must be a relative deviation above -1 (beta -> beta (1 + dbeta))",
+                    o.source
+                );
+            }
+            m.dbeta_rel = b;
+        }
+    }
+    Ok(())
+}
+
+/// "A_0..A_2, B_0..B_2, bias" from the full list of names.
+fn summarise_names(names: &[&str]) -> String {
+    let mut groups: Vec<(String, Vec<&str>)> = Vec::new();
+    for n in names {
+        let prefix = n
+            .split_once('_')
+            .map_or(n.to_string(), |(p, _)| p.to_string());
+        match groups.last_mut() {
+            Some((p, v)) if *p == prefix && n.contains('_') => v.push(n),
+            _ => groups.push((prefix, vec![n])),
+        }
+    }
+    groups
+        .iter()
+        .map(|(_, v)| {
+            if v.len() > 2 {
+                format!("{}..{}", v[0], v[v.len() - 1])
+            } else {
+                v.join(", ")
+            }
+        })
+        .collect::<Vec<_>>()
+        .join(", ")
 }
 
 /// A drain coupling in a designer's words ("Early voltage per length 10 V/um", "eta = 0.0067"),
@@ -346,11 +532,12 @@ fn read_file(path: &Path, spec: &mut Spec) -> anyhow::Result<()> {
                 spec.circuit = match s.as_str() {
                     "current_wta" => CircuitArg::CurrentWta,
                     "diff_pair" => CircuitArg::DiffPair,
-                    "current-wta" | "diff-pair" => bail!(
+                    "hysteretic_wta" => CircuitArg::HystereticWta,
+                    "current-wta" | "diff-pair" | "hysteretic-wta" => bail!(
                         "stage file {file}: key `circuit` = {s:?}: write {:?}, the spelling experiment files use",
                         s.replace('-', "_")
                     ),
-                    _ => bail!("stage file {file}: key `circuit` = {s:?}; valid: current_wta, diff_pair"),
+                    _ => bail!("stage file {file}: key `circuit` = {s:?}; valid: current_wta, diff_pair, hysteretic_wta"),
                 };
             }
             "preset" => spec.preset = string(key, v)?,
@@ -390,6 +577,33 @@ fn read_file(path: &Path, spec: &mut Spec) -> anyhow::Result<()> {
             "common_capacitance" => spec.common_capacitance = q(key, v, Dimension::Capacitance)?,
             "read_time" => spec.read_time = Some(q(key, v, Dimension::Time)?),
             "sink" => size("sink", v, &mut spec.sink)?,
+            "mirror" => size("mirror", v, &mut spec.mirror)?,
+            "feedback" => spec.feedback = num(key, v)?,
+            "offsets" => {
+                let t = v.as_table().ok_or_else(|| {
+                    anyhow!("stage file {file}: `offsets` must be a table, e.g. A_0 = {{ vt0 = \"2 mV\", beta = 0.01 }}")
+                })?;
+                for (dev, x) in t {
+                    let entry = x.as_table().ok_or_else(|| {
+                        anyhow!("stage file {file}: `offsets.{dev}` must be a table with vt0 and/or beta")
+                    })?;
+                    let mut o = Offset {
+                        device: dev.clone(),
+                        dvt0: None,
+                        dbeta: None,
+                        source: format!("stage file {file}: `offsets.{dev}`"),
+                    };
+                    for (k, y) in entry {
+                        let path = format!("offsets.{dev}.{k}");
+                        match k.as_str() {
+                            "vt0" => o.dvt0 = Some(q(&path, y, Dimension::Voltage)?),
+                            "beta" => o.dbeta = Some(num(&path, y)?),
+                            _ => bail!("stage file {file}: unknown key `{path}`; known keys: vt0, beta"),
+                        }
+                    }
+                    spec.offsets.push(o);
+                }
+            }
             "output" => size("output", v, &mut spec.output)?,
             "nmos" => {
                 let t = v
@@ -420,17 +634,126 @@ fn read_file(path: &Path, spec: &mut Spec) -> anyhow::Result<()> {
                 }
             }
             _ => bail!(
-                "stage file {file}: unknown key `{key}`; known keys: circuit, preset, temperature, inputs, bias_current, supply, output_voltage, gain, eta, early_voltage, node_capacitance, common_capacitance, read_time, [sink], [output], [nmos], [decision]"
+                "stage file {file}: unknown key `{key}`; known keys: circuit, preset, temperature, inputs, bias_current, supply, output_voltage, gain, eta, early_voltage, node_capacitance, common_capacitance, read_time, feedback, [sink], [output], [mirror], [nmos], [decision], [offsets]"
             ),
         }
     }
     Ok(())
 }
 
+/// The spec of a die loaded from a results folder: its design's values (what the report
+/// shows), its temperature and decision rule, the chosen sample's inputs.
+fn spec_from_die(die: &super::die::LoadedDie) -> Spec {
+    let mut spec = Spec {
+        preset: die.process.name.clone(),
+        temperature: die.temperature,
+        rule: die.rule,
+        inputs: die.inputs.last().cloned().unwrap_or_default(),
+        ..Spec::default()
+    };
+    let size = |t: &Transistor| (t.w, t.l);
+    let bias = |b: &CurrentSource| match b {
+        CurrentSource::Ideal { current } => *current,
+        CurrentSource::Transistor { .. } => f64::NAN,
+    };
+    let wta = |spec: &mut Spec, d: &WtaDesign| {
+        spec.sink = size(&d.sink);
+        spec.output = size(&d.output);
+        spec.bias = bias(&d.bias);
+        spec.supply = Some(d.supply);
+        spec.output_voltage = Some(d.output_voltage);
+        spec.coupling = d.drain_coupling.map(|c| ("the experiment's gain", c));
+        spec.input_capacitance = d.input_capacitance;
+        spec.common_capacitance = d.common_capacitance;
+    };
+    match &die.chip {
+        CompetitionChip::Wta(c) => {
+            spec.circuit = CircuitArg::CurrentWta;
+            wta(&mut spec, &c.design);
+        }
+        CompetitionChip::Hysteretic(h) => {
+            spec.circuit = CircuitArg::HystereticWta;
+            wta(&mut spec, &h.design.wta);
+            spec.feedback = h.design.feedback;
+            spec.mirror = size(&h.design.mirror);
+        }
+        CompetitionChip::DiffPair(c) => {
+            let d = &c.design;
+            spec.circuit = CircuitArg::DiffPair;
+            if let DiffPairInput::Diode { device } = &d.input {
+                spec.sink = size(device);
+            }
+            spec.output = size(&d.pair);
+            spec.bias = bias(&d.tail);
+            spec.supply = Some(d.supply);
+            spec.output_voltage = Some(d.output_voltage);
+            spec.coupling = d.drain_coupling.map(|c| ("the experiment's gain", c));
+            spec.input_capacitance = d.input_capacitance;
+            spec.common_capacitance = d.source_capacitance;
+        }
+    }
+    spec
+}
+
+/// Flags that would change a loaded die's design (refused with --results).
+fn design_flags(args: &StageArgs) -> Vec<&'static str> {
+    let mut v = Vec::new();
+    for (name, set) in [
+        ("--circuit", args.circuit.is_some()),
+        ("--bias-current", args.bias.is_some()),
+        ("--temperature", args.temperature.is_some()),
+        ("--preset", args.preset.is_some()),
+        ("--gain", args.gain.is_some()),
+        ("--eta", args.eta.is_some()),
+        ("--early-voltage", args.early_voltage.is_some()),
+        ("--sink-w", args.sink_w.is_some()),
+        ("--sink-l", args.sink_l.is_some()),
+        ("--output-w", args.output_w.is_some()),
+        ("--output-l", args.output_l.is_some()),
+        ("--vt0", args.vt0.is_some()),
+        ("--n", args.n.is_some()),
+        ("--mu-cox", args.mu_cox.is_some()),
+        ("--is", args.specific_current.is_some()),
+        ("--supply", args.supply.is_some()),
+        ("--output-voltage", args.output_voltage.is_some()),
+        ("--node-capacitance", args.input_capacitance.is_some()),
+        ("--common-capacitance", args.common_capacitance.is_some()),
+        ("--feedback", args.feedback.is_some()),
+        ("--mirror-w", args.mirror_w.is_some()),
+        ("--mirror-l", args.mirror_l.is_some()),
+    ] {
+        if set {
+            v.push(name);
+        }
+    }
+    v
+}
+
 fn resolve(args: &StageArgs) -> anyhow::Result<Spec> {
+    resolve_with(args, None)
+}
+
+fn resolve_with(args: &StageArgs, die: Option<&super::die::LoadedDie>) -> anyhow::Result<Spec> {
     let mut spec = Spec::default();
     if let Some(p) = &args.stage {
         read_file(p, &mut spec)?;
+    }
+    if let Some(d) = die {
+        let bad = design_flags(args);
+        if !bad.is_empty() {
+            bail!(
+                "--results loads the die's own design from the folder; {} would change it. \
+                 Change single devices with --offset DEVICE:vt0=V,beta=REL instead",
+                bad.join(", ")
+            );
+        }
+        spec = spec_from_die(d);
+    }
+    for o in &args.offsets {
+        spec.offsets.push(parse_offset(o)?);
+    }
+    if let Some(f) = args.feedback {
+        spec.feedback = f;
     }
     if let Some(c) = args.circuit {
         spec.circuit = c;
@@ -443,6 +766,9 @@ fn resolve(args: &StageArgs) -> anyhow::Result<Spec> {
         spec.inputs = parse_inputs("--inputs", &items)?;
     }
     if spec.inputs.is_empty() {
+        if die.is_some() {
+            bail!("no inputs for the die: give --sample S (a test sample whose weight-stage currents feed it) or --inputs \"10nA,12nA,9nA\"");
+        }
         bail!("no inputs: give --inputs \"10nA,12nA,9nA\" or `inputs` in the stage file");
     }
     let opt = |name: &str, v: &Option<String>, dim| -> anyhow::Result<Option<f64>> {
@@ -473,6 +799,8 @@ fn resolve(args: &StageArgs) -> anyhow::Result<Spec> {
         ("sink-l", &args.sink_l, &mut spec.sink.1),
         ("output-w", &args.output_w, &mut spec.output.0),
         ("output-l", &args.output_l, &mut spec.output.1),
+        ("mirror-w", &args.mirror_w, &mut spec.mirror.0),
+        ("mirror-l", &args.mirror_l, &mut spec.mirror.1),
     ] {
         if let Some(x) = opt(name, v, Dimension::Length)? {
             *into = x;
@@ -532,8 +860,13 @@ fn resolve(args: &StageArgs) -> anyhow::Result<Spec> {
     if let Some(x) = opt("read-time", &args.read_time, Dimension::Time)? {
         spec.read_time = Some(x);
     }
-    if !(spec.bias.is_finite() && spec.bias > 0.0) {
+    if die.is_none() && !(spec.bias.is_finite() && spec.bias > 0.0) {
         bail!("bias = {:e} A must be > 0", spec.bias);
+    }
+    if let (Some(d), false) = (die, args.inputs.is_some()) {
+        if d.inputs.is_empty() {
+            bail!("no inputs for the die: give --sample S or --inputs");
+        }
     }
     Ok(spec)
 }
@@ -591,6 +924,32 @@ fn build_chip(spec: &Spec) -> anyhow::Result<(CompetitionChip, crate::device::Pr
             d.common_capacitance = spec.common_capacitance;
             CompetitionChip::Wta(WtaChip::nominal(d)?)
         }
+        CircuitArg::HystereticWta => {
+            let mut d = WtaDesign::new(
+                n,
+                process.clone(),
+                sink,
+                output,
+                CurrentSource::Ideal { current: spec.bias },
+            );
+            d.output_voltage = spec.output_voltage.unwrap_or(d.supply);
+            d.drain_coupling = spec.coupling.map(|(_, c)| c);
+            d.input_capacitance = spec.input_capacitance;
+            d.common_capacitance = spec.common_capacitance;
+            let mirror = Transistor {
+                polarity: Polarity::Pmos,
+                w: spec.mirror.0,
+                l: spec.mirror.1,
+            };
+            mirror
+                .validate()
+                .map_err(|e| anyhow!("mirror (--mirror-w/--mirror-l): {e}"))?;
+            CompetitionChip::Hysteretic(HysteresisChip::nominal(HysteresisDesign {
+                wta: d,
+                feedback: spec.feedback,
+                mirror,
+            })?)
+        }
         CircuitArg::DiffPair => {
             let mut d = DiffPairDesign::new(
                 n,
@@ -609,9 +968,17 @@ fn build_chip(spec: &Spec) -> anyhow::Result<(CompetitionChip, crate::device::Pr
     Ok((stage, process))
 }
 
-/// Build the process and the circuit at the stage's temperature.
-fn build(spec: &Spec) -> anyhow::Result<(CompetitionCircuit, crate::device::Process)> {
-    let (chip, process) = build_chip(spec)?;
+/// Build the process and the circuit at the stage's temperature: the spec's nominal chip, or
+/// a loaded die; then the explicit per-device offsets.
+fn build(
+    spec: &Spec,
+    die: Option<&super::die::LoadedDie>,
+) -> anyhow::Result<(CompetitionCircuit, crate::device::Process)> {
+    let (mut chip, process) = match die {
+        Some(d) => (d.chip.clone(), d.process.clone()),
+        None => build_chip(spec)?,
+    };
+    apply_offsets(&mut chip, &spec.offsets)?;
     Ok((chip.at(spec.temperature)?, process))
 }
 
@@ -647,7 +1014,8 @@ pub(crate) fn stage_file_chip(
         }
         samples.push(x);
     }
-    let (chip, _) = build_chip(&spec)?;
+    let (mut chip, _) = build_chip(&spec)?;
+    apply_offsets(&mut chip, &spec.offsets)?;
     Ok((chip, spec.temperature, samples, spec.rule))
 }
 
@@ -670,6 +1038,9 @@ fn devices(stage: &CompetitionCircuit, n: usize) -> Vec<(String, Ekv)> {
                 v.push(("bias".into(), *device));
             }
         }
+        CompetitionCircuit::Hysteretic(h) => {
+            v = devices(&CompetitionCircuit::Wta(h.wta.clone()), n);
+        }
         CompetitionCircuit::DiffPair(c) => {
             for k in 0..n {
                 if let Some(d) = c.diode(k) {
@@ -687,8 +1058,27 @@ fn devices(stage: &CompetitionCircuit, n: usize) -> Vec<(String, Ekv)> {
 }
 
 pub fn run(args: StageArgs) -> anyhow::Result<()> {
-    let spec = resolve(&args)?;
-    let (stage, process) = build(&spec)?;
+    let die = match &args.results {
+        Some(dir) => {
+            // A hysteretic die's state at sample S is the one its earlier samples left: load
+            // them all and replay them in order (as the chip loop does).
+            let wanted: Vec<usize> = match args.sample {
+                Some(s) => (0..=s).collect(),
+                None => Vec::new(),
+            };
+            let chip = args.chip.unwrap_or(0);
+            Some(super::die::load_die(
+                dir,
+                args.point,
+                chip,
+                &wanted,
+                &args.data_dir,
+            )?)
+        }
+        None => None,
+    };
+    let spec = resolve_with(&args, die.as_ref())?;
+    let (stage, process) = build(&spec, die.as_ref())?;
     if let Some(what) = &args.sweep {
         return sweep(&args, &spec, &stage, what);
     }
@@ -698,6 +1088,14 @@ pub fn run(args: StageArgs) -> anyhow::Result<()> {
     let st = &stage;
     let mut ws = Workspace::new();
     let mut sol = StageSolution::for_stage(st);
+    let mut replayed = 0usize;
+    if let (Some(d), CompetitionCircuit::Hysteretic(_), None) = (&die, st, &args.inputs) {
+        for x in d.inputs.iter().take(d.inputs.len().saturating_sub(1)) {
+            // A failed earlier decision leaves the state as it was, as in the chip loop.
+            let _ = st.solve(x, &mut ws, &mut sol);
+            replayed += 1;
+        }
+    }
     st.solve(&spec.inputs, &mut ws, &mut sol)?;
     let gain = numerical_gain(st, &spec.inputs)?;
     let decision = sol.decide(&spec.rule);
@@ -723,6 +1121,30 @@ pub fn run(args: StageArgs) -> anyhow::Result<()> {
         results.push(Row::new("gain", "numerical", g, ""));
     }
     results.push(Row::new("gain", "closed_form", g_cf, ""));
+    let hysteresis = hysteresis_closed_form(st, &spec.inputs);
+    if let Some((up, down)) = hysteresis {
+        results.push(Row::new("hysteresis", "width_closed_form", up - down, "A"));
+        results.push(Row::new("hysteresis", "switch_up_closed_form", up, "A"));
+        results.push(Row::new("hysteresis", "switch_down_closed_form", down, "A"));
+    }
+    if let Some(d) = &die {
+        results.push(Row::text("die", "results", &d.folder.display().to_string()));
+        results.push(Row::new("die", "seed", d.seed as f64, ""));
+        results.push(Row::new("die", "point", args.point as f64, "index"));
+        results.push(Row::new(
+            "die",
+            "chip",
+            args.chip.unwrap_or(0) as f64,
+            "index",
+        ));
+        if let (Some(s), None) = (args.sample, &args.inputs) {
+            results.push(Row::new("die", "test_sample", s as f64, "index"));
+            if let Some(t) = d.truth.last() {
+                results.push(Row::new("die", "true_class", *t as f64, "index"));
+            }
+            results.push(Row::new("die", "replayed_samples", replayed as f64, ""));
+        }
+    }
     results.push(Row::new(
         "decision",
         "winner",
@@ -775,6 +1197,16 @@ pub fn run(args: StageArgs) -> anyhow::Result<()> {
                 "shares": sol.shares,
                 "gain": {"numerical": gain, "closed_form": g_cf, "closed_form_is": g_note,
                           "numerical_is": "d ln(out_a/out_b) / d ln(in_a/in_b) between the two largest inputs"},
+                "hysteresis": hysteresis.map(|(up, down)| json!({
+                    "width_closed_form_a": up - down, "switch_up_closed_form_a": up,
+                    "switch_down_closed_form_a": down,
+                    "is": "x = I_a - I_b of the two largest inputs around their mean, weak-inversion closed form (DEVELOPERS.md model notes §4.5)"})),
+                "die": die.as_ref().map(|d| json!({
+                    "results": d.folder.display().to_string(), "seed": d.seed,
+                    "point": args.point, "chip": args.chip.unwrap_or(0),
+                    "test_sample": if args.inputs.is_none() { args.sample } else { None },
+                    "true_class": if args.inputs.is_none() { d.truth.last().copied() } else { None },
+                    "replayed_samples": replayed})),
                 "decision": {"winner": decision.winner, "winner_share": decision.winner_share,
                              "runner_up": decision.runner_up, "runner_up_share": decision.runner_up_share,
                              "ambiguous": decision.ambiguous},
@@ -830,6 +1262,41 @@ pub fn run(args: StageArgs) -> anyhow::Result<()> {
                 }
             }
             let _ = writeln!(s, "  closed form {g_cf:.2}  ({g_note}; it holds for small input differences with every transistor saturated)");
+            if let Some((up, down)) = hysteresis {
+                let _ = writeln!(
+                    s,
+                    "\nHysteresis (closed form, weak inversion, two largest inputs around their mean; model notes §4.5)\n  width {}  (switches up at x = {}, down at x = {}; x = I_a - I_b)",
+                    format_si(up - down, "A", 4),
+                    format_si(up, "A", 4),
+                    format_si(down, "A", 4)
+                );
+            }
+            if let Some(d) = &die {
+                let _ = writeln!(
+                    s,
+                    "\nDie: chip {} of sweep point {} of {} (seed {}){}",
+                    args.chip.unwrap_or(0),
+                    args.point,
+                    d.folder.display(),
+                    d.seed,
+                    match (args.sample, &args.inputs) {
+                        (Some(t), None) => format!(
+                            "; inputs = test sample {t} (true class {}){}",
+                            d.truth
+                                .last()
+                                .and_then(|c| d.class_names.get(*c))
+                                .cloned()
+                                .unwrap_or_default(),
+                            if replayed > 0 {
+                                format!(", state after replaying samples 0..{}", replayed - 1)
+                            } else {
+                                String::new()
+                            }
+                        ),
+                        _ => String::new(),
+                    }
+                );
+            }
             let _ = writeln!(
                 s,
                 "\nDecision: winner {} (share {:.4}), runner-up {} (share {:.4}){}",
@@ -848,6 +1315,23 @@ pub fn run(args: StageArgs) -> anyhow::Result<()> {
         }
     }
     Ok(())
+}
+
+/// The hysteretic WTA's closed-form switching points `(up, down)` of x = I_a - I_b for its two
+/// largest inputs around their mean (model notes §4.5); `None` for other stages.
+fn hysteresis_closed_form(stage: &CompetitionCircuit, inputs: &[f64]) -> Option<(f64, f64)> {
+    let CompetitionCircuit::Hysteretic(h) = stage else {
+        return None;
+    };
+    let mut sorted = inputs.to_vec();
+    sorted.sort_by(|a, b| b.total_cmp(a));
+    let mean = 0.5 * (sorted.first()? + sorted.get(1)?);
+    let bias = h.wta.bias().current_at(h.wta.supply);
+    let alpha = h.feedback.iter().sum::<f64>() / h.feedback.len().max(1) as f64;
+    let g = h.gain(0)?;
+    Some(hysteretic::hysteresis_width_closed_form(
+        mean, bias, alpha, g,
+    ))
 }
 
 /// One value of the output (CSV row: section, name, value, unit).
@@ -907,6 +1391,7 @@ impl Report {
         let circuit = match spec.circuit {
             CircuitArg::CurrentWta => "current-wta",
             CircuitArg::DiffPair => "diff-pair",
+            CircuitArg::HystereticWta => "hysteretic-wta",
         };
         rows.push(Row::text("parameter", "circuit", circuit));
         rows.push(Row::text("parameter", "preset", &spec.preset));
@@ -918,6 +1403,7 @@ impl Report {
         let (supply, vout) = match stage {
             CompetitionCircuit::Wta(c) => (c.supply, c.output_voltage),
             CompetitionCircuit::DiffPair(c) => (c.supply, c.output_voltage),
+            CompetitionCircuit::Hysteretic(c) => (c.wta.supply, c.wta.output_voltage),
         };
         let ut = thermal_voltage(spec.temperature);
         let coupling = match spec.coupling {
@@ -956,6 +1442,43 @@ impl Report {
         lines.push(("drain coupling".into(), coupling));
         for (i, x) in spec.inputs.iter().enumerate() {
             rows.push(Row::new("input", &format!("in_{i}"), *x, "A"));
+        }
+        if let CompetitionCircuit::Hysteretic(h) = stage {
+            rows.push(Row::new("parameter", "feedback", spec.feedback, ""));
+            rows.push(Row::new("parameter", "mirror.w", spec.mirror.0, "m"));
+            rows.push(Row::new("parameter", "mirror.l", spec.mirror.1, "m"));
+            lines.push(("feedback".into(), format!("{}", spec.feedback)));
+            lines.push((
+                "mirror (PMOS)".into(),
+                format!(
+                    "{} x {} (feedback device {} x {})",
+                    format_si(spec.mirror.0, "m", 4),
+                    format_si(spec.mirror.1, "m", 4),
+                    format_si(spec.mirror.0 * spec.feedback, "m", 4),
+                    format_si(spec.mirror.1, "m", 4)
+                ),
+            ));
+            for (k, a) in h.feedback.iter().enumerate() {
+                rows.push(Row::new(
+                    "device",
+                    &format!("P_{k}/Q_{k}.feedback_gain"),
+                    *a,
+                    "",
+                ));
+                lines.push((
+                    format!("feedback gain {k}"),
+                    format!("{a:.6} (P_{k}, Q_{k})"),
+                ));
+            }
+        }
+        for o in &spec.offsets {
+            let text = format!(
+                "vt0 {}, beta {}",
+                o.dvt0.map_or("as sampled".into(), |v| format_si(v, "V", 4)),
+                o.dbeta.map_or("as sampled".into(), |b| format!("{b:+}"))
+            );
+            rows.push(Row::text("offset", &o.device, &text));
+            lines.push((format!("offset {}", o.device), text));
         }
         for (name, d) in &devs {
             for (k, v, u) in [
@@ -1095,16 +1618,60 @@ fn sweep(
     let mut header = vec!["x".to_string()];
     header.extend((0..n).map(|k| format!("out_{k}")));
     header.extend((0..n).map(|k| format!("share_{k}")));
+    // A circuit that holds state is swept up, then down (the state carried along): one more
+    // column says which way.
+    let both_ways = matches!(stage, CompetitionCircuit::Hysteretic(_));
+    if both_ways {
+        header.push("direction".into());
+    }
     w.write_record(&header)?;
     let mut write_error = None;
-    let run = plan.run(stage, &spec.inputs, |x, sol| {
+    // Winner before each point, and where it changed: (up, x) per change.
+    let mut last_winner: Option<usize> = None;
+    let mut switches: Vec<(bool, f64, usize, usize)> = Vec::new();
+    let mut prev_x = f64::NAN;
+    let mut each = |up: bool, x: f64, sol: &StageSolution| {
         let mut rec = vec![format!("{x:e}")];
         rec.extend(sol.outputs.iter().map(|v| format!("{v:e}")));
         rec.extend(sol.shares.iter().map(|v| format!("{v:e}")));
+        if both_ways {
+            rec.push(if up { "up" } else { "down" }.into());
+        }
         if let Err(e) = w.write_record(&rec) {
             write_error.get_or_insert(e);
         }
-    });
+        let winner = sol.decide(&spec.rule).winner;
+        if let Some(l) = last_winner {
+            if l != winner {
+                switches.push((up, 0.5 * (prev_x + x), l, winner));
+            }
+        }
+        last_winner = Some(winner);
+        prev_x = x;
+    };
+    let run = if both_ways {
+        let mut ws = Workspace::new();
+        plan.run_with(stage, &spec.inputs, &mut ws, false, |x, sol| {
+            each(true, x, sol)
+        })
+        .and_then(|()| {
+            plan.run_with(stage, &spec.inputs, &mut ws, true, |x, sol| {
+                each(false, x, sol)
+            })
+        })
+    } else {
+        plan.run(stage, &spec.inputs, |x, sol| each(true, x, sol))
+    };
+    let switches_text: Vec<String> = switches
+        .iter()
+        .map(|(up, x, from, to)| {
+            format!(
+                "{} sweep: winner {from} -> {to} at x = {}",
+                if *up { "up" } else { "down" },
+                format_si(*x, "A", 4)
+            )
+        })
+        .collect();
     match run {
         Ok(()) => {}
         Err(SweepError::NegativeInput { x, mean, .. }) => match quantity {
@@ -1121,19 +1688,51 @@ fn sweep(
         return Err(e.into());
     }
     let bytes = w.into_inner().map_err(|e| anyhow!("{e}"))?;
+    let mut notes = Vec::new();
+    if both_ways {
+        notes.push("swept up, then down, the circuit's state carried from point to point (column `direction`)".to_string());
+        notes.extend(switches_text);
+        let up = switches.iter().find(|s| s.0).map(|s| s.1);
+        let down = switches.iter().find(|s| !s.0).map(|s| s.1);
+        if let (Some(u), Some(d)) = (up, down) {
+            notes.push(format!(
+                "hysteresis width (sweep) {} (each switching point within half a sweep step)",
+                format_si((u - d).abs(), "A", 4)
+            ));
+        }
+        if let (SweepQuantity::Difference, Some((u, d))) =
+            (quantity, hysteresis_closed_form(stage, &spec.inputs[..2]))
+        {
+            // x here is I_0 - I_1: the closed form's x = I_a - I_b up to its sign.
+            notes.push(format!(
+                "hysteresis width (closed form, weak inversion, model notes §4.5) {}",
+                format_si(u - d, "A", 4)
+            ));
+        }
+    }
     match &args.out {
         Some(p) => {
             write_atomic(p, &bytes)?;
             println!(
                 "wrote {} points to {}; {described}",
-                args.points,
+                if both_ways {
+                    2 * args.points
+                } else {
+                    args.points
+                },
                 p.display()
             );
+            for t in &notes {
+                println!("{t}");
+            }
             println!("{}", crate::CAUTION);
         }
         None => {
             // The CSV goes to stdout; what is said about it (quantity, caution) to stderr.
             eprintln!("{described}");
+            for t in &notes {
+                eprintln!("{t}");
+            }
             print!("{}", String::from_utf8_lossy(&bytes));
             eprintln!("{}", crate::CAUTION);
         }
@@ -1147,9 +1746,9 @@ fn transient(
     stage: &CompetitionCircuit,
     process: &crate::device::Process,
 ) -> anyhow::Result<()> {
-    let CompetitionCircuit::Wta(c) = stage else {
-        bail!("--transient is available for the current-mode WTA only (--circuit current-wta)");
-    };
+    if matches!(stage, CompetitionCircuit::DiffPair(_)) {
+        bail!("--transient is available for the current-mode WTAs only (--circuit current-wta or hysteretic-wta)");
+    }
     let opts = TransientOptions {
         initial: match args.initial {
             InitialArg::Ground => InitialState::Ground,
@@ -1166,7 +1765,13 @@ fn transient(
     let noise = args
         .noise
         .then_some((&nopts, &mut rng as &mut dyn rand::RngCore));
-    let s = simulate(c, &spec.inputs, &opts, noise, &mut ws)?;
+    let s = match stage {
+        CompetitionCircuit::Wta(c) => simulate(c, &spec.inputs, &opts, noise, &mut ws)?,
+        CompetitionCircuit::Hysteretic(c) => simulate(c, &spec.inputs, &opts, noise, &mut ws)?,
+        CompetitionCircuit::DiffPair(_) => {
+            bail!("--transient is available for the current-mode WTAs only")
+        }
+    };
     let sol = ws.solution();
     let n = spec.inputs.len();
     if let Some(p) = &args.waveform {

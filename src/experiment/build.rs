@@ -19,6 +19,7 @@ use crate::pipeline::{
     TransientEvaluation,
 };
 use crate::stages::competition::diffpair::{DiffPairDesign, DiffPairInput};
+use crate::stages::competition::hysteretic::HysteresisDesign;
 use crate::stages::competition::noise::{InputShotNoise, NoiseBandwidth};
 use crate::stages::competition::transient::{NoiseOptions, TransientOptions};
 use crate::stages::competition::wta::WtaDesign;
@@ -337,6 +338,24 @@ fn circuit(
             w.source_capacitance = c.common_capacitance.si();
             CompetitionDesign::DiffPair(Box::new(w))
         }
+        CircuitKind::HystereticWta => {
+            // The current-mode WTA of the same keys, with the feedback mirror added.
+            match circuit(CircuitKind::CurrentWta, n, process, c, bias, gain) {
+                CompetitionDesign::CurrentWta(w) => {
+                    let mirror = c.mirror.unwrap_or(SizeCfg::um(2.0, 2.0));
+                    CompetitionDesign::Hysteretic(Box::new(HysteresisDesign {
+                        wta: *w,
+                        feedback: c.feedback.unwrap_or(0.0),
+                        mirror: Transistor {
+                            polarity: Polarity::Pmos,
+                            w: mirror.w.si(),
+                            l: mirror.l.si(),
+                        },
+                    }))
+                }
+                other => other,
+            }
+        }
         CircuitKind::CurrentWta => {
             let mut w = WtaDesign::new(
                 n,
@@ -615,6 +634,7 @@ pub fn check_with_core(e: &Experiment) -> Result<(), CoreRefusal> {
         match c {
             CompetitionDesign::CurrentWta(w) => w.validate(),
             CompetitionDesign::DiffPair(w) => w.validate(),
+            CompetitionDesign::Hysteretic(w) => w.validate(),
             CompetitionDesign::Argmax => Ok(()),
         }
         .map_err(|err| competition_refusal(prefix, err))

@@ -392,6 +392,9 @@ pub enum CircuitKind {
     CurrentWta,
     /// Multi-input differential pair (voltage-mode soft WTA) fed through diode-connected devices.
     DiffPair,
+    /// Current-mode WTA with hysteresis: `feedback` of each cell's output current mirrored back
+    /// into its input (keys `feedback`, `mirror`).
+    HystereticWta,
     /// Exact argmax of the weight-stage output currents (no competition circuit).
     Argmax,
 }
@@ -451,6 +454,14 @@ pub struct CompetitionCfg {
     pub input_resistance: Option<Q<Resistance>>,
     /// Diff pair with resistor inputs: the voltage at zero input current.
     pub resistor_reference: Q<Voltage>,
+    /// Hysteretic WTA: the fraction of each cell's output current mirrored back into its
+    /// input (required with `circuit = "hysteretic_wta"`).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub feedback: Option<f64>,
+    /// Hysteretic WTA: the feedback mirror's diode (PMOS; the feedback device has `feedback`
+    /// times its width); absent = 2 um x 2 um.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub mirror: Option<SizeCfg>,
 }
 
 impl Default for CompetitionCfg {
@@ -473,6 +484,8 @@ impl Default for CompetitionCfg {
             read_time: None,
             hold_time: None,
             input_resistance: None,
+            feedback: None,
+            mirror: None,
             resistor_reference: Q::new(0.4),
         }
     }
@@ -1471,6 +1484,26 @@ fn check(e: &Experiment, text: &str, file: &Path) -> Result<(), ConfigError> {
                 crate::units::format_si(e.hidden.bias_current.si(), "A", 6)
             ),
         ));
+    }
+    if e.competition.circuit == CircuitKind::HystereticWta {
+        if e.competition.feedback.is_none() {
+            return Err(bad(
+                "competition.circuit",
+                "\"hysteretic_wta\" needs `competition.feedback`, the fraction of each cell's output current mirrored back into its input (e.g. 0.1)".into(),
+            ));
+        }
+    } else {
+        for (key, set) in [
+            ("competition.feedback", e.competition.feedback.is_some()),
+            ("competition.mirror", e.competition.mirror.is_some()),
+        ] {
+            if set {
+                return Err(bad(
+                    key,
+                    "applies to circuit = \"hysteretic_wta\" only; remove it or set competition.circuit = \"hysteretic_wta\"".into(),
+                ));
+            }
+        }
     }
     if e.hidden.circuit == HiddenCircuitKind::DiffPair && e.hidden.exponent != 1.0 {
         return Err(bad(

@@ -274,6 +274,14 @@ pub fn build(
                 .collect(),
             "nc",
         ),
+        CompetitionCircuit::Hysteretic(_) => (
+            "hysteretic current-mode WTA",
+            (0..n)
+                .map(|k| format!("n{k}"))
+                .chain(["nc".into()])
+                .collect(),
+            "nc",
+        ),
         CompetitionCircuit::DiffPair(_) => (
             "multi-input differential pair",
             (0..n)
@@ -339,6 +347,47 @@ pub fn build(
                     &d.output,
                     &chip.output[k],
                 );
+            }
+            let t = match &d.bias {
+                CurrentSource::Transistor { device, .. } => Some(device),
+                CurrentSource::Ideal { .. } => None,
+            };
+            w.bias("BIAS", common, c.bias(), t, &chip.bias)?;
+        }
+        (CompetitionCircuit::Hysteretic(h), CompetitionChip::Hysteretic(hchip)) => {
+            // The WTA's devices; B_k's drain reaches its output port through a 0 V source
+            // VM<k> whose current a current-controlled source F<k> copies, times the mirror's
+            // gain alpha_k (mismatch included), into the cell's input node (the feedback).
+            let (c, chip) = (&h.wta, &hchip.wta);
+            output_voltage = c.output_voltage;
+            current_inputs = true;
+            let d = &chip.design;
+            for k in 0..n {
+                let (a, b) = (c.sink(k), c.output(k));
+                let (Some(a), Some(b), Some(alpha)) = (a, b, h.feedback.get(k)) else {
+                    return Err(NetlistError::Inconsistent);
+                };
+                w.mos(
+                    &format!("A{k}"),
+                    &nodes[k],
+                    Gate::Node("nc"),
+                    "0",
+                    a,
+                    &d.sink,
+                    &chip.sink[k],
+                );
+                let drain = format!("d{k}");
+                w.mos(
+                    &format!("B{k}"),
+                    &drain,
+                    Gate::Node(&nodes[k]),
+                    "nc",
+                    b,
+                    &d.output,
+                    &chip.output[k],
+                );
+                writeln!(w.s, "VM{k} {} {drain} DC 0", outs[k]).unwrap();
+                writeln!(w.s, "F{k} 0 {} VM{k} {alpha:e}", nodes[k]).unwrap();
             }
             let t = match &d.bias {
                 CurrentSource::Transistor { device, .. } => Some(device),

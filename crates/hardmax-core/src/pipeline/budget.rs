@@ -247,6 +247,12 @@ pub fn active_nonidealities(
             what: "an error budget evaluates decisions at DC; set competition.evaluation = \"dc\"",
         });
     }
+    if matches!(design.competition, CompetitionDesign::Hysteretic(_)) {
+        return Err(PipelineError::Unsupported {
+            what: "an error budget needs competition.circuit = \"current_wta\" or \"argmax\": the \
+                   hysteretic WTA's infinite-gain limit is not modelled",
+        });
+    }
     if matches!(design.competition, CompetitionDesign::DiffPair(_)) {
         return Err(PipelineError::Unsupported {
             what: "an error budget needs competition.circuit = \"current_wta\" or \"argmax\": the \

@@ -139,6 +139,14 @@ fn circuit_cost(c: &CompetitionDesign) -> (f64, f64) {
                 bias_i,
             )
         }
+        CompetitionDesign::Hysteretic(h) => {
+            // The WTA's devices plus each cell's mirror: a diode and a feedback device of
+            // `feedback` times its width.
+            let (a, i) = circuit_cost(&CompetitionDesign::CurrentWta(Box::new(h.wta.clone())));
+            let mirror = area(&h.mirror) * (1.0 + h.feedback);
+            // The feedback copies draw alpha I_b more from the supply.
+            (a + h.wta.n as f64 * mirror, i * (1.0 + h.feedback))
+        }
         CompetitionDesign::DiffPair(d) => {
             let diode = match &d.input {
                 DiffPairInput::Diode { device } => area(device),

@@ -29,9 +29,10 @@ use crate::device::mismatch::sample_mismatch;
 use crate::device::Process;
 use crate::rng::{domain, stream};
 use crate::stages::competition::diffpair::{DiffPairChip, DiffPairDesign};
+use crate::stages::competition::hysteretic::{HysteresisChip, HysteresisDesign};
 use crate::stages::competition::noise::InputShotNoise;
 use crate::stages::competition::transient::{
-    simulate, NoiseOptions, TransientError, TransientOptions, TransientWorkspace,
+    simulate, simulate_from, NoiseOptions, TransientError, TransientOptions, TransientWorkspace,
 };
 use crate::stages::competition::wta::{WtaChip, WtaDesign};
 use crate::stages::competition::{
@@ -357,6 +358,9 @@ pub enum CompetitionDesign {
     CurrentWta(Box<WtaDesign>),
     /// Multi-input differential pair fed with the weight-stage currents.
     DiffPair(Box<DiffPairDesign>),
+    /// Current-mode WTA with hysteresis (each cell's output mirrored back into its input); its
+    /// state carries from one decision of a chip to the next, in test-split order.
+    Hysteretic(Box<HysteresisDesign>),
     /// Exact argmax of the weight stage's output currents (no circuit).
     Argmax,
 }
@@ -375,6 +379,9 @@ impl CompetitionDesign {
         match self {
             CompetitionDesign::CurrentWta(w) => {
                 InputShotNoise::for_wta(w, capacitance, temperature)
+            }
+            CompetitionDesign::Hysteretic(h) => {
+                InputShotNoise::for_wta(&h.wta, capacitance, temperature)
             }
             _ => InputShotNoise {
                 bandwidth: crate::stages::competition::noise::NoiseBandwidth::SinglePole {
@@ -473,17 +480,30 @@ impl PointSetup {
         match &design.competition {
             CompetitionDesign::CurrentWta(w) => w.validate()?,
             CompetitionDesign::DiffPair(w) => w.validate()?,
+            CompetitionDesign::Hysteretic(w) => w.validate()?,
             CompetitionDesign::Argmax => {}
         }
         if let Some(n) = &design.input_noise {
             n.validate()?;
         }
         if design.transient.is_some()
-            && !matches!(design.competition, CompetitionDesign::CurrentWta(_))
+            && !matches!(
+                design.competition,
+                CompetitionDesign::CurrentWta(_) | CompetitionDesign::Hysteretic(_)
+            )
         {
             return Err(PipelineError::Unsupported {
                 what: "the transient evaluation is available for the current-mode WTA only; \
                        use evaluation = \"dc\" or circuit = \"current_wta\"",
+            });
+        }
+        if matches!(
+            design.hidden_circuit,
+            Some(CompetitionDesign::Hysteretic(_))
+        ) {
+            return Err(PipelineError::Unsupported {
+                what: "a hidden normaliser cannot be the hysteretic WTA (a normaliser holds no \
+                       winner); use current_wta or diff_pair",
             });
         }
         let chain = chain_design(&design.weights, prep.layers.len(), prep.hidden.as_ref());
@@ -514,6 +534,18 @@ impl PointSetup {
                 crate::units::format_si(w.pair.w, "m", 3),
                 crate::units::format_si(w.pair.l, "m", 3),
                 w.input
+            ),
+            CompetitionDesign::Hysteretic(h) => format!(
+                "hysteretic current-mode WTA, {} cells, feedback fraction {}, sink {} x {}, \
+                 output {} x {}, mirror {} x {}",
+                h.wta.n,
+                crate::units::short_number(h.feedback),
+                crate::units::format_si(h.wta.sink.w, "m", 3),
+                crate::units::format_si(h.wta.sink.l, "m", 3),
+                crate::units::format_si(h.wta.output.w, "m", 3),
+                crate::units::format_si(h.wta.output.l, "m", 3),
+                crate::units::format_si(h.mirror.w, "m", 3),
+                crate::units::format_si(h.mirror.l, "m", 3),
             ),
             CompetitionDesign::CurrentWta(w) => format!(
                 "current-mode WTA, {} cells, sink {} x {}, output {} x {}, {}",
@@ -1031,7 +1063,12 @@ pub fn sample_competition(
 ) -> Result<Option<CompetitionChip>, PipelineError> {
     let tech = process.nmos.clone();
     let mut draw = |t: &crate::device::Transistor| {
-        let m = sample_mismatch(rng, &tech, t);
+        // Every device of the existing circuits is an NMOS; a PMOS (the hysteretic WTA's
+        // mirror) draws with the PMOS Pelgrom constants.
+        let m = match t.polarity {
+            crate::device::Polarity::Pmos => sample_mismatch(rng, &process.pmos, t),
+            crate::device::Polarity::Nmos => sample_mismatch(rng, &tech, t),
+        };
         crate::device::MosMismatch {
             dvt0: mismatch * m.dvt0,
             dbeta_rel: mismatch * m.dbeta_rel,
@@ -1047,6 +1084,9 @@ pub fn sample_competition(
             (**w).clone(),
             &mut draw,
         )?)),
+        CompetitionDesign::Hysteretic(w) => Some(CompetitionChip::Hysteretic(
+            HysteresisChip::sample((**w).clone(), &mut draw)?,
+        )),
     })
 }
 
@@ -1081,6 +1121,12 @@ fn build_decider(
             })
         }
         Some(CompetitionChip::DiffPair(c)) => Decider::DiffPair(Box::new(c.at(temperature)?)),
+        Some(CompetitionChip::Hysteretic(_)) if infinite_gain => {
+            return Err(PipelineError::Unsupported {
+                what: "the hysteretic WTA's infinite-gain limit is not modelled",
+            })
+        }
+        Some(CompetitionChip::Hysteretic(c)) => Decider::Hysteretic(Box::new(c.at(temperature)?)),
     })
 }
 
@@ -1156,6 +1202,7 @@ pub fn sample_die(
 enum Decider {
     Wta(Box<crate::stages::competition::wta::WtaCircuit>),
     DiffPair(Box<crate::stages::competition::diffpair::DiffPairCircuit>),
+    Hysteretic(Box<crate::stages::competition::hysteretic::HysteresisCircuit>),
     Argmax,
     /// Infinite-gain limit: argmax of the inputs times these input-referred factors.
     Limit(Vec<f64>),
@@ -1249,6 +1296,9 @@ pub fn evaluate_chip_with(
     let mut scratch: ChainScratch = eff.scratch();
     let noisy_weights = eff.stages().iter().any(|s| s.has_read_noise());
     let mut ws = Workspace::new();
+    // The hysteretic WTA's own workspace (its kept state) and its transient end state.
+    let mut hws = Workspace::new();
+    let mut hstate: Vec<f64> = Vec::new();
     let mut tws = TransientWorkspace::new();
     let mut sol = StageSolution::default();
     let mut hsol = StageSolution::default();
@@ -1283,7 +1333,7 @@ pub fn evaluate_chip_with(
                     }
                     .map_err(|e| failed(first, FailureKind::WeightStage, e))?;
                     let solved = match h {
-                        Decider::Argmax | Decider::Limit(_) => Ok(()),
+                        Decider::Argmax | Decider::Limit(_) | Decider::Hysteretic(_) => Ok(()),
                         Decider::Wta(c) => c.solve(&hbuf, &mut ws, &mut hsol),
                         Decider::DiffPair(c) => c.solve(&hbuf, &mut ws, &mut hsol),
                     };
@@ -1383,6 +1433,43 @@ pub fn evaluate_chip_with(
                 Decider::DiffPair(c) => {
                     solve_decide(c.as_ref(), inputs, &mut ws, &mut sol, &d.decision, first)
                 }
+                // State carries from one test sample to the next (the physical chip: the
+                // previous winner holds): the DC solve starts from the state kept in `hws`;
+                // a transient starts from the previous decision's end state.
+                Decider::Hysteretic(c) => match &d.transient {
+                    None => {
+                        solve_decide(c.as_ref(), inputs, &mut hws, &mut sol, &d.decision, first)
+                    }
+                    Some(t) => {
+                        let mut noise_rng = noise_stream(i, noise_source::TRANSIENT);
+                        let noise = t
+                            .noise
+                            .as_ref()
+                            .map(|o| (o, &mut noise_rng as &mut dyn rand::RngCore));
+                        let s = if hstate.is_empty() {
+                            simulate(c.as_ref(), inputs, &t.options, noise, &mut tws)
+                        } else {
+                            simulate_from(c.as_ref(), inputs, &hstate, &t.options, noise, &mut tws)
+                        }
+                        .map_err(|e| failed(first, FailureKind::of_transient(&e), e))?;
+                        hstate.clear();
+                        hstate.extend_from_slice(&tws.solution().node_voltages);
+                        let decision = if t.options.read_time.is_some() {
+                            s.decision_at_read
+                        } else {
+                            s.decision
+                        };
+                        if let (Some(td), Some(e)) = (s.decision_time, s.energy_to_decision) {
+                            out_time.0 += td;
+                            out_time.1 += e;
+                            out_time.2 += 1;
+                        }
+                        Ok(match decision {
+                            Some(dec) => (dec.winner, dec.ambiguous),
+                            None => (0, true),
+                        })
+                    }
+                },
             }
         })();
         out.record(

@@ -70,6 +70,10 @@ pub fn closed_form_gain(stage: &CompetitionCircuit) -> ClosedFormGain {
             value: c.gain(0).unwrap_or(f64::NAN),
             derivation: "kappa/sigma = n_A/(n_B eta_A), weak-inversion closed form (DEVELOPERS.md model notes §4.1)",
         },
+        CompetitionCircuit::Hysteretic(c) => ClosedFormGain {
+            value: c.gain(0).unwrap_or(f64::NAN),
+            derivation: "kappa/sigma = n_A/(n_B eta_A) of the WTA without its feedback, weak-inversion closed form (DEVELOPERS.md model notes §4.1, §4.5)",
+        },
         CompetitionCircuit::DiffPair(_) => ClosedFormGain {
             value: 1.0,
             derivation: "1: diode-connected inputs make a plain normaliser in weak inversion (DEVELOPERS.md model notes §4.2)",
@@ -166,14 +170,29 @@ impl TransferSweep {
         &self,
         stage: &S,
         inputs: &[f64],
+        each: impl FnMut(f64, &StageSolution),
+    ) -> Result<(), SweepError> {
+        let mut ws = Workspace::new();
+        self.run_with(stage, inputs, &mut ws, false, each)
+    }
+
+    /// [`TransferSweep::run`] with a caller's workspace (a circuit that holds state carries it
+    /// from point to point and from one call to the next), forwards or, with `reverse`, from
+    /// the last point to the first.
+    pub fn run_with<S: CompetitionStage + ?Sized>(
+        &self,
+        stage: &S,
+        inputs: &[f64],
+        ws: &mut Workspace,
+        reverse: bool,
         mut each: impl FnMut(f64, &StageSolution),
     ) -> Result<(), SweepError> {
         self.check(inputs.len())?;
-        let mut ws = Workspace::new();
         let mut sol = StageSolution::for_stage(stage);
         let mut line_inputs = inputs.to_vec();
         let mean01 = 0.5 * (inputs[0] + inputs[1]);
-        for point in 0..self.points {
+        for i in 0..self.points {
+            let point = if reverse { self.points - 1 - i } else { i };
             let x = self.x(point);
             match self.quantity {
                 SweepQuantity::Difference => {
@@ -199,7 +218,7 @@ impl TransferSweep {
                 }
             }
             stage
-                .solve(&line_inputs, &mut ws, &mut sol)
+                .solve(&line_inputs, ws, &mut sol)
                 .map_err(|source| SweepError::Solve {
                     point,
                     x,

@@ -113,6 +113,12 @@ pub trait SharedNodeCircuit {
     fn load(&self, k: usize, v_line: f64, v_common: f64) -> Branch;
     /// Load current only (may be cheaper than [`SharedNodeCircuit::load`]).
     fn load_current(&self, k: usize, v_line: f64, v_common: f64) -> f64;
+    /// Current scale of line k's KCL at `(v_line, v_common)` (the denominator of its relative
+    /// residual): the load's magnitude unless the load is a difference of branches (then the
+    /// sum of their magnitudes).
+    fn load_scale(&self, k: usize, v_line: f64, v_common: f64) -> f64 {
+        self.load_current(k, v_line, v_common).abs()
+    }
     /// Output of line k at `(v_line, v_common)` with its partials.
     fn output(&self, k: usize, v_line: f64, v_common: f64) -> Branch;
     /// Output current only.
@@ -136,6 +142,14 @@ pub trait SharedNodeCircuit {
     fn line_voltage(&self, k: usize, input: f64, inputs: &[f64]) -> Result<f64, CompetitionError> {
         let _ = (k, inputs);
         Ok(input)
+    }
+
+    /// True when the node equations have several solutions and the one reached depends on the
+    /// circuit's previous state (hysteresis): the DC solve then starts from the state held in
+    /// the [`Workspace`](super::Workspace) and settles the node equations from there
+    /// ([`super::dc`], "Circuits that hold state").
+    fn carries_state(&self) -> bool {
+        false
     }
 
     /// True when the line nodes are driven by the inputs (no KCL at the lines, no transient).
@@ -226,7 +240,7 @@ pub fn kcl_residuals<C: SharedNodeCircuit + ?Sized>(
             0.0
         } else {
             let il = c.load_current(k, vk, vc);
-            let scale = inputs[k].abs().max(il.abs());
+            let scale = inputs[k].abs().max(c.load_scale(k, vk, vc));
             if scale > 0.0 {
                 (inputs[k] - il) / scale
             } else {

@@ -20,6 +20,19 @@
 //! Each line voltage from its input alone, then the common node by one monotone scalar solve of
 //! `ln Σ I_O,k(V_C) = ln I_bias(V_C)`, started from the circuit's closed form.
 //!
+//! ## Circuits that hold state ([`SharedNodeCircuit::carries_state`])
+//!
+//! A circuit with positive feedback has several DC solutions for the same inputs; the one it
+//! sits at is the one reached from its previous state. The solve starts from the state kept in
+//! the [`Workspace`] (node voltages of the last solve; every node at 0 V when there is none, a
+//! power-up), integrates the node equations with the generic transient
+//! ([`super::transient::simulate_from`], noiseless) until they settle, then polishes that point
+//! with Newton on the exact DC equations (linear-form residuals, arrowhead elimination, steps
+//! limited to 50 mV; no positivity guard, since a line's load may fall with its voltage). The
+//! reached point becomes the state. A run that does not settle (no stable operating point
+//! reached) or a Newton polish that does not meet the tolerance is a `NotConverged` error; the
+//! state is then left as it was.
+//!
 //! Numerical core: no I/O, no printing.
 
 // Index loops run over parallel per-line arrays.
@@ -47,6 +60,9 @@ pub fn solve<C: SharedNodeCircuit + ?Sized>(
 ) -> Result<(), CompetitionError> {
     let n = c.lines();
     begin_solve(c.name(), n, inputs, c.inputs_unit(), ws, out)?;
+    if c.carries_state() {
+        return solve_from_state(c, inputs, ws, out);
+    }
     match c.strategy() {
         DcStrategy::Coupled { max_newton } => {
             let (vc, iterations, residual, method) = match newton(c, inputs, max_newton, ws, out) {
@@ -391,4 +407,171 @@ fn lines_first<C: SharedNodeCircuit + ?Sized>(
         SolveMethod::Bracketing,
     );
     Ok(())
+}
+
+/// DC solve of a circuit that holds state (module docs, "Circuits that hold state").
+fn solve_from_state<C: SharedNodeCircuit + ?Sized>(
+    c: &C,
+    inputs: &[f64],
+    ws: &mut Workspace,
+    out: &mut StageSolution,
+) -> Result<(), CompetitionError> {
+    use super::transient::{simulate_from, TransientError, TransientOptions};
+    let n = c.lines();
+    if ws.state.len() != n + 1 || ws.state.iter().any(|v| !v.is_finite()) {
+        ws.state.clear();
+        ws.state.resize(n + 1, 0.0);
+    }
+    let mut tws = ws.settle.take().unwrap_or_default();
+    let opts = TransientOptions::default();
+    let settled = simulate_from(c, inputs, &ws.state, &opts, None, &mut tws);
+    let summary = match settled {
+        Ok(s) => s,
+        Err(e) => {
+            ws.settle = Some(tws);
+            return Err(match e {
+                TransientError::Stage(s) => s,
+                // A step that failed even at the smallest size: no settled point was reached.
+                _ => CompetitionError::NotConverged {
+                    stage: c.name(),
+                    iterations: 0,
+                    residual: f64::INFINITY,
+                    tolerance: c.tolerance(),
+                    inputs: InputSummary::of_in(inputs, c.inputs_unit()),
+                },
+            });
+        }
+    };
+    // Settled, or ended (at t_max) with every node's net current within the settling
+    // tolerance: at rest either way (an oscillation keeps |C dV/dt| large).
+    if !(summary.settled || summary.final_residual <= opts.settle_tolerance) {
+        ws.settle = Some(tws);
+        return Err(CompetitionError::NotConverged {
+            stage: c.name(),
+            iterations: summary.newton_iterations,
+            residual: summary.final_residual,
+            tolerance: c.tolerance(),
+            inputs: InputSummary::of_in(inputs, c.inputs_unit()),
+        });
+    }
+    let start = &tws.solution().node_voltages;
+    ws.line_voltage[..n].copy_from_slice(&start[..n]);
+    let vc0 = start[n];
+    ws.settle = Some(tws);
+    let (vc, iterations, residual) = newton_linear(c, inputs, vc0, ws, out)?;
+    finish_solve(
+        out,
+        &ws.line_voltage[..n],
+        vc,
+        iterations,
+        residual,
+        SolveMethod::Newton,
+    );
+    ws.state.copy_from_slice(&out.node_voltages);
+    Ok(())
+}
+
+/// Newton on the exact node equations in linear form from `ws.line_voltage` and `vc`
+/// (module docs): returns `(V_C, iterations, largest relative KCL residual)`.
+fn newton_linear<C: SharedNodeCircuit + ?Sized>(
+    c: &C,
+    inputs: &[f64],
+    mut vc: f64,
+    ws: &mut Workspace,
+    out: &mut StageSolution,
+) -> Result<(f64, usize, f64), CompetitionError> {
+    let n = c.lines();
+    let tolerance = c.tolerance();
+    let source = c.source_fast();
+    let Workspace {
+        load_d_line,
+        load_d_common,
+        scaled_residual,
+        start_share,
+        line_voltage,
+        ..
+    } = ws;
+    let (jkk, jkc, f, odl, v) = (
+        &mut load_d_line[..n],
+        &mut load_d_common[..n],
+        &mut scaled_residual[..n],
+        &mut start_share[..n],
+        &mut line_voltage[..n],
+    );
+    let max_iter = 50;
+    let mut res = f64::INFINITY;
+    for it in 0..=max_iter {
+        let mut s_sum = 0.0;
+        let mut d = 0.0;
+        res = 0.0;
+        for k in 0..n {
+            let l = c.load(k, v[k], vc);
+            let o = c.output(k, v[k], vc);
+            out.outputs[k] = o.current;
+            s_sum += o.current;
+            d += o.d_common;
+            f[k] = inputs[k] - l.current;
+            let scale = inputs[k].abs().max(c.load_scale(k, v[k], vc));
+            if scale > 0.0 {
+                res = res.max(f[k].abs() / scale);
+            }
+            jkk[k] = -l.d_line;
+            jkc[k] = -l.d_common;
+            odl[k] = o.d_line;
+        }
+        let (ib, dib) = source.eval(vc);
+        let fc = s_sum - ib;
+        res = res.max(fc.abs() / ib.abs().max(f64::MIN_POSITIVE));
+        if !res.is_finite() {
+            break;
+        }
+        if res <= tolerance {
+            return Ok((vc, it, res));
+        }
+        if it == max_iter {
+            break;
+        }
+        d -= dib;
+        let mut den = d;
+        let mut rhs = -fc;
+        for k in 0..n {
+            den -= odl[k] * jkc[k] / jkk[k];
+            rhs += odl[k] * f[k] / jkk[k];
+        }
+        let dvc = rhs / den;
+        if !dvc.is_finite() {
+            break;
+        }
+        let lim = 0.05;
+        let mut scale: f64 = if dvc.abs() > lim {
+            lim / dvc.abs()
+        } else {
+            1.0
+        };
+        let mut ok = true;
+        for k in 0..n {
+            let dv = (-f[k] - jkc[k] * dvc) / jkk[k];
+            if !dv.is_finite() {
+                ok = false;
+            }
+            if dv.abs() * scale > lim {
+                scale = lim / dv.abs();
+            }
+            f[k] = dv;
+        }
+        if !ok {
+            break;
+        }
+        for k in 0..n {
+            v[k] += scale * f[k];
+        }
+        vc += scale * dvc;
+    }
+    Err(CompetitionError::NotConverged {
+        stage: c.name(),
+        iterations: max_iter,
+        residual: res,
+        tolerance,
+        inputs: InputSummary::of_in(inputs, c.inputs_unit()),
+    })
 }

@@ -19,6 +19,7 @@ mod common;
 pub mod dc;
 pub mod decision;
 pub mod diffpair;
+pub mod hysteretic;
 #[cfg(test)]
 mod ideal_normaliser;
 pub mod mos;
@@ -34,6 +35,7 @@ use thiserror::Error;
 pub use circuit::{Branch, CircuitMessages, DcStrategy, SharedNodeCircuit};
 pub use decision::{Decision, DecisionRule};
 pub use diffpair::{DiffPairChip, DiffPairCircuit, DiffPairDesign, DiffPairInput};
+pub use hysteretic::{HysteresisChip, HysteresisCircuit, HysteresisDesign};
 pub use noise::{InputShotNoise, NoiseBandwidth};
 pub use source::CurrentSource;
 pub use wta::{WtaChip, WtaCircuit, WtaDesign};
@@ -119,12 +121,33 @@ pub struct Workspace {
     pub(crate) start_share: Vec<f64>,
     /// Lines the bracketing solve found clamped at the supply.
     pub(crate) clamped: Vec<bool>,
+    /// The operating point a circuit that holds state ([`SharedNodeCircuit::carries_state`])
+    /// reached in its last solve, `[V_0..V_{N-1}, V_C]`; empty = none yet (a power-up).
+    pub(crate) state: Vec<f64>,
+    /// The transient that settles such a circuit from its state.
+    pub(crate) settle: Option<Box<transient::TransientWorkspace>>,
 }
 
 impl Workspace {
     /// An empty workspace.
     pub fn new() -> Workspace {
         Workspace::default()
+    }
+
+    /// The operating point kept by a circuit that holds state (empty: none, a power-up).
+    pub fn state(&self) -> &[f64] {
+        &self.state
+    }
+
+    /// Set the state a circuit that holds state starts its next solve from.
+    pub fn set_state(&mut self, voltages: &[f64]) {
+        self.state.clear();
+        self.state.extend_from_slice(voltages);
+    }
+
+    /// Forget the state: the next solve of a circuit that holds state starts from a power-up.
+    pub fn clear_state(&mut self) {
+        self.state.clear();
     }
 
     pub(crate) fn ensure(&mut self, n: usize) {
@@ -384,10 +407,13 @@ pub(crate) fn positive(
 /// One sampled competition stage of either kind (design plus every transistor's mismatch), for
 /// code that picks the stage at run time and needs the chip itself, not only its evaluation
 /// (e.g. netlist export).
+// One chip per die, built once per chip (not a hot path): the variants' sizes do not matter.
+#[allow(clippy::large_enum_variant)]
 #[derive(Clone, Debug, PartialEq)]
 pub enum CompetitionChip {
     Wta(WtaChip),
     DiffPair(DiffPairChip),
+    Hysteretic(HysteresisChip),
 }
 
 impl CompetitionChip {
@@ -396,6 +422,7 @@ impl CompetitionChip {
         match self {
             CompetitionChip::Wta(c) => c.design.n,
             CompetitionChip::DiffPair(c) => c.design.n,
+            CompetitionChip::Hysteretic(c) => c.design.wta.n,
         }
     }
 
@@ -404,6 +431,7 @@ impl CompetitionChip {
         Ok(match self {
             CompetitionChip::Wta(c) => CompetitionCircuit::Wta(c.at(temperature)?),
             CompetitionChip::DiffPair(c) => CompetitionCircuit::DiffPair(c.at(temperature)?),
+            CompetitionChip::Hysteretic(c) => CompetitionCircuit::Hysteretic(c.at(temperature)?),
         })
     }
 }
@@ -414,6 +442,7 @@ impl CompetitionChip {
 pub enum CompetitionCircuit {
     Wta(WtaCircuit),
     DiffPair(DiffPairCircuit),
+    Hysteretic(HysteresisCircuit),
 }
 
 impl CompetitionStage for CompetitionCircuit {
@@ -421,6 +450,7 @@ impl CompetitionStage for CompetitionCircuit {
         match self {
             CompetitionCircuit::Wta(c) => c.n(),
             CompetitionCircuit::DiffPair(c) => c.n(),
+            CompetitionCircuit::Hysteretic(c) => c.n(),
         }
     }
 
@@ -428,6 +458,7 @@ impl CompetitionStage for CompetitionCircuit {
         match self {
             CompetitionCircuit::Wta(c) => c.node_count(),
             CompetitionCircuit::DiffPair(c) => c.node_count(),
+            CompetitionCircuit::Hysteretic(c) => c.node_count(),
         }
     }
 
@@ -435,6 +466,7 @@ impl CompetitionStage for CompetitionCircuit {
         match self {
             CompetitionCircuit::Wta(c) => c.node_name(i),
             CompetitionCircuit::DiffPair(c) => c.node_name(i),
+            CompetitionCircuit::Hysteretic(c) => c.node_name(i),
         }
     }
 
@@ -442,6 +474,7 @@ impl CompetitionStage for CompetitionCircuit {
         match self {
             CompetitionCircuit::Wta(c) => c.stage_name(),
             CompetitionCircuit::DiffPair(c) => c.stage_name(),
+            CompetitionCircuit::Hysteretic(c) => c.stage_name(),
         }
     }
 
@@ -449,6 +482,7 @@ impl CompetitionStage for CompetitionCircuit {
         match self {
             CompetitionCircuit::Wta(c) => c.input_unit(),
             CompetitionCircuit::DiffPair(c) => c.input_unit(),
+            CompetitionCircuit::Hysteretic(c) => c.input_unit(),
         }
     }
 
@@ -461,6 +495,7 @@ impl CompetitionStage for CompetitionCircuit {
         match self {
             CompetitionCircuit::Wta(c) => c.solve(inputs, ws, out),
             CompetitionCircuit::DiffPair(c) => c.solve(inputs, ws, out),
+            CompetitionCircuit::Hysteretic(c) => c.solve(inputs, ws, out),
         }
     }
 }

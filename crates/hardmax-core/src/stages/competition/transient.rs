@@ -419,7 +419,7 @@ impl<C: SharedNodeCircuit + ?Sized> Model<'_, C> {
         for k in 0..self.n {
             let (iin, _) = self.input(k, x[k]);
             let ia = self.circuit.load_current(k, x[k], vc);
-            let scale = iin.abs().max(ia.abs());
+            let scale = iin.abs().max(self.circuit.load_scale(k, x[k], vc));
             if scale > 0.0 {
                 m = m.max((iin - ia).abs() / scale);
             }
@@ -441,6 +441,39 @@ impl<C: SharedNodeCircuit + ?Sized> Model<'_, C> {
 pub fn simulate<C: SharedNodeCircuit + ?Sized>(
     circuit: &C,
     inputs: &[f64],
+    opts: &TransientOptions,
+    noise: Option<(&NoiseOptions, &mut dyn RngCore)>,
+    ws: &mut TransientWorkspace,
+) -> Result<TransientSummary, TransientError> {
+    run(circuit, inputs, None, opts, noise, ws)
+}
+
+/// [`simulate`] from a given state: node voltages `[V_0..V_{N-1}, V_C]` at t = 0 (e.g. the
+/// state a circuit with hysteresis kept from its previous decision); `opts.initial` is not used.
+pub fn simulate_from<C: SharedNodeCircuit + ?Sized>(
+    circuit: &C,
+    inputs: &[f64],
+    start: &[f64],
+    opts: &TransientOptions,
+    noise: Option<(&NoiseOptions, &mut dyn RngCore)>,
+    ws: &mut TransientWorkspace,
+) -> Result<TransientSummary, TransientError> {
+    if start.len() != circuit.lines() + 1 || start.iter().any(|v| !v.is_finite()) {
+        return Err(CompetitionError::WrongLength {
+            stage: STAGE,
+            what: "the starting state (finite node voltages)",
+            expected: circuit.lines() + 1,
+            got: start.len(),
+        }
+        .into());
+    }
+    run(circuit, inputs, Some(start), opts, noise, ws)
+}
+
+fn run<C: SharedNodeCircuit + ?Sized>(
+    circuit: &C,
+    inputs: &[f64],
+    start: Option<&[f64]>,
     opts: &TransientOptions,
     mut noise: Option<(&NoiseOptions, &mut dyn RngCore)>,
     ws: &mut TransientWorkspace,
@@ -497,6 +530,11 @@ pub fn simulate<C: SharedNodeCircuit + ?Sized>(
 
     // Initial state.
     match opts.initial {
+        _ if start.is_some() => {
+            if let Some(s) = start {
+                ws.x.copy_from_slice(s);
+            }
+        }
         InitialState::Ground => {}
         InitialState::CommonMode | InitialState::Dc => {
             let TransientWorkspace {
