@@ -15,7 +15,7 @@ pub mod render;
 
 pub use error::{ReportError, SUPPORTED_FORMAT_VERSION};
 pub use folder::{
-    ChipRow, ConfusionRow, Manifest, NamedTransfer, PointRow, PointsTable, Predicted,
+    ChipEntry, ChipRow, ConfusionRow, Manifest, NamedTransfer, PointRow, PointsTable, Predicted,
     ResultsFolder, RunStatus, Scale, Sweep, SweepMode, SweepParameter, TransferCurve, TransferMeta,
 };
 pub use render::{
