@@ -304,10 +304,12 @@ impl ResultsDir {
     /// Save one finished point (atomic). Its chip file must be committed first: a record
     /// without its chip file is not a finished point.
     pub fn save_point(&self, rec: &PointRecord) -> Result<(), ResultsError> {
-        let json = serde_json::to_vec_pretty(rec).map_err(|e| {
+        // Streamed: a record holds one accuracy per die, so it is not built in memory first.
+        let mut f = StreamFile::create(&self.point_path(rec.point))?;
+        serde_json::to_writer_pretty(&mut f, rec).map_err(|e| {
             ResultsError::Read(self.point_path(rec.point), format!("cannot encode: {e}"))
         })?;
-        write_atomic(&self.point_path(rec.point), &json)?;
+        f.commit()?;
         Ok(())
     }
 

@@ -85,6 +85,22 @@ impl StreamFile {
     }
 }
 
+impl Write for StreamFile {
+    fn write(&mut self, buf: &[u8]) -> std::io::Result<usize> {
+        match self.out.as_mut() {
+            Some(w) => w.write(buf),
+            None => Ok(buf.len()),
+        }
+    }
+
+    fn flush(&mut self) -> std::io::Result<()> {
+        match self.out.as_mut() {
+            Some(w) => w.flush(),
+            None => Ok(()),
+        }
+    }
+}
+
 impl Drop for StreamFile {
     fn drop(&mut self) {
         // Not committed (an error or an abandoned point): the target stays as it was.
