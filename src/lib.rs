@@ -14,10 +14,10 @@
 //! - this crate: experiment files, the Monte Carlo runner and the command line.
 
 pub use hardmax_core::{
-    calibration, data, device, netlist, physics, pipeline, rng, solvers, stages, training, units,
-    CAUTION,
+    calibration, data, device, netlist, physics, pipeline, rng, scale, solvers, stages, training,
+    units, CAUTION,
 };
-pub use hardmax_report::{answers, io, report};
+pub use hardmax_report::{answers, format, io, report};
 
 pub mod cli;
 pub mod experiment;

@@ -44,7 +44,7 @@ fn reads_the_complete_fixture() {
     assert_eq!(p3.params, vec![1e-8, 6.0]);
     assert_eq!(p3.chips, 20);
     // The per-point mean equals the mean of that point's chips in chips.csv.
-    let accs: Vec<f64> = f.chips_of(3).filter_map(|c| c.accuracy).collect();
+    let accs: Vec<f64> = f.chips_of(3).map(|c| c.row.accuracy).collect();
     let mean = accs.iter().sum::<f64>() / accs.len() as f64;
     approx::assert_relative_eq!(p3.acc_mean.unwrap(), mean, max_relative = 1e-12);
     // Every decision of a point is in confusion.csv: 20 chips x 45 test samples.

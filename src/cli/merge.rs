@@ -47,16 +47,16 @@ pub fn run(args: MergeArgs) -> anyhow::Result<()> {
             summary.shards, summary.points
         );
         // The swept parameters, as the merged folder's manifest names them.
-        let axes: Vec<(String, String)> = crate::report::ResultsFolder::read(&args.out)
-            .map(|f| {
-                f.manifest
-                    .sweep
-                    .parameters
-                    .iter()
-                    .map(|p| (p.path.clone(), p.unit.clone()))
-                    .collect()
-            })
-            .unwrap_or_default();
+        let axes: Vec<(String, String)> =
+            crate::format::Manifest::read(&args.out.join("manifest.json"))
+                .map(|m| {
+                    m.sweep
+                        .parameters
+                        .into_iter()
+                        .map(|p| (p.path, p.unit))
+                        .collect()
+                })
+                .unwrap_or_default();
         super::run::print_table(&summary.records, &axes);
         println!("results: {}", args.out.display());
         if let Some(r) = report {

@@ -26,8 +26,9 @@ use crate::device::MosMismatch;
 use crate::device::{preset, DrainCoupling, Ekv, Polarity, Transistor};
 use crate::io::write_atomic;
 use crate::physics::thermal_voltage;
+use crate::scale::Scale;
 use crate::stages::competition::analysis::{
-    closed_form_gain, drain_coupling_for_gain, numerical_gain, ClosedFormGain, Spacing, SweepError,
+    closed_form_gain, drain_coupling_for_gain, numerical_gain, ClosedFormGain, SweepError,
     SweepQuantity, TransferSweep,
 };
 use crate::stages::competition::hysteretic;
@@ -59,13 +60,6 @@ pub enum Format {
     Table,
     Json,
     Csv,
-}
-
-/// Spacing of the sweep points.
-#[derive(Clone, Copy, Debug, PartialEq, Eq, ValueEnum)]
-pub enum Scale {
-    Linear,
-    Log,
 }
 
 /// Start of the transient.
@@ -185,7 +179,7 @@ pub struct StageArgs {
     #[arg(long, default_value_t = 41)]
     pub points: usize,
     /// Spacing of the sweep points (log needs from and to of the same sign, not zero).
-    #[arg(long, value_enum, default_value = "linear")]
+    #[arg(long, default_value = "linear", value_parser = scale_arg())]
     pub scale: Scale,
     /// Write the sweep CSV here (default: standard output).
     #[arg(long, value_name = "FILE")]
@@ -440,6 +434,13 @@ fn summarise_names(names: &[&str]) -> String {
 
 /// A drain coupling in a designer's words ("Early voltage per length 10 V/um", "eta = 0.0067"),
 /// not the type's internal spelling.
+/// `--scale`: the names of [`Scale`] (listed in the help), parsed into it.
+fn scale_arg() -> impl clap::builder::TypedValueParser<Value = Scale> {
+    use clap::builder::TypedValueParser;
+    clap::builder::PossibleValuesParser::new(Scale::ALL.map(Scale::name))
+        .map(|s| s.parse::<Scale>().unwrap_or_default())
+}
+
 fn describe_coupling(dc: &DrainCoupling) -> String {
     use crate::units::short_number;
     match *dc {
@@ -1596,10 +1597,7 @@ fn sweep(
         from,
         to,
         points: args.points,
-        spacing: match args.scale {
-            Scale::Linear => Spacing::Linear,
-            Scale::Log => Spacing::Log,
-        },
+        spacing: args.scale,
     };
     match plan.check(n) {
         Err(SweepError::TooFewPoints(p)) => bail!("--points = {p} must be at least 2"),

@@ -10,16 +10,26 @@ use std::path::{Path, PathBuf};
 use std::time::Instant;
 
 use rayon::prelude::*;
-use serde_json::json;
 use sha2::{Digest, Sha256};
 
 use super::build::{build_point, cost_settings, prepare_data};
 use super::config::Resolved;
-use super::results::{ChipRow, PointRecord, ResultsDir, ResultsError, FORMAT_NAME, FORMAT_VERSION};
+use super::results::{
+    chip_rows_csv, ChipRow, ChipStats, PointRecord, ResultsDir, ResultsError, FORMAT_NAME,
+    FORMAT_VERSION,
+};
 use super::shard::{Plan, ShardError, ShardSpec};
+use crate::format::{
+    DatasetInfo, HostInfo, InputFile, Manifest, Pairing, RunStatus, Sweep, SweepMode,
+    SweepParameter,
+};
 use crate::io::write_atomic;
 use crate::pipeline::cost::{mean_input, point_cost};
 use crate::pipeline::{evaluate_chip, Dies, Prepared};
+
+/// Chips per worker thread in one batch of the chip loop (the reorder buffer holds at most
+/// threads x this many chip outcomes).
+pub const CHIPS_PER_THREAD: u64 = 64;
 
 /// Errors of a run; each says which point or file.
 #[derive(Debug, thiserror::Error)]
@@ -48,18 +58,6 @@ pub enum RunError {
     },
     #[error("output folder `{out}` holds results computed from a different version of {changed}; nothing was changed. Use --fresh to start over with the new file, or another --out folder")]
     InputChanged { out: PathBuf, changed: String },
-}
-
-/// One file an experiment reads (its dataset CSV, a hidden-layer weights file), with the
-/// SHA-256 of its content: part of the experiment's identity.
-#[derive(Clone, Debug, PartialEq, Eq, serde::Serialize, serde::Deserialize)]
-pub struct InputFile {
-    /// The experiment key that names the file (`dataset.file`, `hidden.weights_file`).
-    pub key: String,
-    /// The path as opened (relative ones joined to the experiment file's folder).
-    pub path: String,
-    /// SHA-256 of the content, hex.
-    pub sha256: String,
 }
 
 fn hex(bytes: &[u8]) -> String {
@@ -122,16 +120,17 @@ pub fn identity_hash(resolved: &Resolved, inputs: &[InputFile]) -> String {
 /// message ("`dataset.file` `data.csv`"); None when the manifest has no input list or every file
 /// is the same (then the settings changed).
 fn changed_inputs(out: &Path, now: &[InputFile]) -> Option<String> {
-    let m: serde_json::Value =
-        serde_json::from_slice(&std::fs::read(out.join("manifest.json")).ok()?).ok()?;
-    let old: Vec<InputFile> = serde_json::from_value(m.get("inputs")?.clone()).ok()?;
-    let settings_same = m.get("settings_hash").and_then(|v| v.as_str());
+    let m = Manifest::read(&out.join("manifest.json")).ok()?;
     let changed: Vec<String> = now
         .iter()
-        .filter(|f| !old.iter().any(|o| o.key == f.key && o.sha256 == f.sha256))
+        .filter(|f| {
+            !m.inputs
+                .iter()
+                .any(|o| o.key == f.key && o.sha256 == f.sha256)
+        })
         .map(|f| format!("input file `{}` (`{}`)", f.path, f.key))
         .collect();
-    (!changed.is_empty() && settings_same.is_some()).then(|| changed.join(" and "))
+    (!changed.is_empty() && m.settings_hash.is_some()).then(|| changed.join(" and "))
 }
 
 fn settings_hash(resolved: &Resolved) -> String {
@@ -193,12 +192,8 @@ pub fn experiment_hash(resolved: &Resolved) -> Result<String, RunError> {
 
 /// Read the manifest status of a results folder: Some(true) complete, Some(false) partial.
 pub fn folder_status(out: &Path, hash: &str) -> Option<bool> {
-    let m: serde_json::Value =
-        serde_json::from_slice(&std::fs::read(out.join("manifest.json")).ok()?).ok()?;
-    if m.get("experiment_hash")?.as_str()? != hash {
-        return None;
-    }
-    Some(m.get("status")?.as_str()? == "complete")
+    let m = Manifest::read(&out.join("manifest.json")).ok()?;
+    (m.experiment_hash == hash).then_some(m.status == RunStatus::Complete)
 }
 
 /// Run (or resume) an experiment into `opts.out`.
@@ -277,11 +272,10 @@ pub fn run(
         let old = std::fs::read_to_string(opts.out.join(super::results::STAMP_FILE)).ok();
         if old.is_some_and(|h| h.trim() != plan.stamp(&hash)) {
             if let Some(changed) = changed_inputs(&opts.out, &inputs) {
-                let same_settings = std::fs::read(opts.out.join("manifest.json"))
+                let same_settings = Manifest::read(&opts.out.join("manifest.json"))
                     .ok()
-                    .and_then(|b| serde_json::from_slice::<serde_json::Value>(&b).ok())
-                    .and_then(|m| m.get("settings_hash")?.as_str().map(|s| s == settings))
-                    .unwrap_or(false);
+                    .and_then(|m| m.settings_hash)
+                    .is_some_and(|s| s == settings);
                 if same_settings {
                     return Err(RunError::InputChanged {
                         out: opts.out.clone(),
@@ -339,60 +333,71 @@ pub fn run(
     let threads = pool.current_num_threads();
 
     let manifest = |records: &[PointRecord], complete: bool| {
-        let mut m = json!({
-            "format": FORMAT_NAME,
-            "format_version": FORMAT_VERSION,
-            "tool_version": env!("CARGO_PKG_VERSION"),
-            "experiment_name": base.name,
-            "description": base.description,
-            "experiment_hash": hash,
-            "settings_hash": settings,
-            "inputs": inputs,
-            "warnings": warnings,
-            "seed": seed,
-            "status": if complete { "complete" } else { "partial" },
-            "points_total": resolved.points.len(),
-            "points_done": records.len(),
-            "chips_per_point": chips,
-            "target_accuracy": base.target.accuracy,
-            "target_yield": base.target.yield_target,
-            "pairing": if paired { "paired" } else { "independent" },
-            "threads": threads,
-            "transient": base.competition.evaluation == super::config::EvaluationKind::Transient,
-            "dataset": prepared.first().map(|(_, p)| json!({
-                "name": p.dataset_name,
-                "classes": p.class_names,
-                "features": p.n_features,
-                "train_samples": p.n_train,
-                "test_samples": p.test_y.len(),
-            })),
-            "competition": describe_over_points(
-                &setups.iter().map(|s| s.describe()).collect::<Vec<_>>()
+        Manifest {
+            format: FORMAT_NAME.into(),
+            format_version: u64::from(FORMAT_VERSION),
+            tool_version: env!("CARGO_PKG_VERSION").into(),
+            experiment_name: base.name.clone(),
+            description: base.description.clone(),
+            experiment_hash: hash.clone(),
+            settings_hash: Some(settings.clone()),
+            inputs: inputs.clone(),
+            warnings: warnings.clone(),
+            seed,
+            status: if complete {
+                RunStatus::Complete
+            } else {
+                RunStatus::Partial
+            },
+            points_total: resolved.points.len() as u64,
+            points_done: records.len() as u64,
+            chips_per_point: chips,
+            target_accuracy: base.target.accuracy,
+            target_yield: Some(base.target.yield_target),
+            pairing: Some(if paired {
+                Pairing::Paired
+            } else {
+                Pairing::Independent
+            }),
+            threads: threads as u64,
+            transient: base.competition.evaluation == super::config::EvaluationKind::Transient,
+            dataset: prepared
+                .first()
+                .map(|(_, p)| DatasetInfo {
+                    name: p.dataset_name.clone(),
+                    classes: p.class_names.clone(),
+                    features: p.n_features as u64,
+                    train_samples: p.n_train as u64,
+                    test_samples: p.test_y.len() as u64,
+                })
+                .unwrap_or_default(),
+            competition: describe_over_points(
+                &setups.iter().map(|s| s.describe()).collect::<Vec<_>>(),
             ),
-            "sweep": {
-                "mode": match base.sweep.combine { super::sweep::Combine::Grid => "grid", super::sweep::Combine::Zip => "zip" },
-                "parameters": resolved.axes.iter().map(|a| json!({
-                    "path": a.path,
-                    "unit": a.unit,
-                    "scale": match a.spacing { super::sweep::Spacing::Log => "log", super::sweep::Spacing::Linear => "linear" },
-                    "values": a.values,
-                })).collect::<Vec<_>>(),
+            sweep: Sweep {
+                mode: match base.sweep.combine {
+                    super::sweep::Combine::Grid => SweepMode::Grid,
+                    super::sweep::Combine::Zip => SweepMode::Zip,
+                },
+                parameters: resolved
+                    .axes
+                    .iter()
+                    .map(|a| SweepParameter {
+                        path: a.path.clone(),
+                        unit: a.unit.clone(),
+                        scale: a.spacing,
+                        values: a.values.clone(),
+                    })
+                    .collect(),
             },
-            "command": opts.command,
-            "host": {
-                "os": std::env::consts::OS,
-                "arch": std::env::consts::ARCH,
-                "cpus": std::thread::available_parallelism().map(|n| n.get()).unwrap_or(1),
-                "hostname": hostname(),
-            },
-            "started_unix_s": started_unix_s,
-            "elapsed_s": t0.elapsed().as_secs_f64(),
-        });
-        if let (Some(o), Some(s)) = (m.as_object_mut(), plan.manifest_entry()) {
-            o.insert("shard".into(), s);
+            command: opts.command.clone(),
+            host: HostInfo::this_machine(),
+            started_unix_s,
+            elapsed_s: t0.elapsed().as_secs_f64(),
+            shard: plan.manifest_entry(),
+            merged_from: None,
         }
-        let bytes = serde_json::to_vec_pretty(&m).unwrap_or_default();
-        write_atomic(&opts.out.join("manifest.json"), &bytes)
+        .write(&opts.out.join("manifest.json"))
     };
     let plan_points = plan.points().len();
     manifest(&records, records.len() == plan_points).map_err(ResultsError::from)?;
@@ -416,64 +421,87 @@ pub fn run(
         let tp = Instant::now();
         let prep = &prepared[p.point].1;
         let setup = &setups[p.point];
-        // A stop request during a point abandons that point (it is not saved; the finished
-        // ones are on disk) instead of waiting for every chip.
-        let outcomes = pool.install(|| {
-            my_chips
-                .into_par_iter()
-                .map(|c| {
-                    if observer.should_stop() {
-                        return None;
-                    }
-                    let dies = if paired {
-                        Dies::Paired
-                    } else {
-                        Dies::Independent {
-                            point: p.point as u64,
-                        }
-                    };
-                    let o = evaluate_chip(setup, prep, seed, dies, c);
-                    observer.chip_done();
-                    Some(o)
-                })
-                .collect::<Option<Vec<_>>>()
-        });
-        let Some(outcomes) = outcomes else {
-            return Err(RunError::Stopped {
-                done: records.len(),
-                total: plan_points,
-            });
-        };
-        let n_classes = prep.class_names.len();
-        let mut confusion = vec![vec![0u64; n_classes + 2]; n_classes];
-        let mut rows = Vec::with_capacity(outcomes.len());
-        let first_failure = outcomes
-            .iter()
-            .find_map(|o| o.chip_error.clone().or_else(|| o.first_failure.clone()));
-        for o in outcomes {
-            for (t, row) in o.confusion.iter().enumerate() {
-                for (j, &c) in row.iter().enumerate() {
-                    confusion[t][j] += c;
-                }
-            }
-            rows.push(ChipRow {
-                chip: o.chip,
-                accuracy: o.accuracy(),
-                agreement: o.agreement(),
-                ambiguous: o.ambiguous,
-                nonconverged: o.failed.total(),
-                failed: o.failed,
-                samples: o.samples,
-                decision_time_mean_s: (o.timed > 0).then(|| o.decision_time_sum / o.timed as f64),
-                energy_mean_j: (o.timed > 0).then(|| o.energy_sum / o.timed as f64),
-            });
-        }
-        let params = resolved
+        let params: Vec<f64> = resolved
             .axes
             .iter()
             .zip(&p.value_index)
             .map(|(a, &i)| a.values[i])
             .collect();
+        let n_classes = prep.class_names.len();
+        let mut confusion = vec![vec![0u64; n_classes + 2]; n_classes];
+        let mut first_failure = None;
+        let mut stats = ChipStats::default();
+        let first_chip = my_chips.start;
+        // Chips are evaluated in parallel a batch at a time and streamed to the point's chip
+        // file in chip order: the batch (threads x CHIPS_PER_THREAD chips) is the reorder
+        // buffer, so memory does not grow with the number of chips and the file's bytes do not
+        // depend on the thread count. The file becomes visible only when the point is finished.
+        let mut chip_file = dir.stream_chips(p.point)?;
+        let batch = (threads as u64 * CHIPS_PER_THREAD).max(1);
+        let mut next = my_chips.start;
+        while next < my_chips.end {
+            let these = next..(next + batch).min(my_chips.end);
+            next = these.end;
+            // A stop request during a point abandons that point (it is not saved; the finished
+            // ones are on disk) instead of waiting for every chip.
+            let outcomes = pool.install(|| {
+                these
+                    .into_par_iter()
+                    .map(|c| {
+                        if observer.should_stop() {
+                            return None;
+                        }
+                        let dies = if paired {
+                            Dies::Paired
+                        } else {
+                            Dies::Independent {
+                                point: p.point as u64,
+                            }
+                        };
+                        let o = evaluate_chip(setup, prep, seed, dies, c);
+                        observer.chip_done();
+                        Some(o)
+                    })
+                    .collect::<Option<Vec<_>>>()
+            });
+            let Some(outcomes) = outcomes else {
+                return Err(RunError::Stopped {
+                    done: records.len(),
+                    total: plan_points,
+                });
+            };
+            if first_failure.is_none() {
+                first_failure = outcomes
+                    .iter()
+                    .find_map(|o| o.chip_error.clone().or_else(|| o.first_failure.clone()));
+            }
+            let mut rows = Vec::with_capacity(outcomes.len());
+            for o in outcomes {
+                for (t, row) in o.confusion.iter().enumerate() {
+                    for (j, &c) in row.iter().enumerate() {
+                        confusion[t][j] += c;
+                    }
+                }
+                let row = ChipRow {
+                    chip: o.chip,
+                    accuracy: o.accuracy(),
+                    agreement: o.agreement(),
+                    ambiguous: o.ambiguous,
+                    nonconverged: o.failed.total(),
+                    failed: o.failed,
+                    samples: o.samples,
+                    decision_time_mean_s: (o.timed > 0)
+                        .then(|| o.decision_time_sum / o.timed as f64),
+                    energy_mean_j: (o.timed > 0).then(|| o.energy_sum / o.timed as f64),
+                };
+                stats.push(&row);
+                rows.push(row);
+            }
+            chip_file
+                .write(&chip_rows_csv(p.point, &params, &rows))
+                .map_err(ResultsError::from)?;
+        }
+        chip_file.commit().map_err(ResultsError::from)?;
         let e = &resolved.at_point[p.point];
         let cost =
             point_cost(setup, prep, &mean_input(&prep.test_u), &cost_settings(e)).map_err(|m| {
@@ -486,7 +514,8 @@ pub fn run(
         let rec = PointRecord {
             point: p.point,
             params,
-            chips: rows,
+            first_chip,
+            stats,
             confusion,
             ideal_acc: prep.ideal_acc,
             baseline_acc: prep.baseline_acc,
@@ -604,12 +633,6 @@ pub fn describe_over_points(descriptions: &[String]) -> String {
         out.push(words.join(" "));
     }
     out.join(", ")
-}
-
-fn hostname() -> String {
-    std::fs::read_to_string("/etc/hostname")
-        .map(|s| s.trim().to_string())
-        .unwrap_or_default()
 }
 
 /// Two-sided normal quantile for a confidence level (0.95 -> 1.959964), by bisection on the

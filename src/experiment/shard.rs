@@ -20,11 +20,13 @@ use std::ops::Range;
 use std::path::{Path, PathBuf};
 use std::str::FromStr;
 
-use serde_json::{json, Value};
 use sha2::{Digest, Sha256};
 
 use super::config::Resolved;
-use super::results::{PointRecord, ResultsDir, ResultsError, FORMAT_NAME, FORMAT_VERSION};
+use super::results::{
+    parse_chip_line, ChipStats, PointRecord, ResultsDir, ResultsError, FORMAT_NAME, FORMAT_VERSION,
+};
+use crate::format::{Manifest, ManifestError, MergedFrom, RunStatus, ShardEntry};
 use crate::io::write_atomic;
 
 /// "this shard of that many", 1-based (`2/4`).
@@ -218,16 +220,14 @@ impl Plan {
     }
 
     /// The manifest's `shard` entry (None for a whole run).
-    pub fn manifest_entry(&self) -> Option<Value> {
-        self.shard.map(|s| {
-            json!({
-                "index": s.index,
-                "count": s.count,
-                "units_total": self.points as u64 * self.chips,
-                "unit_start": self.start,
-                "unit_end": self.end,
-                "inputs_hash": self.inputs_hash,
-            })
+    pub fn manifest_entry(&self) -> Option<ShardEntry> {
+        self.shard.map(|s| ShardEntry {
+            index: s.index,
+            count: s.count,
+            units_total: self.points as u64 * self.chips,
+            unit_start: self.start,
+            unit_end: self.end,
+            inputs_hash: self.inputs_hash.clone(),
         })
     }
 
@@ -303,54 +303,30 @@ pub fn inputs_hash(resolved: &Resolved) -> String {
 struct ShardFolder {
     dir: PathBuf,
     spec: ShardSpec,
-    manifest: Value,
+    manifest: Manifest,
+    shard: ShardEntry,
     experiment_toml: Vec<u8>,
-    experiment_hash: String,
-    inputs_hash: String,
-    complete: bool,
-    points_total: usize,
-    chips: u64,
 }
 
 fn read_shard(dir: &Path) -> Result<ShardFolder, ShardError> {
     let not = |m: String| ShardError::NotShard(dir.to_path_buf(), m);
-    let mpath = dir.join("manifest.json");
-    let bytes = std::fs::read(&mpath)
-        .map_err(|e| not(format!("cannot read `{}`: {e}", mpath.display())))?;
-    let m: Value = serde_json::from_slice(&bytes)
-        .map_err(|e| not(format!("`{}` is not valid JSON: {e}", mpath.display())))?;
-    if m.get("format").and_then(Value::as_str) != Some(FORMAT_NAME) {
-        return Err(not(format!(
-            "its manifest is not a `{FORMAT_NAME}` manifest"
-        )));
-    }
-    let version = m.get("format_version").cloned().unwrap_or(Value::Null);
-    if version.as_u64() != Some(u64::from(FORMAT_VERSION)) {
-        return Err(ShardError::FormatVersion {
+    let manifest = Manifest::read(&dir.join("manifest.json")).map_err(|e| match e {
+        ManifestError::FormatVersion { found, .. } => ShardError::FormatVersion {
             folder: dir.to_path_buf(),
-            found: version.to_string(),
+            found,
             expected: FORMAT_VERSION,
-        });
-    }
-    let s = m.get("shard").ok_or_else(|| {
+        },
+        ManifestError::Value { key, .. } if key == "format" => {
+            not(format!("its manifest is not a `{FORMAT_NAME}` manifest"))
+        }
+        other => not(other.to_string()),
+    })?;
+    let shard = manifest.shard.clone().ok_or_else(|| {
         not("its manifest has no `shard` entry (a whole results folder, not a shard of one)".into())
     })?;
-    let num = |v: &Value, k: &str| {
-        v.get(k).and_then(Value::as_u64).ok_or_else(|| {
-            not(format!(
-                "manifest key `{k}` is missing or not a whole number"
-            ))
-        })
-    };
-    let text = |v: &Value, k: &str| {
-        v.get(k)
-            .and_then(Value::as_str)
-            .map(String::from)
-            .ok_or_else(|| not(format!("manifest key `{k}` is missing or not text")))
-    };
     let spec = ShardSpec {
-        index: num(s, "index")?,
-        count: num(s, "count")?,
+        index: shard.index,
+        count: shard.count,
     };
     if spec.index == 0 || spec.index > spec.count {
         return Err(not(format!(
@@ -363,13 +339,9 @@ fn read_shard(dir: &Path) -> Result<ShardFolder, ShardError> {
     Ok(ShardFolder {
         dir: dir.to_path_buf(),
         spec,
-        experiment_hash: text(&m, "experiment_hash")?,
-        inputs_hash: text(s, "inputs_hash")?,
-        complete: text(&m, "status")? == "complete",
-        points_total: num(&m, "points_total")? as usize,
-        chips: num(&m, "chips_per_point")?,
+        manifest,
+        shard,
         experiment_toml,
-        manifest: m,
     })
 }
 
@@ -408,8 +380,8 @@ pub fn merge(
     // One experiment, one set of inputs, one split.
     let identity = |s: &ShardFolder| {
         (
-            s.experiment_hash.clone(),
-            s.inputs_hash.clone(),
+            s.manifest.experiment_hash.clone(),
+            s.shard.inputs_hash.clone(),
             s.spec.count,
             s.experiment_toml.clone(),
         )
@@ -422,12 +394,9 @@ pub fn merge(
                 format!(
                     "  `{}`: experiment `{}` (hash {}, inputs {}), shard {}",
                     s.dir.display(),
-                    s.manifest
-                        .get("experiment_name")
-                        .and_then(Value::as_str)
-                        .unwrap_or("?"),
-                    &s.experiment_hash[..s.experiment_hash.len().min(12)],
-                    &s.inputs_hash[..s.inputs_hash.len().min(12)],
+                    s.manifest.experiment_name,
+                    &s.manifest.experiment_hash[..s.manifest.experiment_hash.len().min(12)],
+                    &s.shard.inputs_hash[..s.shard.inputs_hash.len().min(12)],
                     s.spec
                 )
             })
@@ -467,7 +436,10 @@ pub fn merge(
                     .join(", ")
             ));
         }
-        for s in v.iter().filter(|s| !s.complete) {
+        for s in v
+            .iter()
+            .filter(|s| s.manifest.status != RunStatus::Complete)
+        {
             problems.push(format!(
                 "  shard {k}/{n} in `{}` is unfinished (status partial)",
                 s.dir.display()
@@ -488,10 +460,11 @@ pub fn merge(
     }
 
     // Gather each point's parts in chip order and check that they tile 0..chips.
-    let chips = shards[0].chips;
-    let points_total = shards[0].points_total;
+    let chips = shards[0].manifest.chips_per_point;
+    let points_total = shards[0].manifest.points_total as usize;
     let units = points_total as u64 * chips;
-    let mut parts: BTreeMap<usize, Vec<PointRecord>> = BTreeMap::new();
+    // Each part: its record and its chip file.
+    let mut parts: BTreeMap<usize, Vec<(PointRecord, PathBuf)>> = BTreeMap::new();
     let mut shard_elapsed = Vec::new();
     for s in &shards {
         let bad = |message: String| ShardError::Content {
@@ -500,10 +473,10 @@ pub fn merge(
             message,
         };
         let (start, end) = unit_range(units, s.spec);
-        let recs = ResultsDir {
+        let shard_dir = ResultsDir {
             root: s.dir.clone(),
-        }
-        .load_points();
+        };
+        let recs = shard_dir.load_points();
         let mut expected: Vec<(usize, Range<u64>)> = Vec::new();
         for p in 0..points_total {
             let first = p as u64 * chips;
@@ -520,8 +493,7 @@ pub fn merge(
             )));
         }
         for (r, (_, range)) in recs.into_iter().zip(expected) {
-            let ids: Vec<u64> = r.chips.iter().map(|c| c.chip).collect();
-            if ids != range.clone().collect::<Vec<_>>() {
+            if r.chip_range() != range {
                 return Err(bad(format!(
                     "point {} holds chips other than {}..{}",
                     r.point,
@@ -529,22 +501,31 @@ pub fn merge(
                     range.end - 1
                 )));
             }
-            parts.entry(r.point).or_default().push(r);
+            let file = shard_dir.chips_path(r.point);
+            parts.entry(r.point).or_default().push((r, file));
         }
-        shard_elapsed.push(json!({
-            "shard": s.spec.to_string(),
-            "folder": s.dir.display().to_string(),
-            "host": s.manifest.get("host").cloned().unwrap_or(Value::Null),
-            "threads": s.manifest.get("threads").cloned().unwrap_or(Value::Null),
-            "elapsed_s": s.manifest.get("elapsed_s").cloned().unwrap_or(Value::Null),
-        }));
+        shard_elapsed.push((
+            s.spec,
+            MergedFrom {
+                shard: s.spec.to_string(),
+                folder: s.dir.display().to_string(),
+                host: Some(s.manifest.host.clone()),
+                threads: Some(s.manifest.threads),
+                elapsed_s: Some(s.manifest.elapsed_s),
+            },
+        ));
     }
-    let mut records = Vec::with_capacity(points_total);
+    let mut merged_parts = Vec::with_capacity(points_total);
     for (point, mut v) in parts {
-        v.sort_by_key(|r| r.chips.first().map_or(0, |c| c.chip));
+        v.sort_by_key(|(r, _)| r.first_chip);
+        let mut files = Vec::with_capacity(v.len());
         let mut it = v.into_iter();
-        let Some(mut rec) = it.next() else { continue };
-        for r in it {
+        let Some((mut rec, file)) = it.next() else {
+            continue;
+        };
+        files.push(file);
+        let mut n = rec.stats.chips() as u64;
+        for (r, file) in it {
             let same = r.params == rec.params
                 && r.ideal_acc.to_bits() == rec.ideal_acc.to_bits()
                 && r.baseline_acc.to_bits() == rec.baseline_acc.to_bits()
@@ -561,76 +542,78 @@ pub fn merge(
                     *x += y;
                 }
             }
-            rec.chips.extend(r.chips);
+            n += r.stats.chips() as u64;
             rec.elapsed_s += r.elapsed_s;
             // Parts are in chip order: the first failure of the point is the first part's.
             rec.first_failure = rec.first_failure.or(r.first_failure);
+            files.push(file);
         }
-        if rec.chips.len() as u64 != chips {
+        if n != chips {
             return Err(ShardError::Mixed(format!(
-                "  point {point}: {} chips after merging, expected {chips}",
-                rec.chips.len()
+                "  point {point}: {n} chips after merging, expected {chips}"
             )));
         }
-        records.push(rec);
+        merged_parts.push((rec, files));
     }
 
     // Write the merged folder like a run does: stamp, experiment, records, tables, manifest.
     let first = &shards[0];
-    let (dir, _) = ResultsDir::open(out, &first.experiment_hash, fresh)?;
+    let (dir, _) = ResultsDir::open(out, &first.manifest.experiment_hash, fresh)?;
     write_atomic(&out.join("experiment.toml"), &first.experiment_toml)
         .map_err(ResultsError::from)?;
-    for r in &records {
-        dir.save_point(r)?;
+    // Each point's chip file: its parts' lines in chip order, streamed, and its statistics
+    // accumulated again over all its chips in that order (the same sums as a single run).
+    let n_params = first.manifest.sweep.parameters.len();
+    let mut records = Vec::with_capacity(merged_parts.len());
+    for (mut rec, files) in merged_parts {
+        let point = rec.point;
+        let mut out_file = dir.stream_chips(point)?;
+        let mut stats = ChipStats::default();
+        for file in files {
+            let unreadable = |e: String| {
+                ShardError::Mixed(format!(
+                "  point {point}: cannot read the chip file `{}`: {e}; rerun its shard with --fresh",
+                file.display()
+            ))
+            };
+            let f = std::fs::File::open(&file).map_err(|e| unreadable(e.to_string()))?;
+            for line in std::io::BufRead::lines(std::io::BufReader::new(f)) {
+                let line = line.map_err(|e| unreadable(e.to_string()))?;
+                let row = parse_chip_line(&line, n_params)
+                    .filter(|r| r.chip == stats.chips() as u64)
+                    .ok_or_else(|| unreadable(format!("line `{line}` is not the next chip")))?;
+                stats.push(&row);
+                out_file
+                    .write(format!("{line}\n").as_bytes())
+                    .map_err(ResultsError::from)?;
+            }
+        }
+        out_file.commit().map_err(ResultsError::from)?;
+        rec.first_chip = 0;
+        rec.stats = stats;
+        dir.save_point(&rec)?;
+        records.push(rec);
     }
     let m = &first.manifest;
-    let axis_paths: Vec<String> = m
-        .pointer("/sweep/parameters")
-        .and_then(Value::as_array)
-        .map(|a| {
-            a.iter()
-                .filter_map(|p| p.get("path").and_then(Value::as_str).map(String::from))
-                .collect()
-        })
-        .unwrap_or_default();
-    let class_names: Vec<String> = m
-        .pointer("/dataset/classes")
-        .and_then(Value::as_array)
-        .map(|a| {
-            a.iter()
-                .filter_map(|c| c.as_str().map(String::from))
-                .collect()
-        })
-        .unwrap_or_default();
-    dir.write_tables(&records, &axis_paths, &class_names)?;
-    let mut merged = m.clone();
-    if let Some(o) = merged.as_object_mut() {
-        o.remove("shard");
-        o.insert("status".into(), json!("complete"));
-        o.insert("points_done".into(), json!(records.len()));
-        o.insert("command".into(), json!(command));
-        let started = shards
+    dir.write_tables(&records, &m.axis_paths(), &m.dataset.classes)?;
+    shard_elapsed.sort_by_key(|(spec, _)| *spec);
+    let merged = Manifest {
+        status: RunStatus::Complete,
+        points_done: records.len() as u64,
+        command: command.to_string(),
+        started_unix_s: shards
             .iter()
-            .filter_map(|s| s.manifest.get("started_unix_s").and_then(Value::as_f64))
-            .fold(f64::INFINITY, f64::min);
-        if started.is_finite() {
-            o.insert("started_unix_s".into(), json!(started as u64));
-        }
-        let elapsed: f64 = shards
-            .iter()
-            .filter_map(|s| s.manifest.get("elapsed_s").and_then(Value::as_f64))
-            .sum();
-        o.insert("elapsed_s".into(), json!(elapsed));
-        let mut order: Vec<&Value> = shard_elapsed.iter().collect();
-        order.sort_by_key(|v| {
-            v.get("shard")
-                .and_then(Value::as_str)
-                .and_then(|t| t.parse::<ShardSpec>().ok())
-        });
-        o.insert("merged_from".into(), json!(order));
-    }
-    let bytes = serde_json::to_vec_pretty(&merged).unwrap_or_default();
-    write_atomic(&out.join("manifest.json"), &bytes).map_err(ResultsError::from)?;
+            .map(|s| s.manifest.started_unix_s)
+            .min()
+            .unwrap_or(m.started_unix_s),
+        elapsed_s: shards.iter().map(|s| s.manifest.elapsed_s).sum(),
+        shard: None,
+        merged_from: Some(shard_elapsed.into_iter().map(|(_, f)| f).collect()),
+        ..m.clone()
+    };
+    merged
+        .write(&out.join("manifest.json"))
+        .map_err(ResultsError::from)?;
     Ok(MergeSummary {
         out: out.to_path_buf(),
         shards: n,

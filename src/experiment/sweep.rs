@@ -4,6 +4,7 @@
 //! geometric equivalent), never by repeated addition, so every point is reproducible and the
 //! last point equals `to`.
 
+use crate::scale::Scale;
 use serde::{Deserialize, Serialize};
 use toml::Value;
 
@@ -16,15 +17,6 @@ pub enum Combine {
     Grid,
     /// Axes advance together; all must have the same number of values.
     Zip,
-}
-
-/// Spacing of a range axis.
-#[derive(Clone, Copy, Debug, Default, PartialEq, Eq, Serialize, Deserialize)]
-#[serde(rename_all = "snake_case")]
-pub enum Spacing {
-    #[default]
-    Linear,
-    Log,
 }
 
 /// One sweep axis as written in an experiment file: a parameter path and either explicit
@@ -42,7 +34,7 @@ pub struct AxisSpec {
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub points: Option<i64>,
     #[serde(default, skip_serializing_if = "Option::is_none")]
-    pub spacing: Option<Spacing>,
+    pub spacing: Option<Scale>,
 }
 
 /// The `[sweep]` table.
@@ -61,7 +53,7 @@ pub struct Axis {
     pub path: String,
     /// Base SI unit of the parameter ("" for dimensionless).
     pub unit: String,
-    pub spacing: Spacing,
+    pub spacing: Scale,
     /// Whether the parameter takes integers (the values are then whole numbers).
     pub integer: bool,
     pub values: Vec<f64>,
@@ -144,7 +136,7 @@ impl AxisSpec {
                     .iter()
                     .map(|x| parse(x).map_err(&verr))
                     .collect::<Result<Vec<f64>, _>>()?;
-                (v, self.spacing.unwrap_or(Spacing::Linear))
+                (v, self.spacing.unwrap_or(Scale::Linear))
             }
             (None, true) => {
                 let (Some(from), Some(to), Some(points)) = (&self.from, &self.to, self.points)
@@ -158,7 +150,7 @@ impl AxisSpec {
                     return Err(SweepError::Points { path, points });
                 }
                 let (a, b) = (parse(from).map_err(&verr)?, parse(to).map_err(&verr)?);
-                let spacing = self.spacing.unwrap_or(Spacing::Linear);
+                let spacing = self.spacing.unwrap_or(Scale::Linear);
                 let n = points as usize;
                 if n > MAX_POINTS {
                     return Err(SweepError::TooLarge {
@@ -167,8 +159,8 @@ impl AxisSpec {
                     });
                 }
                 let v = match spacing {
-                    Spacing::Linear => linear_range(a, b, n),
-                    Spacing::Log => {
+                    Scale::Linear => linear_range(a, b, n),
+                    Scale::Log => {
                         if a == 0.0 || b == 0.0 || (a < 0.0) != (b < 0.0) {
                             return Err(SweepError::LogRange {
                                 path,
@@ -311,7 +303,7 @@ mod tests {
         Axis {
             path: path.into(),
             unit: String::new(),
-            spacing: Spacing::Linear,
+            spacing: Scale::Linear,
             integer: false,
             values: values.to_vec(),
         }

@@ -16,6 +16,7 @@ pub mod netlist;
 pub mod physics;
 pub mod pipeline;
 pub mod rng;
+pub mod scale;
 pub mod solvers;
 pub mod stages;
 pub mod training;

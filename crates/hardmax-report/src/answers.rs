@@ -193,23 +193,20 @@ fn mean_var(v: &[f64]) -> (f64, f64) {
 /// The difference of point `b` minus point `a` (per-die accuracies), paired by die index when
 /// `paired`, at normal quantile `z` (the interval's confidence).
 pub fn difference(a: &PointRecord, b: &PointRecord, paired: bool, z: f64) -> Option<Difference> {
-    let acc_a: Vec<f64> = a.chips.iter().map(|c| c.accuracy).collect();
-    let acc_b: Vec<f64> = b.chips.iter().map(|c| c.accuracy).collect();
+    let acc_a = &a.stats.accuracies;
+    let acc_b = &b.stats.accuracies;
     if acc_a.len() < 2 || acc_b.len() < 2 {
         return None;
     }
-    let (ma, va) = mean_var(&acc_a);
-    let (mb, vb) = mean_var(&acc_b);
+    let (ma, va) = mean_var(acc_a);
+    let (mb, vb) = mean_var(acc_b);
     if paired {
+        // Die c of b against die c of a: both records hold contiguous chips.
         let d: Vec<f64> = b
-            .chips
-            .iter()
-            .filter_map(|cb| {
-                a.chips
-                    .iter()
-                    .find(|ca| ca.chip == cb.chip)
-                    .map(|ca| cb.accuracy - ca.accuracy)
-            })
+            .chip_range()
+            .zip(acc_b)
+            .filter(|(chip, _)| a.chip_range().contains(chip))
+            .map(|(chip, &acc)| acc - acc_a[(chip - a.first_chip) as usize])
             .collect();
         if d.len() < 2 {
             return None;
@@ -322,21 +319,24 @@ mod tests {
         PointRecord {
             point,
             params: vec![point as f64],
-            chips: accs
-                .iter()
-                .enumerate()
-                .map(|(i, &a)| ChipRow {
-                    chip: i as u64,
-                    accuracy: a,
-                    agreement: a,
-                    ambiguous: 0,
-                    nonconverged: 0,
-                    samples: 100,
-                    decision_time_mean_s: None,
-                    energy_mean_j: None,
-                    failed: Default::default(),
-                })
-                .collect(),
+            first_chip: 0,
+            stats: crate::results::ChipStats::of(
+                &accs
+                    .iter()
+                    .enumerate()
+                    .map(|(i, &a)| ChipRow {
+                        chip: i as u64,
+                        accuracy: a,
+                        agreement: a,
+                        ambiguous: 0,
+                        nonconverged: 0,
+                        samples: 100,
+                        decision_time_mean_s: None,
+                        energy_mean_j: None,
+                        failed: Default::default(),
+                    })
+                    .collect::<Vec<_>>(),
+            ),
             confusion: vec![],
             ideal_acc: 0.95,
             baseline_acc: 0.95,

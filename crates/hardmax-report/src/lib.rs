@@ -1,5 +1,7 @@
 //! hardmax-report: results folders and what is drawn from them.
 //!
+//! - [`format`]: the results-folder format itself: manifest type, chip row, column lists,
+//!   format name and version, the scale of a swept parameter.
 //! - [`results`]: the results-folder format written by a run (per-point records, CSV tables,
 //!   format name and version) and [`stats`] (Wilson interval, percentiles).
 //! - [`report`]: reading a results folder back, SVG plots and the self-contained HTML report.
@@ -9,6 +11,7 @@
 //! crate.
 
 pub mod answers;
+pub mod format;
 pub mod io;
 pub mod paired;
 pub mod report;

@@ -11,36 +11,11 @@ use std::path::{Path, PathBuf};
 use serde::{Deserialize, Serialize};
 
 use super::stats::{summarize, wilson_interval};
-use crate::io::write_atomic;
-// One definition of the table schema, shared with the reader in `report`.
-use crate::report::folder::{CHIP_COLUMNS, CONFUSION_COLUMNS, FAILURE_COLUMNS, POINT_STAT_COLUMNS};
+use crate::io::{write_atomic, StreamFile};
+// One definition of the format (row type, columns, version), shared with the reader in `report`.
+pub use crate::format::{ChipRow, FORMAT_NAME, FORMAT_VERSION};
+use crate::format::{CHIP_COLUMNS, CONFUSION_COLUMNS, FAILURE_COLUMNS, POINT_STAT_COLUMNS};
 use hardmax_core::pipeline::{FailureCounts, FailureKind};
-
-/// Version of the results-folder format (manifest `format_version`).
-pub const FORMAT_VERSION: u32 = 1;
-/// Name of the format (manifest `format`).
-pub const FORMAT_NAME: &str = "hardmax-results";
-
-/// One chip's outcome at one sweep point.
-#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
-pub struct ChipRow {
-    pub chip: u64,
-    /// Correct, unambiguous, converged decisions over all samples.
-    pub accuracy: f64,
-    /// Share of samples where the circuit's decision equals ideal argmax.
-    pub agreement: f64,
-    pub ambiguous: u64,
-    /// Failed decisions of every kind (the column keeps its first name).
-    pub nonconverged: u64,
-    /// Failed decisions by kind (absent in records of older versions: all zero).
-    #[serde(default)]
-    pub failed: FailureCounts,
-    pub samples: u64,
-    /// Mean time to decision (transient evaluation only).
-    pub decision_time_mean_s: Option<f64>,
-    /// Mean energy per decision (transient evaluation only).
-    pub energy_mean_j: Option<f64>,
-}
 
 /// Everything recorded for one finished sweep point.
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
@@ -48,7 +23,13 @@ pub struct PointRecord {
     pub point: usize,
     /// One value per sweep axis, SI base units, in axis order.
     pub params: Vec<f64>,
-    pub chips: Vec<ChipRow>,
+    /// Index of the first chip of the record (0 for a whole point; a shard's part of a point
+    /// starts later). The chips are contiguous from here; their rows are in the point's chip
+    /// file (`points/point-NNNNNN.chips.csv`), not in the record.
+    #[serde(default)]
+    pub first_chip: u64,
+    /// The chips' statistics, accumulated online in chip order.
+    pub stats: ChipStats,
     /// Confusion counts summed over chips: `confusion[true][pred]`, with two extra predicted
     /// columns: ambiguous, then non-converged.
     pub confusion: Vec<Vec<u64>>,
@@ -70,6 +51,81 @@ pub struct PointRecord {
     /// Chip c is the same die at every sweep point (paired differences).
     #[serde(default)]
     pub paired: bool,
+}
+
+/// Statistics of a point's chips, accumulated one chip at a time in chip order. What a point
+/// keeps of its chips in memory: a few sums and counts, and one `f64` accuracy per die (8 bytes
+/// per die: the percentiles and the paired differences between points need every value). The
+/// sums are plain sequential sums in chip order, the order `chips.csv` lists the chips in, so
+/// the statistics do not depend on the thread count or on how a run was sharded.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub struct ChipStats {
+    /// Accuracy of each chip, in chip order.
+    pub accuracies: Vec<f64>,
+    pub agreement_sum: f64,
+    pub samples: u64,
+    pub ambiguous: u64,
+    pub nonconverged: u64,
+    #[serde(default)]
+    pub failed: FailureCounts,
+    /// Sum and count of the chips' mean decision times (transient only).
+    pub decision_time_sum_s: f64,
+    pub decision_time_chips: u64,
+    /// Sum and count of the chips' mean energies per decision (transient only).
+    pub energy_sum_j: f64,
+    pub energy_chips: u64,
+}
+
+impl Default for ChipStats {
+    fn default() -> Self {
+        // Sums start at -0.0, the neutral element of f64 addition (and `Iterator::sum`'s start).
+        ChipStats {
+            accuracies: Vec::new(),
+            agreement_sum: -0.0,
+            samples: 0,
+            ambiguous: 0,
+            nonconverged: 0,
+            failed: FailureCounts::default(),
+            decision_time_sum_s: -0.0,
+            decision_time_chips: 0,
+            energy_sum_j: -0.0,
+            energy_chips: 0,
+        }
+    }
+}
+
+impl ChipStats {
+    /// Add the next chip (in chip order).
+    pub fn push(&mut self, c: &ChipRow) {
+        self.accuracies.push(c.accuracy);
+        self.agreement_sum += c.agreement;
+        self.samples += c.samples;
+        self.ambiguous += c.ambiguous;
+        self.nonconverged += c.nonconverged;
+        self.failed.merge(&c.failed);
+        if let Some(t) = c.decision_time_mean_s {
+            self.decision_time_sum_s += t;
+            self.decision_time_chips += 1;
+        }
+        if let Some(e) = c.energy_mean_j {
+            self.energy_sum_j += e;
+            self.energy_chips += 1;
+        }
+    }
+
+    /// The statistics of `rows`, in their order.
+    pub fn of<'a>(rows: impl IntoIterator<Item = &'a ChipRow>) -> ChipStats {
+        let mut s = ChipStats::default();
+        for r in rows {
+            s.push(r);
+        }
+        s
+    }
+
+    /// Number of chips.
+    pub fn chips(&self) -> usize {
+        self.accuracies.len()
+    }
 }
 
 /// Population statistics of one point (a `points.csv` row).
@@ -98,24 +154,16 @@ impl PointRecord {
     /// Population statistics of this point. Yield = share of chips whose accuracy meets the
     /// target, with a Wilson score interval (Wilson 1927).
     pub fn summary(&self) -> PointSummary {
-        let acc: Vec<f64> = self.chips.iter().map(|c| c.accuracy).collect();
-        let s = summarize(&acc);
-        let pass = self
-            .chips
-            .iter()
-            .filter(|c| c.accuracy >= self.target - 1e-12)
-            .count() as u64;
-        let n = self.chips.len() as u64;
+        let st = &self.stats;
+        let acc = &st.accuracies;
+        let s = summarize(acc);
+        let pass = acc.iter().filter(|&&a| a >= self.target - 1e-12).count() as u64;
+        let n = acc.len() as u64;
         let (lo, hi) = wilson_interval(pass, n, self.z);
-        let samples: u64 = self.chips.iter().map(|c| c.samples).sum();
-        let ambiguous: u64 = self.chips.iter().map(|c| c.ambiguous).sum();
-        let mean_opt = |f: fn(&ChipRow) -> Option<f64>| {
-            let v: Vec<f64> = self.chips.iter().filter_map(f).collect();
-            (!v.is_empty()).then(|| v.iter().sum::<f64>() / v.len() as f64)
-        };
+        let mean = |sum: f64, k: u64| (k > 0).then(|| sum / k as f64);
         PointSummary {
-            chips: self.chips.len(),
-            samples,
+            chips: acc.len(),
+            samples: st.samples,
             acc_mean: s.as_ref().map_or(f64::NAN, |s| s.mean),
             acc_std: s.as_ref().map_or(f64::NAN, |s| s.std),
             acc_p05: s.as_ref().map_or(f64::NAN, |s| s.p05),
@@ -131,24 +179,23 @@ impl PointRecord {
             agreement_mean: if n == 0 {
                 f64::NAN
             } else {
-                self.chips.iter().map(|c| c.agreement).sum::<f64>() / n as f64
+                st.agreement_sum / n as f64
             },
-            ambiguous_frac: if samples == 0 {
+            ambiguous_frac: if st.samples == 0 {
                 0.0
             } else {
-                ambiguous as f64 / samples as f64
+                st.ambiguous as f64 / st.samples as f64
             },
-            nonconverged: self.chips.iter().map(|c| c.nonconverged).sum(),
-            failed: self
-                .chips
-                .iter()
-                .fold(FailureCounts::default(), |mut a, c| {
-                    a.merge(&c.failed);
-                    a
-                }),
-            decision_time_mean_s: mean_opt(|c| c.decision_time_mean_s),
-            energy_mean_j: mean_opt(|c| c.energy_mean_j),
+            nonconverged: st.nonconverged,
+            failed: st.failed,
+            decision_time_mean_s: mean(st.decision_time_sum_s, st.decision_time_chips),
+            energy_mean_j: mean(st.energy_sum_j, st.energy_chips),
         }
+    }
+
+    /// The chip indices of this record: `first_chip ..` one per chip.
+    pub fn chip_range(&self) -> std::ops::Range<u64> {
+        self.first_chip..self.first_chip + self.stats.chips() as u64
     }
 }
 
@@ -207,7 +254,7 @@ impl ResultsDir {
         if root.exists() {
             let old = fs::read_to_string(&stamp).ok();
             if old.is_some() || only_an_abandoned_start(root) {
-                for sub in ["", "points", "plots", "transfer"] {
+                for sub in ["", "points", "chips", "plots", "transfer"] {
                     crate::io::remove_stale_temps(&root.join(sub));
                 }
             }
@@ -219,6 +266,7 @@ impl ResultsDir {
                 Some(h) if h.trim() == hash && !fresh => resumed = true,
                 Some(_) if fresh => {
                     let _ = fs::remove_dir_all(root.join("points"));
+                    let _ = fs::remove_dir_all(root.join("chips"));
                 }
                 Some(_) => return Err(ResultsError::OtherExperiment(root.into())),
                 None if non_empty => return Err(ResultsError::Foreign(root.into())),
@@ -237,17 +285,37 @@ impl ResultsDir {
             .join(format!("point-{point:06}.json"))
     }
 
-    /// Save one finished point (atomic).
+    /// The chip file of `point`: its `chips.csv` rows (no header), in chip order
+    /// (`chips/point-NNNNNN.csv`).
+    pub fn chips_path(&self, point: usize) -> PathBuf {
+        self.root
+            .join("chips")
+            .join(format!("point-{point:06}.csv"))
+    }
+
+    /// Start streaming the chip file of `point` (visible only once committed; the temporary
+    /// file is in the same folder).
+    pub fn stream_chips(&self, point: usize) -> Result<StreamFile, ResultsError> {
+        fs::create_dir_all(self.root.join("chips"))
+            .map_err(|e| ResultsError::NotWritable(self.root.clone(), e))?;
+        Ok(StreamFile::create(&self.chips_path(point))?)
+    }
+
+    /// Save one finished point (atomic). Its chip file must be committed first: a record
+    /// without its chip file is not a finished point.
     pub fn save_point(&self, rec: &PointRecord) -> Result<(), ResultsError> {
-        let json = serde_json::to_vec_pretty(rec).map_err(|e| {
+        // Streamed: a record holds one accuracy per die, so it is not built in memory first.
+        let mut f = StreamFile::create(&self.point_path(rec.point))?;
+        serde_json::to_writer_pretty(&mut f, rec).map_err(|e| {
             ResultsError::Read(self.point_path(rec.point), format!("cannot encode: {e}"))
         })?;
-        write_atomic(&self.point_path(rec.point), &json)?;
+        f.commit()?;
         Ok(())
     }
 
-    /// Every saved point record, by point index. Unreadable records (e.g. from a crash of an
-    /// older version) are skipped and recomputed.
+    /// Every saved point record with its chip file, by point index. Unreadable records (e.g.
+    /// from a crash of an older version, or whose chip file is missing) are skipped and
+    /// recomputed.
     pub fn load_points(&self) -> Vec<PointRecord> {
         let mut out = Vec::new();
         if let Ok(rd) = fs::read_dir(self.root.join("points")) {
@@ -259,6 +327,7 @@ impl ResultsDir {
                 if let Some(rec) = fs::read(&p)
                     .ok()
                     .and_then(|b| serde_json::from_slice::<PointRecord>(&b).ok())
+                    .filter(|r| self.chips_path(r.point).is_file())
                 {
                     out.push(rec);
                 }
@@ -268,7 +337,8 @@ impl ResultsDir {
         out
     }
 
-    /// Rewrite points.csv, chips.csv and confusion.csv from `records` (sorted by point).
+    /// Rewrite points.csv, chips.csv, confusion.csv and differences.csv from `records` (sorted
+    /// by point). chips.csv is the header followed by the points' chip files, copied in blocks.
     pub fn write_tables(
         &self,
         records: &[PointRecord],
@@ -279,10 +349,12 @@ impl ResultsDir {
             &self.root.join("points.csv"),
             &points_csv(records, axis_paths),
         )?;
-        write_atomic(
-            &self.root.join("chips.csv"),
-            &chips_csv(records, axis_paths),
-        )?;
+        let mut chips = StreamFile::create(&self.root.join("chips.csv"))?;
+        chips.write(&chips_csv_header(axis_paths))?;
+        for r in records {
+            chips.append_file(&self.chips_path(r.point))?;
+        }
+        chips.commit()?;
         write_atomic(
             &self.root.join("confusion.csv"),
             &confusion_csv(records, class_names),
@@ -357,17 +429,26 @@ pub fn points_csv(records: &[PointRecord], axis_paths: &[String]) -> Vec<u8> {
     to_bytes(rows)
 }
 
-/// The `chips.csv` table.
-pub fn chips_csv(records: &[PointRecord], axis_paths: &[String]) -> Vec<u8> {
+/// The header line of `chips.csv`.
+pub fn chips_csv_header(axis_paths: &[String]) -> Vec<u8> {
     let mut header = vec!["point".to_string()];
     header.extend(axis_paths.iter().cloned());
     header.extend(CHIP_COLUMNS.map(String::from));
     header.extend(FAILURE_COLUMNS.map(String::from));
-    let mut rows = vec![header];
-    for r in records {
-        for c in &r.chips {
-            let mut row = vec![r.point.to_string()];
-            row.extend(r.params.iter().map(|v| fmt(*v)));
+    to_bytes(vec![header])
+}
+
+/// The `chips.csv` rows of `rows` (chips of point `point` with parameter values `params`).
+pub fn chip_rows_csv<'a>(
+    point: usize,
+    params: &[f64],
+    rows: impl IntoIterator<Item = &'a ChipRow>,
+) -> Vec<u8> {
+    let lines = rows
+        .into_iter()
+        .map(|c| {
+            let mut row = vec![point.to_string()];
+            row.extend(params.iter().map(|v| fmt(*v)));
             row.extend([
                 c.chip.to_string(),
                 fmt(c.accuracy),
@@ -379,10 +460,51 @@ pub fn chips_csv(records: &[PointRecord], axis_paths: &[String]) -> Vec<u8> {
                 opt(c.energy_mean_j),
             ]);
             row.extend(FailureKind::ALL.map(|k| c.failed.get(k).to_string()));
-            rows.push(row);
-        }
+            row
+        })
+        .collect();
+    to_bytes(lines)
+}
+
+/// Read one line of a chip file (a `chips.csv` row) back: the row after the point and its
+/// `n_params` parameter cells. The inverse of [`chip_rows_csv`] (floats are written as their
+/// shortest round-trip decimal, so they read back to the same bits).
+pub fn parse_chip_line(line: &str, n_params: usize) -> Option<ChipRow> {
+    let cells: Vec<&str> = line.trim_end_matches(['\r', '\n']).split(',').collect();
+    let c = cells.get(1 + n_params..)?;
+    if c.len() != CHIP_COLUMNS.len() + FAILURE_COLUMNS.len() {
+        return None;
     }
-    to_bytes(rows)
+    let float = |t: &str| -> Option<f64> {
+        if t.is_empty() {
+            Some(f64::NAN)
+        } else {
+            t.parse().ok()
+        }
+    };
+    let maybe = |t: &str| -> Option<Option<f64>> {
+        if t.is_empty() {
+            Some(None)
+        } else {
+            t.parse().ok().map(Some)
+        }
+    };
+    Some(ChipRow {
+        chip: c[0].parse().ok()?,
+        accuracy: float(c[1])?,
+        agreement: float(c[2])?,
+        ambiguous: c[3].parse().ok()?,
+        nonconverged: c[4].parse().ok()?,
+        samples: c[5].parse().ok()?,
+        decision_time_mean_s: maybe(c[6])?,
+        energy_mean_j: maybe(c[7])?,
+        failed: FailureCounts {
+            not_converged: c[8].parse().ok()?,
+            out_of_supply_compliance: c[9].parse().ok()?,
+            weight_stage: c[10].parse().ok()?,
+            noise: c[11].parse().ok()?,
+        },
+    })
 }
 
 /// The `confusion.csv` table (`point,true_class,predicted_class,count`, zero counts omitted).
@@ -420,26 +542,8 @@ mod tests {
         PointRecord {
             point,
             params: vec![1e-9 * (point + 1) as f64],
-            chips: accs
-                .iter()
-                .enumerate()
-                .map(|(i, &a)| ChipRow {
-                    chip: i as u64,
-                    accuracy: a,
-                    agreement: a,
-                    ambiguous: 1,
-                    nonconverged: 3,
-                    failed: FailureCounts {
-                        not_converged: 1,
-                        out_of_supply_compliance: 2,
-                        weight_stage: 0,
-                        noise: 0,
-                    },
-                    samples: 10,
-                    decision_time_mean_s: None,
-                    energy_mean_j: None,
-                })
-                .collect(),
+            first_chip: 0,
+            stats: ChipStats::of(&rows(accs)),
             confusion: vec![vec![3, 1, 0, 0], vec![0, 4, 1, 0]],
             ideal_acc: 0.9,
             baseline_acc: 0.9,
@@ -451,6 +555,28 @@ mod tests {
             elapsed_s: 0.1,
             first_failure: None,
         }
+    }
+
+    fn rows(accs: &[f64]) -> Vec<ChipRow> {
+        accs.iter()
+            .enumerate()
+            .map(|(i, &a)| ChipRow {
+                chip: i as u64,
+                accuracy: a,
+                agreement: a,
+                ambiguous: 1,
+                nonconverged: 3,
+                failed: FailureCounts {
+                    not_converged: 1,
+                    out_of_supply_compliance: 2,
+                    weight_stage: 0,
+                    noise: 0,
+                },
+                samples: 10,
+                decision_time_mean_s: None,
+                energy_mean_j: None,
+            })
+            .collect()
     }
 
     /// Yield: 10 of 100 chips meet the target -> 0.1 with Wilson [0.0552, 0.1744] (Wilson 1927).
@@ -470,8 +596,14 @@ mod tests {
         let root = dir.path().join("r");
         let (rd, resumed) = ResultsDir::open(&root, "abc", false).unwrap();
         assert!(!resumed);
-        rd.save_point(&record(1, &[0.9, 0.7])).unwrap();
-        rd.save_point(&record(0, &[0.9])).unwrap();
+        for (p, accs) in [(1, &[0.9, 0.7][..]), (0, &[0.9][..])] {
+            let mut f = rd.stream_chips(p).unwrap();
+            f.write(&chip_rows_csv(p, &[1.0], &rows(accs))).unwrap();
+            f.commit().unwrap();
+            rd.save_point(&record(p, accs)).unwrap();
+        }
+        // A record whose chip file is missing is not a finished point.
+        rd.save_point(&record(2, &[0.5])).unwrap();
         let (rd2, resumed) = ResultsDir::open(&root, "abc", false).unwrap();
         assert!(resumed);
         let recs = rd2.load_points();
@@ -528,11 +660,70 @@ mod tests {
         assert!(p.lines().nth(1).unwrap().contains(",6,,,2,4,0,0,"), "{p}");
         let c = String::from_utf8(confusion_csv(&recs, &["a".into(), "b".into()])).unwrap();
         assert!(c.contains("0,b,ambiguous,1"), "{c}");
-        let ch = String::from_utf8(chips_csv(&recs, &["x".into()])).unwrap();
+        let mut ch = chips_csv_header(&["x".into()]);
+        ch.extend(chip_rows_csv(0, &[2e-9], &rows(&[0.9, 0.7])));
+        let ch = String::from_utf8(ch).unwrap();
         assert_eq!(ch.lines().count(), 3);
         assert!(
             ch.lines().nth(1).unwrap().ends_with(",3,10,,,1,2,0,0"),
             "{ch}"
         );
+        // Each line reads back to the same row, bit for bit.
+        for (line, row) in ch.lines().skip(1).zip(rows(&[0.9, 0.7])) {
+            assert_eq!(parse_chip_line(line, 1), Some(row));
+        }
+    }
+
+    /// The online statistics against a direct computation over all chips at once: mean and
+    /// sample standard deviation by their textbook formulas, percentiles by linear
+    /// interpolation between order statistics (Hyndman & Fan 1996, type 7, R's default), the
+    /// yield as a count; decision times averaged over the chips that have one.
+    #[test]
+    fn online_statistics_equal_a_direct_computation() {
+        // A deterministic, unsorted population of 1001 accuracies in [0, 1].
+        let accs: Vec<f64> = (0..1001u64)
+            .map(|i| ((i * 7919) % 1001) as f64 / 1000.0)
+            .collect();
+        let mut chips = rows(&accs);
+        for (i, c) in chips.iter_mut().enumerate() {
+            c.decision_time_mean_s = (i % 3 == 0).then_some(1e-6 * (i as f64 + 1.0));
+        }
+        let mut stats = ChipStats::default();
+        for c in &chips {
+            stats.push(c);
+        }
+        let mut rec = record(0, &[]);
+        rec.stats = stats;
+        let s = rec.summary();
+        let n = accs.len() as f64;
+        let mean = accs.iter().sum::<f64>() / n;
+        let var = accs.iter().map(|a| (a - mean).powi(2)).sum::<f64>() / (n - 1.0);
+        let mut sorted = accs.clone();
+        sorted.sort_by(f64::total_cmp);
+        let type7 = |p: f64| {
+            let h = (n - 1.0) * p;
+            let (lo, f) = (h.floor() as usize, h - h.floor());
+            sorted[lo] + f * (sorted[(lo + 1).min(sorted.len() - 1)] - sorted[lo])
+        };
+        approx::assert_relative_eq!(s.acc_mean, mean, max_relative = 1e-12);
+        approx::assert_relative_eq!(s.acc_std, var.sqrt(), max_relative = 1e-9);
+        approx::assert_relative_eq!(s.acc_p05, type7(0.05), max_relative = 1e-12);
+        approx::assert_relative_eq!(s.acc_p50, type7(0.50), max_relative = 1e-12);
+        approx::assert_relative_eq!(s.acc_p95, type7(0.95), max_relative = 1e-12);
+        let pass = accs.iter().filter(|&&a| a >= 0.8 - 1e-12).count() as f64;
+        approx::assert_relative_eq!(s.yield_, pass / n, max_relative = 1e-12);
+        let times: Vec<f64> = chips
+            .iter()
+            .filter_map(|c| c.decision_time_mean_s)
+            .collect();
+        let t_mean = times.iter().sum::<f64>() / times.len() as f64;
+        approx::assert_relative_eq!(
+            s.decision_time_mean_s.unwrap(),
+            t_mean,
+            max_relative = 1e-12
+        );
+        assert_eq!(s.samples, 10 * 1001);
+        assert_eq!(s.failed.not_converged, 1001);
+        assert!(s.energy_mean_j.is_none());
     }
 }

@@ -3,5 +3,7 @@
 
 pub mod atomic;
 pub mod ivcsv;
+pub mod stream;
 
 pub use atomic::{is_temp_name, remove_stale_temps, write_atomic, AtomicWriteError};
+pub use stream::StreamFile;

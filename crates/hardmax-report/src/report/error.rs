@@ -118,3 +118,39 @@ pub enum ReportError {
     #[error(transparent)]
     Write(#[from] AtomicWriteError),
 }
+
+impl From<crate::format::ManifestError> for ReportError {
+    fn from(e: crate::format::ManifestError) -> Self {
+        use crate::format::ManifestError as M;
+        match e {
+            M::Read { path, source } if source.kind() == std::io::ErrorKind::NotFound => {
+                ReportError::MissingFile {
+                    path,
+                    what: "the run's manifest",
+                }
+            }
+            M::Read { path, source } => ReportError::Read { path, source },
+            M::Json {
+                path,
+                line,
+                column,
+                message,
+            } => ReportError::ManifestJson {
+                path,
+                line,
+                column,
+                message,
+            },
+            M::Value { path, key, message } => ReportError::ManifestValue { path, key, message },
+            M::FormatVersion {
+                path,
+                found,
+                tool_version,
+            } => ReportError::FormatVersion {
+                path,
+                found,
+                tool_version,
+            },
+        }
+    }
+}

@@ -7,155 +7,23 @@
 //! version) and names the file, line and column of anything wrong. Extra columns in
 //! `points.csv` are kept and shown in the report table as plain numbers.
 
-use std::collections::{BTreeMap, BTreeSet};
+use std::collections::BTreeMap;
 use std::fs;
 use std::path::{Path, PathBuf};
 
 use serde::Deserialize;
 
-use super::error::{ReportError, SUPPORTED_FORMAT_VERSION};
+use hardmax_core::pipeline::FailureCounts;
 
-/// Whether a run finished every sweep point.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Deserialize)]
-#[serde(rename_all = "lowercase")]
-pub enum RunStatus {
-    Complete,
-    Partial,
-}
+use super::error::ReportError;
 
-/// How sweep parameters combine: cross product (`grid`) or side by side (`zip`).
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Deserialize)]
-#[serde(rename_all = "lowercase")]
-pub enum SweepMode {
-    Grid,
-    Zip,
-}
-
-/// Axis scale the experiment asked for.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Deserialize)]
-#[serde(rename_all = "lowercase")]
-pub enum Scale {
-    Linear,
-    Log,
-}
-
-/// One swept parameter as recorded in the manifest (values in SI base units).
-#[derive(Debug, Clone, PartialEq, Deserialize)]
-#[serde(deny_unknown_fields)]
-pub struct SweepParameter {
-    pub path: String,
-    pub unit: String,
-    pub scale: Scale,
-    pub values: Vec<f64>,
-}
-
-/// The sweep of a run.
-#[derive(Debug, Clone, PartialEq, Deserialize)]
-pub struct Sweep {
-    pub mode: SweepMode,
-    pub parameters: Vec<SweepParameter>,
-}
-
-/// The dataset a run used.
-#[derive(Debug, Clone, PartialEq, Deserialize)]
-pub struct DatasetInfo {
-    pub name: String,
-    pub classes: Vec<String>,
-    pub features: u64,
-    pub train_samples: u64,
-    pub test_samples: u64,
-}
-
-/// The machine a run ran on.
-#[derive(Debug, Clone, PartialEq, Deserialize)]
-pub struct HostInfo {
-    pub os: String,
-    pub arch: String,
-    pub cpus: u64,
-    pub hostname: String,
-}
-
-/// `manifest.json`, format version 1.
-#[derive(Debug, Clone, PartialEq, Deserialize)]
-pub struct Manifest {
-    pub format: String,
-    pub format_version: u64,
-    pub tool_version: String,
-    pub experiment_name: String,
-    #[serde(default)]
-    pub description: String,
-    pub experiment_hash: String,
-    pub seed: u64,
-    pub status: RunStatus,
-    pub points_total: u64,
-    pub points_done: u64,
-    pub chips_per_point: u64,
-    pub target_accuracy: f64,
-    pub threads: u64,
-    pub transient: bool,
-    pub dataset: DatasetInfo,
-    pub competition: String,
-    pub sweep: Sweep,
-    pub command: String,
-    pub host: HostInfo,
-    pub started_unix_s: f64,
-    pub elapsed_s: f64,
-    /// Physically odd but legal settings and tolerated data problems found when the run
-    /// started (absent in older folders).
-    #[serde(default)]
-    pub warnings: Vec<String>,
-}
+pub use crate::format::{
+    ChipRow, DatasetInfo, HostInfo, Manifest, RunStatus, Scale, Sweep, SweepMode, SweepParameter,
+    CHIP_COLUMNS, CONFUSION_COLUMNS, FAILURE_COLUMNS, POINT_STAT_COLUMNS,
+};
 
 /// The value `format` must have in a manifest.
-pub const MANIFEST_FORMAT: &str = crate::results::FORMAT_NAME;
-
-/// The fixed statistics columns of `points.csv`, in schema order (after `point` and the sweep
-/// parameter columns).
-pub const POINT_STAT_COLUMNS: [&str; 18] = [
-    "chips",
-    "samples",
-    "acc_mean",
-    "acc_std",
-    "acc_p05",
-    "acc_p50",
-    "acc_p95",
-    "ideal_acc",
-    "baseline_acc",
-    "target",
-    "yield",
-    "yield_lo",
-    "yield_hi",
-    "agreement_mean",
-    "ambiguous_frac",
-    "nonconverged",
-    "decision_time_mean_s",
-    "energy_mean_j",
-];
-
-/// The fixed columns of `chips.csv` after `point` and the sweep parameter columns.
-pub const CHIP_COLUMNS: [&str; 8] = [
-    "chip",
-    "accuracy",
-    "agreement",
-    "ambiguous",
-    "nonconverged",
-    "samples",
-    "decision_time_mean_s",
-    "energy_mean_j",
-];
-
-/// Failed decisions by kind, the last columns of both `points.csv` and `chips.csv` (in the
-/// order of `pipeline::FailureKind::ALL`). Optional when reading: folders written before they
-/// existed read with the kinds unknown.
-pub const FAILURE_COLUMNS: [&str; 4] = [
-    "failed_not_converged",
-    "failed_out_of_supply_compliance",
-    "failed_weight_stage",
-    "failed_noise",
-];
-
-/// Columns of `confusion.csv`.
-pub const CONFUSION_COLUMNS: [&str; 4] = ["point", "true_class", "predicted_class", "count"];
+pub const MANIFEST_FORMAT: &str = crate::format::FORMAT_NAME;
 
 /// Whether a column of points.csv or chips.csv holds shares in [0, 1]: the statistics from
 /// `acc_mean` to `ambiguous_frac` in points.csv, `accuracy` and `agreement` in chips.csv.
@@ -204,22 +72,13 @@ pub struct PointsTable {
     pub rows: Vec<PointRow>,
 }
 
-/// One row of `chips.csv`: one chip at one sweep point.
+/// One row of `chips.csv` as read: its line, point and parameter values, and the chip's row.
 #[derive(Debug, Clone, PartialEq)]
-pub struct ChipRow {
+pub struct ChipEntry {
     pub line: u64,
     pub point: u64,
     pub params: Vec<f64>,
-    pub chip: u64,
-    pub accuracy: Option<f64>,
-    pub agreement: Option<f64>,
-    pub ambiguous: Option<f64>,
-    pub nonconverged: Option<f64>,
-    pub samples: Option<f64>,
-    pub decision_time_mean_s: Option<f64>,
-    pub energy_mean_j: Option<f64>,
-    /// Failed decisions by kind (`FAILURE_COLUMNS` order); `None` for older folders.
-    pub failed: Option<[f64; 4]>,
+    pub row: ChipRow,
 }
 
 /// What a decision was counted as in `confusion.csv`.
@@ -280,7 +139,7 @@ pub struct ResultsFolder {
     pub dir: PathBuf,
     pub manifest: Manifest,
     pub points: PointsTable,
-    pub chips: Vec<ChipRow>,
+    pub chips: Vec<ChipEntry>,
     pub confusion: Vec<ConfusionRow>,
     pub transfers: Vec<NamedTransfer>,
 }
@@ -333,7 +192,7 @@ impl ResultsFolder {
     }
 
     /// Chips of sweep point `point`, in file order.
-    pub fn chips_of(&self, point: u64) -> impl Iterator<Item = &ChipRow> {
+    pub fn chips_of(&self, point: u64) -> impl Iterator<Item = &ChipEntry> {
         self.chips.iter().filter(move |c| c.point == point)
     }
 
@@ -367,116 +226,10 @@ fn read_required(path: &Path, what: &'static str) -> Result<String, ReportError>
     }
 }
 
-/// Parse and check `manifest.json` text (`path` is for messages).
+/// Parse and check `manifest.json` text (`path` is for messages), through the format's own
+/// [`Manifest::parse`].
 pub fn parse_manifest(text: &str, path: &Path) -> Result<Manifest, ReportError> {
-    let json_err = |e| json_error(path, e);
-    // Look at the format and its version before the typed parse, so a folder from another
-    // format version says so instead of complaining about a missing key.
-    let value: serde_json::Value = serde_json::from_str(text).map_err(json_err)?;
-    let value_err = |key: &str, message: String| ReportError::ManifestValue {
-        path: path.to_path_buf(),
-        key: key.to_string(),
-        message,
-    };
-    let Some(obj) = value.as_object() else {
-        return Err(value_err("(top level)", "expected a JSON object".into()));
-    };
-    match obj.get("format").and_then(|f| f.as_str()) {
-        Some(MANIFEST_FORMAT) => {}
-        Some(other) => {
-            return Err(value_err(
-                "format",
-                format!("is `{other}`, expected `{MANIFEST_FORMAT}`: this is not a hardmax results manifest"),
-            ))
-        }
-        None => {
-            return Err(value_err(
-                "format",
-                format!("is missing or not a string; expected `{MANIFEST_FORMAT}`"),
-            ))
-        }
-    }
-    let version = obj.get("format_version");
-    if version.and_then(|v| v.as_u64()) != Some(SUPPORTED_FORMAT_VERSION) {
-        let found = version
-            .map(|v| v.to_string())
-            .unwrap_or_else(|| "(missing)".into());
-        let tool_version = obj
-            .get("tool_version")
-            .and_then(|v| v.as_str())
-            .unwrap_or("unknown")
-            .to_string();
-        return Err(ReportError::FormatVersion {
-            path: path.to_path_buf(),
-            found,
-            tool_version,
-        });
-    }
-    let m: Manifest = serde_json::from_str(text).map_err(json_err)?;
-
-    if m.points_done > m.points_total {
-        return Err(value_err(
-            "points_done",
-            format!(
-                "is {} but points_total is {}; a run cannot finish more points than it has",
-                m.points_done, m.points_total
-            ),
-        ));
-    }
-    if m.status == RunStatus::Complete && m.points_done != m.points_total {
-        return Err(value_err(
-            "status",
-            format!(
-                "is `complete` but only {} of {} points are done; a stopped run is `partial`",
-                m.points_done, m.points_total
-            ),
-        ));
-    }
-    if !(0.0..=1.0).contains(&m.target_accuracy) {
-        return Err(value_err(
-            "target_accuracy",
-            format!("is {}, expected a share in [0, 1]", m.target_accuracy),
-        ));
-    }
-    if !m.elapsed_s.is_finite() || m.elapsed_s < 0.0 {
-        return Err(value_err(
-            "elapsed_s",
-            format!("is {}, expected seconds >= 0", m.elapsed_s),
-        ));
-    }
-    for (i, p) in m.sweep.parameters.iter().enumerate() {
-        let key = format!("sweep.parameters[{i}].values");
-        if p.values.is_empty() {
-            return Err(value_err(
-                &key,
-                format!("parameter `{}` has no values", p.path),
-            ));
-        }
-        if let Some(v) = p.values.iter().find(|v| !v.is_finite()) {
-            return Err(value_err(&key, format!("`{v}` is not a finite number")));
-        }
-        if p.scale == Scale::Log {
-            if let Some(v) = p.values.iter().find(|v| **v <= 0.0) {
-                return Err(value_err(
-                    &key,
-                    format!(
-                        "scale is `log` but parameter `{}` has the value {v}; log scales need values > 0",
-                        p.path
-                    ),
-                ));
-            }
-        }
-    }
-    let mut seen = BTreeSet::new();
-    for p in &m.sweep.parameters {
-        if !seen.insert(p.path.as_str()) {
-            return Err(value_err(
-                "sweep.parameters",
-                format!("parameter `{}` is listed twice", p.path),
-            ));
-        }
-    }
-    Ok(m)
+    Ok(Manifest::parse(text, path)?)
 }
 
 /// A CSV file's header and its records, each with its line number.
@@ -723,7 +476,7 @@ pub fn parse_chips(
     text: &str,
     path: &Path,
     manifest: &Manifest,
-) -> Result<Vec<ChipRow>, ReportError> {
+) -> Result<Vec<ChipEntry>, ReportError> {
     let (cols, records) = Columns::read(text, path)?;
     let (point_col, pcols) = cols.point_and_params(manifest)?;
     let c = cols.find_all(&CHIP_COLUMNS, "per-chip column")?;
@@ -732,27 +485,41 @@ pub fn parse_chips(
     let mut out = Vec::with_capacity(records.len());
     for (line, rec) in &records {
         let line = *line;
-        out.push(ChipRow {
+        // Counts are whole numbers; an empty cell reads as 0 (NaN for a share).
+        let count = |name: &str| -> Result<u64, ReportError> {
+            Ok(cols.opt_f64(rec, line, col(name))?.map_or(0, |v| v as u64))
+        };
+        let share = |name: &str| -> Result<f64, ReportError> {
+            Ok(cols.opt_f64(rec, line, col(name))?.unwrap_or(f64::NAN))
+        };
+        let mut by_kind = [0u64; 4];
+        if let Some(fc) = failure_cols {
+            for (n, c) in by_kind.iter_mut().zip(fc) {
+                *n = cols.opt_f64(rec, line, c)?.map_or(0, |v| v as u64);
+            }
+        }
+        // `FAILURE_COLUMNS` order is `FailureKind::ALL` order.
+        let [not_converged, out_of_supply_compliance, weight_stage, noise] = by_kind;
+        let failed = FailureCounts {
+            not_converged,
+            out_of_supply_compliance,
+            weight_stage,
+            noise,
+        };
+        out.push(ChipEntry {
             line,
             point: cols.req_u64(rec, line, point_col)?,
             params: cols.req_all(rec, line, &pcols)?,
-            chip: cols.req_u64(rec, line, col("chip"))?,
-            accuracy: cols.opt_f64(rec, line, col("accuracy"))?,
-            agreement: cols.opt_f64(rec, line, col("agreement"))?,
-            ambiguous: cols.opt_f64(rec, line, col("ambiguous"))?,
-            nonconverged: cols.opt_f64(rec, line, col("nonconverged"))?,
-            samples: cols.opt_f64(rec, line, col("samples"))?,
-            decision_time_mean_s: cols.opt_f64(rec, line, col("decision_time_mean_s"))?,
-            energy_mean_j: cols.opt_f64(rec, line, col("energy_mean_j"))?,
-            failed: match failure_cols {
-                Some(fc) => {
-                    let mut v = [0.0; 4];
-                    for (x, c) in v.iter_mut().zip(fc) {
-                        *x = cols.opt_f64(rec, line, c)?.unwrap_or(0.0);
-                    }
-                    Some(v)
-                }
-                None => None,
+            row: ChipRow {
+                chip: cols.req_u64(rec, line, col("chip"))?,
+                accuracy: share("accuracy")?,
+                agreement: share("agreement")?,
+                ambiguous: count("ambiguous")?,
+                nonconverged: count("nonconverged")?,
+                failed,
+                samples: count("samples")?,
+                decision_time_mean_s: cols.opt_f64(rec, line, col("decision_time_mean_s"))?,
+                energy_mean_j: cols.opt_f64(rec, line, col("energy_mean_j"))?,
             },
         });
     }

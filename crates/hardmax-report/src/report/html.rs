@@ -563,8 +563,8 @@ fn provenance(folder: &ResultsFolder) -> String {
         manifest_num(
             "date",
             "started_unix_s",
-            &raw_value(m.started_unix_s),
-            &esc(&fmt_unix_utc(m.started_unix_s)),
+            &raw_value(m.started_unix_s as f64),
+            &esc(&fmt_unix_utc(m.started_unix_s as f64)),
         ),
     );
     item(

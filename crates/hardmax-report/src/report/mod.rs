@@ -16,7 +16,7 @@ pub mod sizing;
 
 pub use error::{ReportError, SUPPORTED_FORMAT_VERSION};
 pub use folder::{
-    ChipRow, ConfusionRow, Manifest, NamedTransfer, PointRow, PointsTable, Predicted,
+    ChipEntry, ChipRow, ConfusionRow, Manifest, NamedTransfer, PointRow, PointsTable, Predicted,
     ResultsFolder, RunStatus, Scale, Sweep, SweepMode, SweepParameter, TransferCurve, TransferMeta,
 };
 pub use render::{

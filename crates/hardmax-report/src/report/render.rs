@@ -399,7 +399,8 @@ pub fn build_figures(
         let label = point_label(folder, row);
         let accs: Vec<f64> = folder
             .chips_of(row.point)
-            .filter_map(|c| c.accuracy)
+            .map(|c| c.row.accuracy)
+            .filter(|a| !a.is_nan())
             .collect();
         let h = AccuracyHistogram {
             title: format!("Per-chip accuracy at point {} ({label})", row.point),
@@ -449,7 +450,7 @@ pub fn build_figures(
 
         let times: Vec<f64> = folder
             .chips_of(row.point)
-            .filter_map(|c| c.decision_time_mean_s)
+            .filter_map(|c| c.row.decision_time_mean_s)
             .collect();
         if m.transient && !times.is_empty() {
             let d = DecisionTimeHistogram {

@@ -7,6 +7,7 @@
 use thiserror::Error;
 
 use crate::device::DrainCoupling;
+use crate::scale::Scale;
 
 use super::{CompetitionCircuit, CompetitionError, CompetitionStage, StageSolution, Workspace};
 
@@ -90,15 +91,6 @@ pub enum SweepQuantity {
     Input(usize),
 }
 
-/// Spacing of the sweep points.
-#[derive(Clone, Copy, Debug, PartialEq, Eq)]
-pub enum Spacing {
-    /// `x_i = from + i (to - from)/(points - 1)`.
-    Linear,
-    /// `x_i = from (to/from)^(i/(points - 1))`.
-    Log,
-}
-
 /// A transfer sweep: `points` values of one quantity from `from` to `to`.
 #[derive(Clone, Copy, Debug, PartialEq)]
 pub struct TransferSweep {
@@ -106,7 +98,9 @@ pub struct TransferSweep {
     pub from: f64,
     pub to: f64,
     pub points: usize,
-    pub spacing: Spacing,
+    /// Spacing of the points: `x_i = from + i (to - from)/(points - 1)` (linear) or
+    /// `x_i = from (to/from)^(i/(points - 1))` (log).
+    pub spacing: Scale,
 }
 
 /// Why a transfer sweep cannot run or stopped.
@@ -146,7 +140,7 @@ impl TransferSweep {
         if self.points < 2 {
             return Err(SweepError::TooFewPoints(self.points));
         }
-        if self.spacing == Spacing::Log && self.from * self.to <= 0.0 {
+        if self.spacing == Scale::Log && self.from * self.to <= 0.0 {
             return Err(SweepError::LogEnds {
                 from: self.from,
                 to: self.to,
@@ -158,10 +152,7 @@ impl TransferSweep {
     /// The swept value of point `i`.
     pub fn x(&self, i: usize) -> f64 {
         let f = i as f64 / (self.points - 1) as f64;
-        match self.spacing {
-            Spacing::Linear => self.from + (self.to - self.from) * f,
-            Spacing::Log => self.from * (self.to / self.from).powf(f),
-        }
+        self.spacing.interpolate(self.from, self.to, f)
     }
 
     /// Solve `stage` at every point, the other inputs as in `inputs`, and pass each point's
@@ -259,7 +250,7 @@ mod tests {
             from: 1e-9,
             to: 100e-9,
             points: 3,
-            spacing: Spacing::Log,
+            spacing: Scale::Log,
         };
         let mut seen = Vec::new();
         s.run(&c, &[10e-9, 10e-9], |x, sol| seen.push((x, sol.shares[0])))
@@ -274,7 +265,7 @@ mod tests {
             from: -30e-9,
             to: 0.0,
             points: 2,
-            spacing: Spacing::Linear,
+            spacing: Scale::Linear,
         };
         assert!(matches!(
             bad.run(&c, &[10e-9, 10e-9], |_, _| {}),
