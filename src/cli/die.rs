@@ -5,7 +5,7 @@
 //! The folder's identity is checked first: the manifest's `experiment_hash` must equal the hash
 //! of the folder's `experiment.toml` with its input files as they are now; otherwise the die
 //! would be a different one and the command refuses. The manifest is read in one place
-//! ([`manifest_identity`]), a few fields only.
+//! ([`manifest_identity`]) through the results format's manifest type.
 
 use std::path::{Path, PathBuf};
 
@@ -25,34 +25,22 @@ pub struct ManifestIdentity {
     pub points_total: u64,
 }
 
-/// Read the identity fields of `DIR/manifest.json` (the one place this module reads it).
+/// Read the identity fields of `DIR/manifest.json` through the results format's one manifest
+/// type (format and version checked there).
 pub fn manifest_identity(dir: &Path) -> anyhow::Result<ManifestIdentity> {
     let path = dir.join("manifest.json");
-    let text = std::fs::read_to_string(&path).with_context(|| {
-        format!(
-            "{}: not a results folder of `hardmax run` (no readable manifest.json)",
+    if !path.is_file() {
+        bail!(
+            "{}: not a results folder of `hardmax run` (no manifest.json)",
             dir.display()
-        )
-    })?;
-    let v: serde_json::Value = serde_json::from_str(&text)
-        .with_context(|| format!("{}: not valid JSON", path.display()))?;
-    let field = |k: &str| {
-        v.get(k)
-            .with_context(|| format!("{}: the field `{k}` is missing", path.display()))
-    };
-    let num = |k: &str| -> anyhow::Result<u64> {
-        field(k)?
-            .as_u64()
-            .with_context(|| format!("{}: `{k}` is not a count", path.display()))
-    };
+        );
+    }
+    let m = crate::format::Manifest::read(&path)?;
     Ok(ManifestIdentity {
-        experiment_hash: field("experiment_hash")?
-            .as_str()
-            .with_context(|| format!("{}: `experiment_hash` is not text", path.display()))?
-            .to_string(),
-        seed: num("seed")?,
-        chips_per_point: num("chips_per_point")?,
-        points_total: num("points_total")?,
+        experiment_hash: m.experiment_hash,
+        seed: m.seed,
+        chips_per_point: m.chips_per_point,
+        points_total: m.points_total,
     })
 }
 
