@@ -32,7 +32,17 @@ fn softplus_logistic_lanes(h: &Lanes) -> (Lanes, Lanes) {
         na[i] = -h[i].abs();
     }
     let e = maths::exp(&na);
-    let lp = maths::ln_1p(&e);
+    // As the scalar form: the short series when every lane is below 0.01 (deep weak inversion,
+    // the common case), the kernel otherwise.
+    let lp = if e.iter().all(|&x| x < 0.01) {
+        let mut lp = [0.0; LANES];
+        for i in 0..LANES {
+            lp[i] = ln_1p_small(e[i]);
+        }
+        lp
+    } else {
+        maths::ln_1p(&e)
+    };
     let mut s = [0.0; LANES];
     let mut l = [0.0; LANES];
     for i in 0..LANES {
@@ -158,7 +168,7 @@ impl Mos {
     /// [`Mos::eval`] at [`LANES`] operating points with the vectorised kernels of
     /// [`crate::maths`] (each within a few ulp of the library functions, so the result is
     /// within about 1e-15 relative of [`Mos::eval`]; tested below).
-    #[inline]
+    #[inline(always)]
     pub fn eval_lanes(&self, vg: &Lanes, vd: &Lanes, vs: &Lanes) -> EkvLanes {
         let p = self.sign;
         let mut hf = [0.0; LANES];
@@ -173,12 +183,16 @@ impl Mos {
         }
         let (sf, lf) = softplus_logistic_lanes(&hf);
         let (sr, lr) = softplus_logistic_lanes(&hr);
-        let em = maths::exp_m1_small(&dh);
-        let mut q = [0.0; LANES];
-        for i in 0..LANES {
-            q[i] = lr[i] * em[i];
+        // The folded difference only where some lane has drain and source close.
+        let mut lq = [0.0; LANES];
+        if dh.iter().any(|d| d.abs() < 0.5) {
+            let em = maths::exp_m1_small(&dh);
+            let mut q = [0.0; LANES];
+            for i in 0..LANES {
+                q[i] = lr[i] * em[i];
+            }
+            lq = maths::ln_1p(&q);
         }
-        let lq = maths::ln_1p(&q);
         let en = self.eta * self.inv_n;
         let kp = self.is * self.inv_ut * p;
         let mut out = EkvLanes {

@@ -453,7 +453,7 @@ impl WtaCircuit {
 }
 
 /// `ekv_f_inverse` on every lane: `2 ln(e^sqrt(i) - 1)`.
-#[inline]
+#[inline(always)]
 fn ekv_f_inverse_lanes(i: &Lanes) -> Lanes {
     let mut y = [0.0; LANES];
     for l in 0..LANES {
@@ -470,6 +470,7 @@ fn ekv_f_inverse_lanes(i: &Lanes) -> Lanes {
 impl WtaCircuit {
     /// [`WtaCircuit::closed_form_vc`] on every lane (the same formulas with the vectorised
     /// kernels). Writes the shares into `shares` and returns `(V_C, ln I_b)`.
+    #[inline(always)]
     fn closed_form_vc_lanes(&self, inputs: &[Lanes], shares: &mut [Lanes]) -> (Lanes, f64) {
         let vout = self.output_voltage;
         let ln_ib = self.bias_fast.ln_weak_current();
@@ -527,6 +528,7 @@ impl WtaCircuit {
     }
 
     /// [`WtaCircuit::cell_guess`] on every lane (same start, same steps, vectorised kernels).
+    #[inline(always)]
     fn cell_guess_lanes(&self, k: usize, i: &Lanes, vc: &Lanes) -> Lanes {
         let a = &self.sink_fast[k];
         let ut = a.ut();
@@ -692,7 +694,7 @@ impl SharedNodeCircuit for WtaCircuit {
         self.output_fast[k].id(v_line, self.output_voltage, v_common)
     }
 
-    #[inline]
+    #[inline(always)]
     fn load_lanes(&self, k: usize, v_line: &Lanes, v_common: &Lanes) -> BranchLanes {
         let e = self.sink_fast[k].eval_lanes(v_common, v_line, &[0.0; LANES]);
         BranchLanes {
@@ -702,7 +704,7 @@ impl SharedNodeCircuit for WtaCircuit {
         }
     }
 
-    #[inline]
+    #[inline(always)]
     fn output_lanes(&self, k: usize, v_line: &Lanes, v_common: &Lanes) -> BranchLanes {
         let e = self.output_fast[k].eval_lanes(v_line, &[self.output_voltage; LANES], v_common);
         BranchLanes {
@@ -715,6 +717,7 @@ impl SharedNodeCircuit for WtaCircuit {
     /// [`SharedNodeCircuit::closed_form_start`] of every lane with the vectorised kernels: the
     /// same closed form and cell guesses; a line's output-law start is computed only when some
     /// lane uses it, its sink-law guess only when some lane needs it.
+    #[inline(always)]
     fn closed_form_start_lanes(
         &self,
         inputs: &[Lanes],
