@@ -2,6 +2,12 @@
 //! static DC competition): samples (decisions) per second, and the same with an ideal argmax
 //! in place of the WTA to show how much of the time the competition solve takes.
 //!
+//! `dc_decision_n10`: the N = 10 DC decisions of one die alone (its WTA fed the weight stage's
+//! currents of every test sample): `scalar` is the reference, a plain scalar solve one decision
+//! at a time (`CompetitionStage::solve`), `batched` the batched solve the chip loop uses
+//! (`dc::solve_batch`, lockstep lanes with vectorised kernels). The README's speed table gives
+//! each figure as a ratio to `scalar`.
+//!
 //! Run: cargo bench --bench pipeline -- --measurement-time 5
 
 use std::path::Path;
@@ -10,7 +16,11 @@ use criterion::{criterion_group, criterion_main, Criterion, Throughput};
 
 use hardmax::experiment::build::{build_point, prepare_data};
 use hardmax::experiment::config::load_str;
-use hardmax::pipeline::{evaluate_chip, Dies};
+use hardmax::pipeline::{evaluate_chip, sample_die, Dies};
+use hardmax::stages::competition::dc::{solve_batch, BatchWorkspace};
+use hardmax::stages::competition::{
+    CompetitionCircuit, CompetitionStage, StageSolution, Workspace,
+};
 
 fn setup(circuit: &str) -> (hardmax::pipeline::PointSetup, hardmax::pipeline::Prepared) {
     let text = format!(
@@ -38,6 +48,40 @@ fn bench(c: &mut Criterion) {
             })
         });
     }
+    g.finish();
+
+    let (setup, prep) = setup("current_wta");
+    let all: Vec<usize> = (0..prep.test_y.len()).collect();
+    let die = sample_die(&setup, &prep, 1, Dies::Paired, 1, &all).expect("die");
+    let wta = match die.chip.at(die.temperature).expect("circuit") {
+        CompetitionCircuit::Wta(w) => w,
+        _ => unreachable!("the bench's stage is the WTA"),
+    };
+    let rows = &die.inputs;
+    let flat: Vec<f64> = rows.iter().flatten().copied().collect();
+    let mut g = c.benchmark_group("dc_decision_n10");
+    g.sample_size(30);
+    g.throughput(Throughput::Elements(rows.len() as u64));
+    let mut ws = Workspace::new();
+    let mut sol = StageSolution::for_stage(&wta);
+    g.bench_function("scalar", |b| {
+        b.iter(|| {
+            let mut ok = 0usize;
+            for x in rows {
+                ok += usize::from(wta.solve(x, &mut ws, &mut sol).is_ok());
+            }
+            ok
+        })
+    });
+    let mut bw = BatchWorkspace::new();
+    let mut sols = vec![StageSolution::default(); rows.len()];
+    let mut res = vec![Ok(()); rows.len()];
+    g.bench_function("batched", |b| {
+        b.iter(|| {
+            solve_batch(&wta, &flat, &mut bw, &mut sols, &mut res);
+            res.iter().filter(|r| r.is_ok()).count()
+        })
+    });
     g.finish();
 }
 

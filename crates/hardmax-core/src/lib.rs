@@ -12,6 +12,7 @@
 pub mod calibration;
 pub mod data;
 pub mod device;
+pub mod maths;
 pub mod netlist;
 pub mod physics;
 pub mod pipeline;

@@ -28,6 +28,7 @@ use crate::data::{Dataset, MinMaxScaler};
 use crate::device::mismatch::sample_mismatch;
 use crate::device::Process;
 use crate::rng::{domain, stream};
+use crate::stages::competition::dc::{solve_batch, BatchWorkspace};
 use crate::stages::competition::diffpair::{DiffPairChip, DiffPairDesign};
 use crate::stages::competition::hysteretic::{HysteresisChip, HysteresisDesign};
 use crate::stages::competition::noise::InputShotNoise;
@@ -1309,6 +1310,9 @@ pub fn evaluate_chip_with(
     let noise_stream =
         |i: usize, source: u64| dies.stream(seed, domain::SAMPLE_NOISE, &[chip, i as u64, source]);
     let static_noise = d.static_input_noise();
+    // DC decisions of the WTA are solved in batches (`dc::solve_batch`): a sample's inputs wait
+    // in `pending` and are decided and recorded in sample order.
+    let mut pending = DcBatch::default();
     for (i, (row, &truth)) in prep.test_u.outer_iter().zip(&prep.test_y).enumerate() {
         // One stream per sample and noise source, made only when the source draws.
         let mut read_rng = noisy_weights.then(|| noise_stream(i, noise_source::READ));
@@ -1320,7 +1324,10 @@ pub fn evaluate_chip_with(
                 &xbuf
             }
         };
-        let first = &mut out.first_failure;
+        // This sample's failure reason, if any; kept after the pending decisions' (sample order).
+        let mut sample_first: Option<String> = None;
+        let first = &mut sample_first;
+        let rows = &mut pending.rows;
         let result = (|| -> Result<(usize, bool), FailureKind> {
             // Weight stage(s), and with a hidden circuit its normaliser in between.
             match (&hidden, eff.stages()) {
@@ -1402,7 +1409,10 @@ pub fn evaluate_chip_with(
                     })
                 }
                 Decider::Wta(c) => match &d.transient {
-                    None => solve_decide(c.as_ref(), inputs, &mut ws, &mut sol, &d.decision, first),
+                    None => {
+                        rows.extend_from_slice(inputs);
+                        Ok((DEFERRED, false))
+                    }
                     Some(t) => {
                         let mut noise_rng = noise_stream(i, noise_source::TRANSIENT);
                         let noise = t
@@ -1472,16 +1482,94 @@ pub fn evaluate_chip_with(
                 },
             }
         })();
+        if let (Ok((DEFERRED, _)), Decider::Wta(c)) = (&result, &decider) {
+            pending.samples.push((i, truth));
+            if pending.samples.len() == DC_BATCH {
+                pending.flush(c.as_ref(), &d.decision, &prep.ideal_pred, &mut out);
+            }
+            continue;
+        }
+        if let Decider::Wta(c) = &decider {
+            pending.flush(c.as_ref(), &d.decision, &prep.ideal_pred, &mut out);
+        }
+        if out.first_failure.is_none() {
+            out.first_failure = sample_first;
+        }
         out.record(
             DecisionOutcome::judge(result, truth),
             truth,
             prep.ideal_pred[i],
         );
     }
+    if let Decider::Wta(c) = &decider {
+        pending.flush(c.as_ref(), &d.decision, &prep.ideal_pred, &mut out);
+    }
     out.decision_time_sum = out_time.0;
     out.energy_sum = out_time.1;
     out.timed = out_time.2;
     out
+}
+
+/// Winner marking a decision left to the batched DC solve (never a class index).
+const DEFERRED: usize = usize::MAX;
+
+/// Decisions handed to the batched DC solve at once (a multiple of the solver's lanes).
+const DC_BATCH: usize = 2 * crate::maths::LANES;
+
+/// DC decisions of one chip waiting for the batched solve, in sample order.
+#[derive(Default)]
+struct DcBatch {
+    /// Inputs, one row per waiting decision.
+    rows: Vec<f64>,
+    /// (test sample, true class) of each row.
+    samples: Vec<(usize, usize)>,
+    ws: BatchWorkspace,
+    sols: Vec<StageSolution>,
+    results: Vec<Result<(), CompetitionError>>,
+}
+
+impl DcBatch {
+    /// Solve every waiting decision and record them in sample order (failures by kind, the
+    /// first reason kept), as `solve_decide` would one by one.
+    fn flush<C: crate::stages::competition::SharedNodeCircuit + ?Sized>(
+        &mut self,
+        c: &C,
+        rule: &DecisionRule,
+        ideal: &[usize],
+        out: &mut ChipOutcome,
+    ) {
+        let m = self.samples.len();
+        if m == 0 {
+            return;
+        }
+        if self.sols.len() < m {
+            self.sols.resize_with(m, StageSolution::default);
+            self.results.resize_with(m, || Ok(()));
+        }
+        solve_batch(
+            c,
+            &self.rows,
+            &mut self.ws,
+            &mut self.sols[..m],
+            &mut self.results[..m],
+        );
+        for (j, &(i, truth)) in self.samples.iter().enumerate() {
+            let result = match &self.results[j] {
+                Ok(()) => {
+                    let d = self.sols[j].decide(rule);
+                    Ok((d.winner, d.ambiguous))
+                }
+                Err(e) => Err(failed(
+                    &mut out.first_failure,
+                    FailureKind::of_competition(e),
+                    e,
+                )),
+            };
+            out.record(DecisionOutcome::judge(result, truth), truth, ideal[i]);
+        }
+        self.rows.clear();
+        self.samples.clear();
+    }
 }
 
 /// One DC solve and decision: `(winner, ambiguous)`, or the failure's kind (its reason kept in

@@ -23,12 +23,14 @@
 //! ## Batched evaluation
 //!
 //! Every method evaluates one line of one operating point and is `#[inline]`-able, and the
-//! solvers keep their state in named workspace buffers (one entry per line). A batched solver of
-//! many decisions of one chip lays the same buffers out as struct-of-arrays lanes (one lane per
-//! decision) and calls a batched branch evaluation; adding `load_lanes`/`output_lanes` methods
-//! with a default that loops over [`SharedNodeCircuit::load`] keeps every circuit working while a
-//! circuit overrides them with a vectorised kernel (DEVELOPERS.md, "How to add a competition
-//! circuit").
+//! solvers keep their state in named workspace buffers (one entry per line). The batched DC
+//! solve ([`super::dc::solve_batch`]) of many decisions of one chip lays the same buffers out as
+//! struct-of-arrays lanes ([`Lanes`]: one lane per decision, [`LANES`] decisions in lockstep)
+//! and calls the lane methods [`SharedNodeCircuit::load_lanes`],
+//! [`SharedNodeCircuit::output_lanes`] and [`SharedNodeCircuit::closed_form_start_lanes`].
+//! Their defaults loop over the one-point methods, so every circuit works unchanged; a circuit
+//! overrides them with the vectorised kernels of [`crate::maths`] (the WTA does; DEVELOPERS.md,
+//! "How to add a competition circuit").
 //!
 //! Numerical core: no I/O, no printing.
 
@@ -36,6 +38,7 @@ use super::mos::Mos;
 use super::source::{CurrentSource, SourceKeys};
 use super::CompetitionError;
 use crate::device::noise::shot_noise_psd;
+pub use crate::maths::{Lanes, LANES};
 
 /// A branch current and its partial derivatives in the two node voltages it touches.
 #[derive(Clone, Copy, Debug, Default, PartialEq)]
@@ -46,6 +49,39 @@ pub struct Branch {
     pub d_line: f64,
     /// Derivative in the common-node voltage V_C, A/V.
     pub d_common: f64,
+}
+
+/// A branch at [`LANES`] operating points (struct of arrays; fields as [`Branch`]).
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct BranchLanes {
+    pub current: Lanes,
+    pub d_line: Lanes,
+    pub d_common: Lanes,
+}
+
+impl Default for BranchLanes {
+    fn default() -> BranchLanes {
+        BranchLanes {
+            current: [0.0; LANES],
+            d_line: [0.0; LANES],
+            d_common: [0.0; LANES],
+        }
+    }
+}
+
+impl BranchLanes {
+    /// Lane-wise `f(lane)`.
+    #[inline]
+    pub fn from_fn(mut f: impl FnMut(usize) -> Branch) -> BranchLanes {
+        let mut b = BranchLanes::default();
+        for lane in 0..LANES {
+            let x = f(lane);
+            b.current[lane] = x.current;
+            b.d_line[lane] = x.d_line;
+            b.d_common[lane] = x.d_common;
+        }
+        b
+    }
 }
 
 /// How the DC solver finds the operating point.
@@ -129,6 +165,50 @@ pub trait SharedNodeCircuit {
     /// voltage. For [`DcStrategy::LinesFirst`], `lines` holds the solved line voltages on
     /// entry and only the common-node start is returned.
     fn closed_form_start(&self, inputs: &[f64], scratch: &mut [f64], lines: &mut [f64]) -> f64;
+
+    /// [`SharedNodeCircuit::load`] of line k at [`LANES`] operating points (one per decision of
+    /// a batched solve). The default loops over `load`; override it with a vectorised kernel.
+    #[inline]
+    fn load_lanes(&self, k: usize, v_line: &Lanes, v_common: &Lanes) -> BranchLanes {
+        BranchLanes::from_fn(|lane| self.load(k, v_line[lane], v_common[lane]))
+    }
+
+    /// [`SharedNodeCircuit::output`] of line k at [`LANES`] operating points. The default loops
+    /// over `output`.
+    #[inline]
+    fn output_lanes(&self, k: usize, v_line: &Lanes, v_common: &Lanes) -> BranchLanes {
+        BranchLanes::from_fn(|lane| self.output(k, v_line[lane], v_common[lane]))
+    }
+
+    /// [`SharedNodeCircuit::closed_form_start`] of [`LANES`] decisions at once (a
+    /// [`DcStrategy::Coupled`] circuit): `inputs[k][lane]` is line k's input of decision `lane`;
+    /// fills `lines[k][lane]` and returns each decision's common-node start. `scratch` has at
+    /// least N entries, free to use. The default calls `closed_form_start` lane by lane; a
+    /// circuit may override it with a cheaper vectorised start (the Newton solve then starts
+    /// from slightly different voltages and converges to the same tolerance).
+    fn closed_form_start_lanes(
+        &self,
+        inputs: &[Lanes],
+        scratch: &mut [Lanes],
+        lines: &mut [Lanes],
+    ) -> Lanes {
+        let n = self.lines();
+        let flat = scratch[..n].as_flattened_mut();
+        let (x, rest) = flat.split_at_mut(n);
+        let (sc, l) = rest.split_at_mut(n);
+        let l = &mut l[..n];
+        let mut vc = [0.0; LANES];
+        for lane in 0..LANES {
+            for k in 0..n {
+                x[k] = inputs[k][lane];
+            }
+            vc[lane] = self.closed_form_start(x, sc, l);
+            for k in 0..n {
+                lines[k][lane] = l[k];
+            }
+        }
+        vc
+    }
 
     /// Starting voltage of line k fed `input` at a given common-node voltage (the nested
     /// bracketing solve's start).

@@ -40,7 +40,7 @@
 
 use crate::solvers::{solve_monotone, ScalarError, ScalarTolerance};
 
-use super::circuit::{DcStrategy, SharedNodeCircuit};
+use super::circuit::{DcStrategy, Lanes, SharedNodeCircuit, LANES};
 use super::common::{begin_solve, check_residual, common_node_failure, finish_solve};
 use super::{CompetitionError, InputSummary, SolveMethod, StageSolution, Workspace};
 
@@ -574,4 +574,382 @@ fn newton_linear<C: SharedNodeCircuit + ?Sized>(
         tolerance,
         inputs: InputSummary::of_in(inputs, c.inputs_unit()),
     })
+}
+
+/// Newton passes a batch runs in lockstep before its unconverged lanes leave it for the scalar
+/// [`solve`] (a decision of the current-mode WTA takes 3 to 6; the rare one that needs more, or
+/// the bracketing fallback, is solved exactly as it would be alone).
+pub const BATCH_PASSES: usize = 12;
+
+/// Scratch of [`solve_batch`]: the Newton state of [`LANES`] decisions as struct-of-arrays (one
+/// [`Lanes`] per line). No allocation once grown to the circuit's size.
+#[derive(Clone, Debug, Default)]
+pub struct BatchWorkspace {
+    inputs: Vec<Lanes>,
+    line_voltage: Vec<Lanes>,
+    load_d_line: Vec<Lanes>,
+    load_d_common: Vec<Lanes>,
+    scaled_residual: Vec<Lanes>,
+    output_current: Vec<Lanes>,
+    scratch: Vec<Lanes>,
+    /// The scalar solve's workspace (lanes that leave the batch).
+    scalar: Workspace,
+}
+
+impl BatchWorkspace {
+    pub fn new() -> BatchWorkspace {
+        BatchWorkspace::default()
+    }
+
+    fn ensure(&mut self, n: usize) {
+        for b in [
+            &mut self.inputs,
+            &mut self.line_voltage,
+            &mut self.load_d_line,
+            &mut self.load_d_common,
+            &mut self.scaled_residual,
+            &mut self.output_current,
+            &mut self.scratch,
+        ] {
+            if b.len() < n {
+                b.resize(n, [0.0; LANES]);
+            }
+        }
+    }
+}
+
+/// What happened to one lane of a batch.
+#[derive(Clone, Copy, PartialEq, Eq)]
+enum Lane {
+    /// Still iterating.
+    Running,
+    /// Converged at this pass (its solution is stored).
+    Done,
+    /// Left the batch: solved alone by [`solve`] (invalid inputs, a failed guard, or the pass
+    /// budget spent).
+    Scalar,
+    /// No decision in this lane.
+    Empty,
+}
+
+/// DC operating points of `c` for `m` decisions at once: `inputs` holds them row by row (`m`
+/// rows of N), `outs[j]` and `results[j]` receive decision j's solution and status (both at
+/// least `m` long). Same answers as [`solve`] on each row within the solver's tolerance, and
+/// the same errors (a decision that does not converge in the batch is solved by [`solve`]).
+/// Decisions run [`LANES`] at a time in lockstep Newton with the vectorised kernels of
+/// [`crate::maths`]; circuits of strategy [`DcStrategy::LinesFirst`] and circuits that hold
+/// state (solved in row order, each from the state the previous left) are solved one by one.
+/// The answer of a decision does not depend on the other decisions in its batch.
+pub fn solve_batch<C: SharedNodeCircuit + ?Sized>(
+    c: &C,
+    inputs: &[f64],
+    bw: &mut BatchWorkspace,
+    outs: &mut [StageSolution],
+    results: &mut [Result<(), CompetitionError>],
+) {
+    let n = c.lines();
+    let m = inputs.len().checked_div(n).unwrap_or(0);
+    let max_newton = match c.strategy() {
+        DcStrategy::Coupled { max_newton }
+            if n > 0 && inputs.len() == m * n && !c.carries_state() =>
+        {
+            max_newton
+        }
+        _ => {
+            // One by one; a length mismatch is reported by the scalar solve.
+            if n == 0 || inputs.len() % n != 0 {
+                if let (Some(o), Some(r)) = (outs.first_mut(), results.first_mut()) {
+                    *r = solve(c, inputs, &mut bw.scalar, o);
+                }
+                return;
+            }
+            for (row, (o, r)) in inputs
+                .chunks(n)
+                .zip(outs.iter_mut().zip(results.iter_mut()))
+            {
+                *r = solve(c, row, &mut bw.scalar, o);
+            }
+            return;
+        }
+    };
+    bw.ensure(n);
+    bw.scalar.ensure(n);
+    for (start, (outs, results)) in (0..m)
+        .step_by(LANES)
+        .zip(outs.chunks_mut(LANES).zip(results.chunks_mut(LANES)))
+    {
+        let count = LANES.min(m - start);
+        let rows = &inputs[start * n..(start + count) * n];
+        batch(c, n, max_newton, rows, count, bw, outs, results);
+    }
+}
+
+/// One batch of `count <= LANES` decisions (`rows`: `count` rows of N).
+#[allow(clippy::too_many_arguments)]
+fn batch<C: SharedNodeCircuit + ?Sized>(
+    c: &C,
+    n: usize,
+    max_newton: usize,
+    rows: &[f64],
+    count: usize,
+    bw: &mut BatchWorkspace,
+    outs: &mut [StageSolution],
+    results: &mut [Result<(), CompetitionError>],
+) {
+    let mut state = [Lane::Empty; LANES];
+    let mut first = None;
+    for lane in 0..count {
+        let row = &rows[lane * n..(lane + 1) * n];
+        let valid = row
+            .iter()
+            .all(|x| x.is_finite() && (c.inputs_unit() != "A" || *x >= 0.0));
+        state[lane] = if valid { Lane::Running } else { Lane::Scalar };
+        if valid && first.is_none() {
+            first = Some(lane);
+        }
+    }
+    if let Some(f) = first {
+        // Empty and invalid lanes compute a copy of a valid decision (ignored).
+        for k in 0..n {
+            for lane in 0..LANES {
+                let src = if state[lane] == Lane::Running {
+                    lane
+                } else {
+                    f
+                };
+                bw.inputs[k][lane] = rows[src * n + k];
+            }
+        }
+        lockstep(
+            c,
+            n,
+            max_newton.min(BATCH_PASSES),
+            bw,
+            &mut state,
+            outs,
+            results,
+        );
+    }
+    for lane in 0..count {
+        if matches!(state[lane], Lane::Scalar | Lane::Running) {
+            let row = &rows[lane * n..(lane + 1) * n];
+            results[lane] = solve(c, row, &mut bw.scalar, &mut outs[lane]);
+        }
+    }
+}
+
+/// [`lockstep_body`], compiled for AVX2 (four lanes per instruction instead of SSE2's two) when
+/// the CPU has it. The code is the same and no fused multiply-add is formed (Rust never fuses
+/// `a * b + c`), so both versions give the same bits.
+#[allow(clippy::too_many_arguments)]
+fn lockstep<C: SharedNodeCircuit + ?Sized>(
+    c: &C,
+    n: usize,
+    passes: usize,
+    bw: &mut BatchWorkspace,
+    state: &mut [Lane; LANES],
+    outs: &mut [StageSolution],
+    results: &mut [Result<(), CompetitionError>],
+) {
+    #[cfg(target_arch = "x86_64")]
+    if std::arch::is_x86_feature_detected!("avx2") {
+        // SAFETY: `lockstep_avx2` only requires AVX2, which the CPU has (checked just above).
+        unsafe { lockstep_avx2(c, n, passes, bw, state, outs, results) };
+        return;
+    }
+    lockstep_body(c, n, passes, bw, state, outs, results);
+}
+
+/// [`lockstep_body`] with AVX2 enabled for the code inlined into it.
+#[cfg(target_arch = "x86_64")]
+#[target_feature(enable = "avx2")]
+#[allow(clippy::too_many_arguments)]
+unsafe fn lockstep_avx2<C: SharedNodeCircuit + ?Sized>(
+    c: &C,
+    n: usize,
+    passes: usize,
+    bw: &mut BatchWorkspace,
+    state: &mut [Lane; LANES],
+    outs: &mut [StageSolution],
+    results: &mut [Result<(), CompetitionError>],
+) {
+    lockstep_body(c, n, passes, bw, state, outs, results);
+}
+
+/// The Newton iteration of [`newton`] on every lane in lockstep (same arithmetic, lane-wise; a
+/// converged lane is stored and frozen, a lane whose guard fails is handed to the scalar solve).
+#[allow(clippy::too_many_arguments)]
+#[inline(always)]
+fn lockstep_body<C: SharedNodeCircuit + ?Sized>(
+    c: &C,
+    n: usize,
+    passes: usize,
+    bw: &mut BatchWorkspace,
+    state: &mut [Lane; LANES],
+    outs: &mut [StageSolution],
+    results: &mut [Result<(), CompetitionError>],
+) {
+    let vmax = c.supply();
+    let vc_min = c.common_min();
+    let tolerance = c.tolerance();
+    let source = c.source_fast();
+    let BatchWorkspace {
+        inputs,
+        line_voltage,
+        load_d_line,
+        load_d_common,
+        scaled_residual,
+        output_current,
+        scratch,
+        ..
+    } = bw;
+    let (x, v, a, cc, q, io) = (
+        &inputs[..n],
+        &mut line_voltage[..n],
+        &mut load_d_line[..n],
+        &mut load_d_common[..n],
+        &mut scaled_residual[..n],
+        &mut output_current[..n],
+    );
+    let mut vc = c.closed_form_start_lanes(x, &mut scratch[..n], v);
+    for it in 1..=passes {
+        let mut s_sum = [0.0; LANES];
+        let mut e_sum = [0.0; LANES];
+        let mut bca = [0.0; LANES];
+        let mut bqa = [0.0; LANES];
+        let mut res = [0.0_f64; LANES];
+        let mut bad = [false; LANES];
+        for k in 0..n {
+            let eb = c.output_lanes(k, &v[k], &vc);
+            let ea = c.load_lanes(k, &v[k], &vc);
+            let mut ratio = [1.0; LANES];
+            for l in 0..LANES {
+                io[k][l] = eb.current[l];
+                s_sum[l] += eb.current[l];
+                e_sum[l] += eb.d_common[l];
+                let i = x[k][l];
+                if i > 0.0 {
+                    ratio[l] = ea.current[l] / i;
+                    bad[l] |=
+                        !(ea.current[l] > 0.0 && ea.d_line[l] > 0.0 && ea.current[l].is_finite());
+                }
+            }
+            let rho = crate::maths::ln(&ratio);
+            for l in 0..LANES {
+                if x[k][l] > 0.0 {
+                    res[l] = res[l].max(rho[l].abs());
+                    let qk = rho[l] * ea.current[l];
+                    a[k][l] = ea.d_line[l];
+                    cc[k][l] = ea.d_common[l];
+                    q[k][l] = qk;
+                    bca[l] += eb.d_line[l] * ea.d_common[l] / ea.d_line[l];
+                    bqa[l] += eb.d_line[l] * qk / ea.d_line[l];
+                } else {
+                    a[k][l] = 0.0;
+                }
+            }
+        }
+        let (ib, p) = source.eval_lanes(&vc);
+        let mut ratio = [1.0; LANES];
+        for l in 0..LANES {
+            bad[l] |= !(s_sum[l] > 0.0 && ib[l] > 0.0 && s_sum[l].is_finite());
+            ratio[l] = s_sum[l] / ib[l];
+        }
+        let r = crate::maths::ln(&ratio);
+        let mut dvc = [0.0; LANES];
+        let mut running = false;
+        for l in 0..LANES {
+            if state[l] != Lane::Running {
+                continue;
+            }
+            res[l] = res[l].max(r[l].abs());
+            if bad[l] {
+                state[l] = Lane::Scalar;
+                continue;
+            }
+            if res[l] <= 0.5 * tolerance {
+                // |ln(x)| <= tol implies |x - 1| <= tol (1 + tol): the relative residual.
+                store(n, l, v, io, vc[l], it, res[l].exp_m1(), &mut outs[l]);
+                results[l] = Ok(());
+                state[l] = Lane::Done;
+                continue;
+            }
+            let den = e_sum[l] / s_sum[l] - p[l] / ib[l] - bca[l] / s_sum[l];
+            let d = (-r[l] + bqa[l] / s_sum[l]) / den;
+            if !d.is_finite() {
+                state[l] = Lane::Scalar;
+                continue;
+            }
+            dvc[l] = d.clamp(-0.1, 0.1);
+            running = true;
+        }
+        if !running {
+            return;
+        }
+        let mut live = [false; LANES];
+        for l in 0..LANES {
+            live[l] = state[l] == Lane::Running;
+        }
+        for k in 0..n {
+            // Newton in ln V_k, as in `newton`; frozen lanes and lines without input keep
+            // their voltage.
+            let mut dy = [0.0; LANES];
+            for l in 0..LANES {
+                if live[l] && a[k][l] != 0.0 {
+                    let vk = v[k][l];
+                    dy[l] = (-(q[k][l] + cc[k][l] * dvc[l]) / (a[k][l] * vk)).clamp(-20.0, 2.0);
+                }
+            }
+            let g = crate::maths::exp(&dy);
+            for l in 0..LANES {
+                let vk = v[k][l];
+                let mut nv = vk * g[l];
+                if nv >= vmax {
+                    nv = 0.5 * (vk + vmax);
+                }
+                if live[l] && a[k][l] != 0.0 {
+                    v[k][l] = nv;
+                }
+            }
+        }
+        for l in 0..LANES {
+            if live[l] {
+                let mut nvc = vc[l] + dvc[l];
+                if nvc < vc_min {
+                    nvc = 0.5 * (vc[l] + vc_min);
+                } else if nvc > vmax {
+                    nvc = 0.5 * (vc[l] + vmax);
+                }
+                vc[l] = nvc;
+            }
+        }
+    }
+    // Lanes still running after the pass budget leave the batch (`batch` solves them alone).
+}
+
+/// Store lane `l`'s converged solution (its outputs in `io`, lines in `v`).
+#[allow(clippy::too_many_arguments)]
+fn store(
+    n: usize,
+    l: usize,
+    v: &[Lanes],
+    io: &[Lanes],
+    vc: f64,
+    iterations: usize,
+    residual: f64,
+    out: &mut StageSolution,
+) {
+    out.resize(n, n + 1);
+    for k in 0..n {
+        out.outputs[k] = io[k][l];
+        out.node_voltages[k] = v[k][l];
+    }
+    out.node_voltages[n] = vc;
+    super::fill_shares(&out.outputs, &mut out.shares);
+    out.info = super::SolveInfo {
+        iterations,
+        residual,
+        converged: true,
+        method: SolveMethod::Newton,
+    };
 }

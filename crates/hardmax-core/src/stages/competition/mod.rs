@@ -32,7 +32,7 @@ use std::fmt;
 
 use thiserror::Error;
 
-pub use circuit::{Branch, CircuitMessages, DcStrategy, SharedNodeCircuit};
+pub use circuit::{Branch, BranchLanes, CircuitMessages, DcStrategy, SharedNodeCircuit};
 pub use decision::{Decision, DecisionRule};
 pub use diffpair::{DiffPairChip, DiffPairCircuit, DiffPairDesign, DiffPairInput};
 pub use hysteretic::{HysteresisChip, HysteresisCircuit, HysteresisDesign};

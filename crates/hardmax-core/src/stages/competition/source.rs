@@ -146,6 +146,25 @@ impl CurrentSource<Mos> {
         }
     }
 
+    /// [`CurrentSource::eval`] at [`LANES`](crate::maths::LANES) voltages (vectorised EKV).
+    #[inline]
+    pub fn eval_lanes(
+        &self,
+        v: &crate::maths::Lanes,
+    ) -> (crate::maths::Lanes, crate::maths::Lanes) {
+        use crate::maths::LANES;
+        match *self {
+            CurrentSource::Ideal { current } => ([current; LANES], [0.0; LANES]),
+            CurrentSource::Transistor {
+                device,
+                gate_voltage,
+            } => {
+                let e = device.eval_lanes(&[gate_voltage; LANES], v, &[0.0; LANES]);
+                (e.id, e.d_vd)
+            }
+        }
+    }
+
     /// ln of the source current; for a transistor, its weak-inversion saturation current.
     #[inline]
     pub fn ln_weak_current(&self) -> f64 {

@@ -34,8 +34,8 @@
 use crate::device::{DrainCoupling, Ekv, MosMismatch, Process, Transistor};
 
 use super::circuit::{
-    kcl_residuals, mos_shot_psd, node_currents, Branch, CircuitMessages, DcStrategy,
-    SharedNodeCircuit,
+    kcl_residuals, mos_shot_psd, node_currents, Branch, BranchLanes, CircuitMessages, DcStrategy,
+    Lanes, SharedNodeCircuit, LANES,
 };
 use super::common::{
     at_least_two, check_count, check_mismatch, draw_n, ekv_f_inverse, nmos, nonnegative, Devices,
@@ -43,6 +43,7 @@ use super::common::{
 use super::mos::Mos;
 use super::source::{CurrentSource, SourceKeys};
 use super::{positive, CompetitionError};
+use crate::maths;
 
 const STAGE: &str = "current-mode WTA";
 
@@ -451,6 +452,159 @@ impl WtaCircuit {
     }
 }
 
+/// `ekv_f_inverse` on every lane: `2 ln(e^sqrt(i) - 1)`.
+#[inline(always)]
+fn ekv_f_inverse_lanes(i: &Lanes) -> Lanes {
+    let mut y = [0.0; LANES];
+    for l in 0..LANES {
+        y[l] = i[l].sqrt();
+    }
+    let e = maths::exp_m1(&y);
+    let mut x = maths::ln(&e);
+    for v in x.iter_mut() {
+        *v *= 2.0;
+    }
+    x
+}
+
+impl WtaCircuit {
+    /// [`WtaCircuit::closed_form_vc`] on every lane (the same formulas with the vectorised
+    /// kernels). Writes the shares into `shares` and returns `(V_C, ln I_b)`.
+    #[inline(always)]
+    fn closed_form_vc_lanes(&self, inputs: &[Lanes], shares: &mut [Lanes]) -> (Lanes, f64) {
+        let vout = self.output_voltage;
+        let ln_ib = self.bias_fast.ln_weak_current();
+        let mut max_e = [f64::NEG_INFINITY; LANES];
+        let mut slope = [0.0; LANES];
+        for k in 0..self.n {
+            let a = &self.sink_fast[k];
+            let b = &self.output_fast[k];
+            let eta_a = a.eta.max(1e-3);
+            let mut r = [0.0; LANES];
+            for l in 0..LANES {
+                r[l] = inputs[k][l] / a.is;
+            }
+            let x = ekv_f_inverse_lanes(&r);
+            let ln_bis = b.is.ln();
+            let slope_k = (1.0 / eta_a + b.eta) * b.inv_n * b.inv_ut + b.inv_ut;
+            for l in 0..LANES {
+                let alpha = (a.n() * a.ut() * x[l] + a.vt0) / eta_a;
+                let e = ln_bis + (alpha - b.vt0 + b.eta * vout) * b.inv_n * b.inv_ut;
+                let on = inputs[k][l] > 0.0;
+                shares[k][l] = if on { e } else { f64::NEG_INFINITY };
+                if on {
+                    max_e[l] = max_e[l].max(e);
+                    slope[l] = slope_k;
+                }
+            }
+        }
+        let mut s = [0.0; LANES];
+        for k in 0..self.n {
+            let mut d = [0.0; LANES];
+            for l in 0..LANES {
+                d[l] = shares[k][l] - max_e[l];
+            }
+            shares[k] = maths::exp(&d);
+            for l in 0..LANES {
+                s[l] += shares[k][l];
+            }
+        }
+        for k in 0..self.n {
+            for l in 0..LANES {
+                shares[k][l] /= s[l];
+            }
+        }
+        let ln_s = maths::ln(&s);
+        let mut vc = [0.0; LANES];
+        for l in 0..LANES {
+            let v = (max_e[l] + ln_s[l] - ln_ib) / slope[l];
+            vc[l] = if !(max_e[l].is_finite() && slope[l] > 0.0 && v.is_finite()) {
+                self.vc_min
+            } else {
+                v.clamp(self.vc_min, self.supply)
+            };
+        }
+        (vc, ln_ib)
+    }
+
+    /// [`WtaCircuit::cell_guess`] on every lane (same start, same steps, vectorised kernels).
+    #[inline(always)]
+    fn cell_guess_lanes(&self, k: usize, i: &Lanes, vc: &Lanes) -> Lanes {
+        let a = &self.sink_fast[k];
+        let ut = a.ut();
+        let alpha = a.eta.max(1e-4) * a.inv_n * a.inv_ut;
+        let mut h = [0.0; LANES];
+        for l in 0..LANES {
+            h[l] = -(0.5 * (vc[l] - a.vt0) * a.inv_n * a.inv_ut).abs();
+        }
+        let eh = maths::exp(&h);
+        let lp = maths::ln_1p(&eh);
+        let mut r = [0.0; LANES];
+        let mut mr = [0.0; LANES];
+        for l in 0..LANES {
+            let hh = 0.5 * (vc[l] - a.vt0) * a.inv_n * a.inv_ut;
+            let sp = hh.max(0.0) + lp[l];
+            r[l] = i[l] / (a.is * sp * sp);
+            mr[l] = -r[l];
+        }
+        let ln_r = maths::ln(&r);
+        let l1 = maths::ln_1p(&mr);
+        let mut v = [0.0; LANES];
+        let mut live = [true; LANES];
+        for l in 0..LANES {
+            let v0 = if r[l] < 0.5 {
+                -ut * l1[l]
+            } else {
+                ut + ln_r[l].max(0.0) / alpha
+            };
+            live[l] = v0.is_finite() && v0 > 0.0 && i[l] > 0.0;
+            v[l] = if live[l] {
+                v0.min(self.supply)
+            } else {
+                0.5 * self.supply
+            };
+        }
+        for _ in 0..4 {
+            let mut y = [0.0; LANES];
+            for l in 0..LANES {
+                y[l] = v[l] * a.inv_ut;
+            }
+            let e = maths::exp_m1(&y);
+            let le = maths::ln(&e);
+            let mut dy = [0.0; LANES];
+            for l in 0..LANES {
+                let g = alpha * v[l] + le[l] - v[l] * a.inv_ut - ln_r[l];
+                let dg = v[l] * (alpha + a.inv_ut / e[l]);
+                let d = (-g / dg).clamp(-5.0, 2.0);
+                dy[l] = if live[l] { d } else { 0.0 };
+            }
+            let g = maths::exp(&dy);
+            let mut any = false;
+            for l in 0..LANES {
+                if live[l] {
+                    v[l] = (v[l] * g[l]).min(self.supply);
+                    // As the scalar guess: a lane stops once its step is below 1e-2.
+                    live[l] = dy[l].abs() >= 1e-2;
+                    any |= live[l];
+                }
+            }
+            if !any {
+                break;
+            }
+        }
+        for l in 0..LANES {
+            v[l] = if i[l] <= 0.0 {
+                0.0
+            } else if v[l].is_finite() && v[l] > 0.0 {
+                v[l].min(0.999 * self.supply)
+            } else {
+                0.5 * self.supply
+            };
+        }
+        v
+    }
+}
+
 impl SharedNodeCircuit for WtaCircuit {
     fn name(&self) -> &'static str {
         STAGE
@@ -538,6 +692,73 @@ impl SharedNodeCircuit for WtaCircuit {
     #[inline]
     fn output_current(&self, k: usize, v_line: f64, v_common: f64) -> f64 {
         self.output_fast[k].id(v_line, self.output_voltage, v_common)
+    }
+
+    #[inline(always)]
+    fn load_lanes(&self, k: usize, v_line: &Lanes, v_common: &Lanes) -> BranchLanes {
+        let e = self.sink_fast[k].eval_lanes(v_common, v_line, &[0.0; LANES]);
+        BranchLanes {
+            current: e.id,
+            d_line: e.d_vd,
+            d_common: e.d_vg,
+        }
+    }
+
+    #[inline(always)]
+    fn output_lanes(&self, k: usize, v_line: &Lanes, v_common: &Lanes) -> BranchLanes {
+        let e = self.output_fast[k].eval_lanes(v_line, &[self.output_voltage; LANES], v_common);
+        BranchLanes {
+            current: e.id,
+            d_line: e.d_vg,
+            d_common: e.d_vs,
+        }
+    }
+
+    /// [`SharedNodeCircuit::closed_form_start`] of every lane with the vectorised kernels: the
+    /// same closed form and cell guesses; a line's output-law start is computed only when some
+    /// lane uses it, its sink-law guess only when some lane needs it.
+    #[inline(always)]
+    fn closed_form_start_lanes(
+        &self,
+        inputs: &[Lanes],
+        scratch: &mut [Lanes],
+        lines: &mut [Lanes],
+    ) -> Lanes {
+        let n = self.n;
+        let vmax = self.supply;
+        let share = &mut scratch[..n];
+        let (vc, ln_ib) = self.closed_form_vc_lanes(inputs, share);
+        let ib = ln_ib.exp();
+        for k in 0..n {
+            let b = &self.output_fast[k];
+            let mut use_b = [false; LANES];
+            let mut r = [0.0; LANES];
+            for l in 0..LANES {
+                use_b[l] = inputs[k][l] > 0.0 && share[k][l] > 1e-3;
+                r[l] = share[k][l] * ib / b.is;
+            }
+            let mut need_sink = [true; LANES];
+            if use_b.iter().any(|&u| u) {
+                let x = ekv_f_inverse_lanes(&r);
+                for l in 0..LANES {
+                    let from_b = b.n() * (b.ut() * x[l] + vc[l]) + b.vt0
+                        - b.eta * (self.output_voltage - vc[l]);
+                    if use_b[l] && from_b.is_finite() && from_b > 0.0 {
+                        lines[k][l] = from_b.min(0.999 * vmax);
+                        need_sink[l] = false;
+                    }
+                }
+            }
+            if need_sink.iter().any(|&u| u) {
+                let g = self.cell_guess_lanes(k, &inputs[k], &vc);
+                for l in 0..LANES {
+                    if need_sink[l] {
+                        lines[k][l] = g[l];
+                    }
+                }
+            }
+        }
+        vc
     }
 
     /// V_C from the weak-inversion closed form; cells expected to carry a visible share of the

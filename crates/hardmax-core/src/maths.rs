@@ -1,0 +1,361 @@
+//! Elementary functions on lanes of `f64` for the batched DC solve (several decisions of one
+//! chip in lockstep, struct-of-arrays: one array entry per decision).
+//!
+//! Each kernel is a branch-free scalar function (selects instead of branches, the exponent
+//! handled by integer operations on the bits, no library call) applied by a plain loop over a
+//! [`Lanes`] array, so LLVM vectorises it on stable Rust for whatever vector width the target
+//! has (two lanes with the x86-64 baseline SSE2, four with AVX2). Only `+ - * /`, `sqrt`,
+//! `min`/`max`, comparisons and bit operations are used: the results are the same on every
+//! x86-64 machine and do not depend on the vector width (no fused multiply-add is formed).
+//!
+//! Error bounds (measured against the standard library, which calls the platform's libm, by the
+//! tests below over the whole range each kernel is used on; the libm reference is itself within
+//! 1 ulp of the exact value):
+//!
+//! | kernel | range | method | max error vs `std` |
+//! |---|---|---|---|
+//! | [`exp`] | `[-708.39, 709.78]` (below: a smooth fall to 0 through the subnormals, 0 under -745.2; above: +inf) | Cody–Waite reduction `x = n ln 2 + r`, `|r| <= ln2/2`, Taylor polynomial of degree 13 (truncation < 1e-17 relative), `2^n` as two exponent-bit factors | 2 ulp |
+//! | [`ln`] | every positive `f64`, subnormals included; 0 -> -inf, < 0 or NaN -> NaN, +inf -> +inf | `x = 2^k m`, `m` in `[sqrt(1/2), sqrt 2)`, `ln m = 2 atanh(s)`, `s = (m-1)/(m+1)`, atanh series to `s^21` (truncation < 1e-18 relative) | 2 ulp |
+//! | [`ln_1p`] | `(-1, +inf)`; -1 -> -inf | `ln(u) + (x - (u - 1))/u` with `u = 1 + x` (the rounding of `u` corrected to first order) | 3 ulp |
+//! | [`exp_m1_small`] | `[-0.5, 0.5]` only | Taylor polynomial of degree 15 (truncation < 2e-18 relative) | 2 ulp |
+//!
+//! The series are the Taylor series of `e^x` and of `atanh` (`ln((1+s)/(1-s)) = 2 Σ s^(2j+1) /
+//! (2j+1)`, M. Abramowitz, I. Stegun, Handbook of Mathematical Functions, 1964, ch. 4); the
+//! reduction `x = n ln 2 + r` with `ln 2` split in a high part exact in `n ln2_hi` and a low part
+//! is W. J. Cody, W. Waite, Software Manual for the Elementary Functions, 1980.
+//!
+//! Numerical core: no I/O, no printing.
+
+/// Number of decisions solved in lockstep by the batched DC solve.
+pub const LANES: usize = 8;
+
+/// One value per lane.
+pub type Lanes = [f64; LANES];
+
+/// `1.5 * 2^52`: adding it to `|y| < 2^51` rounds `y` to the nearest integer, held in the low
+/// bits of the sum.
+const ROUND_MAGIC: f64 = 6_755_399_441_055_744.0;
+/// `2^52`, the exponent trick for a small unsigned integer to `f64`.
+const TWO_52: f64 = 4_503_599_627_370_496.0;
+const LOG2_E: f64 = std::f64::consts::LOG2_E;
+/// `ln 2` split (Cody–Waite): `LN2_HI` has 32 significant bits, so `n * LN2_HI` is exact for
+/// `|n| < 2^20`; `LN2_HI + LN2_LO` is `ln 2` to about 2^-85. Bit patterns of fdlibm's e_exp.c.
+const LN2_HI: f64 = f64::from_bits(0x3fe6_2e42_fee0_0000);
+const LN2_LO: f64 = f64::from_bits(0x3dea_39ef_3579_3c76);
+/// Below this `exp` returns 0 (the exact value is under half the smallest subnormal).
+const EXP_ZERO_BELOW: f64 = -745.2;
+/// Above this `exp` returns +inf (`ln f64::MAX` = 709.782...).
+const EXP_INF_ABOVE: f64 = 709.782_712_893_384;
+
+/// `2^n` as the product of two normal powers of two, for `-1076 <= n <= 1025` held as a
+/// two's-complement `u64` (wrapping arithmetic keeps everything in vectorisable integer ops).
+#[inline(always)]
+fn pow2_split(n: u64) -> (f64, f64) {
+    // n1 = floor((n + 2048) / 2) - 1024 by a logical shift (no arithmetic 64-bit shift in SSE2).
+    let n1 = (n.wrapping_add(2048) >> 1).wrapping_sub(1024);
+    let n2 = n.wrapping_sub(n1);
+    (
+        f64::from_bits(n1.wrapping_add(1023) << 52),
+        f64::from_bits(n2.wrapping_add(1023) << 52),
+    )
+}
+
+/// `e^x`, one lane (module table for the error bound).
+#[inline(always)]
+pub fn exp1(x: f64) -> f64 {
+    let xc = x.clamp(EXP_ZERO_BELOW, EXP_INF_ABOVE);
+    let t = xc * LOG2_E + ROUND_MAGIC;
+    let nf = t - ROUND_MAGIC;
+    let n = t.to_bits().wrapping_sub(ROUND_MAGIC.to_bits());
+    let r = (xc - nf * LN2_HI) - nf * LN2_LO;
+    // e^r, |r| <= 0.3466 (+ rounding): Taylor to r^13, remainder < r^14/14! e^r < 1e-17 e^r.
+    let p = 1.0 / 6_227_020_800.0;
+    let p = 1.0 / 479_001_600.0 + r * p;
+    let p = 1.0 / 39_916_800.0 + r * p;
+    let p = 1.0 / 3_628_800.0 + r * p;
+    let p = 1.0 / 362_880.0 + r * p;
+    let p = 1.0 / 40_320.0 + r * p;
+    let p = 1.0 / 5_040.0 + r * p;
+    let p = 1.0 / 720.0 + r * p;
+    let p = 1.0 / 120.0 + r * p;
+    let p = 1.0 / 24.0 + r * p;
+    let p = 1.0 / 6.0 + r * p;
+    let p = 0.5 + r * p;
+    let p = 1.0 + r * p;
+    let p = 1.0 + r * p;
+    let (s1, s2) = pow2_split(n);
+    let y = p * s1 * s2;
+    let y = if x < EXP_ZERO_BELOW { 0.0 } else { y };
+    let y = if x > EXP_INF_ABOVE { f64::INFINITY } else { y };
+    if x.is_nan() {
+        x
+    } else {
+        y
+    }
+}
+
+/// `2 atanh(s) - 2 s = s R(s^2)` part: `R(z) = Σ_{j=1..10} 2 z^j / (2j+1)`.
+#[inline(always)]
+fn atanh_tail(z: f64) -> f64 {
+    let p = 2.0 / 21.0;
+    let p = 2.0 / 19.0 + z * p;
+    let p = 2.0 / 17.0 + z * p;
+    let p = 2.0 / 15.0 + z * p;
+    let p = 2.0 / 13.0 + z * p;
+    let p = 2.0 / 11.0 + z * p;
+    let p = 2.0 / 9.0 + z * p;
+    let p = 2.0 / 7.0 + z * p;
+    let p = 2.0 / 5.0 + z * p;
+    let p = 2.0 / 3.0 + z * p;
+    z * p
+}
+
+/// Natural logarithm, one lane (module table for the error bound).
+#[inline(always)]
+pub fn ln1(x: f64) -> f64 {
+    let sub = x < f64::MIN_POSITIVE;
+    // Subnormals scaled into the normal range by 2^54.
+    let xs = if sub { x * 18_014_398_509_481_984.0 } else { x };
+    let extra = if sub { 54.0 } else { 0.0 };
+    // Shift the mantissa range to [sqrt(1/2), sqrt(2)) (the exponent absorbs the rest).
+    let ix = xs
+        .to_bits()
+        .wrapping_add((0x3ff0_0000_u64 - 0x3fe6_a09e_u64) << 32);
+    let kb = ix >> 52;
+    let m = f64::from_bits((ix & 0x000f_ffff_ffff_ffff).wrapping_add(0x3fe6_a09e_u64 << 32));
+    let k = (f64::from_bits(0x4330_0000_0000_0000 | kb) - TWO_52) - 1023.0 - extra;
+    let f = m - 1.0;
+    let s = f / (2.0 + f);
+    let hfsq = 0.5 * f * f;
+    let tail = atanh_tail(s * s);
+    let y = k * LN2_HI + ((f - hfsq + s * (hfsq + tail)) + k * LN2_LO);
+    let y = if x == 0.0 { f64::NEG_INFINITY } else { y };
+    let y = if x == f64::INFINITY { x } else { y };
+    if x < 0.0 || x.is_nan() {
+        f64::NAN
+    } else {
+        y
+    }
+}
+
+/// `ln(1 + x)`, one lane (module table for the error bound).
+#[inline(always)]
+pub fn ln_1p1(x: f64) -> f64 {
+    let u = 1.0 + x;
+    // (u - 1) is exact (Sterbenz) for u in [0.5, 2]; the correction is the rounding of u,
+    // first order: ln(1 + x) = ln(u) + (1 + x - u)/u.
+    let c = (x - (u - 1.0)) / u;
+    let y = ln1(u) + c;
+    let y = if x == -1.0 { f64::NEG_INFINITY } else { y };
+    let y = if x == f64::INFINITY { x } else { y };
+    if x < -1.0 || x.is_nan() {
+        f64::NAN
+    } else {
+        y
+    }
+}
+
+/// `e^x - 1` for `|x| <= 0.5` only (Taylor to x^15), one lane.
+#[inline(always)]
+pub fn exp_m1_small1(x: f64) -> f64 {
+    let p = 1.0 / 1_307_674_368_000.0;
+    let p = 1.0 / 87_178_291_200.0 + x * p;
+    let p = 1.0 / 6_227_020_800.0 + x * p;
+    let p = 1.0 / 479_001_600.0 + x * p;
+    let p = 1.0 / 39_916_800.0 + x * p;
+    let p = 1.0 / 3_628_800.0 + x * p;
+    let p = 1.0 / 362_880.0 + x * p;
+    let p = 1.0 / 40_320.0 + x * p;
+    let p = 1.0 / 5_040.0 + x * p;
+    let p = 1.0 / 720.0 + x * p;
+    let p = 1.0 / 120.0 + x * p;
+    let p = 1.0 / 24.0 + x * p;
+    let p = 1.0 / 6.0 + x * p;
+    let p = 0.5 + x * p;
+    x + x * (x * p)
+}
+
+/// `e^x - 1` for any `x`: the small-argument polynomial for `|x| <= 0.5`, `exp(x) - 1`
+/// otherwise (there `e^x - 1` loses at most about 1.6 bits: 3 ulp).
+#[inline(always)]
+pub fn exp_m1_1(x: f64) -> f64 {
+    let small = exp_m1_small1(x);
+    let big = exp1(x) - 1.0;
+    if x.abs() <= 0.5 {
+        small
+    } else {
+        big
+    }
+}
+
+macro_rules! lanes_fn {
+    ($(#[$doc:meta])* $name:ident, $one:ident) => {
+        $(#[$doc])*
+        #[inline(always)]
+        pub fn $name(x: &Lanes) -> Lanes {
+            let mut y = [0.0; LANES];
+            for i in 0..LANES {
+                y[i] = $one(x[i]);
+            }
+            y
+        }
+    };
+}
+
+lanes_fn!(
+    /// [`exp1`] on every lane.
+    exp,
+    exp1
+);
+lanes_fn!(
+    /// [`ln1`] on every lane.
+    ln,
+    ln1
+);
+lanes_fn!(
+    /// [`ln_1p1`] on every lane.
+    ln_1p,
+    ln_1p1
+);
+lanes_fn!(
+    /// [`exp_m1_small1`] on every lane (`|x| <= 0.5`).
+    exp_m1_small,
+    exp_m1_small1
+);
+lanes_fn!(
+    /// [`exp_m1_1`] on every lane.
+    exp_m1,
+    exp_m1_1
+);
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use rand::{Rng, SeedableRng};
+
+    /// Distance in units in the last place between two finite f64 of the same sign (0 when
+    /// both are the same value, infinities and NaNs compared by identity).
+    fn ulps(a: f64, b: f64) -> u64 {
+        if a == b || (a.is_nan() && b.is_nan()) {
+            return 0;
+        }
+        if a.is_nan() || b.is_nan() || a.is_infinite() || b.is_infinite() {
+            return u64::MAX;
+        }
+        let key = |x: f64| {
+            let i = x.to_bits() as i64;
+            if i < 0 {
+                i64::MIN - i
+            } else {
+                i
+            }
+        };
+        key(a).abs_diff(key(b))
+    }
+
+    /// Largest ulp error of `f` against the reference `g` (the standard library: the
+    /// platform's libm, itself within 1 ulp of exact) over `xs`, applied through the lanes.
+    fn max_ulps(xs: &[f64], f: fn(&Lanes) -> Lanes, g: fn(f64) -> f64) -> (u64, f64) {
+        let mut worst = (0, f64::NAN);
+        for chunk in xs.chunks(LANES) {
+            let mut x = [0.0; LANES];
+            x[..chunk.len()].copy_from_slice(chunk);
+            let y = f(&x);
+            for (i, &xi) in chunk.iter().enumerate() {
+                let u = ulps(y[i], g(xi));
+                if u > worst.0 {
+                    worst = (u, xi);
+                }
+            }
+        }
+        worst
+    }
+
+    /// Uniform points of [lo, hi], plus the ends and a fine grid.
+    fn uniform(lo: f64, hi: f64, n: usize, seed: u64) -> Vec<f64> {
+        let mut r = rand_chacha::ChaCha8Rng::seed_from_u64(seed);
+        let mut v: Vec<f64> = (0..n).map(|_| r.gen_range(lo..=hi)).collect();
+        v.extend((0..=1000).map(|i| lo + (hi - lo) * i as f64 / 1000.0));
+        v
+    }
+
+    /// Random bit patterns of positive f64 in [lo, hi] (log-uniform over the binades).
+    fn log_uniform(lo: f64, hi: f64, n: usize, seed: u64) -> Vec<f64> {
+        let mut r = rand_chacha::ChaCha8Rng::seed_from_u64(seed);
+        (0..n)
+            .map(|_| f64::from_bits(r.gen_range(lo.to_bits()..=hi.to_bits())))
+            .collect()
+    }
+
+    // Reference: the standard library (libm). Maximum errors stated in the module table and in
+    // DEVELOPERS.md (batched DC decisions).
+    #[test]
+    fn exp_within_2_ulp_of_std_over_its_range() {
+        let mut xs = uniform(-708.39, 709.78, 400_000, 1);
+        xs.extend(uniform(-1.0, 1.0, 100_000, 2));
+        xs.extend(uniform(-40.0, 2.0, 100_000, 3));
+        let (u, at) = max_ulps(&xs, exp, f64::exp);
+        assert!(u <= 2, "exp: {u} ulp at {at}");
+        // Subnormal results: absolute error within 2 of the smallest subnormal.
+        for x in uniform(-745.1, -708.4, 20_000, 4) {
+            let (a, b) = (exp(&[x; LANES])[0], x.exp());
+            assert!((a - b).abs() <= 2.0 * 4.9e-324, "{x}: {a:e} vs {b:e}");
+        }
+        for (x, want) in [
+            (-746.0, 0.0),
+            (f64::NEG_INFINITY, 0.0),
+            (710.0, f64::INFINITY),
+            (f64::INFINITY, f64::INFINITY),
+            (0.0, 1.0),
+        ] {
+            assert_eq!(exp(&[x; LANES])[0], want, "exp({x})");
+        }
+        assert!(exp(&[f64::NAN; LANES])[0].is_nan());
+    }
+
+    #[test]
+    fn ln_within_2_ulp_of_std_over_all_positive_doubles() {
+        let mut xs = log_uniform(f64::MIN_POSITIVE, f64::MAX, 400_000, 5);
+        xs.extend(log_uniform(5e-324, f64::MIN_POSITIVE, 20_000, 6));
+        xs.extend(uniform(0.5, 2.0, 200_000, 7));
+        xs.extend(uniform(1e-30, 1e-3, 50_000, 8));
+        let (u, at) = max_ulps(&xs, ln, f64::ln);
+        assert!(u <= 2, "ln: {u} ulp at {at}");
+        assert_eq!(ln(&[0.0; LANES])[0], f64::NEG_INFINITY);
+        assert_eq!(ln(&[1.0; LANES])[0], 0.0);
+        assert_eq!(ln(&[f64::INFINITY; LANES])[0], f64::INFINITY);
+        assert!(ln(&[-1.0; LANES])[0].is_nan());
+        assert!(ln(&[f64::NAN; LANES])[0].is_nan());
+    }
+
+    #[test]
+    fn ln_1p_within_3_ulp_of_std_over_its_range() {
+        let mut xs = uniform(-1.0 + 1e-16, 1.0, 200_000, 9);
+        xs.extend(log_uniform(1e-300, 1e300, 200_000, 10));
+        xs.extend(
+            log_uniform(1e-300, 1.0 - 1e-16, 200_000, 11)
+                .iter()
+                .map(|x| -x),
+        );
+        xs.extend(uniform(-0.02, 0.02, 100_000, 12));
+        let (u, at) = max_ulps(&xs, ln_1p, f64::ln_1p);
+        assert!(u <= 3, "ln_1p: {u} ulp at {at}");
+        assert_eq!(ln_1p(&[-1.0; LANES])[0], f64::NEG_INFINITY);
+        assert_eq!(ln_1p(&[0.0; LANES])[0], 0.0);
+        assert!(ln_1p(&[-1.5; LANES])[0].is_nan());
+    }
+
+    #[test]
+    fn exp_m1_within_2_ulp_of_std_on_small_arguments_and_3_elsewhere() {
+        let mut xs = uniform(-0.5, 0.5, 400_000, 13);
+        xs.extend(log_uniform(1e-300, 0.5, 100_000, 14));
+        xs.extend(log_uniform(1e-300, 0.5, 100_000, 15).iter().map(|x| -x));
+        let (u, at) = max_ulps(&xs, exp_m1_small, f64::exp_m1);
+        assert!(u <= 2, "exp_m1_small: {u} ulp at {at}");
+        let mut ys = uniform(0.5, 709.0, 200_000, 16);
+        ys.extend(uniform(-700.0, -0.5, 200_000, 17));
+        ys.extend(xs);
+        let (u, at) = max_ulps(&ys, exp_m1, f64::exp_m1);
+        assert!(u <= 3, "exp_m1: {u} ulp at {at}");
+    }
+}
