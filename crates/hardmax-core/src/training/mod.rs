@@ -12,10 +12,15 @@
 //!
 //! The two agree sample for sample (they differ only by rounding of the folded weights).
 
+pub mod hardware;
 mod linear;
 mod logistic;
 
 pub use linear::{argmax, LinearClassifier};
+pub use hardware::{
+    ElementModel, HardwareAwareOptions, HardwareAwareTrainer, HardwareTrained, Injection,
+    LevelSpacing, SoftCompetition,
+};
 pub use logistic::LogisticOptions;
 
 use ndarray::{Array2, ArrayView2};
