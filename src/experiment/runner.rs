@@ -13,7 +13,7 @@ use rayon::prelude::*;
 use serde_json::json;
 use sha2::{Digest, Sha256};
 
-use super::build::{build_point, cost_settings, prepare_data};
+use super::build::{build_point, cost_settings, prepare_data_trained};
 use super::config::Resolved;
 use super::results::{ChipRow, PointRecord, ResultsDir, ResultsError, FORMAT_NAME, FORMAT_VERSION};
 use super::shard::{Plan, ShardError, ShardSpec};
@@ -226,6 +226,8 @@ pub fn run(
     // dataset and training of every point are prepared first.
     let mut prepared: Vec<(usize, std::sync::Arc<Prepared>)> = Vec::new();
     let mut cache: Vec<(String, std::sync::Arc<Prepared>)> = Vec::new();
+    // Which trainer made each point's weights (hardware-aware: its convergence).
+    let mut trainers: Vec<serde_json::Value> = Vec::new();
     for (k, e) in resolved.at_point.iter().enumerate() {
         // Training depends on the dataset and training sections; with a hidden stage also on
         // the weight stage that shapes the hidden shares.
@@ -244,16 +246,35 @@ pub fn run(
                 String::new()
             }
         );
+        // Hardware-aware training trains through the point's whole design (gain, element,
+        // mismatch): keyed by the whole point, so a point never reuses another's weights.
+        let key = if e.training.hardware_aware != 0 {
+            format!("{key}|{}", toml::to_string(e).unwrap_or_default())
+        } else {
+            key
+        };
         let prep = match cache.iter().find(|(ck, _)| *ck == key) {
             Some((_, p)) => p.clone(),
             None => {
-                let p = std::sync::Arc::new(prepare_data(e, &base_dir).map_err(|m| {
-                    RunError::Point {
+                let (p, trained) =
+                    prepare_data_trained(e, &base_dir).map_err(|m| RunError::Point {
                         point: k,
                         settings: resolved.describe_point(&resolved.points[k]),
                         message: m.to_string(),
-                    }
-                })?);
+                    })?;
+                if let Some(t) = trained {
+                    let d = &t.diagnostics;
+                    trainers.push(json!({
+                        "point": k,
+                        "trainer": "hardware_aware",
+                        "epochs": t.epochs_run,
+                        "steps": t.steps,
+                        "objective": d.objective,
+                        "gradient_norm": d.gradient_norm,
+                        "converged": d.converged,
+                    }));
+                }
+                let p = std::sync::Arc::new(p);
                 cache.push((key, p.clone()));
                 p
             }
@@ -390,6 +411,25 @@ pub fn run(
         });
         if let (Some(o), Some(s)) = (m.as_object_mut(), plan.manifest_entry()) {
             o.insert("shard".into(), s);
+        }
+        if let (Some(o), false) = (m.as_object_mut(), trainers.is_empty()) {
+            // Which trainer made each point's weights (only written when one is not the float
+            // trainer, so existing folders keep their manifest).
+            let per_point: Vec<&str> = resolved
+                .at_point
+                .iter()
+                .map(|e| {
+                    if e.training.hardware_aware != 0 {
+                        "hardware_aware"
+                    } else {
+                        "float"
+                    }
+                })
+                .collect();
+            o.insert(
+                "trainer".into(),
+                json!({ "per_point": per_point, "hardware_aware": trainers }),
+            );
         }
         let bytes = serde_json::to_vec_pretty(&m).unwrap_or_default();
         write_atomic(&opts.out.join("manifest.json"), &bytes)

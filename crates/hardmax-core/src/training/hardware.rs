@@ -332,8 +332,7 @@ impl HardwareAwareTrainer {
         }
         if n_classes < 2 || y.iter().any(|&c| c >= n_classes) {
             return Err(TrainingError::Shape(
-                "labels must be class indices below the class count (at least two classes)"
-                    .into(),
+                "labels must be class indices below the class count (at least two classes)".into(),
             ));
         }
         if u.iter().any(|v| !v.is_finite()) {
@@ -375,15 +374,23 @@ impl HardwareAwareTrainer {
             epochs_run = epoch + 1;
             let lr = o.learning_rate * (1.0 - 0.9 * f64::from(epoch) / f64::from(o.epochs));
             order.sort_unstable();
-            order.shuffle(&mut stream(o.seed, &[domain::TRAINING, 0, u64::from(epoch)]));
+            order.shuffle(&mut stream(
+                o.seed,
+                &[domain::TRAINING, 0, u64::from(epoch)],
+            ));
             let mut sum_loss = 0.0;
             for chunk in order.chunks(batch) {
                 let xb = x.select(Axis(0), chunk);
                 let yb: Vec<usize> = chunk.iter().map(|&i| y[i]).collect();
                 let draw = self.draw(n_classes, f + 1, step);
                 // The batch estimates the summed objective: scale its data term by n / batch.
-                let (loss, grad) =
-                    self.loss_grad(&a, xb.view(), &yb, draw.as_ref(), n as f64 / chunk.len() as f64);
+                let (loss, grad) = self.loss_grad(
+                    &a,
+                    xb.view(),
+                    &yb,
+                    draw.as_ref(),
+                    n as f64 / chunk.len() as f64,
+                );
                 sum_loss += loss * chunk.len() as f64 / n as f64;
                 step += 1;
                 let t = step as i32;
@@ -435,12 +442,7 @@ impl HardwareAwareTrainer {
     }
 
     /// The objective (no injection) of weights [W | b] on scaled inputs `u`, labels `y`.
-    pub fn objective(
-        &self,
-        a: ArrayView2<'_, f64>,
-        u: ArrayView2<'_, f64>,
-        y: &[usize],
-    ) -> f64 {
+    pub fn objective(&self, a: ArrayView2<'_, f64>, u: ArrayView2<'_, f64>, y: &[usize]) -> f64 {
         let a = if self.element.is_some() {
             canonical(&a.to_owned()).0
         } else {
@@ -509,7 +511,9 @@ impl HardwareAwareTrainer {
             Some(d) => {
                 let mult = d.mismatch.mapv(|z| 1.0 + inj.weight_mismatch * z);
                 let tn = &tq * &mult
-                    + &(d.programming.mapv(|z| z * inj.programming_error * (e.w_max - e.w_min)));
+                    + &(d
+                        .programming
+                        .mapv(|z| z * inj.programming_error * (e.w_max - e.w_min)));
                 (tn, Some(mult))
             }
             None => (tq, None),
@@ -576,12 +580,15 @@ fn canonical(a: &Array2<f64>) -> (Array2<f64>, Vec<usize>, f64, (usize, usize)) 
     let mut argmin = Vec::with_capacity(a.ncols());
     let mut p = a.clone();
     for (i, mut col) in p.columns_mut().into_iter().enumerate() {
-        let (r, c) = a
-            .column(i)
-            .iter()
-            .copied()
-            .enumerate()
-            .fold((0, f64::INFINITY), |b, (r, v)| if v < b.1 { (r, v) } else { b });
+        let (r, c) =
+            a.column(i)
+                .iter()
+                .copied()
+                .enumerate()
+                .fold(
+                    (0, f64::INFINITY),
+                    |b, (r, v)| if v < b.1 { (r, v) } else { b },
+                );
         argmin.push(r);
         col.mapv_inplace(|v| v - c);
     }
@@ -633,7 +640,10 @@ fn plateau(losses: &[f64], tol: f64) -> bool {
         return false;
     }
     let last: f64 = losses[losses.len() - k..].iter().sum::<f64>() / k as f64;
-    let before: f64 = losses[losses.len() - 2 * k..losses.len() - k].iter().sum::<f64>() / k as f64;
+    let before: f64 = losses[losses.len() - 2 * k..losses.len() - k]
+        .iter()
+        .sum::<f64>()
+        / k as f64;
     (before - last).abs() <= tol * before.abs().max(1e-300)
 }
 
@@ -721,6 +731,70 @@ mod tests {
                     }
                 }
             }
+        }
+    }
+
+    /// linfa as the outside reference (DEVELOPERS.md model notes §6.2): with nothing injected,
+    /// the float soft model and no element constraints, the trainer minimises linfa-logistic
+    /// 0.8.1's multinomial objective `sum -log softmax(u W^T + b)[y] + (l2/2) ||W||^2`. On iris
+    /// and wine (min-max scaled training split, l2 = 0.3) linfa converges to a gradient norm of
+    /// 1e-8; our Adam run (full batch) must reach the same objective within 1e-4 relative (the
+    /// objective is flat near the optimum: a gradient norm of 1e-2 leaves a gap below 1e-5 of
+    /// these objectives) and make the same test-split predictions.
+    #[test]
+    fn without_injection_reaches_linfas_objective_and_predictions() {
+        use crate::data::{stratified_split, Dataset, MinMaxScaler};
+        use crate::training::{LogisticOptions, Trainer};
+        for name in ["iris", "wine"] {
+            let ds = Dataset::builtin(name).unwrap();
+            let (train, test) = stratified_split(&ds, 0.3, 1).unwrap();
+            let opts = LogisticOptions {
+                l2: 0.3,
+                gradient_tolerance: 1e-8,
+                max_iterations: 5000,
+                ..Default::default()
+            };
+            let linfa = opts.train(&train).unwrap();
+            let scaler = MinMaxScaler::fit(train.x.view()).unwrap();
+            let u = scaler.transform(train.x.view()).unwrap();
+            let ut = scaler.transform(test.x.view()).unwrap();
+            let t = HardwareAwareTrainer::new(
+                HardwareAwareOptions {
+                    epochs: 4000,
+                    learning_rate: 0.05,
+                    batch_size: usize::MAX,
+                    l2: 0.3,
+                    gradient_tolerance: 1e-3,
+                    ..Default::default()
+                },
+                SoftCompetition::Float,
+                None,
+            )
+            .unwrap();
+            let ours = t.train(u.view(), &train.y, ds.n_classes(), None).unwrap();
+            let mut a_linfa = Array2::zeros((ds.n_classes(), ds.n_features() + 1));
+            a_linfa
+                .slice_mut(s![.., ..ds.n_features()])
+                .assign(&linfa.linear.weights);
+            a_linfa
+                .column_mut(ds.n_features())
+                .assign(&linfa.linear.bias);
+            let reference = t.objective(a_linfa.view(), u.view(), &train.y);
+            let rel = (ours.diagnostics.objective - reference).abs() / reference;
+            assert!(
+                rel < 1e-4,
+                "{name}: objective {} vs linfa {reference} (relative {rel:.2e}, gradient {:.2e}, epochs {})",
+                ours.diagnostics.objective,
+                ours.diagnostics.gradient_norm,
+                ours.epochs_run
+            );
+            assert!(ours.diagnostics.converged, "{name}: {:?}", ours.diagnostics);
+            let mine = crate::training::LinearClassifier::new(ours.weights, ours.bias)
+                .unwrap()
+                .predict(ut.view())
+                .unwrap();
+            let theirs = linfa.predict_baseline(test.x.view()).unwrap();
+            assert_eq!(mine, theirs, "{name}: test-split predictions differ");
         }
     }
 

@@ -16,11 +16,11 @@ pub mod hardware;
 mod linear;
 mod logistic;
 
-pub use linear::{argmax, LinearClassifier};
 pub use hardware::{
     ElementModel, HardwareAwareOptions, HardwareAwareTrainer, HardwareTrained, Injection,
     LevelSpacing, SoftCompetition,
 };
+pub use linear::{argmax, LinearClassifier};
 pub use logistic::LogisticOptions;
 
 use ndarray::{Array2, ArrayView2};
