@@ -370,6 +370,10 @@ impl HardwareAwareTrainer {
         let mut epoch_loss = Vec::with_capacity(o.epochs as usize);
         let mut epochs_run = 0;
         let mut stopped_by_gradient = false;
+        // The weights kept: the lowest objective without injection (levels rounded when asked)
+        // at the start or after any epoch (with injection the last iterate is one noisy step;
+        // keeping the best iterate is common practice, no source).
+        let mut best = (self.loss_grad(&a, x.view(), y, None, 1.0).0, a.clone());
         for epoch in 0..o.epochs {
             epochs_run = epoch + 1;
             let lr = o.learning_rate * (1.0 - 0.9 * f64::from(epoch) / f64::from(o.epochs));
@@ -412,14 +416,16 @@ impl HardwareAwareTrainer {
                 }
             }
             epoch_loss.push(sum_loss);
-            if !o.injection.any() {
-                let (_, g) = self.loss_grad(&a, x.view(), y, None, 1.0);
-                if norm(&g) <= o.gradient_tolerance {
-                    stopped_by_gradient = true;
-                    break;
-                }
+            let (obj, g) = self.loss_grad(&a, x.view(), y, None, 1.0);
+            if obj <= best.0 {
+                best = (obj, a.clone());
+            }
+            if !o.injection.any() && norm(&g) <= o.gradient_tolerance {
+                stopped_by_gradient = true;
+                break;
             }
         }
+        let a = best.1;
         let (objective, g) = self.loss_grad(&a, x.view(), y, None, 1.0);
         let gradient_norm = norm(&g);
         let converged = if o.injection.any() {
