@@ -370,10 +370,6 @@ impl HardwareAwareTrainer {
         let mut epoch_loss = Vec::with_capacity(o.epochs as usize);
         let mut epochs_run = 0;
         let mut stopped_by_gradient = false;
-        // The weights kept: the lowest objective without injection (levels rounded when asked)
-        // at the start or after any epoch (with injection the last iterate is one noisy step;
-        // keeping the best iterate is common practice, no source).
-        let mut best = (self.loss_grad(&a, x.view(), y, None, 1.0).0, a.clone());
         for epoch in 0..o.epochs {
             epochs_run = epoch + 1;
             let lr = o.learning_rate * (1.0 - 0.9 * f64::from(epoch) / f64::from(o.epochs));
@@ -416,16 +412,14 @@ impl HardwareAwareTrainer {
                 }
             }
             epoch_loss.push(sum_loss);
-            let (obj, g) = self.loss_grad(&a, x.view(), y, None, 1.0);
-            if obj <= best.0 {
-                best = (obj, a.clone());
-            }
-            if !o.injection.any() && norm(&g) <= o.gradient_tolerance {
-                stopped_by_gradient = true;
-                break;
+            if !o.injection.any() {
+                let (_, g) = self.loss_grad(&a, x.view(), y, None, 1.0);
+                if norm(&g) <= o.gradient_tolerance {
+                    stopped_by_gradient = true;
+                    break;
+                }
             }
         }
-        let a = best.1;
         let (objective, g) = self.loss_grad(&a, x.view(), y, None, 1.0);
         let gradient_norm = norm(&g);
         let converged = if o.injection.any() {
@@ -606,7 +600,7 @@ fn canonical(a: &Array2<f64>) -> (Array2<f64>, Vec<usize>, f64, (usize, usize)) 
             best = (j, i);
         }
     }
-    if !(m > 0.0) {
+    if m.partial_cmp(&0.0) != Some(std::cmp::Ordering::Greater) {
         return (p, argmin, 1.0, best);
     }
     p.mapv_inplace(|v| v / m);
@@ -826,17 +820,19 @@ mod tests {
                 .unwrap_err()
                 .to_string()
         };
-        let mut o = HardwareAwareOptions::default();
-        o.learning_rate = 0.0;
-        assert!(e(o.clone()).contains("learning_rate"));
-        o = HardwareAwareOptions::default();
+        let d = HardwareAwareOptions::default;
+        let o = HardwareAwareOptions {
+            learning_rate: 0.0,
+            ..d()
+        };
+        assert!(e(o).contains("learning_rate"));
+        let mut o = d();
         o.injection.weight_mismatch = -0.1;
-        assert!(e(o.clone()).contains("weight_mismatch"));
-        o = HardwareAwareOptions::default();
+        assert!(e(o).contains("weight_mismatch"));
+        let mut o = d();
         o.injection.competition_offset = f64::NAN;
-        assert!(e(o.clone()).contains("competition_offset"));
-        o = HardwareAwareOptions::default();
-        o.epochs = 0;
+        assert!(e(o).contains("competition_offset"));
+        let o = HardwareAwareOptions { epochs: 0, ..d() };
         assert!(e(o).contains("epochs"));
         let no_element = HardwareAwareTrainer::new(
             HardwareAwareOptions::default(),
