@@ -136,8 +136,17 @@ pub fn load_dataset(e: &Experiment, base_dir: &Path) -> Result<Dataset, BuildErr
     }
 }
 
-/// Load, split and train: the circuit-independent part of a point.
+/// Load, split and train: the circuit-independent part of a point (with hardware-aware
+/// training, the read-out retrained through the point's design).
 pub fn prepare_data(e: &Experiment, base_dir: &Path) -> Result<Prepared, BuildError> {
+    prepare_data_trained(e, base_dir).map(|(p, _)| p)
+}
+
+/// [`prepare_data`], with the hardware-aware trainer's result when it made the weights.
+pub fn prepare_data_trained(
+    e: &Experiment,
+    base_dir: &Path,
+) -> Result<(Prepared, Option<crate::training::HardwareTrained>), BuildError> {
     let ds = load_dataset(e, base_dir)?;
     let trainer = LogisticOptions {
         l2: e.training.l2,
@@ -167,6 +176,9 @@ pub fn prepare_data(e: &Experiment, base_dir: &Path) -> Result<Prepared, BuildEr
             ..trainer.clone()
         },
     });
+    if e.training.hardware_aware != 0 {
+        return prepare_hardware_aware(e, &ds, &trainer).map(|(p, t)| (p, Some(t)));
+    }
     prepare(
         &ds,
         e.dataset.test_fraction,
@@ -175,7 +187,91 @@ pub fn prepare_data(e: &Experiment, base_dir: &Path) -> Result<Prepared, BuildEr
         &trainer,
         hidden.as_ref(),
     )
+    .map(|p| (p, None))
     .map_err(BuildError::from)
+}
+
+/// The hardware-aware trainer's settings of an experiment (`[training.hardware]`).
+pub fn hardware_training(e: &Experiment) -> crate::pipeline::hwtrain::HardwareTraining {
+    let h = e.training.hardware.clone().unwrap_or_default();
+    crate::pipeline::hwtrain::HardwareTraining {
+        options: crate::training::HardwareAwareOptions {
+            epochs: h.epochs,
+            learning_rate: h.learning_rate,
+            batch_size: usize::try_from(h.batch_size).unwrap_or(usize::MAX),
+            seed: h.seed,
+            l2: e.training.l2,
+            ..Default::default()
+        },
+        weight_mismatch: h.weight_mismatch,
+        programming_error: h.programming_error,
+        competition_offset: h.competition_offset,
+        quantise: h.quantise,
+    }
+}
+
+/// The hardware-aware trainer for an experiment point and the number of classes.
+fn hardware_trainer(
+    e: &Experiment,
+    n_classes: usize,
+) -> Result<crate::training::HardwareAwareTrainer, BuildError> {
+    let d = design(e, n_classes)?;
+    crate::pipeline::hwtrain::trainer_for(
+        &d.weights,
+        &d.competition,
+        &d.process,
+        d.conditions.temperature_k,
+        &hardware_training(e),
+    )
+    .map_err(|err| hardware_keyed(err, "training.hardware_aware"))
+}
+
+/// A hardware-aware training refusal keyed by the option it names (`fallback` otherwise).
+fn hardware_keyed(err: PipelineError, fallback: &'static str) -> BuildError {
+    let key = match &err {
+        PipelineError::Training(crate::training::TrainingError::InvalidOption { key, .. }) => {
+            match *key {
+                "epochs" => "training.hardware.epochs",
+                "learning_rate" => "training.hardware.learning_rate",
+                "batch_size" => "training.hardware.batch_size",
+                "weight_mismatch" => "training.hardware.weight_mismatch",
+                "programming_error" => "training.hardware.programming_error",
+                "competition_offset" => "training.hardware.competition_offset",
+                "l2" => "training.l2",
+                "range_use" => "weights.range_use",
+                "levels" => "weights.levels",
+                _ => fallback,
+            }
+        }
+        _ => fallback,
+    };
+    BuildError::Keyed {
+        key,
+        source: Box::new(err),
+    }
+}
+
+/// Float training (the baseline), then the read-out retrained through this point's design.
+/// Returns the prepared classifier and the hardware-aware trainer's result.
+pub fn prepare_hardware_aware(
+    e: &Experiment,
+    ds: &crate::data::Dataset,
+    float: &LogisticOptions,
+) -> Result<(Prepared, crate::training::HardwareTrained), BuildError> {
+    let trainer = hardware_trainer(e, ds.n_classes())?;
+    crate::pipeline::hwtrain::prepare_hardware_aware(
+        ds,
+        e.dataset.test_fraction,
+        e.dataset.split_seed,
+        e.dataset.allow_untested_classes,
+        float,
+        &trainer,
+    )
+    .map_err(|err| match err {
+        err @ PipelineError::Training(_) => hardware_keyed(err, "training.hardware"),
+        err @ PipelineError::Unsupported { .. } => hardware_keyed(err, "training.hardware_aware"),
+        other => other.into(),
+    })
 }
 
 fn transistor(s: &SizeCfg) -> Transistor {
@@ -640,6 +736,27 @@ pub fn check_with_core(e: &Experiment) -> Result<(), CoreRefusal> {
         .map_err(|err| competition_refusal(prefix, err))
     };
     stage_check("competition", &d.competition)?;
+    if e.training.hardware_aware != 0 {
+        hardware_trainer(e, 2).map_err(|err| match err {
+            BuildError::Keyed { key, source } => {
+                CoreRefusal {
+                    key: key.into(),
+                    value: None,
+                    message: match *source {
+                        PipelineError::Training(
+                            crate::training::TrainingError::InvalidOption { value, hint, .. },
+                        ) => format!("{value} is out of range: {hint}"),
+                        other => other.to_string(),
+                    },
+                }
+            }
+            other => CoreRefusal {
+                key: "training".into(),
+                value: None,
+                message: other.to_string(),
+            },
+        })?;
+    }
     if let Some(h) = &d.hidden_circuit {
         stage_check("hidden", h)?;
     }

@@ -128,6 +128,78 @@ pub struct TrainingCfg {
     pub max_iterations: u64,
     /// Train on standardised features (folded back into the [0, 1]-input weights).
     pub standardize: bool,
+    /// Which trainer makes the read-out weights: 0 = float (linfa, the default), 1 =
+    /// hardware-aware (trained through this point's competition stage, element levels and
+    /// injected nonidealities; `[training.hardware]`). A number so that a sweep axis can compare
+    /// the two on the same dies; `true`/`false` are read as 1/0.
+    #[serde(
+        skip_serializing_if = "is_float_trainer",
+        deserialize_with = "trainer_switch"
+    )]
+    pub hardware_aware: u8,
+    /// Options of the hardware-aware trainer (defaults when absent).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub hardware: Option<HardwareTrainingCfg>,
+}
+
+fn is_float_trainer(v: &u8) -> bool {
+    *v == 0
+}
+
+/// `training.hardware_aware`: 0 or 1 (or `false` / `true`).
+fn trainer_switch<'de, D: serde::Deserializer<'de>>(d: D) -> Result<u8, D::Error> {
+    #[derive(Deserialize)]
+    #[serde(untagged)]
+    enum Switch {
+        Bool(bool),
+        Int(i64),
+    }
+    match Switch::deserialize(d)? {
+        Switch::Bool(b) => Ok(u8::from(b)),
+        Switch::Int(i @ 0..=1) => Ok(i as u8),
+        Switch::Int(i) => Err(serde::de::Error::custom(format!(
+            "{i}: use 0 (float trainer) or 1 (hardware-aware trainer)"
+        ))),
+    }
+}
+
+/// `[training.hardware]`: the hardware-aware trainer (DEVELOPERS.md model notes §6.2). An
+/// injection strength left out is the design's own (element mismatch and programming error
+/// from `[weights]`, the WTA's input-referred offset from its transistors' Pelgrom spreads).
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields, default)]
+pub struct HardwareTrainingCfg {
+    pub epochs: u32,
+    pub learning_rate: f64,
+    pub batch_size: u64,
+    pub seed: u64,
+    /// Relative sigma of each element's value injected per step.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub weight_mismatch: Option<f64>,
+    /// Sigma of each element's programming error, as a fraction of the element range.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub programming_error: Option<f64>,
+    /// Relative sigma of each competition line's input-referred offset.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub competition_offset: Option<f64>,
+    /// Round the weights to the element's levels while training (straight-through gradient).
+    pub quantise: bool,
+}
+
+impl Default for HardwareTrainingCfg {
+    fn default() -> Self {
+        let d = crate::training::HardwareAwareOptions::default();
+        Self {
+            epochs: d.epochs,
+            learning_rate: d.learning_rate,
+            batch_size: d.batch_size as u64,
+            seed: d.seed,
+            weight_mismatch: None,
+            programming_error: None,
+            competition_offset: None,
+            quantise: true,
+        }
+    }
 }
 
 impl Default for TrainingCfg {
@@ -137,6 +209,8 @@ impl Default for TrainingCfg {
             l2: d.l2,
             max_iterations: d.max_iterations,
             standardize: d.standardize,
+            hardware_aware: 0,
+            hardware: None,
         }
     }
 }
@@ -713,6 +787,13 @@ impl Experiment {
             };
         }
         e.weights.offset_current = Some(Q::new(1e-9));
+        e.training.hardware_aware = 1;
+        e.training.hardware = Some(HardwareTrainingCfg {
+            weight_mismatch: Some(0.01),
+            programming_error: Some(0.01),
+            competition_offset: Some(0.01),
+            ..HardwareTrainingCfg::default()
+        });
         e.weights.w_min = Some(0.0);
         e.competition.gain = Some(300.0);
         e.competition.output_voltage = Some(Q::new(1.8));

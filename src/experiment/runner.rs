@@ -12,7 +12,7 @@ use std::time::Instant;
 use rayon::prelude::*;
 use sha2::{Digest, Sha256};
 
-use super::build::{build_point, cost_settings, prepare_data};
+use super::build::{build_point, cost_settings, prepare_data_trained};
 use super::config::Resolved;
 use super::results::{
     chip_rows_csv, ChipRow, ChipStats, PointRecord, ResultsDir, ResultsError, FORMAT_NAME,
@@ -20,8 +20,8 @@ use super::results::{
 };
 use super::shard::{Plan, ShardError, ShardSpec};
 use crate::format::{
-    DatasetInfo, HostInfo, InputFile, Manifest, Pairing, RunStatus, Sweep, SweepMode,
-    SweepParameter,
+    DatasetInfo, HardwareTraining, HostInfo, InputFile, Manifest, Pairing, RunStatus, Sweep,
+    SweepMode, SweepParameter, TrainerInfo,
 };
 use crate::io::write_atomic;
 use crate::pipeline::cost::{mean_input, point_cost};
@@ -221,6 +221,8 @@ pub fn run(
     // dataset and training of every point are prepared first.
     let mut prepared: Vec<(usize, std::sync::Arc<Prepared>)> = Vec::new();
     let mut cache: Vec<(String, std::sync::Arc<Prepared>)> = Vec::new();
+    // Which trainer made each point's weights (hardware-aware: its convergence).
+    let mut trainers: Vec<HardwareTraining> = Vec::new();
     for (k, e) in resolved.at_point.iter().enumerate() {
         // Training depends on the dataset and training sections; with a hidden stage also on
         // the weight stage that shapes the hidden shares.
@@ -239,16 +241,35 @@ pub fn run(
                 String::new()
             }
         );
+        // Hardware-aware training trains through the point's whole design (gain, element,
+        // mismatch): keyed by the whole point, so a point never reuses another's weights.
+        let key = if e.training.hardware_aware != 0 {
+            format!("{key}|{}", toml::to_string(e).unwrap_or_default())
+        } else {
+            key
+        };
         let prep = match cache.iter().find(|(ck, _)| *ck == key) {
             Some((_, p)) => p.clone(),
             None => {
-                let p = std::sync::Arc::new(prepare_data(e, &base_dir).map_err(|m| {
-                    RunError::Point {
+                let (p, trained) =
+                    prepare_data_trained(e, &base_dir).map_err(|m| RunError::Point {
                         point: k,
                         settings: resolved.describe_point(&resolved.points[k]),
                         message: m.to_string(),
-                    }
-                })?);
+                    })?;
+                if let Some(t) = trained {
+                    let d = &t.diagnostics;
+                    trainers.push(HardwareTraining {
+                        point: k as u64,
+                        trainer: "hardware_aware".into(),
+                        epochs: t.epochs_run as u64,
+                        steps: t.steps as u64,
+                        objective: d.objective,
+                        gradient_norm: d.gradient_norm,
+                        converged: d.converged,
+                    });
+                }
+                let p = std::sync::Arc::new(p);
                 cache.push((key, p.clone()));
                 p
             }
@@ -396,6 +417,20 @@ pub fn run(
             elapsed_s: t0.elapsed().as_secs_f64(),
             shard: plan.manifest_entry(),
             merged_from: None,
+            trainer: (!trainers.is_empty()).then(|| TrainerInfo {
+                per_point: resolved
+                    .at_point
+                    .iter()
+                    .map(|e| {
+                        if e.training.hardware_aware != 0 {
+                            "hardware_aware".to_string()
+                        } else {
+                            "float".to_string()
+                        }
+                    })
+                    .collect(),
+                hardware_aware: trainers.clone(),
+            }),
         }
         .write(&opts.out.join("manifest.json"))
     };

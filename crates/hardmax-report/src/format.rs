@@ -246,6 +246,32 @@ pub struct Manifest {
     /// Present in a merged folder only.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub merged_from: Option<Vec<MergedFrom>>,
+    /// Which trainer made each point's weights; present only when some point used the
+    /// hardware-aware trainer (float-only folders keep their manifest unchanged).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub trainer: Option<TrainerInfo>,
+}
+
+/// The manifest's record of the trainers behind a run's weights.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub struct TrainerInfo {
+    /// `float` or `hardware_aware`, one per sweep point.
+    pub per_point: Vec<String>,
+    /// Each hardware-aware training (one per distinct prepared read-out) and how it ended.
+    pub hardware_aware: Vec<HardwareTraining>,
+}
+
+/// How one hardware-aware training ended.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub struct HardwareTraining {
+    /// The first sweep point that used these weights.
+    pub point: u64,
+    pub trainer: String,
+    pub epochs: u64,
+    pub steps: u64,
+    pub objective: f64,
+    pub gradient_norm: f64,
+    pub converged: bool,
 }
 
 /// A manifest that cannot be read; each names the file and says what to do.
@@ -485,6 +511,7 @@ mod tests {
             elapsed_s: 1.5,
             shard: None,
             merged_from: None,
+            trainer: None,
         }
     }
 

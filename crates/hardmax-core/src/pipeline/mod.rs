@@ -18,6 +18,7 @@
 
 pub mod budget;
 pub mod cost;
+pub mod hwtrain;
 pub mod sizing;
 
 use ndarray::{Array1, Array2, ArrayView1, ArrayView2, Axis};

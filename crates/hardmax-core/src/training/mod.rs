@@ -12,9 +12,14 @@
 //!
 //! The two agree sample for sample (they differ only by rounding of the folded weights).
 
+pub mod hardware;
 mod linear;
 mod logistic;
 
+pub use hardware::{
+    ElementModel, HardwareAwareOptions, HardwareAwareTrainer, HardwareTrained, Injection,
+    LevelSpacing, SoftCompetition,
+};
 pub use linear::{argmax, LinearClassifier};
 pub use logistic::LogisticOptions;
 

@@ -1,0 +1,197 @@
+//! Hardware-aware training of a design point's read-out (DEVELOPERS.md model notes §6.2): the
+//! float (linfa) model is trained first and gives the baseline; its weights start the
+//! hardware-aware trainer, which trains through this design's competition stage (its gain), its
+//! element (range, levels) and injected draws of its nonidealities. The result replaces the
+//! prepared classifier's weights and ideal argmax; the float baseline stays the reference.
+
+use ndarray::{s, Array2};
+
+use super::{prepare, CompetitionDesign, PipelineError, Prepared};
+use crate::data::{Dataset, MinMaxScaler};
+use crate::device::mismatch::{device_sigma_beta_rel, device_sigma_vt0};
+use crate::physics::thermal_voltage;
+use crate::stages::weights::{ElementDesign, SigmaKind, SignedEncoding, WeightStageDesign};
+use crate::training::{
+    accuracy, ElementModel, HardwareAwareOptions, HardwareAwareTrainer, HardwareTrained, Injection,
+    LevelSpacing, LinearClassifier, SoftCompetition, Trainer,
+};
+
+/// The hardware-aware trainer's settings: its options, and each injection strength given
+/// (`Some`) or taken from the design (`None`, [`design_injection`]).
+#[derive(Debug, Clone, PartialEq)]
+pub struct HardwareTraining {
+    /// Optimiser options (`injection` is filled from the fields below).
+    pub options: HardwareAwareOptions,
+    pub weight_mismatch: Option<f64>,
+    pub programming_error: Option<f64>,
+    pub competition_offset: Option<f64>,
+    /// Round to the element's levels in the forward pass.
+    pub quantise: bool,
+}
+
+/// The strengths of the design's own nonidealities, as the trainer injects them:
+/// - element mismatch (relative): a linear element's relative programming error; a
+///   subthreshold element's `sqrt((kappa sqrt(sigma_VT^2 + sigma_prog^2) / U_T)^2 +
+///   sigma_beta^2)` with its device's own Pelgrom spreads (model notes §3, §5), only the
+///   programming error when program-and-verify compensates the mismatch;
+/// - programming error (additive, in units of the element range): a linear element's absolute
+///   programming error;
+/// - competition offset (relative, input-referred): a WTA sink's own threshold and current
+///   factor spread, `sqrt((kappa sigma_VT / U_T)^2 + sigma_beta^2)`, plus the output
+///   transistor's divided by the gain g (model notes §4.1).
+pub fn design_injection(
+    weights: &WeightStageDesign,
+    competition: &CompetitionDesign,
+    process: &crate::device::Process,
+    temperature_k: f64,
+) -> (f64, f64, f64) {
+    let ut = thermal_voltage(temperature_k);
+    let (mismatch, programming) = match &weights.element {
+        ElementDesign::Linear(e) => match e.programming_error.kind {
+            SigmaKind::Relative => (e.programming_error.sigma, 0.0),
+            SigmaKind::Absolute => (0.0, e.programming_error.sigma / (e.w_max - e.w_min)),
+        },
+        ElementDesign::Subthreshold(e) => {
+            let tech = process.tech(e.device.polarity);
+            let kappa = 1.0 / tech.n;
+            let ut0 = thermal_voltage(e.program_temperature_k);
+            let (vt, beta) = if e.verify_compensates_mismatch {
+                (0.0, 0.0)
+            } else {
+                (
+                    device_sigma_vt0(tech, &e.device),
+                    device_sigma_beta_rel(tech, &e.device),
+                )
+            };
+            let v = (vt * vt + e.programming_error_v * e.programming_error_v).sqrt();
+            (((kappa * v / ut0).powi(2) + beta * beta).sqrt(), 0.0)
+        }
+    };
+    let offset = match competition {
+        CompetitionDesign::CurrentWta(w) => {
+            let tech = &w.process.nmos;
+            let kappa = 1.0 / tech.n;
+            let g = wta_gain(w);
+            let one = |t: &crate::device::Transistor| {
+                let vt = device_sigma_vt0(tech, t);
+                let b = device_sigma_beta_rel(tech, t);
+                (kappa * vt / ut).powi(2) + b * b
+            };
+            (one(&w.sink) + one(&w.output) / (g * g)).sqrt()
+        }
+        _ => 0.0,
+    };
+    (mismatch, programming, offset)
+}
+
+/// The current-mode WTA's weak-inversion gain g = kappa / sigma (model notes §4.1).
+pub fn wta_gain(w: &crate::stages::competition::wta::WtaDesign) -> f64 {
+    (1.0 / w.process.nmos.n) / w.sink_sigma()
+}
+
+/// The trainer for a design: the WTA's gain and the element as the shifted encoding places
+/// targets on it. Other competition stages and the differential encoding are refused.
+pub fn trainer_for(
+    weights: &WeightStageDesign,
+    competition: &CompetitionDesign,
+    process: &crate::device::Process,
+    temperature_k: f64,
+    spec: &HardwareTraining,
+) -> Result<HardwareAwareTrainer, PipelineError> {
+    let CompetitionDesign::CurrentWta(w) = competition else {
+        return Err(PipelineError::Unsupported {
+            what: "hardware-aware training trains through the current-mode WTA's closed form: \
+                   use competition.circuit = \"current_wta\", or training.hardware_aware = 0",
+        });
+    };
+    if !matches!(weights.encoding, SignedEncoding::Shifted) {
+        return Err(PipelineError::Unsupported {
+            what: "hardware-aware training places weights with the shifted encoding: use \
+                   weights.encoding = \"shifted\", or training.hardware_aware = 0",
+        });
+    }
+    let element = match &weights.element {
+        ElementDesign::Linear(e) => ElementModel {
+            w_min: e.w_min,
+            w_max: e.w_max,
+            range_use: weights.range_use,
+            levels: e.levels,
+            spacing: LevelSpacing::Linear,
+        },
+        ElementDesign::Subthreshold(e) => ElementModel {
+            w_min: e.w_min,
+            w_max: e.w_max,
+            range_use: weights.range_use,
+            levels: e.levels,
+            spacing: LevelSpacing::Logarithmic,
+        },
+    };
+    let (m, p, o) = design_injection(weights, competition, process, temperature_k);
+    let mut options = spec.options.clone();
+    options.injection = Injection {
+        weight_mismatch: spec.weight_mismatch.unwrap_or(m),
+        programming_error: spec.programming_error.unwrap_or(p),
+        competition_offset: spec.competition_offset.unwrap_or(o),
+        quantise: spec.quantise,
+    };
+    Ok(HardwareAwareTrainer::new(
+        options,
+        SoftCompetition::PowerLaw { gain: wta_gain(w) },
+        Some(element),
+    )?)
+}
+
+/// Retrain `prep`'s read-out through the design (see the module docs). `dataset`,
+/// `test_fraction` and `split_seed` must be those `prep` was made from (the training split is
+/// drawn again, identically).
+pub fn retrain(
+    prep: &Prepared,
+    dataset: &Dataset,
+    test_fraction: f64,
+    split_seed: u64,
+    trainer: &HardwareAwareTrainer,
+) -> Result<(Prepared, HardwareTrained), PipelineError> {
+    if prep.hidden.is_some() || prep.layers.len() != 1 {
+        return Err(PipelineError::Unsupported {
+            what: "hardware-aware training covers the read-out stage without a hidden stage: \
+                   set hidden.units = 0, or training.hardware_aware = 0",
+        });
+    }
+    let (train, _, _) =
+        crate::data::stratified_split_allowing_untested(dataset, test_fraction, split_seed)?;
+    let scaler = MinMaxScaler::fit(train.x.view())?;
+    let u = scaler.transform(train.x.view())?;
+    let (w0, b0) = &prep.layers[0];
+    let f = w0.ncols();
+    let mut a0 = Array2::zeros((w0.nrows(), f + 1));
+    a0.slice_mut(s![.., ..f]).assign(w0);
+    a0.column_mut(f).assign(b0);
+    let trained = trainer.train(u.view(), &train.y, prep.class_names.len(), Some(a0.view()))?;
+    let linear = LinearClassifier::new(trained.weights.clone(), trained.bias.clone())?;
+    let ideal_pred = linear.predict(prep.test_u.view())?;
+    let mut out = prep.clone();
+    out.ideal_acc = accuracy(&ideal_pred, &out.test_y);
+    out.ideal_pred = ideal_pred;
+    out.layers = vec![(trained.weights.clone(), trained.bias.clone())];
+    Ok((out, trained))
+}
+
+/// Split, train the float model (the baseline), then retrain through the design.
+pub fn prepare_hardware_aware(
+    dataset: &Dataset,
+    test_fraction: f64,
+    split_seed: u64,
+    allow_untested_classes: bool,
+    float_trainer: &dyn Trainer,
+    trainer: &HardwareAwareTrainer,
+) -> Result<(Prepared, HardwareTrained), PipelineError> {
+    let prep = prepare(
+        dataset,
+        test_fraction,
+        split_seed,
+        allow_untested_classes,
+        float_trainer,
+        None,
+    )?;
+    retrain(&prep, dataset, test_fraction, split_seed, trainer)
+}
