@@ -21,6 +21,7 @@ pub mod decision;
 pub mod diffpair;
 #[cfg(test)]
 mod ideal_normaliser;
+pub mod kwta;
 pub mod mos;
 pub mod noise;
 pub mod source;
@@ -32,7 +33,7 @@ use std::fmt;
 use thiserror::Error;
 
 pub use circuit::{Branch, CircuitMessages, DcStrategy, SharedNodeCircuit};
-pub use decision::{Decision, DecisionRule};
+pub use decision::{Decision, DecisionRule, TopK};
 pub use diffpair::{DiffPairChip, DiffPairCircuit, DiffPairDesign, DiffPairInput};
 pub use noise::{InputShotNoise, NoiseBandwidth};
 pub use source::CurrentSource;
