@@ -14,6 +14,7 @@
 //! Numerical core: no I/O, no printing.
 
 pub mod analysis;
+pub mod cascade;
 pub mod circuit;
 mod common;
 pub mod dc;
