@@ -371,12 +371,19 @@ pub fn run(
             ),
             "sweep": {
                 "mode": match base.sweep.combine { super::sweep::Combine::Grid => "grid", super::sweep::Combine::Zip => "zip" },
-                "parameters": resolved.axes.iter().map(|a| json!({
-                    "path": a.path,
-                    "unit": a.unit,
-                    "scale": match a.spacing { super::sweep::Spacing::Log => "log", super::sweep::Spacing::Linear => "linear" },
-                    "values": a.values,
-                })).collect::<Vec<_>>(),
+                "parameters": resolved.axes.iter().map(|a| {
+                    let mut o = json!({
+                        "path": a.path,
+                        "unit": a.unit,
+                        "scale": match a.spacing { super::sweep::Spacing::Log => "log", super::sweep::Spacing::Linear => "linear" },
+                        "values": a.values,
+                    });
+                    // A text axis: the values are indices of these texts.
+                    if let Some(l) = &a.labels {
+                        o["labels"] = json!(l);
+                    }
+                    o
+                }).collect::<Vec<_>>(),
             },
             "command": opts.command,
             "host": {

@@ -47,6 +47,9 @@ pub struct SweepParameter {
     pub unit: String,
     pub scale: Scale,
     pub values: Vec<f64>,
+    /// A text parameter (e.g. `competition.circuit`): `values` are indices into these.
+    #[serde(default)]
+    pub labels: Option<Vec<String>>,
 }
 
 /// The sweep of a run.
