@@ -107,7 +107,7 @@ impl KWinnersDesign {
 
     /// Check every parameter; the error names the first bad one.
     pub fn validate(&self) -> Result<(), CompetitionError> {
-        self.wta.validate()?;
+        // k first: a bad k also makes the default bias, (k - 1/2) units, meaningless.
         let n = self.wta.n;
         if self.k < 1 || self.k >= n {
             return Err(CompetitionError::InvalidParameter {
@@ -117,6 +117,7 @@ impl KWinnersDesign {
                 reason: "the number of winners must be from 1 to N - 1 (N = number of classes)",
             });
         }
+        self.wta.validate()?;
         positive(STAGE, "unit_current", self.unit_current)?;
         if self.limiter.polarity != Polarity::Pmos {
             return Err(CompetitionError::InvalidParameter {
