@@ -592,6 +592,13 @@ impl RankingChip {
     }
 }
 
+/// How each ranking step runs in time: the integrator's options and, for an SDE, the noise
+/// options with the generator every step draws from.
+pub type StepTransient<'a> = (
+    &'a TransientOptions,
+    Option<(&'a NoiseOptions, &'a mut dyn RngCore)>,
+);
+
 /// Ranking at its conditions.
 #[derive(Clone, Debug, PartialEq)]
 pub struct RankingCircuit {
@@ -669,7 +676,7 @@ impl RankingCircuit {
         &self,
         inputs: &[f64],
         rule: &DecisionRule,
-        mut transient: Option<(&TransientOptions, Option<(&NoiseOptions, &mut dyn RngCore)>)>,
+        mut transient: Option<StepTransient<'_>>,
         ws: &mut Workspace,
         tws: &mut TransientWorkspace,
     ) -> Result<Ranking, TransientError> {
