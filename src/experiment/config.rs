@@ -1581,7 +1581,7 @@ fn resolve_axes(e: &Experiment, resolved: &Value, file: &Path) -> Result<Vec<Axi
                         }
                         _ => {
                             return Err(sweep_err(format!(
-                                "the parameter holds text ({s:?}); sweep it with a list of texts (`values = [\"a\", \"b\"]`)"
+                                "the parameter holds text ({s:?}), not a number: sweep it with a list of texts (`values = [\"a\", \"b\"]`); ranges and numbers are for numeric parameters only (only numeric parameters take them)"
                             )))
                         }
                     }
