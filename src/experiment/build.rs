@@ -452,6 +452,44 @@ fn circuit(
                 other => other,
             }
         }
+        CircuitKind::KWinners | CircuitKind::Cascade | CircuitKind::RepeatedMax => {
+            let CompetitionDesign::CurrentWta(w) =
+                circuit(CircuitKind::CurrentWta, n, process, c, bias, gain)
+            else {
+                unreachable!("a current_wta design is a CurrentWta")
+            };
+            let k = c.k.unwrap_or(0) as usize;
+            match kind {
+                CircuitKind::KWinners => {
+                    let unit = c.unit_current.map_or(bias, |u| u.si());
+                    let mut limiter = transistor(&c.limiter.unwrap_or(c.output));
+                    limiter.polarity = crate::device::Polarity::Pmos;
+                    CompetitionDesign::KWinners(Box::new(
+                        crate::stages::competition::kwta::KWinnersDesign::new(*w, k, unit, limiter),
+                    ))
+                }
+                CircuitKind::Cascade => {
+                    let mut d = crate::stages::competition::cascade::CascadeDesign::new(
+                        n,
+                        c.fan_in.unwrap_or(0) as usize,
+                        *w,
+                        transistor(&c.copy.unwrap_or(c.sink)),
+                    );
+                    if let Some(v) = c.copy_drain_voltage {
+                        d.copy_drain_voltage = v.si();
+                    }
+                    CompetitionDesign::Cascade(Box::new(d))
+                }
+                _ => CompetitionDesign::Ranking(Box::new(
+                    crate::stages::competition::cascade::RankingDesign {
+                        wta: *w,
+                        k,
+                        // Set from `cost.read_out_time` by `design`.
+                        step_time: 1e-6,
+                    },
+                )),
+            }
+        }
         CircuitKind::CurrentWta => {
             let mut w = WtaDesign::new(
                 n,
@@ -475,7 +513,7 @@ fn circuit(
 pub fn design(e: &Experiment, n_classes: usize) -> Result<ClassifierDesign, BuildError> {
     let process = process(e)?;
     let c = &e.competition;
-    let competition = circuit(
+    let mut competition = circuit(
         c.circuit,
         n_classes,
         &process,
@@ -483,6 +521,10 @@ pub fn design(e: &Experiment, n_classes: usize) -> Result<ClassifierDesign, Buil
         c.bias_current.si(),
         c.gain,
     );
+    // Ranking at DC: each step is counted as one read-out time (the stated per-step model).
+    if let CompetitionDesign::Ranking(r) = &mut competition {
+        r.step_time = e.cost.read_out_time.si();
+    }
     let hidden_circuit = match e.hidden.circuit {
         _ if e.hidden.units == 0 => None,
         HiddenCircuitKind::ClosedForm => None,
@@ -702,7 +744,10 @@ pub fn check_with_core(e: &Experiment) -> Result<(), CoreRefusal> {
             message: other.to_string(),
         },
     })?;
-    let d = design(e, 2).map_err(|err| CoreRefusal {
+    // Checked with the fewest classes the design allows (k winners need k + 1 lines); the
+    // dataset's class count is checked against k when a point is set up.
+    let lines = 2.max(e.competition.k.unwrap_or(0) as usize + 1);
+    let d = design(e, lines).map_err(|err| CoreRefusal {
         key: "competition".into(),
         value: None,
         message: err.to_string(),
@@ -732,6 +777,9 @@ pub fn check_with_core(e: &Experiment) -> Result<(), CoreRefusal> {
             CompetitionDesign::DiffPair(w) => w.validate(),
             CompetitionDesign::Hysteretic(w) => w.validate(),
             CompetitionDesign::Argmax => Ok(()),
+            CompetitionDesign::KWinners(w) => w.validate(),
+            CompetitionDesign::Cascade(w) => w.validate(),
+            CompetitionDesign::Ranking(w) => w.validate(),
         }
         .map_err(|err| competition_refusal(prefix, err))
     };

@@ -471,6 +471,14 @@ pub enum CircuitKind {
     HystereticWta,
     /// Exact argmax of the weight-stage output currents (no competition circuit).
     Argmax,
+    /// k-winners WTA: the current-mode WTA with each cell's output limited to
+    /// `unit_current` and the bias at (k - 1/2) units; accuracy is top-k accuracy.
+    KWinners,
+    /// A tree of current-mode WTAs of `fan_in` lines each.
+    Cascade,
+    /// Ranking by repeated maximum: one current-mode WTA decides k times, each winner
+    /// removed; accuracy is top-k accuracy.
+    RepeatedMax,
 }
 
 /// How the decision is evaluated.
@@ -536,6 +544,26 @@ pub struct CompetitionCfg {
     /// times its width); absent = 2 um x 2 um.
     #[serde(skip_serializing_if = "Option::is_none")]
     pub mirror: Option<SizeCfg>,
+    /// `k_winners` and `repeated_max`: the number of winners, 1 to classes - 1 (accuracy is
+    /// then top-k accuracy).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub k: Option<u64>,
+    /// `k_winners`: each cell's largest output current; absent = `bias_current`.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub unit_current: Option<Q<Current>>,
+    /// `k_winners`: the PMOS output limiter of each cell; absent = the `output` size.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub limiter: Option<SizeCfg>,
+    /// `cascade`: lines per group of the tree (at least 2; one that does not divide the
+    /// classes leaves unused slots, reported).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub fan_in: Option<u64>,
+    /// `cascade`: the replica copying a group's winner to the next level; absent = `sink`.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub copy: Option<SizeCfg>,
+    /// `cascade`: the replica's drain voltage; absent = half the supply.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub copy_drain_voltage: Option<Q<Voltage>>,
 }
 
 impl Default for CompetitionCfg {
@@ -561,6 +589,12 @@ impl Default for CompetitionCfg {
             feedback: None,
             mirror: None,
             resistor_reference: Q::new(0.4),
+            k: None,
+            unit_current: None,
+            limiter: None,
+            fan_in: None,
+            copy: None,
+            copy_drain_voltage: None,
         }
     }
 }
@@ -933,12 +967,13 @@ fn tidy_floats(text: &str) -> String {
 fn describe_point(axes: &[Axis], p: &PointIndex) -> String {
     axes.iter()
         .zip(&p.value_index)
-        .map(|(a, &i)| {
-            format!(
+        .map(|(a, &i)| match a.labels.as_ref().and_then(|l| l.get(i)) {
+            Some(l) => format!("{} = {l}", a.path),
+            None => format!(
                 "{} = {}",
                 a.path,
                 crate::units::format_si(a.values[i], &a.unit, 6)
-            )
+            ),
         })
         .collect::<Vec<_>>()
         .join(", ")
@@ -1649,9 +1684,34 @@ fn resolve_axes(e: &Experiment, resolved: &Value, file: &Path) -> Result<Vec<Axi
                         .collect(),
                 ),
                 None => {
-                    return Err(sweep_err(format!(
-                        "the parameter holds text ({s:?}), not a number; only numeric parameters can be swept"
-                    )))
+                    // A text parameter: every value must be text; the axis runs over their
+                    // indices and each point sets its text (checked by the schema).
+                    let texts: Option<Vec<String>> = spec
+                        .values
+                        .as_ref()
+                        .and_then(|vs| vs.iter().map(|v| v.as_str().map(str::to_string)).collect());
+                    match texts {
+                        Some(t) if !t.is_empty() && spec.from.is_none() => {
+                            let mut seen = std::collections::HashSet::new();
+                            if let Some(d) = t.iter().find(|x| !seen.insert(x.as_str())) {
+                                return Err(sweep_err(format!("the value {d:?} appears twice")));
+                            }
+                            axes.push(Axis {
+                                path: spec.path.clone(),
+                                unit: String::new(),
+                                spacing: Default::default(),
+                                integer: true,
+                                values: (0..t.len()).map(|i| i as f64).collect(),
+                                labels: Some(t),
+                            });
+                            continue;
+                        }
+                        _ => {
+                            return Err(sweep_err(format!(
+                                "the parameter holds text ({s:?}), not a number: sweep it with a list of texts (`values = [\"a\", \"b\"]`); ranges and numbers are for numeric parameters only (only numeric parameters take them)"
+                            )))
+                        }
+                    }
                 }
             },
             other => {

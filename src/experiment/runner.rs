@@ -408,6 +408,7 @@ pub fn run(
                         unit: a.unit.clone(),
                         scale: a.spacing,
                         values: a.values.clone(),
+                        labels: a.labels.clone(),
                     })
                     .collect(),
             },

@@ -57,11 +57,18 @@ pub struct Axis {
     /// Whether the parameter takes integers (the values are then whole numbers).
     pub integer: bool,
     pub values: Vec<f64>,
+    /// A text parameter (e.g. `competition.circuit`): the values are the indices 0, 1, ...
+    /// of these texts, which are what the points set.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub labels: Option<Vec<String>>,
 }
 
 impl Axis {
     /// The TOML value to assign for value number `i`.
     pub fn toml_value(&self, i: usize) -> Value {
+        if let Some(l) = self.labels.as_ref().and_then(|l| l.get(i)) {
+            return Value::String(l.clone());
+        }
         let v = self.values[i];
         if self.integer {
             Value::Integer(v as i64)
@@ -196,6 +203,7 @@ impl AxisSpec {
             spacing,
             integer,
             values,
+            labels: None,
         })
     }
 }
@@ -301,6 +309,7 @@ mod tests {
 
     fn axis(path: &str, values: &[f64]) -> Axis {
         Axis {
+            labels: None,
             path: path.into(),
             unit: String::new(),
             spacing: Scale::Linear,

@@ -122,6 +122,10 @@ pub struct SweepParameter {
     pub unit: String,
     pub scale: Scale,
     pub values: Vec<f64>,
+    /// A text parameter (e.g. `competition.circuit`): `values` are indices into these
+    /// (absent for numeric axes, so their manifests are unchanged).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub labels: Option<Vec<String>>,
 }
 
 /// The sweep of a run.
@@ -503,6 +507,7 @@ mod tests {
                     unit: String::new(),
                     scale: Scale::Log,
                     values: vec![10.0, 100.0],
+                    labels: None,
                 }],
             },
             command: "hardmax run x.toml".into(),

@@ -124,6 +124,18 @@ fn area(t: &Transistor) -> f64 {
     t.w * t.l
 }
 
+/// Gate area and bias current of a current-mode WTA (sink and output per cell, the bias).
+fn wta_cost(w: &crate::stages::competition::wta::WtaDesign) -> (f64, f64) {
+    let (bias_area, bias_i) = match &w.bias {
+        CurrentSource::Ideal { current } => (0.0, *current),
+        CurrentSource::Transistor { device, .. } => (area(device), 0.0),
+    };
+    (
+        w.n as f64 * (area(&w.sink) + area(&w.output)) + bias_area,
+        bias_i,
+    )
+}
+
 /// Gate area and bias current of a competition circuit.
 fn circuit_cost(c: &CompetitionDesign) -> (f64, f64) {
     match c {
@@ -146,6 +158,31 @@ fn circuit_cost(c: &CompetitionDesign) -> (f64, f64) {
             let mirror = area(&h.mirror) * (1.0 + h.feedback);
             // The feedback copies draw alpha I_b more from the supply.
             (a + h.wta.n as f64 * mirror, i * (1.0 + h.feedback))
+        }
+        CompetitionDesign::KWinners(k) => {
+            // The WTA's cells and bias, plus one output limiter per cell (its current is the
+            // output current, part of the bias already counted).
+            let (a, i) = wta_cost(&k.wta);
+            (a + k.wta.n as f64 * area(&k.limiter), i)
+        }
+        // The same WTA decides every step (the input switches are not counted).
+        CompetitionDesign::Ranking(r) => wta_cost(&r.wta),
+        CompetitionDesign::Cascade(c) => {
+            // Every group's WTA with its own bias, and one replica per group below the top
+            // (counted by area: its current is the next level's input).
+            let levels = c.levels();
+            let last = levels.len() - 1;
+            let (mut a, mut i) = (0.0, 0.0);
+            for (l, sizes) in levels.iter().enumerate() {
+                for &s in sizes.iter().filter(|&&s| s >= 2) {
+                    let mut w = c.cell.clone();
+                    w.n = s;
+                    let (ga, gi) = wta_cost(&w);
+                    a += ga + if l < last { area(&c.copy) } else { 0.0 };
+                    i += gi;
+                }
+            }
+            (a, i)
         }
         CompetitionDesign::DiffPair(d) => {
             let diode = match &d.input {

@@ -365,6 +365,12 @@ pub enum CompetitionDesign {
     Hysteretic(Box<HysteresisDesign>),
     /// Exact argmax of the weight stage's output currents (no circuit).
     Argmax,
+    /// k-winners WTA (limited outputs); accuracy is top-k accuracy.
+    KWinners(Box<crate::stages::competition::kwta::KWinnersDesign>),
+    /// A tree of small current-mode WTAs.
+    Cascade(Box<crate::stages::competition::cascade::CascadeDesign>),
+    /// Ranking by repeated maximum with one current-mode WTA; accuracy is top-k accuracy.
+    Ranking(Box<crate::stages::competition::cascade::RankingDesign>),
 }
 
 impl CompetitionDesign {
@@ -384,6 +390,15 @@ impl CompetitionDesign {
             }
             CompetitionDesign::Hysteretic(h) => {
                 InputShotNoise::for_wta(&h.wta, capacitance, temperature)
+            }
+            CompetitionDesign::KWinners(k) => {
+                InputShotNoise::for_wta(&k.wta, capacitance, temperature)
+            }
+            CompetitionDesign::Ranking(r) => {
+                InputShotNoise::for_wta(&r.wta, capacitance, temperature)
+            }
+            CompetitionDesign::Cascade(c) => {
+                InputShotNoise::for_wta(&c.cell, capacitance, temperature)
             }
             _ => InputShotNoise {
                 bandwidth: crate::stages::competition::noise::NoiseBandwidth::SinglePole {
@@ -484,6 +499,9 @@ impl PointSetup {
             CompetitionDesign::DiffPair(w) => w.validate()?,
             CompetitionDesign::Hysteretic(w) => w.validate()?,
             CompetitionDesign::Argmax => {}
+            CompetitionDesign::KWinners(w) => w.validate()?,
+            CompetitionDesign::Cascade(w) => w.validate()?,
+            CompetitionDesign::Ranking(w) => w.validate()?,
         }
         if let Some(n) = &design.input_noise {
             n.validate()?;
@@ -491,12 +509,17 @@ impl PointSetup {
         if design.transient.is_some()
             && !matches!(
                 design.competition,
-                CompetitionDesign::CurrentWta(_) | CompetitionDesign::Hysteretic(_)
+                CompetitionDesign::CurrentWta(_)
+                    | CompetitionDesign::Hysteretic(_)
+                    | CompetitionDesign::KWinners(_)
+                    | CompetitionDesign::Cascade(_)
+                    | CompetitionDesign::Ranking(_)
             )
         {
             return Err(PipelineError::Unsupported {
-                what: "the transient evaluation is available for the current-mode WTA only; \
-                       use evaluation = \"dc\" or circuit = \"current_wta\"",
+                what: "the transient evaluation is available for the current-mode WTA circuits \
+                       only (current_wta, hysteretic_wta, k_winners, cascade, repeated_max); \
+                       use evaluation = \"dc\" or one of those circuits",
             });
         }
         if matches!(
@@ -528,7 +551,66 @@ impl PointSetup {
 
     /// One line describing the competition stage, for manifests and reports.
     pub fn describe(&self) -> String {
+        let si = crate::units::format_si;
         match &self.design.competition {
+            CompetitionDesign::KWinners(k) => format!(
+                "k-winners WTA, {} cells, k = {} (accuracy is top-{} accuracy), unit current {}, \
+                 bias {}, sink {} x {}, output {} x {}, limiter {} x {}",
+                k.wta.n,
+                k.k,
+                k.k,
+                si(k.unit_current, "A", 3),
+                match k.wta.bias {
+                    crate::stages::competition::CurrentSource::Ideal { current } =>
+                        si(current, "A", 3),
+                    _ => "from a transistor".into(),
+                },
+                si(k.wta.sink.w, "m", 3),
+                si(k.wta.sink.l, "m", 3),
+                si(k.wta.output.w, "m", 3),
+                si(k.wta.output.l, "m", 3),
+                si(k.limiter.w, "m", 3),
+                si(k.limiter.l, "m", 3),
+            ),
+            CompetitionDesign::Ranking(r) => format!(
+                "ranking by repeated maximum, {} cells, k = {} steps (accuracy is top-{} \
+                 accuracy; DC steps counted as {} each), sink {} x {}, output {} x {}",
+                r.wta.n,
+                r.k,
+                r.k,
+                si(r.step_time, "s", 3),
+                si(r.wta.sink.w, "m", 3),
+                si(r.wta.sink.l, "m", 3),
+                si(r.wta.output.w, "m", 3),
+                si(r.wta.output.l, "m", 3),
+            ),
+            CompetitionDesign::Cascade(c) => {
+                format!(
+                "WTA cascade, {} classes, fan-in {}, {} levels ({}){}, sink {} x {}, output {} x \
+                 {}, replica {} x {}",
+                c.classes,
+                c.fan_in,
+                c.depth(),
+                c.levels()
+                    .iter()
+                    .map(|l| l.iter().map(|s| s.to_string()).collect::<Vec<_>>().join("+"))
+                    .collect::<Vec<_>>()
+                    .join(" then "),
+                match c.padding() {
+                    Some(p) => format!(
+                        ", padded: fan-in {} does not divide the lines, {} of {} slots unused",
+                        c.fan_in, p.unused, p.slots
+                    ),
+                    None => String::new(),
+                },
+                si(c.cell.sink.w, "m", 3),
+                si(c.cell.sink.l, "m", 3),
+                si(c.cell.output.w, "m", 3),
+                si(c.cell.output.l, "m", 3),
+                si(c.copy.w, "m", 3),
+                si(c.copy.l, "m", 3),
+            )
+            }
             CompetitionDesign::Argmax => "exact argmax of the weight-stage currents".into(),
             CompetitionDesign::DiffPair(w) => format!(
                 "multi-input differential pair, {} inputs, pair devices {} x {}, {:?} inputs",
@@ -1063,14 +1145,10 @@ pub fn sample_competition(
     rng: &mut crate::rng::Stream,
     mismatch: f64,
 ) -> Result<Option<CompetitionChip>, PipelineError> {
-    let tech = process.nmos.clone();
+    // Each transistor's constants by its polarity (every device of the WTA and the
+    // differential pair is an NMOS: their draws are unchanged).
     let mut draw = |t: &crate::device::Transistor| {
-        // Every device of the existing circuits is an NMOS; a PMOS (the hysteretic WTA's
-        // mirror) draws with the PMOS Pelgrom constants.
-        let m = match t.polarity {
-            crate::device::Polarity::Pmos => sample_mismatch(rng, &process.pmos, t),
-            crate::device::Polarity::Nmos => sample_mismatch(rng, &tech, t),
-        };
+        let m = sample_mismatch(rng, process.tech(t.polarity), t);
         crate::device::MosMismatch {
             dvt0: mismatch * m.dvt0,
             dbeta_rel: mismatch * m.dbeta_rel,
@@ -1089,7 +1167,47 @@ pub fn sample_competition(
         CompetitionDesign::Hysteretic(w) => Some(CompetitionChip::Hysteretic(
             HysteresisChip::sample((**w).clone(), &mut draw)?,
         )),
+        CompetitionDesign::KWinners(_)
+        | CompetitionDesign::Cascade(_)
+        | CompetitionDesign::Ranking(_) => {
+            return Err(PipelineError::Unsupported {
+                what: "rebuilding one die of the k-winners, cascade or ranking circuits for a \
+                       netlist is not built yet; export a current_wta or diff_pair design",
+            })
+        }
     })
+}
+
+/// Sample and evaluate the circuits built from the current-mode WTA (same draws order and
+/// scaling as [`sample_competition`]): `None` for the other designs.
+fn build_composite(
+    design: &CompetitionDesign,
+    process: &Process,
+    temperature: f64,
+    rng: &mut crate::rng::Stream,
+    mismatch: f64,
+) -> Result<Option<Decider>, PipelineError> {
+    use crate::stages::competition::cascade::{CascadeChip, RankingChip};
+    use crate::stages::competition::kwta::KWinnersChip;
+    let mut draw = |t: &crate::device::Transistor| {
+        let m = sample_mismatch(rng, process.tech(t.polarity), t);
+        crate::device::MosMismatch {
+            dvt0: mismatch * m.dvt0,
+            dbeta_rel: mismatch * m.dbeta_rel,
+        }
+    };
+    Ok(Some(match design {
+        CompetitionDesign::KWinners(k) => Decider::KWinners(Box::new(
+            KWinnersChip::sample((**k).clone(), &mut draw)?.at(temperature)?,
+        )),
+        CompetitionDesign::Cascade(c) => Decider::Cascade(Box::new(
+            CascadeChip::sample((**c).clone(), &mut draw)?.at(temperature)?,
+        )),
+        CompetitionDesign::Ranking(r) => Decider::Ranking(Box::new(
+            RankingChip::sample((**r).clone(), &mut draw)?.at(temperature)?,
+        )),
+        _ => return Ok(None),
+    }))
 }
 
 /// Sample and evaluate a competition circuit of a chip at its temperature. Its Pelgrom draws
@@ -1103,6 +1221,22 @@ fn build_decider(
     mismatch: f64,
     infinite_gain: bool,
 ) -> Result<Decider, PipelineError> {
+    if infinite_gain
+        && matches!(
+            design,
+            CompetitionDesign::KWinners(_)
+                | CompetitionDesign::Cascade(_)
+                | CompetitionDesign::Ranking(_)
+        )
+    {
+        return Err(PipelineError::Unsupported {
+            what: "the infinite-gain limit of the k-winners, cascade and ranking circuits is not \
+                   modelled",
+        });
+    }
+    if let Some(d) = build_composite(design, process, temperature, rng, mismatch)? {
+        return Ok(d);
+    }
     Ok(match sample_competition(design, process, rng, mismatch)? {
         None => Decider::Argmax,
         Some(CompetitionChip::Wta(c)) if infinite_gain => {
@@ -1208,6 +1342,9 @@ enum Decider {
     Argmax,
     /// Infinite-gain limit: argmax of the inputs times these input-referred factors.
     Limit(Vec<f64>),
+    KWinners(Box<crate::stages::competition::kwta::KWinnersCircuit>),
+    Cascade(Box<crate::stages::competition::cascade::CascadeCircuit>),
+    Ranking(Box<crate::stages::competition::cascade::RankingCircuit>),
 }
 
 /// Evaluate chip `chip` of sweep point `point` over the whole test split.
@@ -1341,9 +1478,14 @@ pub fn evaluate_chip_with(
                     }
                     .map_err(|e| failed(first, FailureKind::WeightStage, e))?;
                     let solved = match h {
-                        Decider::Argmax | Decider::Limit(_) | Decider::Hysteretic(_) => Ok(()),
+                        Decider::Argmax
+                        | Decider::Limit(_)
+                        | Decider::Hysteretic(_)
+                        | Decider::Ranking(_) => Ok(()),
                         Decider::Wta(c) => c.solve(&hbuf, &mut ws, &mut hsol),
                         Decider::DiffPair(c) => c.solve(&hbuf, &mut ws, &mut hsol),
+                        Decider::KWinners(c) => c.solve(&hbuf, &mut ws, &mut hsol),
+                        Decider::Cascade(c) => c.solve(&hbuf, &mut ws, &mut hsol),
                     };
                     solved.map_err(|e| {
                         failed(
@@ -1481,6 +1623,91 @@ pub fn evaluate_chip_with(
                         })
                     }
                 },
+                Decider::KWinners(c) => {
+                    let k = c.k();
+                    match &d.transient {
+                        None => match c.solve(inputs, &mut ws, &mut sol) {
+                            Ok(()) => {
+                                let top = d.decision.decide_top_k(&sol.shares, k);
+                                Ok((top.scored_class(&sol.shares, truth), top.decision.ambiguous))
+                            }
+                            Err(e) => Err(failed(first, FailureKind::of_competition(&e), e)),
+                        },
+                        Some(t) => {
+                            let mut noise_rng = noise_stream(i, noise_source::TRANSIENT);
+                            let noise = t
+                                .noise
+                                .as_ref()
+                                .map(|o| (o, &mut noise_rng as &mut dyn rand::RngCore));
+                            let s = simulate(c.as_ref(), inputs, &t.options, noise, &mut tws)
+                                .map_err(|e| failed(first, FailureKind::of_transient(&e), e))?;
+                            let decision = if t.options.read_time.is_some() {
+                                s.decision_at_read
+                            } else {
+                                s.decision
+                            };
+                            if let (Some(td), Some(e)) = (s.decision_time, s.energy_to_decision) {
+                                out_time.0 += td;
+                                out_time.1 += e;
+                                out_time.2 += 1;
+                            }
+                            let shares = &tws.solution().shares;
+                            let top = t.options.rule.decide_top_k(shares, k);
+                            Ok((
+                                top.scored_class(shares, truth),
+                                decision.is_none_or(|x| x.ambiguous),
+                            ))
+                        }
+                    }
+                }
+                Decider::Cascade(c) => match &d.transient {
+                    None => solve_decide(c.as_ref(), inputs, &mut ws, &mut sol, &d.decision, first),
+                    Some(t) => {
+                        let mut noise_rng = noise_stream(i, noise_source::TRANSIENT);
+                        let noise = t
+                            .noise
+                            .as_ref()
+                            .map(|o| (o, &mut noise_rng as &mut dyn rand::RngCore));
+                        let r = c
+                            .simulate(inputs, &t.options, noise, &mut tws)
+                            .map_err(|e| failed(first, FailureKind::of_transient(&e), e))?;
+                        if let (Some(td), Some(e)) = (r.decision_time, r.energy) {
+                            out_time.0 += td;
+                            out_time.1 += e;
+                            out_time.2 += 1;
+                        }
+                        // A group that never decided leaves the tree undecided.
+                        Ok((
+                            r.decision.winner,
+                            r.decision.ambiguous || r.decision_time.is_none(),
+                        ))
+                    }
+                },
+                Decider::Ranking(c) => {
+                    let mut noise_rng = noise_stream(i, noise_source::TRANSIENT);
+                    let transient = d.transient.as_ref().map(|t| {
+                        (
+                            &t.options,
+                            t.noise
+                                .as_ref()
+                                .map(|o| (o, &mut noise_rng as &mut dyn rand::RngCore)),
+                        )
+                    });
+                    let rule = match &d.transient {
+                        Some(t) => t.options.rule,
+                        None => d.decision,
+                    };
+                    let r = c
+                        .rank(inputs, &rule, transient, &mut ws, &mut tws)
+                        .map_err(|e| failed(first, FailureKind::of_transient(&e), e))?;
+                    // Time and energy: the steps' sum (DC: the per-step time model).
+                    if let (Some(td), Some(e)) = (r.time, r.energy) {
+                        out_time.0 += td;
+                        out_time.1 += e;
+                        out_time.2 += 1;
+                    }
+                    Ok((r.scored_class(truth), r.ambiguous()))
+                }
             }
         })();
         if let (Ok((DEFERRED, _)), Decider::Wta(c)) = (&result, &decider) {

@@ -260,7 +260,20 @@ fn experiment_words(folder: &ResultsFolder) -> String {
             let kind = NumberKind::Si(p.unit.clone());
             let lo_key = format!("sweep.parameters[{i}].values[{lo_i}]");
             let hi_key = format!("sweep.parameters[{i}].values[{hi_i}]");
-            let range = if p.values.len() == 1 {
+            let range = if let Some(labels) = &p.labels {
+                // A text axis: its values are indices of these texts (tables and plots show
+                // the index).
+                format!(
+                    "over {} texts, shown by index: {}",
+                    labels.len(),
+                    labels
+                        .iter()
+                        .enumerate()
+                        .map(|(j, l)| format!("{j} = <code>{}</code>", esc(l)))
+                        .collect::<Vec<_>>()
+                        .join(", ")
+                )
+            } else if p.values.len() == 1 {
                 format!(
                     "at {}",
                     num(p.values.get(lo_i).copied(), &kind, Src::Manifest(&lo_key))

@@ -246,6 +246,20 @@ pub trait SharedNodeCircuit {
     fn load_noise_psd(&self, k: usize, v_line: f64, v_common: f64) -> f64;
     /// One-sided shot-noise PSD (A²/Hz) of line k's output at `(v_line, v_common)`.
     fn output_noise_psd(&self, k: usize, v_line: f64, v_common: f64) -> f64;
+
+    /// True when [`SharedNodeCircuit::load`] already includes the input source's supply
+    /// compliance (the load is the sink current divided by `1 - e^{-(V_dd - V_k)/U_T}`), so the
+    /// DC solve has it too; the transient then feeds the plain input current.
+    fn input_compliance_in_load(&self) -> bool {
+        false
+    }
+
+    /// The decision the transient tracks on the output shares: the shared rule by default; a
+    /// circuit that selects several winners judges the competition for its last place
+    /// ([`DecisionRule::decide_top_k`](super::DecisionRule::decide_top_k)).
+    fn decide(&self, rule: &super::DecisionRule, shares: &[f64]) -> super::Decision {
+        rule.decide(shares)
+    }
 }
 
 /// `2 q (I_f + I_r)` of a folded device, via [`shot_noise_psd`] on the equivalent EKV device.

@@ -14,6 +14,7 @@
 //! Numerical core: no I/O, no printing.
 
 pub mod analysis;
+pub mod cascade;
 pub mod circuit;
 mod common;
 pub mod dc;
@@ -22,6 +23,7 @@ pub mod diffpair;
 pub mod hysteretic;
 #[cfg(test)]
 mod ideal_normaliser;
+pub mod kwta;
 pub mod mos;
 pub mod noise;
 pub mod source;
@@ -33,7 +35,7 @@ use std::fmt;
 use thiserror::Error;
 
 pub use circuit::{Branch, BranchLanes, CircuitMessages, DcStrategy, SharedNodeCircuit};
-pub use decision::{Decision, DecisionRule};
+pub use decision::{Decision, DecisionRule, TopK};
 pub use diffpair::{DiffPairChip, DiffPairCircuit, DiffPairDesign, DiffPairInput};
 pub use hysteretic::{HysteresisChip, HysteresisCircuit, HysteresisDesign};
 pub use noise::{InputShotNoise, NoiseBandwidth};

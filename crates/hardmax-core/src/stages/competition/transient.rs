@@ -381,6 +381,11 @@ impl<C: SharedNodeCircuit + ?Sized> Model<'_, C> {
     #[inline]
     fn input(&self, k: usize, vk: f64) -> (f64, f64) {
         let i = self.inputs[k];
+        if self.circuit.input_compliance_in_load() {
+            // The circuit's load already carries the source's compliance (DC and transient
+            // share it; applying it here too would count it twice).
+            return (i, 0.0);
+        }
         let e = (-(self.vdd - vk) / self.ut).exp();
         (i * (1.0 - e), -i * e / self.ut)
     }
@@ -611,7 +616,7 @@ fn run<C: SharedNodeCircuit + ?Sized>(
     let (mut s_in, mut s_b) = model.outputs(x, &mut solution.outputs);
     fill_shares(&solution.outputs, &mut solution.shares);
     let mut energy = 0.0;
-    let mut cur = rule.decide(&solution.shares);
+    let mut cur = circuit.decide(&rule, &solution.shares);
     let mut margin = decision_margin(&rule, &cur);
     // Start of the current run of a held decision, and the energy up to it.
     let mut held_since: Option<(f64, f64, Decision)> = (!cur.ambiguous).then_some((0.0, 0.0, cur));
@@ -737,7 +742,7 @@ fn run<C: SharedNodeCircuit + ?Sized>(
         let (ni, nb) = model.outputs(x, &mut solution.outputs);
         fill_shares(&solution.outputs, &mut solution.shares);
         let e_step = 0.5 * (s_in + s_b + ni + nb) * (t - t_old) * model.vdd;
-        let new = rule.decide(&solution.shares);
+        let new = circuit.decide(&rule, &solution.shares);
         let new_margin = decision_margin(&rule, &new);
         let decided = !new.ambiguous;
         match held_since {
@@ -791,7 +796,9 @@ fn run<C: SharedNodeCircuit + ?Sized>(
         converged: settled,
         method: super::SolveMethod::Newton,
     };
-    let decision_at_read = opts.read_time.map(|_| rule.decide(&solution.shares));
+    let decision_at_read = opts
+        .read_time
+        .map(|_| circuit.decide(&rule, &solution.shares));
     Ok(TransientSummary {
         decision_time: held_since.map(|(t, _, _)| t),
         decision: held_since.map(|(_, _, d)| d),
