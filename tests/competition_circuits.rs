@@ -31,19 +31,25 @@ fn comparison_experiment_runs_with_text_axis() {
         .args(["--set", "population.chips=2"])
         .assert()
         .success()
-        .stdout(predicate::str::contains("4 points (4 run now"));
+        .stdout(predicate::str::contains("5 points (5 run now"));
     let m: serde_json::Value =
         serde_json::from_slice(&std::fs::read(out.join("manifest.json")).unwrap()).unwrap();
     let p = &m["sweep"]["parameters"][0];
     assert_eq!(p["path"], "competition.circuit");
     assert_eq!(
         p["labels"],
-        serde_json::json!(["current_wta", "cascade", "k_winners", "repeated_max"])
+        serde_json::json!([
+            "current_wta",
+            "hysteretic_wta",
+            "cascade",
+            "k_winners",
+            "repeated_max"
+        ])
     );
     let comp = m["competition"].to_string();
     assert!(comp.contains("top-2 accuracy"), "{comp}");
     let points = std::fs::read_to_string(out.join("points.csv")).unwrap();
-    assert_eq!(points.lines().count(), 5, "{points}");
+    assert_eq!(points.lines().count(), 6, "{points}");
     let html = std::fs::read_to_string(out.join("report.html")).unwrap();
     assert!(html.contains("<code>repeated_max</code>"));
 }

@@ -30,19 +30,24 @@ fn refused(extra: &str) -> String {
 /// names the key).
 #[test]
 fn bad_options_name_key_and_line() {
-    let e =
-        refused("[training]\nhardware_aware = 1\n[training.hardware]\nweight_mismatch = -0.1\n");
+    let e = refused(
+        "[training]\ntrainer = \"hardware_aware\"\n[training.hardware]\nweight_mismatch = -0.1\n",
+    );
     assert!(e.contains("training.hardware.weight_mismatch"), "{e}");
     assert!(e.contains("line 10"), "{e}");
-    let e = refused("[training]\nhardware_aware = 1\n[training.hardware]\nlearning_rate = 0.0\n");
+    let e = refused(
+        "[training]\ntrainer = \"hardware_aware\"\n[training.hardware]\nlearning_rate = 0.0\n",
+    );
     assert!(e.contains("training.hardware.learning_rate"), "{e}");
     assert!(e.contains("line 10"), "{e}");
     let e =
-        refused("[training]\nhardware_aware = 1\n[training.hardware]\ncompetition_offset = -1.0\n");
+        refused("[training]\ntrainer = \"hardware_aware\"\n[training.hardware]\ncompetition_offset = -1.0\n");
     assert!(e.contains("training.hardware.competition_offset"), "{e}");
-    let e = refused("[training]\nhardware_aware = 2\n");
-    assert!(e.contains("training.hardware_aware"), "{e}");
-    let e = refused("[training]\nhardware_aware = true\n[weights]\nencoding = \"differential\"\n");
+    let e = refused("[training]\ntrainer = \"analog\"\n");
+    assert!(e.contains("training.trainer"), "{e}");
+    let e = refused(
+        "[training]\ntrainer = \"hardware_aware\"\n[weights]\nencoding = \"differential\"\n",
+    );
     assert!(e.contains("shifted"), "{e}");
 }
 
@@ -55,7 +60,7 @@ fn trainer_sweep_on_the_same_dies() {
     let f = write(
         d.path(),
         &format!(
-            "{BASE}[sweep]\n[[sweep.axis]]\npath = \"training.hardware_aware\"\nvalues = [0, 1]\n"
+            "{BASE}[sweep]\n[[sweep.axis]]\npath = \"training.trainer\"\nvalues = [\"float\", \"hardware_aware\"]\n"
         ),
     );
     let out = d.path().join("out");
@@ -74,10 +79,7 @@ fn trainer_sweep_on_the_same_dies() {
     assert_eq!(m["trainer"]["hardware_aware"][0]["point"], 1);
     assert!(m["trainer"]["hardware_aware"][0]["converged"].is_boolean());
     let points = std::fs::read_to_string(out.join("points.csv")).unwrap();
-    assert!(
-        points.starts_with("point,training.hardware_aware,"),
-        "{points}"
-    );
+    assert!(points.starts_with("point,training.trainer,"), "{points}");
     assert_eq!(
         std::fs::read_to_string(out.join("differences.csv"))
             .unwrap()

@@ -47,13 +47,13 @@ pub fn run(args: MergeArgs) -> anyhow::Result<()> {
             summary.shards, summary.points
         );
         // The swept parameters, as the merged folder's manifest names them.
-        let axes: Vec<(String, String)> =
+        let axes: Vec<super::run::AxisColumn> =
             crate::format::Manifest::read(&args.out.join("manifest.json"))
                 .map(|m| {
                     m.sweep
                         .parameters
                         .into_iter()
-                        .map(|p| (p.path, p.unit))
+                        .map(|p| (p.path, p.unit, p.labels))
                         .collect()
                 })
                 .unwrap_or_default();

@@ -155,9 +155,9 @@ pub fn execute_with(
 /// A short table of the points of a run on stdout: the swept values (with units), yield first,
 /// then accuracy.
 pub fn print_summary(s: &RunSummary, axes: &[crate::experiment::sweep::Axis]) {
-    let columns: Vec<(String, String)> = axes
+    let columns: Vec<AxisColumn> = axes
         .iter()
-        .map(|a| (a.path.clone(), a.unit.clone()))
+        .map(|a| (a.path.clone(), a.unit.clone(), a.labels.clone()))
         .collect();
     print_table(&s.records, &columns);
     println!(
@@ -201,15 +201,21 @@ pub fn verdict_line(records: &[crate::experiment::results::PointRecord]) -> Opti
     })
 }
 
+/// A swept parameter as a table column: key path, base SI unit, and a text axis's texts.
+pub type AxisColumn = (String, String, Option<Vec<String>>);
+
 /// One line per point: the swept values (with units), yield first, then accuracy and failures.
-/// `axes` are the swept parameters as (key path, base SI unit), in sweep order.
-pub fn print_table(records: &[crate::experiment::results::PointRecord], axes: &[(String, String)]) {
+/// `axes` are the swept parameters in sweep order.
+pub fn print_table(records: &[crate::experiment::results::PointRecord], axes: &[AxisColumn]) {
     let names: Vec<String> = axes
         .iter()
-        .map(|(path, _)| path.rsplit('.').next().unwrap_or(path).to_string())
+        .map(|(path, _, _)| path.rsplit('.').next().unwrap_or(path).to_string())
         .collect();
-    let cell = |(_, unit): &(String, String), v: f64| -> String {
-        if unit.is_empty() {
+    let cell = |(_, unit, labels): &AxisColumn, v: f64| -> String {
+        // A text axis (e.g. the circuit): its value's text, not its index.
+        if let Some(text) = labels.as_ref().and_then(|l| l.get(v as usize)) {
+            text.clone()
+        } else if unit.is_empty() {
             format!("{v}")
         } else {
             crate::units::format_si(v, unit, 4)

@@ -176,7 +176,7 @@ pub fn prepare_data_trained(
             ..trainer.clone()
         },
     });
-    if e.training.hardware_aware != 0 {
+    if e.training.is_hardware_aware() {
         return prepare_hardware_aware(e, &ds, &trainer).map(|(p, t)| (p, Some(t)));
     }
     prepare(
@@ -223,7 +223,7 @@ fn hardware_trainer(
         d.conditions.temperature_k,
         &hardware_training(e),
     )
-    .map_err(|err| hardware_keyed(err, "training.hardware_aware"))
+    .map_err(|err| hardware_keyed(err, "training.trainer"))
 }
 
 /// A hardware-aware training refusal keyed by the option it names (`fallback` otherwise).
@@ -269,7 +269,7 @@ pub fn prepare_hardware_aware(
     )
     .map_err(|err| match err {
         err @ PipelineError::Training(_) => hardware_keyed(err, "training.hardware"),
-        err @ PipelineError::Unsupported { .. } => hardware_keyed(err, "training.hardware_aware"),
+        err @ PipelineError::Unsupported { .. } => hardware_keyed(err, "training.trainer"),
         other => other.into(),
     })
 }
@@ -784,7 +784,7 @@ pub fn check_with_core(e: &Experiment) -> Result<(), CoreRefusal> {
         .map_err(|err| competition_refusal(prefix, err))
     };
     stage_check("competition", &d.competition)?;
-    if e.training.hardware_aware != 0 {
+    if e.training.is_hardware_aware() {
         hardware_trainer(e, 2).map_err(|err| match err {
             BuildError::Keyed { key, source } => {
                 CoreRefusal {

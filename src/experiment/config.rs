@@ -128,38 +128,38 @@ pub struct TrainingCfg {
     pub max_iterations: u64,
     /// Train on standardised features (folded back into the [0, 1]-input weights).
     pub standardize: bool,
-    /// Which trainer makes the read-out weights: 0 = float (linfa, the default), 1 =
-    /// hardware-aware (trained through this point's competition stage, element levels and
-    /// injected nonidealities; `[training.hardware]`). A number so that a sweep axis can compare
-    /// the two on the same dies; `true`/`false` are read as 1/0.
-    #[serde(
-        skip_serializing_if = "is_float_trainer",
-        deserialize_with = "trainer_switch"
-    )]
-    pub hardware_aware: u8,
+    /// Which trainer makes the read-out weights: `float` (linfa, the default) or
+    /// `hardware_aware` (trained through this point's competition stage, element levels and
+    /// injected nonidealities; `[training.hardware]`). Sweepable (a text axis), so that a sweep
+    /// compares the two on the same dies.
+    #[serde(skip_serializing_if = "TrainerKind::is_float")]
+    pub trainer: TrainerKind,
     /// Options of the hardware-aware trainer (defaults when absent).
     #[serde(skip_serializing_if = "Option::is_none")]
     pub hardware: Option<HardwareTrainingCfg>,
 }
 
-fn is_float_trainer(v: &u8) -> bool {
-    *v == 0
+/// `training.trainer`.
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum TrainerKind {
+    /// linfa's multinomial logistic regression in floating point.
+    #[default]
+    Float,
+    /// Trained through the point's own competition stage with injected chip nonidealities.
+    HardwareAware,
 }
 
-/// `training.hardware_aware`: 0 or 1 (or `false` / `true`).
-fn trainer_switch<'de, D: serde::Deserializer<'de>>(d: D) -> Result<u8, D::Error> {
-    #[derive(Deserialize)]
-    #[serde(untagged)]
-    enum Switch {
-        Bool(bool),
-        Int(i64),
+impl TrainerKind {
+    fn is_float(&self) -> bool {
+        *self == TrainerKind::Float
     }
-    match Switch::deserialize(d)? {
-        Switch::Bool(b) => Ok(u8::from(b)),
-        Switch::Int(i @ 0..=1) => Ok(i as u8),
-        Switch::Int(i) => Err(serde::de::Error::custom(format!(
-            "{i}: use 0 (float trainer) or 1 (hardware-aware trainer)"
-        ))),
+}
+
+impl TrainingCfg {
+    /// Whether the hardware-aware trainer makes this point's read-out.
+    pub fn is_hardware_aware(&self) -> bool {
+        self.trainer == TrainerKind::HardwareAware
     }
 }
 
@@ -209,7 +209,7 @@ impl Default for TrainingCfg {
             l2: d.l2,
             max_iterations: d.max_iterations,
             standardize: d.standardize,
-            hardware_aware: 0,
+            trainer: TrainerKind::Float,
             hardware: None,
         }
     }
@@ -821,7 +821,7 @@ impl Experiment {
             };
         }
         e.weights.offset_current = Some(Q::new(1e-9));
-        e.training.hardware_aware = 1;
+        e.training.trainer = TrainerKind::HardwareAware;
         e.training.hardware = Some(HardwareTrainingCfg {
             weight_mismatch: Some(0.01),
             programming_error: Some(0.01),
@@ -1608,7 +1608,9 @@ fn check(e: &Experiment, text: &str, file: &Path) -> Result<(), ConfigError> {
                 "\"hysteretic_wta\" needs `competition.feedback`, the fraction of each cell's output current mirrored back into its input (e.g. 0.1)".into(),
             ));
         }
-    } else {
+    } else if !e.sweep.axis.iter().any(|a| a.path == "competition.circuit") {
+        // Refused unless the experiment compares circuits (a sweep over
+        // `competition.circuit`): then they apply to the hysteretic points only.
         for (key, set) in [
             ("competition.feedback", e.competition.feedback.is_some()),
             ("competition.mirror", e.competition.mirror.is_some()),
@@ -1616,7 +1618,7 @@ fn check(e: &Experiment, text: &str, file: &Path) -> Result<(), ConfigError> {
             if set {
                 return Err(bad(
                     key,
-                    "applies to circuit = \"hysteretic_wta\" only; remove it or set competition.circuit = \"hysteretic_wta\"".into(),
+                    "applies to circuit = \"hysteretic_wta\" only; remove it, set competition.circuit = \"hysteretic_wta\", or sweep competition.circuit".into(),
                 ));
             }
         }

@@ -243,7 +243,7 @@ pub fn run(
         );
         // Hardware-aware training trains through the point's whole design (gain, element,
         // mismatch): keyed by the whole point, so a point never reuses another's weights.
-        let key = if e.training.hardware_aware != 0 {
+        let key = if e.training.is_hardware_aware() {
             format!("{key}|{}", toml::to_string(e).unwrap_or_default())
         } else {
             key
@@ -423,7 +423,7 @@ pub fn run(
                     .at_point
                     .iter()
                     .map(|e| {
-                        if e.training.hardware_aware != 0 {
+                        if e.training.is_hardware_aware() {
                             "hardware_aware".to_string()
                         } else {
                             "float".to_string()

@@ -101,13 +101,13 @@ pub fn trainer_for(
     let CompetitionDesign::CurrentWta(w) = competition else {
         return Err(PipelineError::Unsupported {
             what: "hardware-aware training trains through the current-mode WTA's closed form: \
-                   use competition.circuit = \"current_wta\", or training.hardware_aware = 0",
+                   use competition.circuit = \"current_wta\", or training.trainer = \"float\"",
         });
     };
     if !matches!(weights.encoding, SignedEncoding::Shifted) {
         return Err(PipelineError::Unsupported {
             what: "hardware-aware training places weights with the shifted encoding: use \
-                   weights.encoding = \"shifted\", or training.hardware_aware = 0",
+                   weights.encoding = \"shifted\", or training.trainer = \"float\"",
         });
     }
     let element = match &weights.element {
@@ -154,7 +154,7 @@ pub fn retrain(
     if prep.hidden.is_some() || prep.layers.len() != 1 {
         return Err(PipelineError::Unsupported {
             what: "hardware-aware training covers the read-out stage without a hidden stage: \
-                   set hidden.units = 0, or training.hardware_aware = 0",
+                   set hidden.units = 0, or training.trainer = \"float\"",
         });
     }
     let (train, _, _) =

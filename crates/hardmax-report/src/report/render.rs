@@ -231,9 +231,7 @@ fn curves_for(folder: &ResultsFolder, i: usize) -> Vec<(String, Vec<&PointRow>)>
                 .zip(&r.params)
                 .enumerate()
                 .filter(|(j, _)| *j != i)
-                .map(|(_, (p, v))| {
-                    format!("{} = {}", short_name(&p.path), fmt_quantity(*v, &p.unit, 3))
-                })
+                .map(|(_, (p, v))| format!("{} = {}", short_name(&p.path), param_value(p, *v, 3)))
                 .collect::<Vec<_>>()
                 .join(", ");
             groups.push((key, label, vec![r]));
@@ -261,8 +259,17 @@ fn curves_for(folder: &ResultsFolder, i: usize) -> Vec<(String, Vec<&PointRow>)>
 /// Words for a sweep point's parameter values ("bias_current = 10 nA, bits = 6").
 pub fn point_label(folder: &ResultsFolder, row: &PointRow) -> String {
     describe_point(folder, row, |p, v| {
-        format!("{} = {}", short_name(&p.path), fmt_quantity(v, &p.unit, 4))
+        format!("{} = {}", short_name(&p.path), param_value(p, v, 4))
     })
+}
+
+/// A swept parameter's value in words: a text axis's value by its text (its index otherwise
+/// appears), a number with its unit to `digits` significant digits.
+fn param_value(p: &SweepParameter, v: f64, digits: usize) -> String {
+    match p.labels.as_ref().and_then(|l| l.get(v as usize)) {
+        Some(text) if v >= 0.0 && v.fract() == 0.0 => text.clone(),
+        _ => fmt_quantity(v, &p.unit, digits),
+    }
 }
 
 /// A sweep point's parameter values joined by ", ", each written by `item`; a sweep without

@@ -442,9 +442,14 @@ fn solve_from_state<C: SharedNodeCircuit + ?Sized>(
             });
         }
     };
-    // Settled, or ended (at t_max) with every node's net current within the settling
-    // tolerance: at rest either way (an oscillation keeps |C dV/dt| large).
-    if !(summary.settled || summary.final_residual <= opts.settle_tolerance) {
+    // Settled, or ended (at t_max, 10^4 time scales) with every node's net current within
+    // AT_REST_FACTOR times the settling tolerance: at rest either way (an oscillation keeps
+    // |C dV/dt| large; a relative net current of 1e-5 moves a node by well under 1 mV per time
+    // scale). Near a fold of the hysteresis the approach is slow and the integrator's own error
+    // can hold the residual just above 1e-7 for the whole run; Newton then polishes the point
+    // to the solver's tolerance, or the solve fails.
+    const AT_REST_FACTOR: f64 = 100.0;
+    if !(summary.settled || summary.final_residual <= AT_REST_FACTOR * opts.settle_tolerance) {
         ws.settle = Some(tws);
         return Err(CompetitionError::NotConverged {
             stage: c.name(),
