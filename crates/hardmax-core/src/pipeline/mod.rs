@@ -1558,29 +1558,17 @@ pub fn evaluate_chip_with(
                     }
                     Some(t) => {
                         let mut noise_rng = noise_stream(i, noise_source::TRANSIENT);
-                        let noise = t
-                            .noise
-                            .as_ref()
-                            .map(|o| (o, &mut noise_rng as &mut dyn rand::RngCore));
-                        let s = simulate(c.as_ref(), inputs, &t.options, noise, &mut tws)
-                            .map_err(|e| failed(first, FailureKind::of_transient(&e), e))?;
-                        // Time-limited: the decision at the read-out time; otherwise the
-                        // decision that held to the end of the run.
-                        let decision = if t.options.read_time.is_some() {
-                            s.decision_at_read
-                        } else {
-                            s.decision
-                        };
-                        if let (Some(td), Some(e)) = (s.decision_time, s.energy_to_decision) {
-                            out_time.0 += td;
-                            out_time.1 += e;
-                            out_time.2 += 1;
-                        }
-                        Ok(match decision {
-                            Some(dec) => (dec.winner, dec.ambiguous),
-                            // No decision held: as ambiguous as a decision can be.
-                            None => (0, true),
-                        })
+                        let decision = transient_decision(
+                            c.as_ref(),
+                            inputs,
+                            None,
+                            t,
+                            &mut noise_rng,
+                            &mut tws,
+                            &mut out_time,
+                        )
+                        .map_err(|e| failed(first, FailureKind::of_transient(&e), e))?;
+                        Ok(winner_or_ambiguous(decision))
                     }
                 },
                 Decider::DiffPair(c) => {
@@ -1595,32 +1583,19 @@ pub fn evaluate_chip_with(
                     }
                     Some(t) => {
                         let mut noise_rng = noise_stream(i, noise_source::TRANSIENT);
-                        let noise = t
-                            .noise
-                            .as_ref()
-                            .map(|o| (o, &mut noise_rng as &mut dyn rand::RngCore));
-                        let s = if hstate.is_empty() {
-                            simulate(c.as_ref(), inputs, &t.options, noise, &mut tws)
-                        } else {
-                            simulate_from(c.as_ref(), inputs, &hstate, &t.options, noise, &mut tws)
-                        }
+                        let decision = transient_decision(
+                            c.as_ref(),
+                            inputs,
+                            (!hstate.is_empty()).then_some(&hstate[..]),
+                            t,
+                            &mut noise_rng,
+                            &mut tws,
+                            &mut out_time,
+                        )
                         .map_err(|e| failed(first, FailureKind::of_transient(&e), e))?;
                         hstate.clear();
                         hstate.extend_from_slice(&tws.solution().node_voltages);
-                        let decision = if t.options.read_time.is_some() {
-                            s.decision_at_read
-                        } else {
-                            s.decision
-                        };
-                        if let (Some(td), Some(e)) = (s.decision_time, s.energy_to_decision) {
-                            out_time.0 += td;
-                            out_time.1 += e;
-                            out_time.2 += 1;
-                        }
-                        Ok(match decision {
-                            Some(dec) => (dec.winner, dec.ambiguous),
-                            None => (0, true),
-                        })
+                        Ok(winner_or_ambiguous(decision))
                     }
                 },
                 Decider::KWinners(c) => {
@@ -1635,22 +1610,16 @@ pub fn evaluate_chip_with(
                         },
                         Some(t) => {
                             let mut noise_rng = noise_stream(i, noise_source::TRANSIENT);
-                            let noise = t
-                                .noise
-                                .as_ref()
-                                .map(|o| (o, &mut noise_rng as &mut dyn rand::RngCore));
-                            let s = simulate(c.as_ref(), inputs, &t.options, noise, &mut tws)
-                                .map_err(|e| failed(first, FailureKind::of_transient(&e), e))?;
-                            let decision = if t.options.read_time.is_some() {
-                                s.decision_at_read
-                            } else {
-                                s.decision
-                            };
-                            if let (Some(td), Some(e)) = (s.decision_time, s.energy_to_decision) {
-                                out_time.0 += td;
-                                out_time.1 += e;
-                                out_time.2 += 1;
-                            }
+                            let decision = transient_decision(
+                                c.as_ref(),
+                                inputs,
+                                None,
+                                t,
+                                &mut noise_rng,
+                                &mut tws,
+                                &mut out_time,
+                            )
+                            .map_err(|e| failed(first, FailureKind::of_transient(&e), e))?;
                             let shares = &tws.solution().shares;
                             let top = t.options.rule.decide_top_k(shares, k);
                             Ok((
@@ -1671,11 +1640,7 @@ pub fn evaluate_chip_with(
                         let r = c
                             .simulate(inputs, &t.options, noise, &mut tws)
                             .map_err(|e| failed(first, FailureKind::of_transient(&e), e))?;
-                        if let (Some(td), Some(e)) = (r.decision_time, r.energy) {
-                            out_time.0 += td;
-                            out_time.1 += e;
-                            out_time.2 += 1;
-                        }
+                        add_time(&mut out_time, r.decision_time, r.energy);
                         // A group that never decided leaves the tree undecided.
                         Ok((
                             r.decision.winner,
@@ -1701,11 +1666,7 @@ pub fn evaluate_chip_with(
                         .rank(inputs, &rule, transient, &mut ws, &mut tws)
                         .map_err(|e| failed(first, FailureKind::of_transient(&e), e))?;
                     // Time and energy: the steps' sum (DC: the per-step time model).
-                    if let (Some(td), Some(e)) = (r.time, r.energy) {
-                        out_time.0 += td;
-                        out_time.1 += e;
-                        out_time.2 += 1;
-                    }
+                    add_time(&mut out_time, r.time, r.energy);
                     Ok((r.scored_class(truth), r.ambiguous()))
                 }
             }
@@ -1736,6 +1697,48 @@ pub fn evaluate_chip_with(
     out.energy_sum = out_time.1;
     out.timed = out_time.2;
     out
+}
+
+/// One transient decision of a shared-node circuit, from `start` (the state a circuit that holds
+/// state left) or from the options' initial state: time-limited runs give the decision at the
+/// read-out time, others the decision that held to the end of the run. A decided run's time and
+/// energy are added to `out_time`.
+#[allow(clippy::too_many_arguments)]
+fn transient_decision<C: crate::stages::competition::SharedNodeCircuit + ?Sized>(
+    c: &C,
+    inputs: &[f64],
+    start: Option<&[f64]>,
+    t: &TransientEvaluation,
+    noise_rng: &mut dyn rand::RngCore,
+    tws: &mut TransientWorkspace,
+    out_time: &mut (f64, f64, u64),
+) -> Result<Option<crate::stages::competition::Decision>, TransientError> {
+    let noise = t.noise.as_ref().map(|o| (o, noise_rng));
+    let s = match start {
+        Some(v) => simulate_from(c, inputs, v, &t.options, noise, tws)?,
+        None => simulate(c, inputs, &t.options, noise, tws)?,
+    };
+    add_time(out_time, s.decision_time, s.energy_to_decision);
+    Ok(if t.options.read_time.is_some() {
+        s.decision_at_read
+    } else {
+        s.decision
+    })
+}
+
+/// The winner and ambiguity of a transient decision; no decision held: as ambiguous as a
+/// decision can be.
+fn winner_or_ambiguous(decision: Option<crate::stages::competition::Decision>) -> (usize, bool) {
+    decision.map_or((0, true), |d| (d.winner, d.ambiguous))
+}
+
+/// Add one decided run's time and energy to the chip's sums (time, energy, count).
+fn add_time(out_time: &mut (f64, f64, u64), time: Option<f64>, energy: Option<f64>) {
+    if let (Some(td), Some(e)) = (time, energy) {
+        out_time.0 += td;
+        out_time.1 += e;
+        out_time.2 += 1;
+    }
 }
 
 /// Winner marking a decision left to the batched DC solve (never a class index).
