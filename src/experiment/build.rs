@@ -643,6 +643,20 @@ pub fn check_with_core(e: &Experiment) -> Result<(), CoreRefusal> {
                 },
             })?;
     }
+    if let Some(t) = trim_design(e) {
+        t.validate().map_err(|err| {
+            let value = match err {
+                crate::pipeline::trim::TrimError::Bits { bits } => Some(bits as f64),
+                crate::pipeline::trim::TrimError::Range { range } => Some(range),
+                _ => None,
+            };
+            CoreRefusal {
+                key: trim_key(&err).into(),
+                value,
+                message: err.to_string(),
+            }
+        })?;
+    }
     let _ = p;
     Ok(())
 }
@@ -650,7 +664,7 @@ pub fn check_with_core(e: &Experiment) -> Result<(), CoreRefusal> {
 /// Build a point's setup (weights mapped) from its experiment and prepared classifier.
 pub fn build_point(e: &Experiment, prep: &Prepared) -> Result<PointSetup, BuildError> {
     let d = design(e, prep.class_names.len())?;
-    PointSetup::new(d, prep).map_err(|err| match err {
+    let s = PointSetup::new(d, prep).map_err(|err| match err {
         err @ PipelineError::HiddenReadoutLevels { .. } => BuildError::Keyed {
             key: "weights.levels",
             source: Box::new(err),
@@ -660,7 +674,42 @@ pub fn build_point(e: &Experiment, prep: &Prepared) -> Result<PointSetup, BuildE
             source: Box::new(err),
         },
         other => other.into(),
-    })
+    })?;
+    match trim_design(e) {
+        Some(t) => s.with_trim(t, prep).map_err(|err| match &err {
+            PipelineError::Trim(t) => BuildError::Keyed {
+                key: trim_key(t),
+                source: Box::new(err),
+            },
+            _ => err.into(),
+        }),
+        None => Ok(s),
+    }
+}
+
+/// The trim design of an experiment (`[trim]` present and enabled).
+pub fn trim_design(e: &Experiment) -> Option<crate::pipeline::trim::TrimDesign> {
+    e.trim
+        .as_ref()
+        .filter(|t| t.enabled)
+        .map(|t| crate::pipeline::trim::TrimDesign {
+            bits: t.bits,
+            range: t.range,
+            unit_area_m2: t.unit.w.si() * t.unit.l.si(),
+            mismatch: t.mismatch,
+        })
+}
+
+/// The user's key of a trim refusal.
+fn trim_key(e: &crate::pipeline::trim::TrimError) -> &'static str {
+    use crate::pipeline::trim::TrimError as T;
+    match e {
+        T::Bits { .. } => "trim.bits",
+        T::Range { .. } => "trim.range",
+        T::UnitArea { .. } => "trim.unit",
+        T::NoCircuit => "competition.circuit",
+        T::Lines { .. } | T::Level { .. } => "trim",
+    }
 }
 
 /// The cost model settings of an experiment (`[cost]`; the weight element's own size for a
