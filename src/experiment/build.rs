@@ -697,6 +697,7 @@ pub fn trim_design(e: &Experiment) -> Option<crate::pipeline::trim::TrimDesign> 
             range: t.range,
             unit_area_m2: t.unit.w.si() * t.unit.l.si(),
             mismatch: t.mismatch,
+            calibration_temperature_k: t.temperature.si(),
         })
 }
 
@@ -708,6 +709,7 @@ fn trim_key(e: &crate::pipeline::trim::TrimError) -> &'static str {
         T::Range { .. } => "trim.range",
         T::UnitArea { .. } => "trim.unit",
         T::NoCircuit => "competition.circuit",
+        T::Temperature { .. } => "trim.temperature",
         T::Lines { .. } | T::Level { .. } => "trim",
     }
 }

@@ -578,6 +578,9 @@ pub struct TrimCfg {
     pub unit: SizeCfg,
     /// The DAC's own full-scale error from its unit devices' area (Pelgrom).
     pub mismatch: bool,
+    /// Die temperature during calibration (once, at test; the die then runs at
+    /// `conditions.temperature`).
+    pub temperature: Q<Temperature>,
 }
 
 impl Default for TrimCfg {
@@ -588,6 +591,7 @@ impl Default for TrimCfg {
             range: 0.5,
             unit: SizeCfg::um(1.0, 1.0),
             mismatch: true,
+            temperature: Q::new(300.0),
         }
     }
 }

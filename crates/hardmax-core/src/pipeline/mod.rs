@@ -1262,6 +1262,7 @@ pub fn evaluate_chip_with(
             eff.scale_read_noise(toggles.read_noise);
         }
         let t = d.conditions.temperature_k;
+        let temp = t;
         let decider = build_decider(
             &d.competition,
             &d.process,
@@ -1288,7 +1289,22 @@ pub fn evaluate_chip_with(
         let gains = match &setup.trim {
             Some(t) => {
                 let mut r = dies.stream(seed, domain::CHIP, &[chip, trim::TRIM_STREAM]);
-                Some(trim_gains(t, &decider, &d.process, eff.outputs(), &mut r)?)
+                // Calibrated at its own temperature: the same draws evaluated there.
+                let at_cal = if t.design.calibration_temperature_k != temp {
+                    let mut c = dies.stream(seed, domain::CHIP, &[chip, COMPETITION_STREAM]);
+                    Some(build_decider(
+                        &d.competition,
+                        &d.process,
+                        t.design.calibration_temperature_k,
+                        &mut c,
+                        toggles.competition_mismatch,
+                        toggles.infinite_gain,
+                    )?)
+                } else {
+                    None
+                };
+                let cal = at_cal.as_ref().unwrap_or(&decider);
+                Some(trim_gains(t, cal, &d.process, eff.outputs(), &mut r)?)
             }
             None => None,
         };

@@ -37,6 +37,8 @@ pub struct TrimDesign {
     pub unit_area_m2: f64,
     /// Draw each DAC's own full-scale error from its area (Pelgrom).
     pub mismatch: bool,
+    /// Die temperature during calibration, K (the operating temperature may differ).
+    pub calibration_temperature_k: f64,
 }
 
 #[derive(Debug, Error, Clone, PartialEq)]
@@ -55,6 +57,8 @@ pub enum TrimError {
          set competition.circuit or switch trim off"
     )]
     NoCircuit,
+    #[error("trim calibration temperature {kelvin} K must be positive and finite")]
+    Temperature { kelvin: f64 },
     #[error("trim needs at least two competition lines, the design has {lines}")]
     Lines { lines: usize },
     #[error("trim calibration level {level} A is not a positive finite current")]
@@ -74,6 +78,10 @@ impl TrimDesign {
             return Err(TrimError::UnitArea {
                 area: self.unit_area_m2,
             });
+        }
+        let k = self.calibration_temperature_k;
+        if !(k.is_finite() && k > 0.0) {
+            return Err(TrimError::Temperature { kelvin: k });
         }
         Ok(())
     }
@@ -182,6 +190,7 @@ mod tests {
             range,
             unit_area_m2: 1e-12,
             mismatch: false,
+            calibration_temperature_k: 300.0,
         }
     }
 
@@ -378,6 +387,7 @@ mod chip_tests {
             range: 1.2,
             unit_area_m2: 1e-12,
             mismatch: false,
+            calibration_temperature_k: 300.0,
         };
         let acc = accuracies(t, 40);
         let n_test = 54.0;
@@ -404,6 +414,7 @@ mod chip_tests {
             range: 0.3,
             unit_area_m2: 1e-12,
             mismatch: false,
+            calibration_temperature_k: 300.0,
         };
         let acc = accuracies(t, 40);
         let (u, b, f) = (mean(&acc, 0), mean(&acc, 1), mean(&acc, 2));
@@ -421,6 +432,7 @@ mod chip_tests {
             range: 1.0,
             unit_area_m2: 1e-12,
             mismatch: true,
+            calibration_temperature_k: 300.0,
         };
         let a = s
             .clone()
