@@ -644,17 +644,22 @@ pub fn check_with_core(e: &Experiment) -> Result<(), CoreRefusal> {
             })?;
     }
     if let Some(t) = trim_design(e) {
-        t.validate().map_err(|err| {
-            let value = match err {
-                crate::pipeline::trim::TrimError::Bits { bits } => Some(bits as f64),
-                crate::pipeline::trim::TrimError::Range { range } => Some(range),
-                _ => None,
-            };
-            CoreRefusal {
+        t.validate().map_err(|err| match err {
+            crate::pipeline::trim::TrimError::Bits { bits } => refusal(
+                trim_key(&err).into(),
+                bits as f64,
+                "a trim DAC has 1 to 16 bits",
+            ),
+            crate::pipeline::trim::TrimError::Range { range } => refusal(
+                trim_key(&err).into(),
+                range,
+                "the gain span lies in (0, 2): gains from 1 - range/2 to 1 + range/2",
+            ),
+            _ => CoreRefusal {
                 key: trim_key(&err).into(),
-                value,
+                value: None,
                 message: err.to_string(),
-            }
+            },
         })?;
     }
     let _ = p;
