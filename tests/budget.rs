@@ -56,6 +56,7 @@ fn invented_two_class(per_class: usize) -> Prepared {
         ideal_acc: acc,
         baseline_acc: acc,
         untested_classes: Vec::new(),
+        train_mean_u: Vec::new(),
     }
 }
 

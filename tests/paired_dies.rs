@@ -67,6 +67,7 @@ fn prepared(n: usize) -> Prepared {
         ideal_acc: acc,
         baseline_acc: acc,
         untested_classes: Vec::new(),
+        train_mean_u: Vec::new(),
     }
 }
 

@@ -828,6 +828,25 @@ pub fn check_with_core(e: &Experiment) -> Result<(), CoreRefusal> {
                 },
             })?;
     }
+    if let Some(t) = trim_design(e) {
+        t.validate().map_err(|err| match err {
+            crate::pipeline::trim::TrimError::Bits { bits } => refusal(
+                trim_key(&err).into(),
+                bits as f64,
+                "a trim DAC has 1 to 16 bits",
+            ),
+            crate::pipeline::trim::TrimError::Range { range } => refusal(
+                trim_key(&err).into(),
+                range,
+                "the gain span lies in (0, 2): gains from 1 - range/2 to 1 + range/2",
+            ),
+            _ => CoreRefusal {
+                key: trim_key(&err).into(),
+                value: None,
+                message: err.to_string(),
+            },
+        })?;
+    }
     let _ = p;
     Ok(())
 }
@@ -835,7 +854,7 @@ pub fn check_with_core(e: &Experiment) -> Result<(), CoreRefusal> {
 /// Build a point's setup (weights mapped) from its experiment and prepared classifier.
 pub fn build_point(e: &Experiment, prep: &Prepared) -> Result<PointSetup, BuildError> {
     let d = design(e, prep.class_names.len())?;
-    PointSetup::new(d, prep).map_err(|err| match err {
+    let s = PointSetup::new(d, prep).map_err(|err| match err {
         err @ PipelineError::HiddenReadoutLevels { .. } => BuildError::Keyed {
             key: "weights.levels",
             source: Box::new(err),
@@ -845,7 +864,44 @@ pub fn build_point(e: &Experiment, prep: &Prepared) -> Result<PointSetup, BuildE
             source: Box::new(err),
         },
         other => other.into(),
-    })
+    })?;
+    match trim_design(e) {
+        Some(t) => s.with_trim(t, prep).map_err(|err| match &err {
+            PipelineError::Trim(t) => BuildError::Keyed {
+                key: trim_key(t),
+                source: Box::new(err),
+            },
+            _ => err.into(),
+        }),
+        None => Ok(s),
+    }
+}
+
+/// The trim design of an experiment (`[trim]` present and enabled).
+pub fn trim_design(e: &Experiment) -> Option<crate::pipeline::trim::TrimDesign> {
+    e.trim
+        .as_ref()
+        .filter(|t| t.enabled)
+        .map(|t| crate::pipeline::trim::TrimDesign {
+            bits: t.bits,
+            range: t.range,
+            unit_area_m2: t.unit.w.si() * t.unit.l.si(),
+            mismatch: t.mismatch,
+            calibration_temperature_k: t.temperature.si(),
+        })
+}
+
+/// The user's key of a trim refusal.
+fn trim_key(e: &crate::pipeline::trim::TrimError) -> &'static str {
+    use crate::pipeline::trim::TrimError as T;
+    match e {
+        T::Bits { .. } => "trim.bits",
+        T::Range { .. } => "trim.range",
+        T::UnitArea { .. } => "trim.unit",
+        T::NoCircuit | T::Circuit { .. } => "competition.circuit",
+        T::Temperature { .. } => "trim.temperature",
+        T::Lines { .. } | T::Level { .. } => "trim",
+    }
 }
 
 /// The cost model settings of an experiment (`[cost]`; the weight element's own size for a

@@ -684,6 +684,39 @@ impl Default for CostCfg {
     }
 }
 
+/// `[trim]`: a gain trim DAC per competition-stage input line, calibrated on every die before
+/// the test split is evaluated (DEVELOPERS.md, model notes §11, *Trim*).
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields, default)]
+pub struct TrimCfg {
+    /// Trim the dies (false: the table is kept but the dies are untrimmed).
+    pub enabled: bool,
+    /// Bits of each line's DAC, 1 to 16.
+    pub bits: u32,
+    /// Span of the gain correction: gains from 1 - range/2 to 1 + range/2, range in (0, 2).
+    pub range: f64,
+    /// Unit device of the DAC (2^bits - 1 per trimmed line).
+    pub unit: SizeCfg,
+    /// The DAC's own full-scale error from its unit devices' area (Pelgrom).
+    pub mismatch: bool,
+    /// Die temperature during calibration (once, at test; the die then runs at
+    /// `conditions.temperature`).
+    pub temperature: Q<Temperature>,
+}
+
+impl Default for TrimCfg {
+    fn default() -> Self {
+        Self {
+            enabled: true,
+            bits: 6,
+            range: 0.5,
+            unit: SizeCfg::um(1.0, 1.0),
+            mismatch: true,
+            temperature: Q::new(300.0),
+        }
+    }
+}
+
 /// `[target]`: the accuracy a chip must reach to count towards yield.
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
 #[serde(deny_unknown_fields, default)]
@@ -760,6 +793,9 @@ pub struct Experiment {
     pub target: TargetCfg,
     #[serde(default)]
     pub cost: CostCfg,
+    /// `[trim]`: absent = no trim (and the resolved experiment, hence its hash, unchanged).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub trim: Option<TrimCfg>,
     #[serde(default)]
     pub sweep: SweepSpec,
     /// Batch-scheduler settings (taken out of the resolved experiment, see [`ClusterCfg`]).
@@ -801,6 +837,7 @@ impl Experiment {
             population: PopulationCfg::default(),
             target: TargetCfg::default(),
             cost: CostCfg::default(),
+            trim: Some(TrimCfg::default()),
             sweep: SweepSpec::default(),
             cluster: None,
             search: None,
@@ -1980,5 +2017,44 @@ mod tests {
         assert_eq!(r.base.population.pairing, PairingKind::Paired);
         assert!(r.to_toml().contains("pairing = \"paired\""));
         assert!(r.to_toml().contains("yield = 0.95"));
+    }
+
+    /// Trim bits of 0 or above 16 and a negative range: refused by the core
+    /// (`TrimDesign::validate`), named by the user's key and line. No `[trim]`: nothing of it
+    /// in the resolved experiment (so the hash of every existing experiment is unchanged).
+    #[test]
+    fn trim_keys_are_checked() {
+        for (text, key) in [
+            (
+                "[trim]
+bits = 0
+",
+                "trim.bits",
+            ),
+            (
+                "[trim]
+bits = 17
+",
+                "trim.bits",
+            ),
+            (
+                "[trim]
+range = -0.5
+",
+                "trim.range",
+            ),
+        ] {
+            let e = load_text(&format!(
+                "[dataset]\nname = \"iris\"\n[competition]\ncircuit = \"current_wta\"\n{text}"
+            ))
+            .unwrap_err()
+            .to_string();
+            assert!(e.contains(key) && e.contains("line 6"), "{key}: {e}");
+        }
+        let r = load_text("[dataset]\nname = \"iris\"\n").unwrap_or_else(|e| panic!("{e}"));
+        assert!(!r.to_toml().contains("trim"), "{}", r.to_toml());
+        let r = load_text("[dataset]\nname = \"iris\"\n[trim]\nbits = 16\n")
+            .unwrap_or_else(|e| panic!("{e}"));
+        assert!(r.to_toml().contains("bits = 16"), "{}", r.to_toml());
     }
 }

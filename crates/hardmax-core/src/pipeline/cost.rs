@@ -99,7 +99,9 @@ pub struct Cost {
     pub hidden_area_m2: f64,
     /// Gate area of the competition stage.
     pub competition_area_m2: f64,
-    /// Sum of the four gate areas.
+    /// Gate area of the competition lines' trim DACs (0 without trim).
+    pub trim_area_m2: f64,
+    /// Sum of the gate areas (weights, DAC, hidden, competition, trim).
     pub gate_area_m2: f64,
     /// Gate area x layout overhead.
     pub area_m2: f64,
@@ -281,8 +283,14 @@ pub fn point_cost(
             None => cost.bias_current_a += h.nonlinearity.bias_current_a(),
         }
     }
-    cost.gate_area_m2 =
-        cost.weights_area_m2 + cost.dac_area_m2 + cost.hidden_area_m2 + cost.competition_area_m2;
+    if let Some(t) = &setup.trim {
+        cost.trim_area_m2 = t.design.area_m2(stages.last().map_or(0, |s| s.outputs()));
+    }
+    cost.gate_area_m2 = cost.weights_area_m2
+        + cost.dac_area_m2
+        + cost.hidden_area_m2
+        + cost.competition_area_m2
+        + cost.trim_area_m2;
     cost.area_m2 = cost.gate_area_m2 * settings.layout_overhead;
     cost.supply_current_a = cost.bias_current_a + cost.weights_current_a;
     cost.power_w = cost.supply_current_a * d.process.vdd;
@@ -338,6 +346,7 @@ mod tests {
             ideal_acc: 1.0,
             baseline_acc: 1.0,
             untested_classes: Vec::new(),
+            train_mean_u: Vec::new(),
         };
         let weights = WeightStageDesign {
             input: InputDesign {

@@ -20,6 +20,7 @@ pub mod budget;
 pub mod cost;
 pub mod hwtrain;
 pub mod sizing;
+pub mod trim;
 
 use ndarray::{Array1, Array2, ArrayView1, ArrayView2, Axis};
 
@@ -57,6 +58,8 @@ pub enum PipelineError {
     Weights(#[from] crate::stages::weights::WeightStageError),
     #[error("competition stage: {0}")]
     Competition(#[from] CompetitionError),
+    #[error("trim: {0}")]
+    Trim(#[from] trim::TrimError),
     #[error("{what} is not a finite number; check the dataset and the weight-stage settings")]
     NonFinite { what: &'static str },
     #[error("{what}")]
@@ -112,6 +115,9 @@ pub struct Prepared {
     /// Classes with no sample in the test split (only when the caller allowed it): accuracy
     /// leaves them out, and whoever reports it must say so.
     pub untested_classes: Vec<crate::data::UntestedClass>,
+    /// Mean scaled input of the training split (one value per feature; the trim calibration's
+    /// level, never the test split). Empty when not known.
+    pub train_mean_u: Vec<f64>,
 }
 
 /// A hidden stage: a drawn weight layer and a soft competition (normaliser) between the input
@@ -215,7 +221,7 @@ fn prepare_split(
     let test_u = model.scale(test.x.view())?;
     let ideal_pred = model.predict_ideal(test.x.view())?;
     let baseline_pred = model.predict_baseline(test.x.view())?;
-    Ok(Prepared::assemble(
+    let mut p = Prepared::assemble(
         dataset,
         train,
         test,
@@ -223,7 +229,9 @@ fn prepare_split(
         vec![(model.linear.weights.clone(), model.linear.bias.clone())],
         None,
         [ideal_pred, baseline_pred],
-    ))
+    );
+    p.train_mean_u = cost::mean_input(&model.scale(train.x.view())?);
+    Ok(p)
 }
 
 impl Prepared {
@@ -252,6 +260,7 @@ impl Prepared {
             ideal_pred,
             baseline_pred,
             untested_classes: Vec::new(),
+            train_mean_u: Vec::new(),
         }
     }
 }
@@ -342,7 +351,7 @@ fn prepare_hidden(
             })?,
         );
     }
-    Ok(Prepared::assemble(
+    let mut p = Prepared::assemble(
         dataset,
         train,
         test,
@@ -350,7 +359,9 @@ fn prepare_hidden(
         layers,
         Some(spec),
         [ideal_pred, baseline_pred],
-    ))
+    );
+    p.train_mean_u = cost::mean_input(&u_train);
+    Ok(p)
 }
 
 /// The competition stage of a classifier design.
@@ -487,6 +498,17 @@ impl ClassifierDesign {
 pub struct PointSetup {
     pub design: ClassifierDesign,
     pub mapped: MappedChain,
+    /// Post-fabrication trim of the competition stage's lines ([`PointSetup::with_trim`]).
+    pub trim: Option<TrimSetup>,
+}
+
+/// A trim design with its calibration level (model notes §11, *Trim*).
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct TrimSetup {
+    pub design: trim::TrimDesign,
+    /// Calibration current per line, A: the nominal chain's mean output over its lines at the
+    /// training split's mean input.
+    pub level_a: f64,
 }
 
 impl PointSetup {
@@ -546,7 +568,62 @@ impl PointSetup {
         {
             check_hidden_wta(w, spec, &mapped, prep, design.conditions.temperature_k)?;
         }
-        Ok(Self { design, mapped })
+        Ok(Self {
+            design,
+            mapped,
+            trim: None,
+        })
+    }
+
+    /// This point with a trim DAC per competition line, calibrated at the nominal chain's mean
+    /// output current at the training split's mean input (`prep.train_mean_u`).
+    pub fn with_trim(
+        mut self,
+        t: trim::TrimDesign,
+        prep: &Prepared,
+    ) -> Result<Self, PipelineError> {
+        t.validate()?;
+        match &self.design.competition {
+            CompetitionDesign::Argmax => return Err(trim::TrimError::NoCircuit.into()),
+            CompetitionDesign::CurrentWta(_) | CompetitionDesign::DiffPair(_) => {}
+            CompetitionDesign::Hysteretic(_) => {
+                return Err(trim::TrimError::Circuit {
+                    circuit: "hysteretic_wta",
+                }
+                .into())
+            }
+            CompetitionDesign::KWinners(_) => {
+                return Err(trim::TrimError::Circuit {
+                    circuit: "k_winners",
+                }
+                .into())
+            }
+            CompetitionDesign::Cascade(_) => {
+                return Err(trim::TrimError::Circuit { circuit: "cascade" }.into())
+            }
+            CompetitionDesign::Ranking(_) => {
+                return Err(trim::TrimError::Circuit {
+                    circuit: "repeated_max",
+                }
+                .into())
+            }
+        }
+        let nominal = self.mapped.nominal_levels();
+        let mut scratch = nominal.scratch();
+        let mut out = vec![0.0; nominal.outputs()];
+        let x: Vec<f64> = (0..prep.n_features)
+            .map(|i| prep.train_mean_u.get(i).copied().unwrap_or(0.0))
+            .collect();
+        nominal.forward_noiseless(&x, &mut scratch, &mut out)?;
+        let level = out.iter().sum::<f64>() / out.len().max(1) as f64;
+        if !(level.is_finite() && level > 0.0) {
+            return Err(trim::TrimError::Level { level }.into());
+        }
+        self.trim = Some(TrimSetup {
+            design: t,
+            level_a: level,
+        });
+        Ok(self)
     }
 
     /// One line describing the competition stage, for manifests and reports.
@@ -1393,6 +1470,7 @@ pub fn evaluate_chip_with(
             eff.scale_read_noise(toggles.read_noise);
         }
         let t = d.conditions.temperature_k;
+        let temp = t;
         let decider = build_decider(
             &d.competition,
             &d.process,
@@ -1415,9 +1493,32 @@ pub fn evaluate_chip_with(
             }
             _ => None,
         };
-        Ok((eff, decider, hidden))
+        // Trim: calibrated on this die's own circuit; its DAC draws from a stream of its own.
+        let gains = match &setup.trim {
+            Some(t) => {
+                let mut r = dies.stream(seed, domain::CHIP, &[chip, trim::TRIM_STREAM]);
+                // Calibrated at its own temperature: the same draws evaluated there.
+                let at_cal = if t.design.calibration_temperature_k != temp {
+                    let mut c = dies.stream(seed, domain::CHIP, &[chip, COMPETITION_STREAM]);
+                    Some(build_decider(
+                        &d.competition,
+                        &d.process,
+                        t.design.calibration_temperature_k,
+                        &mut c,
+                        toggles.competition_mismatch,
+                        toggles.infinite_gain,
+                    )?)
+                } else {
+                    None
+                };
+                let cal = at_cal.as_ref().unwrap_or(&decider);
+                Some(trim_gains(t, cal, &d.process, eff.outputs(), &mut r)?)
+            }
+            None => None,
+        };
+        Ok((eff, decider, hidden, gains))
     })();
-    let (eff, decider, hidden) = match built {
+    let (eff, decider, hidden, gains) = match built {
         Ok(x) => x,
         Err(e) => {
             // Every decision of an unbuildable chip is a failed one, of the build error's kind;
@@ -1432,6 +1533,7 @@ pub fn evaluate_chip_with(
     };
     let mut currents = vec![0.0; eff.outputs()];
     let mut noisy = vec![0.0; eff.outputs()];
+    let mut trimmed = vec![0.0; eff.outputs()];
     let mut scratch: ChainScratch = eff.scratch();
     let noisy_weights = eff.stages().iter().any(|s| s.has_read_noise());
     let mut ws = Workspace::new();
@@ -1519,6 +1621,16 @@ pub fn evaluate_chip_with(
                 .map_err(|e| failed(first, FailureKind::Noise, e))?
             } else {
                 &currents
+            };
+            // Each line through its trimmed input mirror.
+            let inputs: &[f64] = match &gains {
+                Some(g) => {
+                    for ((t, &i), &g) in trimmed.iter_mut().zip(inputs).zip(g) {
+                        *t = i * g;
+                    }
+                    &trimmed
+                }
+                None => inputs,
             };
             match &decider {
                 Decider::Argmax => crate::training::argmax(inputs)
@@ -1801,6 +1913,56 @@ impl DcBatch {
         self.rows.clear();
         self.samples.clear();
     }
+}
+
+/// The trim gains of one die: its DAC errors drawn from `rng`, then the calibration of
+/// [`trim::TrimDesign::calibrate`] measured on the die's own competition stage (DC solves).
+fn trim_gains(
+    t: &TrimSetup,
+    decider: &Decider,
+    process: &Process,
+    lines: usize,
+    rng: &mut crate::rng::Stream,
+) -> Result<Vec<f64>, PipelineError> {
+    // Refused by `PointSetup::with_trim` already; kept here so no circuit is calibrated by a
+    // measurement that does not exist.
+    let unsupported = match decider {
+        Decider::Hysteretic(_) => Some("hysteretic_wta"),
+        Decider::KWinners(_) => Some("k_winners"),
+        Decider::Cascade(_) => Some("cascade"),
+        Decider::Ranking(_) => Some("repeated_max"),
+        _ => None,
+    };
+    if let Some(circuit) = unsupported {
+        return Err(trim::TrimError::Circuit { circuit }.into());
+    }
+    let errors = t.design.draw_errors(lines, process.nmos.a_beta_pair, rng);
+    let mut ws = Workspace::new();
+    let mut sol = StageSolution::default();
+    let mut ratio = |x: &[f64], k: usize| -> Result<f64, CompetitionError> {
+        let out = |sol: &StageSolution| (sol.outputs[k] / sol.outputs[0]).ln();
+        Ok(match decider {
+            Decider::Wta(c) => {
+                c.solve(x, &mut ws, &mut sol)?;
+                out(&sol)
+            }
+            Decider::DiffPair(c) => {
+                c.solve(x, &mut ws, &mut sol)?;
+                out(&sol)
+            }
+            Decider::Limit(f) => (x[k] * f[k]).ln() - (x[0] * f[0]).ln(),
+            Decider::Argmax => (x[k] / x[0]).ln(),
+            // Returned above.
+            Decider::Hysteretic(_)
+            | Decider::KWinners(_)
+            | Decider::Cascade(_)
+            | Decider::Ranking(_) => f64::NAN,
+        })
+    };
+    let (gains, _codes) = t
+        .design
+        .calibrate(lines, t.level_a, &errors, &mut ratio)??;
+    Ok(gains)
 }
 
 /// One DC solve and decision: `(winner, ambiguous)`, or the failure's kind (its reason kept in
