@@ -263,7 +263,7 @@ pub fn run(
                         point: k as u64,
                         trainer: "hardware_aware".into(),
                         epochs: t.epochs_run as u64,
-                        steps: t.steps as u64,
+                        steps: t.steps,
                         objective: d.objective,
                         gradient_norm: d.gradient_norm,
                         converged: d.converged,
