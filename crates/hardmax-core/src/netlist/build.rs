@@ -6,6 +6,7 @@ use std::fmt::Write as _;
 use thiserror::Error;
 
 use crate::device::{Ekv, MosMismatch, Transistor};
+use crate::stages::competition::kwta::{KWinnersChip, KWinnersCircuit};
 use crate::stages::competition::{
     CompetitionChip, CompetitionCircuit, CompetitionError, CurrentSource, DiffPairInput,
 };
@@ -92,6 +93,11 @@ pub enum NetlistError {
     IncludePath(String),
     #[error("temperature {0} K: must be above 0 K")]
     Temperature(f64),
+    #[error(
+        "the k-winners WTA is exported in the behavioural form only (its limiter is a closed-form \
+         model): choose the behavioural device form"
+    )]
+    KWinnersForm,
     #[error("internal: the evaluated stage does not match its chip; please report this")]
     Inconsistent,
     #[error(transparent)]
@@ -229,11 +235,98 @@ pub fn build(
     samples: &[Vec<f64>],
     opts: &NetlistOptions,
 ) -> Result<Netlist, NetlistError> {
-    if !(die.temperature > 0.0 && die.temperature.is_finite()) {
-        return Err(NetlistError::Temperature(die.temperature));
+    build_any(AnyChip::Stage(&die.chip), die.temperature, samples, opts)
+}
+
+/// Build the deck of a k-winners die ([`KWinnersChip`]) at `temperature` (K) evaluated on
+/// `samples` (input currents, A), in the layout of [`build`] (nodes `n0..n{N-1}, nc`). The
+/// behavioural form writes the Rust model's own equations: each sink A_k divided by its input
+/// source's compliance factor `1 - e^{-(V_dd - V_k)/U_T}` (the line equation of
+/// [`KWinnersCircuit`]), and each output B_k with its PMOS limiter L_k as one source carrying
+/// the closed-form series current `x(u, eps)` (module docs of
+/// [`crate::stages::competition::kwta`]; the node between B_k and L_k is eliminated there, so it
+/// is not a node here either). Only the behavioural form is offered: the model-card form would
+/// simulate a different (transistor-level) circuit.
+pub fn build_kwinners(
+    chip: &KWinnersChip,
+    temperature: f64,
+    samples: &[Vec<f64>],
+    opts: &NetlistOptions,
+) -> Result<Netlist, NetlistError> {
+    if opts.form != DeviceForm::Behavioural {
+        return Err(NetlistError::KWinnersForm);
     }
-    let circuit = die.chip.at(die.temperature)?;
-    let n = die.chip.n();
+    build_any(AnyChip::KWinners(chip), temperature, samples, opts)
+}
+
+/// The chips [`build_any`] writes.
+#[derive(Clone, Copy)]
+enum AnyChip<'a> {
+    Stage(&'a CompetitionChip),
+    KWinners(&'a KWinnersChip),
+}
+
+/// The k-winners limited output `x(u, I_u, eps)` (stable form of the smaller root; `x = u` for
+/// `u <= 0`), as in `KWinnersCircuit`.
+const KWTA_FUNCTIONS: &str =
+    ".func klim(u,iu,e) {u<=0 ? u : 2*u*iu*(1-e)/(u+iu+sqrt((u-iu)*(u-iu)+4*u*iu*e))}
+";
+
+/// Cells, limiters and bias of a k-winners die (behavioural form only).
+fn write_kwinners(
+    w: &mut Writer<'_>,
+    kc: &KWinnersCircuit,
+    chip: &KWinnersChip,
+    nodes: &[String],
+    outs: &[String],
+) -> Result<(), NetlistError> {
+    let c = kc.cells();
+    let n = nodes.len() - 1;
+    let ut = crate::physics::thermal_voltage(c.temperature);
+    let vdd = c.supply;
+    w.s.push_str(KWTA_FUNCTIONS);
+    for k in 0..n {
+        let (Some(a), Some(b), Some(iu)) = (c.sink(k), c.output(k), kc.limit(k)) else {
+            return Err(NetlistError::Inconsistent);
+        };
+        let nk = &nodes[k];
+        // Sink over the input source's compliance factor (the Rust model's line equation).
+        let sink = ekv_call(a, "V(nc)", &format!("V({nk})"), "0");
+        writeln!(
+            w.s,
+            "BA{k} {nk} 0 I={{{sink}/(1-exp(-({vdd:e}-V({nk}))/{ut:e}))}}"
+        )
+        .unwrap();
+        // B_k in series with its limiter L_k (largest current I_u,k, mismatch included).
+        let u = ekv_call(b, &format!("V({nk})"), &format!("V({})", outs[k]), "V(nc)");
+        writeln!(
+            w.s,
+            "BB{k} {} nc I={{klim({u},{iu:e},exp(-({vdd:e}-V(nc))/{ut:e}))}}",
+            outs[k]
+        )
+        .unwrap();
+    }
+    let d = &chip.cells.design;
+    let t = match &d.bias {
+        CurrentSource::Transistor { device, .. } => Some(device),
+        CurrentSource::Ideal { .. } => None,
+    };
+    w.bias("BIAS", "nc", c.bias(), t, &chip.cells.bias)
+}
+
+fn build_any(
+    chip: AnyChip<'_>,
+    temperature: f64,
+    samples: &[Vec<f64>],
+    opts: &NetlistOptions,
+) -> Result<Netlist, NetlistError> {
+    if !(temperature > 0.0 && temperature.is_finite()) {
+        return Err(NetlistError::Temperature(temperature));
+    }
+    let (circuit, kcircuit, n) = match chip {
+        AnyChip::Stage(c) => (Some(c.at(temperature)?), None, c.n()),
+        AnyChip::KWinners(c) => (None, Some(c.at(temperature)?), c.design.wta.n),
+    };
     if samples.is_empty() {
         return Err(NetlistError::NoSamples);
     }
@@ -266,7 +359,15 @@ pub fn build(
     let title = opts.title.replace(['\n', '\r'], " ");
     writeln!(w.s, "* {title}").unwrap();
     let (what, nodes, common): (&str, Vec<String>, &str) = match &circuit {
-        CompetitionCircuit::Wta(_) => (
+        None => (
+            "k-winners WTA",
+            (0..n)
+                .map(|k| format!("n{k}"))
+                .chain(["nc".into()])
+                .collect(),
+            "nc",
+        ),
+        Some(CompetitionCircuit::Wta(_)) => (
             "current-mode WTA",
             (0..n)
                 .map(|k| format!("n{k}"))
@@ -274,7 +375,7 @@ pub fn build(
                 .collect(),
             "nc",
         ),
-        CompetitionCircuit::Hysteretic(_) => (
+        Some(CompetitionCircuit::Hysteretic(_)) => (
             "hysteretic current-mode WTA",
             (0..n)
                 .map(|k| format!("n{k}"))
@@ -282,7 +383,7 @@ pub fn build(
                 .collect(),
             "nc",
         ),
-        CompetitionCircuit::DiffPair(_) => (
+        Some(CompetitionCircuit::DiffPair(_)) => (
             "multi-input differential pair",
             (0..n)
                 .map(|k| format!("g{k}"))
@@ -294,7 +395,7 @@ pub fn build(
     writeln!(
         w.s,
         "* hardmax netlist export: {what}, N = {n}, {} K, {} sample(s), devices: {}",
-        die.temperature,
+        temperature,
         samples.len(),
         match &opts.form {
             DeviceForm::Behavioural => "behavioural EKV (hardmax's equations)".to_string(),
@@ -319,8 +420,16 @@ pub fn build(
     .unwrap();
     let output_voltage;
     let current_inputs;
-    match (&circuit, &die.chip) {
-        (CompetitionCircuit::Wta(c), CompetitionChip::Wta(chip)) => {
+    match (&circuit, chip) {
+        (None, AnyChip::KWinners(chip)) => {
+            let Some(kc) = &kcircuit else {
+                return Err(NetlistError::Inconsistent);
+            };
+            output_voltage = kc.cells().output_voltage;
+            current_inputs = true;
+            write_kwinners(&mut w, kc, chip, &nodes, &outs)?;
+        }
+        (Some(CompetitionCircuit::Wta(c)), AnyChip::Stage(CompetitionChip::Wta(chip))) => {
             output_voltage = c.output_voltage;
             current_inputs = true;
             let d = &chip.design;
@@ -354,7 +463,10 @@ pub fn build(
             };
             w.bias("BIAS", common, c.bias(), t, &chip.bias)?;
         }
-        (CompetitionCircuit::Hysteretic(h), CompetitionChip::Hysteretic(hchip)) => {
+        (
+            Some(CompetitionCircuit::Hysteretic(h)),
+            AnyChip::Stage(CompetitionChip::Hysteretic(hchip)),
+        ) => {
             // The WTA's devices; B_k's drain reaches its output port through a 0 V source
             // VM<k> whose current a current-controlled source F<k> copies, times the mirror's
             // gain alpha_k (mismatch included), into the cell's input node (the feedback).
@@ -395,7 +507,10 @@ pub fn build(
             };
             w.bias("BIAS", common, c.bias(), t, &chip.bias)?;
         }
-        (CompetitionCircuit::DiffPair(c), CompetitionChip::DiffPair(chip)) => {
+        (
+            Some(CompetitionCircuit::DiffPair(c)),
+            AnyChip::Stage(CompetitionChip::DiffPair(chip)),
+        ) => {
             output_voltage = c.output_voltage;
             let d = &chip.design;
             current_inputs = !matches!(d.input, DiffPairInput::Voltage);
@@ -464,7 +579,7 @@ pub fn build(
     writeln!(
         w.s,
         ".temp {}",
-        ((die.temperature - 273.15) * 1e9).round() / 1e9
+        ((temperature - 273.15) * 1e9).round() / 1e9
     )
     .unwrap();
     match opts.form {

@@ -31,6 +31,6 @@ pub mod build;
 pub mod compare;
 pub mod results;
 
-pub use build::{build, DeviceForm, Die, Netlist, NetlistError, NetlistOptions};
+pub use build::{build, build_kwinners, DeviceForm, Die, Netlist, NetlistError, NetlistOptions};
 pub use compare::{compare, solve_samples, SampleComparison, SampleSolution};
 pub use results::{parse_ascii_raw, parse_results_csv, SimResults, SimResultsError};
