@@ -358,40 +358,18 @@ fn build_any(
     };
     let title = opts.title.replace(['\n', '\r'], " ");
     writeln!(w.s, "* {title}").unwrap();
-    let (what, nodes, common): (&str, Vec<String>, &str) = match &circuit {
-        None => (
-            "k-winners WTA",
-            (0..n)
-                .map(|k| format!("n{k}"))
-                .chain(["nc".into()])
-                .collect(),
-            "nc",
-        ),
-        Some(CompetitionCircuit::Wta(_)) => (
-            "current-mode WTA",
-            (0..n)
-                .map(|k| format!("n{k}"))
-                .chain(["nc".into()])
-                .collect(),
-            "nc",
-        ),
-        Some(CompetitionCircuit::Hysteretic(_)) => (
-            "hysteretic current-mode WTA",
-            (0..n)
-                .map(|k| format!("n{k}"))
-                .chain(["nc".into()])
-                .collect(),
-            "nc",
-        ),
-        Some(CompetitionCircuit::DiffPair(_)) => (
-            "multi-input differential pair",
-            (0..n)
-                .map(|k| format!("g{k}"))
-                .chain(["ns".into()])
-                .collect(),
-            "ns",
-        ),
+    // Line nodes and the common node: the shared-node WTAs `n0..` and `nc`, the pair `g0..`
+    // and `ns`.
+    let (what, line, common) = match &circuit {
+        None => ("k-winners WTA", "n", "nc"),
+        Some(CompetitionCircuit::Wta(_)) => ("current-mode WTA", "n", "nc"),
+        Some(CompetitionCircuit::Hysteretic(_)) => ("hysteretic current-mode WTA", "n", "nc"),
+        Some(CompetitionCircuit::DiffPair(_)) => ("multi-input differential pair", "g", "ns"),
     };
+    let nodes: Vec<String> = (0..n)
+        .map(|k| format!("{line}{k}"))
+        .chain([common.to_string()])
+        .collect();
     writeln!(
         w.s,
         "* hardmax netlist export: {what}, N = {n}, {} K, {} sample(s), devices: {}",
