@@ -175,6 +175,7 @@ fn netlist(name: &str, c: &CompetitionCircuit, inputs: &[f64]) -> (String, Vec<S
         }
         // Cross-checked through the netlist export in hysteretic_spice.rs.
         CompetitionCircuit::Hysteretic(_) => panic!("no hysteretic case here"),
+        other => panic!("no case here for {}", other.stage_name()),
         CompetitionCircuit::DiffPair(c) => {
             writeln!(
                 s,

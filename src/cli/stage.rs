@@ -33,7 +33,7 @@ use crate::stages::competition::analysis::{
 };
 use crate::stages::competition::hysteretic;
 use crate::stages::competition::transient::{
-    simulate, InitialState, NoiseOptions, TransientOptions, TransientWorkspace,
+    simulate, simulate_from, InitialState, NoiseOptions, TransientOptions, TransientWorkspace,
 };
 use crate::stages::competition::{
     CompetitionChip, CompetitionCircuit, CompetitionStage, CurrentSource, DecisionRule,
@@ -41,6 +41,9 @@ use crate::stages::competition::{
     Workspace, WtaChip, WtaDesign,
 };
 use crate::units::{format_si, parse_quantity, quantity_from_toml, Dimension};
+
+#[path = "stage_composite.rs"]
+mod composite;
 
 /// Which competition circuit.
 #[derive(Clone, Copy, Debug, PartialEq, Eq, ValueEnum)]
@@ -52,6 +55,12 @@ pub enum CircuitArg {
     /// Current-mode WTA with hysteresis: a fraction (--feedback) of each cell's output current
     /// mirrored back into its input.
     HystereticWta,
+    /// k-winners WTA: each cell's output limited to --unit-current, the bias at (k - 1/2) units.
+    KWinners,
+    /// Tree of small current-mode WTAs of --fan-in lines, each group's winner copied upward.
+    Cascade,
+    /// Ranking by repeated maximum: one current-mode WTA decides --k times, each winner removed.
+    RepeatedMax,
 }
 
 /// Output format.
@@ -212,9 +221,38 @@ pub struct StageArgs {
     /// Hysteretic WTA: length of the feedback mirror's devices [default: 2 um].
     #[arg(long, value_name = "LENGTH", allow_hyphen_values = true)]
     pub mirror_l: Option<String>,
+    /// k-winners and repeated-max: the number of winners, 1 to N - 1 [default: 1].
+    #[arg(long)]
+    pub k: Option<usize>,
+    /// k-winners: each cell's largest output current [default: the bias current].
+    #[arg(long, value_name = "CURRENT", allow_hyphen_values = true)]
+    pub unit_current: Option<String>,
+    /// k-winners: width of each cell's PMOS output limiter [default: the output width].
+    #[arg(long, value_name = "LENGTH", allow_hyphen_values = true)]
+    pub limiter_w: Option<String>,
+    /// k-winners: length of the limiter [default: the output length].
+    #[arg(long, value_name = "LENGTH", allow_hyphen_values = true)]
+    pub limiter_l: Option<String>,
+    /// Cascade: lines per group of the tree (at least 2) [default: 2].
+    #[arg(long)]
+    pub fan_in: Option<usize>,
+    /// Cascade: width of the replica copying a group's winner upward [default: the sink width].
+    #[arg(long, value_name = "LENGTH", allow_hyphen_values = true)]
+    pub copy_w: Option<String>,
+    /// Cascade: length of the replica [default: the sink length].
+    #[arg(long, value_name = "LENGTH", allow_hyphen_values = true)]
+    pub copy_l: Option<String>,
+    /// Cascade: the replica's drain voltage [default: half the supply].
+    #[arg(long, value_name = "VOLTAGE", allow_hyphen_values = true)]
+    pub copy_drain_voltage: Option<String>,
+    /// Repeated max at DC: the time each round is counted as taking [default: 1 us].
+    #[arg(long, value_name = "TIME", allow_hyphen_values = true)]
+    pub step_time: Option<String>,
     /// One transistor's deviation from nominal, e.g. "A_0:vt0=2mV,beta=-0.01" (threshold shift,
     /// relative current-factor deviation); repeat for more. Names as in the device table:
-    /// A_k, B_k (WTA), D_k, M_k (diff pair), P_k, Q_k (hysteretic WTA's mirror), bias, tail.
+    /// A_k, B_k (WTA), D_k, M_k (diff pair), P_k, Q_k (hysteretic WTA's mirror), L_k
+    /// (k-winners' limiter), bias, tail; a cascade's devices carry their group, LlGg.A_k,
+    /// LlGg.B_k, LlGg.bias, LlGg.R (the replica).
     #[arg(
         long = "offset",
         value_name = "DEVICE:vt0=V,beta=REL",
@@ -274,6 +312,13 @@ struct Spec {
     feedback: f64,
     mirror: (f64, f64),
     offsets: Vec<Offset>,
+    k: usize,
+    unit_current: Option<f64>,
+    limiter: Option<(f64, f64)>,
+    fan_in: usize,
+    copy: Option<(f64, f64)>,
+    copy_drain_voltage: Option<f64>,
+    step_time: f64,
 }
 
 impl Default for Spec {
@@ -300,6 +345,13 @@ impl Default for Spec {
             feedback: 0.1,
             mirror: (2e-6, 2e-6),
             offsets: Vec::new(),
+            k: 1,
+            unit_current: None,
+            limiter: None,
+            fan_in: 2,
+            copy: None,
+            copy_drain_voltage: None,
+            step_time: 1e-6,
         }
     }
 }
@@ -352,6 +404,29 @@ fn mismatch_slots(chip: &mut CompetitionChip) -> Vec<(String, &mut MosMismatch)>
             }
             for (k, m) in h.mirror_out.iter_mut().enumerate() {
                 v.push((format!("Q_{k}"), m));
+            }
+        }
+        CompetitionChip::KWinners(c) => {
+            wta_slots(&mut c.cells, &mut v);
+            for (k, m) in c.limiter.iter_mut().enumerate() {
+                v.push((format!("L_{k}"), m));
+            }
+        }
+        CompetitionChip::Ranking(c) => wta_slots(&mut c.cells, &mut v),
+        CompetitionChip::Cascade(c) => {
+            for (l, row) in c.groups.iter_mut().enumerate() {
+                for (g, group) in row.iter_mut().enumerate() {
+                    let at = v.len();
+                    if let Some(cells) = &mut group.cells {
+                        wta_slots(cells, &mut v);
+                    }
+                    for (name, _) in &mut v[at..] {
+                        *name = format!("L{l}G{g}.{name}");
+                    }
+                    if let Some(m) = &mut group.copy {
+                        v.push((format!("L{l}G{g}.R"), m));
+                    }
+                }
             }
         }
         CompetitionChip::DiffPair(c) => {
@@ -513,6 +588,11 @@ fn read_file(path: &Path, spec: &mut Spec) -> anyhow::Result<()> {
             .map(str::to_string)
             .ok_or_else(|| anyhow!("stage file {file}: key `{key}` must be a string"))
     };
+    let count = |key: &str, v: &toml::Value| -> anyhow::Result<usize> {
+        v.as_integer()
+            .and_then(|i| usize::try_from(i).ok())
+            .ok_or_else(|| anyhow!("stage file {file}: key `{key}` must be a whole number >= 0"))
+    };
     let size = |key: &str, v: &toml::Value, into: &mut (f64, f64)| -> anyhow::Result<()> {
         let t = v
             .as_table()
@@ -534,11 +614,14 @@ fn read_file(path: &Path, spec: &mut Spec) -> anyhow::Result<()> {
                     "current_wta" => CircuitArg::CurrentWta,
                     "diff_pair" => CircuitArg::DiffPair,
                     "hysteretic_wta" => CircuitArg::HystereticWta,
-                    "current-wta" | "diff-pair" | "hysteretic-wta" => bail!(
+                    "k_winners" => CircuitArg::KWinners,
+                    "cascade" => CircuitArg::Cascade,
+                    "repeated_max" => CircuitArg::RepeatedMax,
+                    "current-wta" | "diff-pair" | "hysteretic-wta" | "k-winners" | "repeated-max" => bail!(
                         "stage file {file}: key `circuit` = {s:?}: write {:?}, the spelling experiment files use",
                         s.replace('-', "_")
                     ),
-                    _ => bail!("stage file {file}: key `circuit` = {s:?}; valid: current_wta, diff_pair, hysteretic_wta"),
+                    _ => bail!("stage file {file}: key `circuit` = {s:?}; valid: current_wta, diff_pair, hysteretic_wta, k_winners, cascade, repeated_max"),
                 };
             }
             "preset" => spec.preset = string(key, v)?,
@@ -580,6 +663,23 @@ fn read_file(path: &Path, spec: &mut Spec) -> anyhow::Result<()> {
             "sink" => size("sink", v, &mut spec.sink)?,
             "mirror" => size("mirror", v, &mut spec.mirror)?,
             "feedback" => spec.feedback = num(key, v)?,
+            "k" => spec.k = count(key, v)?,
+            "fan_in" => spec.fan_in = count(key, v)?,
+            "unit_current" => spec.unit_current = Some(q(key, v, Dimension::Current)?),
+            "copy_drain_voltage" => {
+                spec.copy_drain_voltage = Some(q(key, v, Dimension::Voltage)?)
+            }
+            "step_time" => spec.step_time = q(key, v, Dimension::Time)?,
+            "limiter" => {
+                let mut t = spec.limiter.unwrap_or(spec.output);
+                size("limiter", v, &mut t)?;
+                spec.limiter = Some(t);
+            }
+            "copy" => {
+                let mut t = spec.copy.unwrap_or(spec.sink);
+                size("copy", v, &mut t)?;
+                spec.copy = Some(t);
+            }
             "offsets" => {
                 let t = v.as_table().ok_or_else(|| {
                     anyhow!("stage file {file}: `offsets` must be a table, e.g. A_0 = {{ vt0 = \"2 mV\", beta = 0.01 }}")
@@ -635,7 +735,7 @@ fn read_file(path: &Path, spec: &mut Spec) -> anyhow::Result<()> {
                 }
             }
             _ => bail!(
-                "stage file {file}: unknown key `{key}`; known keys: circuit, preset, temperature, inputs, bias_current, supply, output_voltage, gain, eta, early_voltage, node_capacitance, common_capacitance, read_time, feedback, [sink], [output], [mirror], [nmos], [decision], [offsets]"
+                "stage file {file}: unknown key `{key}`; known keys: circuit, preset, temperature, inputs, bias_current, supply, output_voltage, gain, eta, early_voltage, node_capacitance, common_capacitance, read_time, feedback, k, unit_current, fan_in, copy_drain_voltage, step_time, [sink], [output], [mirror], [limiter], [copy], [nmos], [decision], [offsets]"
             ),
         }
     }
@@ -677,6 +777,26 @@ fn spec_from_die(die: &super::die::LoadedDie) -> Spec {
             wta(&mut spec, &h.design.wta);
             spec.feedback = h.design.feedback;
             spec.mirror = size(&h.design.mirror);
+        }
+        CompetitionChip::KWinners(c) => {
+            spec.circuit = CircuitArg::KWinners;
+            wta(&mut spec, &c.design.wta);
+            spec.k = c.design.k;
+            spec.unit_current = Some(c.design.unit_current);
+            spec.limiter = Some(size(&c.design.limiter));
+        }
+        CompetitionChip::Cascade(c) => {
+            spec.circuit = CircuitArg::Cascade;
+            wta(&mut spec, &c.design.cell);
+            spec.fan_in = c.design.fan_in;
+            spec.copy = Some(size(&c.design.copy));
+            spec.copy_drain_voltage = Some(c.design.copy_drain_voltage);
+        }
+        CompetitionChip::Ranking(c) => {
+            spec.circuit = CircuitArg::RepeatedMax;
+            wta(&mut spec, &c.design.wta);
+            spec.k = c.design.k;
+            spec.step_time = c.design.step_time;
         }
         CompetitionChip::DiffPair(c) => {
             let d = &c.design;
@@ -722,6 +842,15 @@ fn design_flags(args: &StageArgs) -> Vec<&'static str> {
         ("--feedback", args.feedback.is_some()),
         ("--mirror-w", args.mirror_w.is_some()),
         ("--mirror-l", args.mirror_l.is_some()),
+        ("--k", args.k.is_some()),
+        ("--unit-current", args.unit_current.is_some()),
+        ("--limiter-w", args.limiter_w.is_some()),
+        ("--limiter-l", args.limiter_l.is_some()),
+        ("--fan-in", args.fan_in.is_some()),
+        ("--copy-w", args.copy_w.is_some()),
+        ("--copy-l", args.copy_l.is_some()),
+        ("--copy-drain-voltage", args.copy_drain_voltage.is_some()),
+        ("--step-time", args.step_time.is_some()),
     ] {
         if set {
             v.push(name);
@@ -806,6 +935,50 @@ fn resolve_with(args: &StageArgs, die: Option<&super::die::LoadedDie>) -> anyhow
         if let Some(x) = opt(name, v, Dimension::Length)? {
             *into = x;
         }
+    }
+    for (name, v, which) in [
+        ("limiter-w", &args.limiter_w, 0),
+        ("limiter-l", &args.limiter_l, 1),
+    ] {
+        if let Some(x) = opt(name, v, Dimension::Length)? {
+            let mut t = spec.limiter.unwrap_or(spec.output);
+            if which == 0 {
+                t.0 = x
+            } else {
+                t.1 = x
+            }
+            spec.limiter = Some(t);
+        }
+    }
+    for (name, v, which) in [("copy-w", &args.copy_w, 0), ("copy-l", &args.copy_l, 1)] {
+        if let Some(x) = opt(name, v, Dimension::Length)? {
+            let mut t = spec.copy.unwrap_or(spec.sink);
+            if which == 0 {
+                t.0 = x
+            } else {
+                t.1 = x
+            }
+            spec.copy = Some(t);
+        }
+    }
+    if let Some(k) = args.k {
+        spec.k = k;
+    }
+    if let Some(f) = args.fan_in {
+        spec.fan_in = f;
+    }
+    if let Some(x) = opt("unit-current", &args.unit_current, Dimension::Current)? {
+        spec.unit_current = Some(x);
+    }
+    if let Some(x) = opt(
+        "copy-drain-voltage",
+        &args.copy_drain_voltage,
+        Dimension::Voltage,
+    )? {
+        spec.copy_drain_voltage = Some(x);
+    }
+    if let Some(x) = opt("step-time", &args.step_time, Dimension::Time)? {
+        spec.step_time = x;
     }
     if let Some(x) = opt("vt0", &args.vt0, Dimension::Voltage)? {
         spec.vt0 = Some(x);
@@ -951,6 +1124,20 @@ fn build_chip(spec: &Spec) -> anyhow::Result<(CompetitionChip, crate::device::Pr
                 mirror,
             })?)
         }
+        CircuitArg::KWinners | CircuitArg::Cascade | CircuitArg::RepeatedMax => {
+            let mut d = WtaDesign::new(
+                n,
+                process.clone(),
+                sink,
+                output,
+                CurrentSource::Ideal { current: spec.bias },
+            );
+            d.output_voltage = spec.output_voltage.unwrap_or(d.supply);
+            d.drain_coupling = spec.coupling.map(|(_, c)| c);
+            d.input_capacitance = spec.input_capacitance;
+            d.common_capacitance = spec.common_capacitance;
+            composite_chip(spec, d)?
+        }
         CircuitArg::DiffPair => {
             let mut d = DiffPairDesign::new(
                 n,
@@ -969,18 +1156,74 @@ fn build_chip(spec: &Spec) -> anyhow::Result<(CompetitionChip, crate::device::Pr
     Ok((stage, process))
 }
 
+/// The nominal k-winners, cascade or ranking chip around the WTA design `d` (the experiment
+/// file's defaults: unit current = the bias current, limiter = the output size, replica = the
+/// sink size at half the supply).
+fn composite_chip(spec: &Spec, d: WtaDesign) -> anyhow::Result<CompetitionChip> {
+    use crate::stages::competition::cascade::{
+        CascadeChip, CascadeDesign, RankingChip, RankingDesign,
+    };
+    use crate::stages::competition::kwta::{KWinnersChip, KWinnersDesign};
+    let sized = |(w, l): (f64, f64), polarity, what: &str| -> anyhow::Result<Transistor> {
+        let t = Transistor { polarity, w, l };
+        t.validate().map_err(|e| anyhow!("{what}: {e}"))?;
+        Ok(t)
+    };
+    Ok(match spec.circuit {
+        CircuitArg::KWinners => {
+            let limiter = sized(
+                spec.limiter.unwrap_or(spec.output),
+                Polarity::Pmos,
+                "limiter (--limiter-w/--limiter-l)",
+            )?;
+            let unit = spec.unit_current.unwrap_or(spec.bias);
+            let design = KWinnersDesign::new(d, spec.k, unit, limiter);
+            CompetitionChip::KWinners(
+                KWinnersChip::nominal(design)
+                    .map_err(|e| anyhow!("k-winners (--k, --unit-current): {e}"))?,
+            )
+        }
+        CircuitArg::Cascade => {
+            let copy = sized(
+                spec.copy.unwrap_or(spec.sink),
+                Polarity::Nmos,
+                "replica (--copy-w/--copy-l)",
+            )?;
+            let mut design = CascadeDesign::new(d.n, spec.fan_in, d, copy);
+            if let Some(v) = spec.copy_drain_voltage {
+                design.copy_drain_voltage = v;
+            }
+            CompetitionChip::Cascade(
+                CascadeChip::nominal(design)
+                    .map_err(|e| anyhow!("cascade (--fan-in, --copy-drain-voltage): {e}"))?,
+            )
+        }
+        _ => {
+            let design = RankingDesign {
+                wta: d,
+                k: spec.k,
+                step_time: spec.step_time,
+            };
+            CompetitionChip::Ranking(
+                RankingChip::sample(design, |_| MosMismatch::default())
+                    .map_err(|e| anyhow!("repeated max (--k, --step-time): {e}"))?,
+            )
+        }
+    })
+}
+
 /// Build the process and the circuit at the stage's temperature: the spec's nominal chip, or
 /// a loaded die; then the explicit per-device offsets.
 fn build(
     spec: &Spec,
     die: Option<&super::die::LoadedDie>,
-) -> anyhow::Result<(CompetitionCircuit, crate::device::Process)> {
+) -> anyhow::Result<(CompetitionCircuit, crate::device::Process, CompetitionChip)> {
     let (mut chip, process) = match die {
         Some(d) => (d.chip.clone(), d.process.clone()),
         None => build_chip(spec)?,
     };
     apply_offsets(&mut chip, &spec.offsets)?;
-    Ok((chip.at(spec.temperature)?, process))
+    Ok((chip.at(spec.temperature)?, process, chip))
 }
 
 /// A stage file (with optional input lists overriding its `inputs`, one per sample) as a nominal
@@ -1042,6 +1285,14 @@ fn devices(stage: &CompetitionCircuit, n: usize) -> Vec<(String, Ekv)> {
         CompetitionCircuit::Hysteretic(h) => {
             v = devices(&CompetitionCircuit::Wta(h.wta.clone()), n);
         }
+        CompetitionCircuit::KWinners(c) => {
+            v = devices(&CompetitionCircuit::Wta(c.cells().clone()), n);
+        }
+        CompetitionCircuit::Ranking(c) => {
+            v = devices(&CompetitionCircuit::Wta(c.full().clone()), n);
+        }
+        // A tree's devices are listed per group in the level table; offsets name them LlGg.*.
+        CompetitionCircuit::Cascade(_) => {}
         CompetitionCircuit::DiffPair(c) => {
             for k in 0..n {
                 if let Some(d) = c.diode(k) {
@@ -1079,12 +1330,12 @@ pub fn run(args: StageArgs) -> anyhow::Result<()> {
         None => None,
     };
     let spec = resolve_with(&args, die.as_ref())?;
-    let (stage, process) = build(&spec, die.as_ref())?;
+    let (stage, process, chip) = build(&spec, die.as_ref())?;
     if let Some(what) = &args.sweep {
-        return sweep(&args, &spec, &stage, what);
+        return sweep(&args, &spec, &stage, &chip, what);
     }
     if args.transient {
-        return transient(&args, &spec, &stage, &process);
+        return transient(&args, &spec, &stage, &process, &chip, die.as_ref());
     }
     let st = &stage;
     let mut ws = Workspace::new();
@@ -1099,8 +1350,19 @@ pub fn run(args: StageArgs) -> anyhow::Result<()> {
     }
     st.solve(&spec.inputs, &mut ws, &mut sol)?;
     let gain = numerical_gain(st, &spec.inputs)?;
-    let decision = sol.decide(&spec.rule);
+    let extra = composite::dc_extra(&spec, &chip, st, &sol)?;
+    let decision = extra
+        .as_ref()
+        .map_or_else(|| sol.decide(&spec.rule), |e| e.decision);
+    let truth = die
+        .as_ref()
+        .filter(|_| args.sample.is_some() && args.inputs.is_none())
+        .and_then(|d| d.truth.last().copied());
+    // The class the run scores for this sample (top-k circuits: the truth when it is among the
+    // winners), as `pipeline::evaluate_chip` does.
+    let scored = truth.map(|t| extra.as_ref().map_or(decision.winner, |e| (e.scored)(t)));
     let report = Report::new(&spec, &stage, &process);
+    let warnings = feedback_warning(st, &spec.inputs);
     let mut results: Vec<Row> = Vec::new();
     for i in 0..st.node_count() {
         results.push(Row::new(
@@ -1144,7 +1406,21 @@ pub fn run(args: StageArgs) -> anyhow::Result<()> {
                 results.push(Row::new("die", "true_class", *t as f64, "index"));
             }
             results.push(Row::new("die", "replayed_samples", replayed as f64, ""));
+            if let Some(c) = scored {
+                results.push(Row::new("die", "scored_class", c as f64, "index"));
+            }
         }
+    }
+    if let Some(e) = &extra {
+        results.extend(e.rows.iter().map(|r| Row {
+            section: r.section.clone(),
+            name: r.name.clone(),
+            value: r.value.clone(),
+            unit: r.unit.clone(),
+        }));
+    }
+    for w in &warnings {
+        results.push(Row::text("warning", "feedback", w));
     }
     results.push(Row::new(
         "decision",
@@ -1191,7 +1467,7 @@ pub fn run(args: StageArgs) -> anyhow::Result<()> {
     let method = format!("{:?}", sol.info.method).to_lowercase();
     match args.format {
         Format::Json => {
-            let v = json!({
+            let mut v = json!({
                 "parameters": report.json(),
                 "node_voltages_v": (0..st.node_count()).map(|i| json!({"node": st.node_name(i), "value": sol.node_voltages[i]})).collect::<Vec<_>>(),
                 "outputs_a": sol.outputs,
@@ -1207,7 +1483,8 @@ pub fn run(args: StageArgs) -> anyhow::Result<()> {
                     "point": args.point, "chip": args.chip.unwrap_or(0),
                     "test_sample": if args.inputs.is_none() { args.sample } else { None },
                     "true_class": if args.inputs.is_none() { d.truth.last().copied() } else { None },
-                    "replayed_samples": replayed})),
+                    "replayed_samples": replayed, "scored_class": scored})),
+                "warnings": warnings,
                 "decision": {"winner": decision.winner, "winner_share": decision.winner_share,
                              "runner_up": decision.runner_up, "runner_up_share": decision.runner_up_share,
                              "ambiguous": decision.ambiguous},
@@ -1215,6 +1492,9 @@ pub fn run(args: StageArgs) -> anyhow::Result<()> {
                            "relative_kcl_residual": sol.info.residual, "converged": sol.info.converged},
                 "caution": crate::CAUTION,
             });
+            if let Some((key, j)) = extra.as_ref().and_then(|e| e.json.clone()) {
+                v[key] = j;
+            }
             println!("{}", serde_json::to_string_pretty(&v)?);
         }
         Format::Csv => {
@@ -1233,18 +1513,24 @@ pub fn run(args: StageArgs) -> anyhow::Result<()> {
                 "  {:<6} {:>12} {:>12} {:>12} {:>9}",
                 "line", "input", "V_k", "output", "share"
             );
+            // A tree's nodes are its groups' (named LlGg.*), not one per line.
+            let per_line = !matches!(st, CompetitionCircuit::Cascade(_));
             for k in 0..st.n() {
                 let _ = writeln!(
                     s,
                     "  {:<6} {:>12} {:>12} {:>12} {:>9.5}",
                     k,
                     format_si(spec.inputs[k], "A", 4),
-                    format_si(sol.node_voltages[k], "V", 6),
+                    if per_line {
+                        format_si(sol.node_voltages[k], "V", 6)
+                    } else {
+                        String::new()
+                    },
                     format_si(sol.outputs[k], "A", 5),
                     sol.shares[k]
                 );
             }
-            for i in st.n()..st.node_count() {
+            for i in (if per_line { st.n() } else { 0 })..st.node_count() {
                 let _ = writeln!(
                     s,
                     "  {:<6} {:>12} {:>12}",
@@ -1298,9 +1584,24 @@ pub fn run(args: StageArgs) -> anyhow::Result<()> {
                     }
                 );
             }
+            if let Some(e) = &extra {
+                s.push_str(&e.table);
+            }
+            for w in &warnings {
+                let _ = writeln!(s, "\nWARNING: {w}");
+            }
             let _ = writeln!(
                 s,
-                "\nDecision: winner {} (share {:.4}), runner-up {} (share {:.4}){}",
+                "\nDecision{}: winner {} (share {:.4}), runner-up {} (share {:.4}){}",
+                match st {
+                    CompetitionCircuit::KWinners(c) => format!(
+                        " for place {} of the set (shares of what the {} larger leave)",
+                        c.k(),
+                        c.k() - 1
+                    ),
+                    CompetitionCircuit::Ranking(_) => " of the last round".to_string(),
+                    _ => String::new(),
+                },
                 decision.winner,
                 decision.winner_share,
                 decision.runner_up,
@@ -1333,6 +1634,28 @@ fn hysteresis_closed_form(stage: &CompetitionCircuit, inputs: &[f64]) -> Option<
     Some(hysteretic::hysteresis_width_closed_form(
         mean, bias, alpha, g,
     ))
+}
+
+/// A hysteretic WTA whose feedback current dwarfs its inputs: the warning text (none for other
+/// circuits or a sane ratio). See [`crate::experiment::runner::feedback_warning`].
+fn feedback_warning(stage: &CompetitionCircuit, inputs: &[f64]) -> Vec<String> {
+    let CompetitionCircuit::Hysteretic(h) = stage else {
+        return Vec::new();
+    };
+    let mut sorted = inputs.to_vec();
+    sorted.sort_by(|a, b| b.total_cmp(a));
+    let mean =
+        0.5 * (sorted.first().copied().unwrap_or(0.0) + sorted.get(1).copied().unwrap_or(0.0));
+    let bias = h.wta.bias().current_at(h.wta.supply);
+    let alpha = h.feedback.iter().sum::<f64>() / h.feedback.len().max(1) as f64;
+    crate::experiment::runner::feedback_warning(
+        alpha,
+        bias,
+        mean,
+        "the mean of the two largest inputs",
+    )
+    .into_iter()
+    .collect()
 }
 
 /// One value of the output (CSV row: section, name, value, unit).
@@ -1393,6 +1716,9 @@ impl Report {
             CircuitArg::CurrentWta => "current-wta",
             CircuitArg::DiffPair => "diff-pair",
             CircuitArg::HystereticWta => "hysteretic-wta",
+            CircuitArg::KWinners => "k-winners",
+            CircuitArg::Cascade => "cascade",
+            CircuitArg::RepeatedMax => "repeated-max",
         };
         rows.push(Row::text("parameter", "circuit", circuit));
         rows.push(Row::text("parameter", "preset", &spec.preset));
@@ -1405,6 +1731,11 @@ impl Report {
             CompetitionCircuit::Wta(c) => (c.supply, c.output_voltage),
             CompetitionCircuit::DiffPair(c) => (c.supply, c.output_voltage),
             CompetitionCircuit::Hysteretic(c) => (c.wta.supply, c.wta.output_voltage),
+            CompetitionCircuit::KWinners(c) => (c.cells().supply, c.cells().output_voltage),
+            CompetitionCircuit::Ranking(c) => (c.full().supply, c.full().output_voltage),
+            CompetitionCircuit::Cascade(_) => {
+                (process.vdd, spec.output_voltage.unwrap_or(process.vdd))
+            }
         };
         let ut = thermal_voltage(spec.temperature);
         let coupling = match spec.coupling {
@@ -1471,6 +1802,55 @@ impl Report {
                     format!("{a:.6} (P_{k}, Q_{k})"),
                 ));
             }
+        }
+        let mut add = |k: &str, v: f64, u: &str| {
+            rows.push(Row::new("parameter", k, v, u));
+            lines.push((
+                k.to_string(),
+                if u.is_empty() {
+                    format!("{v}")
+                } else {
+                    format_si(v, u, 5)
+                },
+            ));
+        };
+        match stage {
+            CompetitionCircuit::KWinners(c) => {
+                let unit = spec.unit_current.unwrap_or(spec.bias);
+                add("k", spec.k as f64, "");
+                add("unit_current", unit, "A");
+                add(
+                    "common_bias",
+                    c.cells().bias().current_at(c.cells().supply),
+                    "A",
+                );
+                let lim = spec.limiter.unwrap_or(spec.output);
+                add("limiter.w", lim.0, "m");
+                add("limiter.l", lim.1, "m");
+                for k in 0..n {
+                    if let Some(l) = c.limit(k) {
+                        rows.push(Row::new("device", &format!("L_{k}.limit"), l, "A"));
+                        lines.push((format!("limit L_{k}"), format_si(l, "A", 5)));
+                    }
+                }
+            }
+            CompetitionCircuit::Cascade(c) => {
+                let copy = spec.copy.unwrap_or(spec.sink);
+                add("fan_in", spec.fan_in as f64, "");
+                add("depth", c.depth() as f64, "");
+                add("copy.w", copy.0, "m");
+                add("copy.l", copy.1, "m");
+                add(
+                    "copy_drain_voltage",
+                    spec.copy_drain_voltage.unwrap_or(0.5 * supply),
+                    "V",
+                );
+            }
+            CompetitionCircuit::Ranking(_) => {
+                add("k", spec.k as f64, "");
+                add("step_time", spec.step_time, "s");
+            }
+            _ => {}
         }
         for o in &spec.offsets {
             let text = format!(
@@ -1556,6 +1936,7 @@ fn sweep(
     args: &StageArgs,
     spec: &Spec,
     stage: &CompetitionCircuit,
+    chip: &CompetitionChip,
     what: &str,
 ) -> anyhow::Result<()> {
     let n = spec.inputs.len();
@@ -1622,7 +2003,14 @@ fn sweep(
     if both_ways {
         header.push("direction".into());
     }
+    // Repeated max: each round's winner at the point (the out/share columns are round 0's).
+    let rounds = match stage {
+        CompetitionCircuit::Ranking(c) => c.k(),
+        _ => 0,
+    };
+    header.extend((0..rounds).map(|j| format!("round_{j}")));
     w.write_record(&header)?;
+    let mut round_error = None;
     let mut write_error = None;
     // Winner before each point, and where it changed: (up, x) per change.
     let mut last_winner: Option<usize> = None;
@@ -1634,6 +2022,24 @@ fn sweep(
         rec.extend(sol.shares.iter().map(|v| format!("{v:e}")));
         if both_ways {
             rec.push(if up { "up" } else { "down" }.into());
+        }
+        if rounds > 0 {
+            let mut x_in = spec.inputs.clone();
+            match quantity {
+                SweepQuantity::Difference => {
+                    let m = 0.5 * (spec.inputs[0] + spec.inputs[1]);
+                    x_in[0] = m + 0.5 * x;
+                    x_in[1] = m - 0.5 * x;
+                }
+                SweepQuantity::Input(k) => x_in[k] = x,
+            }
+            match composite::ranking_order(chip, spec.temperature, &x_in, &spec.rule) {
+                Ok(Some(order)) => rec.extend(order.iter().map(|o| o.to_string())),
+                Ok(None) => {}
+                Err(e) => {
+                    round_error.get_or_insert(e);
+                }
+            }
         }
         if let Err(e) = w.write_record(&rec) {
             write_error.get_or_insert(e);
@@ -1684,6 +2090,9 @@ fn sweep(
     }
     if let Some(e) = write_error {
         return Err(e.into());
+    }
+    if let Some(e) = round_error {
+        return Err(e.context("repeated max: ranking a sweep point"));
     }
     let bytes = w.into_inner().map_err(|e| anyhow!("{e}"))?;
     let mut notes = Vec::new();
@@ -1743,9 +2152,11 @@ fn transient(
     spec: &Spec,
     stage: &CompetitionCircuit,
     process: &crate::device::Process,
+    chip: &CompetitionChip,
+    die: Option<&super::die::LoadedDie>,
 ) -> anyhow::Result<()> {
     if matches!(stage, CompetitionCircuit::DiffPair(_)) {
-        bail!("--transient is available for the current-mode WTAs only (--circuit current-wta or hysteretic-wta)");
+        bail!("--transient is available for the circuits built from the current-mode WTA only (not --circuit diff-pair)");
     }
     let opts = TransientOptions {
         initial: match args.initial {
@@ -1757,17 +2168,66 @@ fn transient(
         record_waveform: args.waveform.is_some(),
         ..Default::default()
     };
+    if matches!(
+        stage,
+        CompetitionCircuit::Cascade(_) | CompetitionCircuit::Ranking(_)
+    ) {
+        if args.waveform.is_some() {
+            bail!("--waveform is written for one shared-node circuit; a cascade's levels and a ranking's rounds are several runs (their times are in the report)");
+        }
+        let nopts = NoiseOptions::default();
+        let report = Report::new(spec, stage, process);
+        composite::transient(
+            args.format,
+            spec,
+            chip,
+            stage,
+            &opts,
+            args.noise.then_some((&nopts, args.seed)),
+            &report,
+        )?;
+        return Ok(());
+    }
     let mut ws = TransientWorkspace::new();
     let nopts = NoiseOptions::default();
     let mut rng = crate::rng::stream(args.seed, &[crate::rng::domain::SAMPLE_NOISE]);
     let noise = args
         .noise
         .then_some((&nopts, &mut rng as &mut dyn rand::RngCore));
+    // A hysteretic die's state at test sample S is what its earlier samples left: replay them
+    // in order, each a transient from the previous one's end state (the first from the
+    // experiment's start), as the chip loop of a transient run does; a failed run leaves the
+    // state as it was.
+    let mut start: Option<Vec<f64>> = None;
+    let mut replayed = 0usize;
+    if let (Some(d), CompetitionCircuit::Hysteretic(c), None) = (die, stage, &args.inputs) {
+        let ropts = TransientOptions {
+            record_waveform: false,
+            ..opts
+        };
+        let mut rws = TransientWorkspace::new();
+        for x in d.inputs.iter().take(d.inputs.len().saturating_sub(1)) {
+            let r = match &start {
+                Some(v) => simulate_from(c, x, v, &ropts, None, &mut rws),
+                None => simulate(c, x, &ropts, None, &mut rws),
+            };
+            if r.is_ok() {
+                start = Some(rws.solution().node_voltages.clone());
+            }
+            replayed += 1;
+        }
+    }
     let s = match stage {
         CompetitionCircuit::Wta(c) => simulate(c, &spec.inputs, &opts, noise, &mut ws)?,
-        CompetitionCircuit::Hysteretic(c) => simulate(c, &spec.inputs, &opts, noise, &mut ws)?,
-        CompetitionCircuit::DiffPair(_) => {
-            bail!("--transient is available for the current-mode WTAs only")
+        CompetitionCircuit::Hysteretic(c) => match &start {
+            Some(v) => simulate_from(c, &spec.inputs, v, &opts, noise, &mut ws)?,
+            None => simulate(c, &spec.inputs, &opts, noise, &mut ws)?,
+        },
+        CompetitionCircuit::KWinners(c) => simulate(c, &spec.inputs, &opts, noise, &mut ws)?,
+        CompetitionCircuit::DiffPair(_)
+        | CompetitionCircuit::Cascade(_)
+        | CompetitionCircuit::Ranking(_) => {
+            bail!("internal: this circuit's transient is not a shared-node run")
         }
     };
     let sol = ws.solution();
@@ -1837,6 +2297,42 @@ fn transient(
     for k in 0..n {
         rows.push(Row::new("final", &format!("out_{k}"), sol.outputs[k], "A"));
     }
+    if die.is_some() && matches!(stage, CompetitionCircuit::Hysteretic(_)) {
+        rows.push(Row::new(
+            "transient",
+            "replayed_samples",
+            replayed as f64,
+            "",
+        ));
+    }
+    // k winners: the set at the end of the run, judged by the rule for the k-th place.
+    let top = match stage {
+        CompetitionCircuit::KWinners(c) => Some(spec.rule.decide_top_k(&sol.shares, c.k())),
+        _ => None,
+    };
+    if let Some(t) = &top {
+        let order = composite::by_share(&sol.shares);
+        for (place, &line) in order.iter().take(t.k).enumerate() {
+            rows.push(Row::new(
+                "k_winners",
+                &format!("place_{place}.line"),
+                line as f64,
+                "index",
+            ));
+            rows.push(Row::new(
+                "k_winners",
+                &format!("place_{place}.output"),
+                sol.outputs[line],
+                "A",
+            ));
+        }
+        rows.push(Row::new(
+            "k_winners",
+            "ambiguous",
+            f64::from(u8::from(t.decision.ambiguous)),
+            "bool",
+        ));
+    }
     match args.format {
         Format::Csv => {
             rows.push(Row::text("note", "caution", crate::CAUTION));
@@ -1864,6 +2360,12 @@ fn transient(
                     "final_outputs_a": sol.outputs,
                     "final_node_voltages_v": sol.node_voltages,
                     "noise": args.noise,
+                    "start": if start.is_some() { "replayed state" } else { "initial" },
+                    "replayed_samples": replayed,
+                    "k_winners": top.as_ref().map(|t| json!({
+                        "k": t.k,
+                        "winners": composite::by_share(&sol.shares).into_iter().take(t.k).collect::<Vec<_>>(),
+                        "ambiguous": t.decision.ambiguous})),
                 },
                 "caution": crate::CAUTION,
             });
@@ -1874,9 +2376,10 @@ fn transient(
             let _ = writeln!(
                 t,
                 "\nTransient ({} start{}; backward Euler, {} steps, {} rejected)",
-                match args.initial {
-                    InitialArg::Ground => "every node at 0 V",
-                    InitialArg::CommonMode => "common-mode DC",
+                match (start.is_some(), args.initial) {
+                    (true, _) => "replayed-state",
+                    (false, InitialArg::Ground) => "every node at 0 V",
+                    (false, InitialArg::CommonMode) => "common-mode DC",
                 },
                 if args.noise { ", shot noise" } else { "" },
                 s.steps,
@@ -1934,6 +2437,29 @@ fn transient(
             }
             if let Some(p) = &args.waveform {
                 let _ = writeln!(t, "  waveform written to {}", p.display());
+            }
+            if replayed > 0 {
+                let _ = writeln!(
+                    t,
+                    "  start                the die's state after replaying test samples 0..{} (each a transient from the previous end state)",
+                    replayed - 1
+                );
+            }
+            if let Some(tk) = &top {
+                let w: Vec<usize> = composite::by_share(&sol.shares)
+                    .into_iter()
+                    .take(tk.k)
+                    .collect();
+                let _ = writeln!(
+                    t,
+                    "  k winners at the end {:?}{}",
+                    w,
+                    if tk.decision.ambiguous {
+                        "  AMBIGUOUS"
+                    } else {
+                        ""
+                    }
+                );
             }
             let _ = writeln!(t, "\n{}", crate::CAUTION);
             print!("{t}");

@@ -307,6 +307,12 @@ pub fn run(
         }
     }
     let mut warnings = resolved.warnings.clone();
+    for (k, setup) in setups.iter().enumerate() {
+        if let Some(w) = hysteretic_feedback_warning(setup, &prepared[k].1) {
+            let w = format!("point {k}: {w}");
+            warnings.push(w);
+        }
+    }
     for (_, p) in &prepared {
         for u in &p.untested_classes {
             let w = format!(
@@ -732,4 +738,60 @@ mod tests {
         assert!((normal_quantile_two_sided(0.99) - 2.575829).abs() < 1e-5);
         assert!((normal_quantile_two_sided(0.90) - 1.644854).abs() < 1e-5);
     }
+}
+
+/// Ratio of a hysteretic WTA's feedback current (alpha I_b, what the winner's input is helped
+/// by) to its inputs at and above which a held winner can no longer be released: the up
+/// switching point of the hysteresis, x_up ~ alpha I_b for large gain (DEVELOPERS.md model notes
+/// §4.5, W ~ 2 alpha I_b), lies at or beyond 2 I_m, the largest difference two inputs of mean
+/// I_m can have (x runs from -2 I_m to 2 I_m there). Derived from the model notes' hysteresis
+/// width, not a rule of thumb.
+pub const FEEDBACK_RATIO_LIMIT: f64 = 2.0;
+
+/// The warning for a hysteretic WTA whose feedback current `alpha bias` dwarfs the inputs of
+/// mean `mean_input` (`what` says which mean), or `None`.
+pub fn feedback_warning(alpha: f64, bias: f64, mean_input: f64, what: &str) -> Option<String> {
+    let ratio = alpha * bias / mean_input;
+    (ratio.is_finite() && ratio >= FEEDBACK_RATIO_LIMIT).then(|| {
+        format!(
+            "hysteretic WTA: the feedback current alpha I_b = {} is {ratio:.3} times {what} ({}); \
+             at or above {FEEDBACK_RATIO_LIMIT} a held winner is never released by any input \
+             (its hysteresis, about 2 alpha I_b wide, exceeds the largest possible input \
+             difference, 2 I_m: model notes §4.5), so the circuit ignores its inputs; lower \
+             competition.feedback or competition.bias_current",
+            crate::units::format_si(alpha * bias, "A", 4),
+            crate::units::format_si(mean_input, "A", 4)
+        )
+    })
+}
+
+/// [`feedback_warning`] for one point of a run: the mean input is the nominal weight stage's
+/// mean output line current at the training split's mean input (the scale trim calibrates to).
+fn hysteretic_feedback_warning(
+    setup: &crate::pipeline::PointSetup,
+    prep: &Prepared,
+) -> Option<String> {
+    let crate::pipeline::CompetitionDesign::Hysteretic(h) = &setup.design.competition else {
+        return None;
+    };
+    let nominal = setup.mapped.nominal_levels();
+    let mut scratch = nominal.scratch();
+    let mut out = vec![0.0; nominal.outputs()];
+    let x: Vec<f64> = (0..prep.n_features)
+        .map(|i| prep.train_mean_u.get(i).copied().unwrap_or(0.0))
+        .collect();
+    nominal.forward_noiseless(&x, &mut scratch, &mut out).ok()?;
+    let mean = out.iter().sum::<f64>() / out.len().max(1) as f64;
+    // The bias as the circuit draws it (an ideal source or a biased transistor).
+    let c = crate::stages::competition::HysteresisChip::nominal((**h).clone())
+        .ok()?
+        .at(setup.design.conditions.temperature_k)
+        .ok()?;
+    let bias = c.wta.bias().current_at(c.wta.supply);
+    feedback_warning(
+        h.feedback,
+        bias,
+        mean,
+        "the mean competition input (nominal weight stage at the training split's mean input)",
+    )
 }

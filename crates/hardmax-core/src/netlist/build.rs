@@ -98,6 +98,11 @@ pub enum NetlistError {
          model): choose the behavioural device form"
     )]
     KWinnersForm,
+    #[error(
+        "{0} has no netlist export yet (its levels or rounds are separate circuits); export a \
+         current_wta, diff_pair, hysteretic_wta or k_winners design"
+    )]
+    NotExported(&'static str),
     #[error("internal: the evaluated stage does not match its chip; please report this")]
     Inconsistent,
     #[error(transparent)]
@@ -235,7 +240,24 @@ pub fn build(
     samples: &[Vec<f64>],
     opts: &NetlistOptions,
 ) -> Result<Netlist, NetlistError> {
-    build_any(AnyChip::Stage(&die.chip), die.temperature, samples, opts)
+    match &die.chip {
+        CompetitionChip::KWinners(k) => build_kwinners(k, die.temperature, samples, opts),
+        CompetitionChip::Cascade(_) | CompetitionChip::Ranking(_) => {
+            Err(NetlistError::NotExported(die.chip_name()))
+        }
+        _ => build_any(AnyChip::Stage(&die.chip), die.temperature, samples, opts),
+    }
+}
+
+impl Die {
+    /// The circuit's name in messages.
+    fn chip_name(&self) -> &'static str {
+        match &self.chip {
+            CompetitionChip::Cascade(_) => "the WTA cascade",
+            CompetitionChip::Ranking(_) => "ranking by repeated maximum",
+            _ => "this circuit",
+        }
+    }
 }
 
 /// Build the deck of a k-winners die ([`KWinnersChip`]) at `temperature` (K) evaluated on
@@ -365,6 +387,8 @@ fn build_any(
         Some(CompetitionCircuit::Wta(_)) => ("current-mode WTA", "n", "nc"),
         Some(CompetitionCircuit::Hysteretic(_)) => ("hysteretic current-mode WTA", "n", "nc"),
         Some(CompetitionCircuit::DiffPair(_)) => ("multi-input differential pair", "g", "ns"),
+        // Dispatched by `build` before this point.
+        Some(_) => return Err(NetlistError::Inconsistent),
     };
     let nodes: Vec<String> = (0..n)
         .map(|k| format!("{line}{k}"))

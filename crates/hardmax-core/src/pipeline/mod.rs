@@ -1244,14 +1244,16 @@ pub fn sample_competition(
         CompetitionDesign::Hysteretic(w) => Some(CompetitionChip::Hysteretic(
             HysteresisChip::sample((**w).clone(), &mut draw)?,
         )),
-        CompetitionDesign::KWinners(_)
-        | CompetitionDesign::Cascade(_)
-        | CompetitionDesign::Ranking(_) => {
-            return Err(PipelineError::Unsupported {
-                what: "rebuilding one die of the k-winners, cascade or ranking circuits for a \
-                       netlist is not built yet; export a current_wta or diff_pair design",
-            })
-        }
+        // The same samplers in the same order as `build_composite`: the die the run evaluated.
+        CompetitionDesign::KWinners(k) => Some(CompetitionChip::KWinners(
+            crate::stages::competition::kwta::KWinnersChip::sample((**k).clone(), &mut draw)?,
+        )),
+        CompetitionDesign::Cascade(c) => Some(CompetitionChip::Cascade(
+            crate::stages::competition::cascade::CascadeChip::sample((**c).clone(), &mut draw)?,
+        )),
+        CompetitionDesign::Ranking(r) => Some(CompetitionChip::Ranking(
+            crate::stages::competition::cascade::RankingChip::sample((**r).clone(), &mut draw)?,
+        )),
     })
 }
 
@@ -1340,6 +1342,10 @@ fn build_decider(
             })
         }
         Some(CompetitionChip::Hysteretic(c)) => Decider::Hysteretic(Box::new(c.at(temperature)?)),
+        // Built by `build_composite` above; the same chips if they come this way.
+        Some(CompetitionChip::KWinners(c)) => Decider::KWinners(Box::new(c.at(temperature)?)),
+        Some(CompetitionChip::Cascade(c)) => Decider::Cascade(Box::new(c.at(temperature)?)),
+        Some(CompetitionChip::Ranking(c)) => Decider::Ranking(Box::new(c.at(temperature)?)),
     })
 }
 

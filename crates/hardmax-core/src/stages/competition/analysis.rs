@@ -75,6 +75,18 @@ pub fn closed_form_gain(stage: &CompetitionCircuit) -> ClosedFormGain {
             value: c.gain(0).unwrap_or(f64::NAN),
             derivation: "kappa/sigma = n_A/(n_B eta_A) of the WTA without its feedback, weak-inversion closed form (DEVELOPERS.md model notes §4.1, §4.5)",
         },
+        CompetitionCircuit::KWinners(c) => ClosedFormGain {
+            value: c.cells().gain(0).unwrap_or(f64::NAN),
+            derivation: "kappa/sigma = n_A/(n_B eta_A) of the cells while no output is limited, weak-inversion closed form (DEVELOPERS.md model notes §4.1, §4.5)",
+        },
+        CompetitionCircuit::Cascade(c) => ClosedFormGain {
+            value: c.cell_gain().unwrap_or(f64::NAN),
+            derivation: "kappa/sigma = n_A/(n_B eta_A) of each group's WTA (first group of the first level), weak-inversion closed form (DEVELOPERS.md model notes §4.1, §4.6)",
+        },
+        CompetitionCircuit::Ranking(c) => ClosedFormGain {
+            value: c.full().gain(0).unwrap_or(f64::NAN),
+            derivation: "kappa/sigma = n_A/(n_B eta_A) of the WTA every round uses, weak-inversion closed form (DEVELOPERS.md model notes §4.1, §4.7)",
+        },
         CompetitionCircuit::DiffPair(_) => ClosedFormGain {
             value: 1.0,
             derivation: "1: diode-connected inputs make a plain normaliser in weak inversion (DEVELOPERS.md model notes §4.2)",

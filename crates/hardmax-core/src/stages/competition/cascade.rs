@@ -533,6 +533,93 @@ impl CompetitionStage for CascadeCircuit {
     }
 }
 
+/// One group's DC result within a tree (for `hardmax stage`): what it saw and which line won.
+#[derive(Clone, Debug, PartialEq)]
+pub struct GroupOutcome {
+    /// Level (0 = the class lines) and group index within the level.
+    pub level: usize,
+    pub group: usize,
+    /// First line of the group at its level (a class index at level 0).
+    pub start: usize,
+    /// The group's input currents (level 0: the classes'; above: the copies), A.
+    pub inputs: Vec<f64>,
+    /// The group's output shares (a lone line: `[1]`).
+    pub shares: Vec<f64>,
+    /// Winning line within the level (`start` + the group's largest share).
+    pub winner: usize,
+    /// The group's common-node voltage, V (`None` for a lone line).
+    pub common_voltage: Option<f64>,
+    /// The current passed to the next level, A: the replica's copy, the lone line's input, or
+    /// `None` at the top.
+    pub passed: Option<f64>,
+}
+
+impl CascadeCircuit {
+    /// kappa/sigma of the first circuit group's cell 0 (every group shares the cell design).
+    pub fn cell_gain(&self) -> Option<f64> {
+        self.levels
+            .iter()
+            .flatten()
+            .find_map(|g| g.wta.as_ref())
+            .and_then(|w| w.gain(0))
+    }
+
+    /// The DC solve of [`CompetitionStage::solve`] with every group's inputs, shares and winner,
+    /// level by level, group by group.
+    pub fn solve_levels(
+        &self,
+        inputs: &[f64],
+        ws: &mut Workspace,
+        out: &mut StageSolution,
+    ) -> Result<Vec<GroupOutcome>, CompetitionError> {
+        self.solve(inputs, ws, out)?;
+        let mut result = Vec::new();
+        let mut cur = inputs.to_vec();
+        let mut gsol = StageSolution::default();
+        let top = self.levels.len() - 1;
+        for (l, row) in self.levels.iter().enumerate() {
+            let mut next = vec![0.0; row.len()];
+            for (gi, g) in row.iter().enumerate() {
+                let x = cur[g.start..g.start + g.size].to_vec();
+                let (shares, vc) = match &g.wta {
+                    None => (vec![1.0], None),
+                    Some(w) => {
+                        w.solve(&x, ws, &mut gsol)?;
+                        (
+                            gsol.shares[..g.size].to_vec(),
+                            Some(gsol.node_voltages[g.size]),
+                        )
+                    }
+                };
+                let local = shares
+                    .iter()
+                    .enumerate()
+                    .fold(
+                        (0, f64::NEG_INFINITY),
+                        |b, (i, &v)| if v > b.1 { (i, v) } else { b },
+                    )
+                    .0;
+                next[gi] = match vc {
+                    None => x[0],
+                    Some(v) => self.copy_current(g, v),
+                };
+                result.push(GroupOutcome {
+                    level: l,
+                    group: gi,
+                    start: g.start,
+                    inputs: x,
+                    shares,
+                    winner: g.start + local,
+                    common_voltage: vc,
+                    passed: (l < top).then_some(next[gi]),
+                });
+            }
+            cur = next;
+        }
+        Ok(result)
+    }
+}
+
 /// Nominal design of ranking by repeated maximum.
 #[derive(Clone, Debug, PartialEq, serde::Serialize, serde::Deserialize)]
 pub struct RankingDesign {

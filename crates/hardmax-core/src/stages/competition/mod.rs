@@ -416,6 +416,12 @@ pub enum CompetitionChip {
     Wta(WtaChip),
     DiffPair(DiffPairChip),
     Hysteretic(HysteresisChip),
+    /// k-winners WTA ([`kwta`]).
+    KWinners(kwta::KWinnersChip),
+    /// Tree of small WTAs ([`cascade`]).
+    Cascade(cascade::CascadeChip),
+    /// Ranking by repeated maximum on one WTA ([`cascade`]).
+    Ranking(cascade::RankingChip),
 }
 
 impl CompetitionChip {
@@ -425,6 +431,9 @@ impl CompetitionChip {
             CompetitionChip::Wta(c) => c.design.n,
             CompetitionChip::DiffPair(c) => c.design.n,
             CompetitionChip::Hysteretic(c) => c.design.wta.n,
+            CompetitionChip::KWinners(c) => c.design.wta.n,
+            CompetitionChip::Cascade(c) => c.design.classes,
+            CompetitionChip::Ranking(c) => c.design.wta.n,
         }
     }
 
@@ -434,17 +443,26 @@ impl CompetitionChip {
             CompetitionChip::Wta(c) => CompetitionCircuit::Wta(c.at(temperature)?),
             CompetitionChip::DiffPair(c) => CompetitionCircuit::DiffPair(c.at(temperature)?),
             CompetitionChip::Hysteretic(c) => CompetitionCircuit::Hysteretic(c.at(temperature)?),
+            CompetitionChip::KWinners(c) => CompetitionCircuit::KWinners(c.at(temperature)?),
+            CompetitionChip::Cascade(c) => CompetitionCircuit::Cascade(c.at(temperature)?),
+            CompetitionChip::Ranking(c) => CompetitionCircuit::Ranking(c.at(temperature)?),
         })
     }
 }
 
 /// Any competition stage evaluated at its conditions (for code that picks the stage at run
-/// time, e.g. from an experiment file).
+/// time, e.g. from an experiment file). A ranking circuit's [`CompetitionStage`] view is its
+/// first round (the full WTA, every cell competing); its k rounds are
+/// [`cascade::RankingCircuit::rank`].
+#[allow(clippy::large_enum_variant)]
 #[derive(Clone, Debug, PartialEq)]
 pub enum CompetitionCircuit {
     Wta(WtaCircuit),
     DiffPair(DiffPairCircuit),
     Hysteretic(HysteresisCircuit),
+    KWinners(kwta::KWinnersCircuit),
+    Cascade(cascade::CascadeCircuit),
+    Ranking(cascade::RankingCircuit),
 }
 
 impl CompetitionStage for CompetitionCircuit {
@@ -453,6 +471,9 @@ impl CompetitionStage for CompetitionCircuit {
             CompetitionCircuit::Wta(c) => c.n(),
             CompetitionCircuit::DiffPair(c) => c.n(),
             CompetitionCircuit::Hysteretic(c) => c.n(),
+            CompetitionCircuit::KWinners(c) => c.n(),
+            CompetitionCircuit::Cascade(c) => c.n(),
+            CompetitionCircuit::Ranking(c) => c.full().n(),
         }
     }
 
@@ -461,6 +482,9 @@ impl CompetitionStage for CompetitionCircuit {
             CompetitionCircuit::Wta(c) => c.node_count(),
             CompetitionCircuit::DiffPair(c) => c.node_count(),
             CompetitionCircuit::Hysteretic(c) => c.node_count(),
+            CompetitionCircuit::KWinners(c) => c.node_count(),
+            CompetitionCircuit::Cascade(c) => c.node_count(),
+            CompetitionCircuit::Ranking(c) => c.full().node_count(),
         }
     }
 
@@ -469,6 +493,9 @@ impl CompetitionStage for CompetitionCircuit {
             CompetitionCircuit::Wta(c) => c.node_name(i),
             CompetitionCircuit::DiffPair(c) => c.node_name(i),
             CompetitionCircuit::Hysteretic(c) => c.node_name(i),
+            CompetitionCircuit::KWinners(c) => c.node_name(i),
+            CompetitionCircuit::Cascade(c) => c.node_name(i),
+            CompetitionCircuit::Ranking(c) => c.full().node_name(i),
         }
     }
 
@@ -477,6 +504,9 @@ impl CompetitionStage for CompetitionCircuit {
             CompetitionCircuit::Wta(c) => c.stage_name(),
             CompetitionCircuit::DiffPair(c) => c.stage_name(),
             CompetitionCircuit::Hysteretic(c) => c.stage_name(),
+            CompetitionCircuit::KWinners(c) => c.stage_name(),
+            CompetitionCircuit::Cascade(c) => c.stage_name(),
+            CompetitionCircuit::Ranking(c) => c.full().stage_name(),
         }
     }
 
@@ -485,6 +515,9 @@ impl CompetitionStage for CompetitionCircuit {
             CompetitionCircuit::Wta(c) => c.input_unit(),
             CompetitionCircuit::DiffPair(c) => c.input_unit(),
             CompetitionCircuit::Hysteretic(c) => c.input_unit(),
+            CompetitionCircuit::KWinners(c) => c.input_unit(),
+            CompetitionCircuit::Cascade(c) => c.input_unit(),
+            CompetitionCircuit::Ranking(c) => c.full().input_unit(),
         }
     }
 
@@ -498,6 +531,9 @@ impl CompetitionStage for CompetitionCircuit {
             CompetitionCircuit::Wta(c) => c.solve(inputs, ws, out),
             CompetitionCircuit::DiffPair(c) => c.solve(inputs, ws, out),
             CompetitionCircuit::Hysteretic(c) => c.solve(inputs, ws, out),
+            CompetitionCircuit::KWinners(c) => c.solve(inputs, ws, out),
+            CompetitionCircuit::Cascade(c) => c.solve(inputs, ws, out),
+            CompetitionCircuit::Ranking(c) => c.full().solve(inputs, ws, out),
         }
     }
 }
