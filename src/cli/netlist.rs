@@ -273,9 +273,15 @@ pub fn export(args: ExportArgs) -> anyhow::Result<()> {
         ngspice_raw: raw.clone(),
         sample_notes: notes,
     };
-    let net = build(&die, &samples, &opts)?;
+    let mut net = build(&die, &samples, &opts)?;
     let circuit = die.chip.at(temperature)?;
     let ours = solve_samples(&circuit, &samples, &rule);
+    if matches!(
+        die.chip,
+        crate::stages::competition::CompetitionChip::KWinners(_)
+    ) {
+        net.text = with_nodesets(&net, &ours);
+    }
     let record = ExportRecord {
         format: RECORD_FORMAT.into(),
         format_version: RECORD_VERSION,
@@ -328,6 +334,34 @@ pub fn export(args: ExportArgs) -> anyhow::Result<()> {
         }
     }
     Ok(())
+}
+
+/// The deck with one `.nodeset` line per sample before `.op`: hardmax's node voltages rounded
+/// to 1 mV, a start for the simulator's Newton solve, not its answer (it must still converge on
+/// its own). A k-winners die needs it: from zero, ngspice's gmin stepping drives the winners'
+/// line nodes past the supply, where the input sources' compliance factor has no solution
+/// (DEVELOPERS.md, "Netlist export", k-winners WTA). A sample whose solve failed gets none.
+fn with_nodesets(net: &crate::netlist::Netlist, ours: &[SampleSolution]) -> String {
+    let mut text = String::with_capacity(net.text.len() + 64 * ours.len());
+    for line in net.text.lines() {
+        if line == ".op" {
+            for (s, o) in ours.iter().enumerate() {
+                if o.node_voltages.len() != net.nodes.len() {
+                    continue;
+                }
+                let set: Vec<String> = net
+                    .nodes
+                    .iter()
+                    .zip(&o.node_voltages)
+                    .map(|(nd, v)| format!("v(s{s}_{nd})={v:.3}"))
+                    .collect();
+                let _ = writeln!(text, ".nodeset {}", set.join(" "));
+            }
+        }
+        text.push_str(line);
+        text.push('\n');
+    }
+    text
 }
 
 /// Table and CSV of a comparison.

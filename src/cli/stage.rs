@@ -9,7 +9,8 @@
 //! a flag overrides the file. Quantities take SI prefixes and units ("10 nA", "2 um").
 //!
 //! Stage file keys (all optional), spelled as in experiment files: `circuit` ("current_wta" |
-//! "diff_pair"), `preset`, `temperature`, `inputs` (array), `bias_current`, `supply`,
+//! "diff_pair" | "hysteretic_wta" | "k_winners" | "cascade" | "repeated_max"), `k`,
+//! `unit_current`, `[limiter]`, `fan_in`, `[copy]`, `copy_drain_voltage`, `step_time`, `preset`, `temperature`, `inputs` (array), `bias_current`, `supply`,
 //! `output_voltage`, one of `gain` / `eta` / `early_voltage`, `node_capacitance`,
 //! `common_capacitance`, `read_time`,
 //! `[sink]` and `[output]` with `w`, `l`; `[nmos]` with `vt0`, `n`, one of `mu_cox` / `is`;
@@ -193,7 +194,8 @@ pub struct StageArgs {
     /// Write the sweep CSV here (default: standard output).
     #[arg(long, value_name = "FILE")]
     pub out: Option<PathBuf>,
-    /// Run the transient (current-mode WTA): decision time and energy.
+    /// Run the transient (every circuit but the differential pair): decision time and energy
+    /// (a cascade's per level, a ranking's per round).
     #[arg(long, conflicts_with = "sweep")]
     pub transient: bool,
     /// Read the decision at this time (transient); default: run until settled.
@@ -2352,6 +2354,7 @@ fn transient(
                     "time_scale_s": s.time_scale,
                     "decision_time_in_scales": s.decision_time_in_scales(),
                     "winner": s.decision.map(|d| d.winner),
+                    "ambiguous": s.decision.is_none_or(|d| d.ambiguous),
                     "read_time_s": spec.read_time,
                     "winner_at_read": s.decision_at_read.map(|d| d.winner),
                     "ambiguous_at_read": s.decision_at_read.map(|d| d.ambiguous),
@@ -2367,6 +2370,11 @@ fn transient(
                         "winners": composite::by_share(&sol.shares).into_iter().take(t.k).collect::<Vec<_>>(),
                         "ambiguous": t.decision.ambiguous})),
                 },
+                "die": die.map(|d| json!({
+                    "results": d.folder.display().to_string(), "seed": d.seed,
+                    "point": args.point, "chip": args.chip.unwrap_or(0),
+                    "test_sample": if args.inputs.is_none() { args.sample } else { None },
+                    "true_class": if args.inputs.is_none() { d.truth.last().copied() } else { None }})),
                 "caution": crate::CAUTION,
             });
             println!("{}", serde_json::to_string_pretty(&v)?);
