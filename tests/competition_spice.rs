@@ -175,7 +175,10 @@ fn netlist(name: &str, c: &CompetitionCircuit, inputs: &[f64]) -> (String, Vec<S
         }
         // Cross-checked through the netlist export in hysteretic_spice.rs.
         CompetitionCircuit::Hysteretic(_) => panic!("no hysteretic case here"),
-        other => panic!("no case here for {}", other.stage_name()),
+        // Cross-checked in kwta_spice.rs; the tree and the ranking have no netlist form.
+        CompetitionCircuit::KWinners(_)
+        | CompetitionCircuit::Cascade(_)
+        | CompetitionCircuit::Ranking(_) => panic!("no case here"),
         CompetitionCircuit::DiffPair(c) => {
             writeln!(
                 s,

@@ -236,3 +236,70 @@ fn hysteretic_feedback_warning() {
     let v = json_of(&small);
     assert!(v["warnings"].as_array().unwrap().is_empty());
 }
+
+/// `hardmax run` warns too (stdout and the manifest's `warnings`) when a hysteretic design's
+/// feedback current alpha I_b = 0.3 x 1 µA dwarfs its inputs (a few nA from a 5 nA full-scale
+/// input DAC: the ratio is far above 2), and not at alpha I_b = 0.05 x 5 nA. Data: the invented
+/// demo scenario (datasets/demo/README.md).
+#[test]
+fn run_warns_about_feedback_that_dwarfs_the_inputs() {
+    let tmp = tempfile::tempdir().unwrap();
+    let data = format!(
+        "{}/datasets/demo/hive_buzz_demo.csv",
+        env!("CARGO_MANIFEST_DIR")
+    );
+    let run = |bias: &str, feedback: f64| -> (String, Value) {
+        let text = format!(
+            r#"# Invented demo scenario (datasets/demo/README.md), for a test.
+name = "feedback-warning"
+[dataset]
+file = "{data}"
+test_fraction = 0.1
+[input]
+dac_bits = 6
+full_scale_current = "5 nA"
+[weights]
+element = "linear"
+levels = 16
+[competition]
+circuit = "hysteretic_wta"
+bias_current = "{bias}"
+feedback = {feedback}
+[population]
+chips = 2
+seed = 3
+"#
+        );
+        let f = tmp.path().join(format!("fb-{feedback}.toml"));
+        std::fs::write(&f, text).unwrap();
+        let out = tmp.path().join(format!("res-{feedback}"));
+        let o = hardmax()
+            .args(["run", "--no-report"])
+            .arg(&f)
+            .arg("-o")
+            .arg(&out)
+            .assert()
+            .success();
+        let stdout = String::from_utf8(o.get_output().stdout.clone()).unwrap()
+            + &String::from_utf8(o.get_output().stderr.clone()).unwrap();
+        let m: Value =
+            serde_json::from_str(&std::fs::read_to_string(out.join("manifest.json")).unwrap())
+                .unwrap();
+        (stdout, m)
+    };
+    let (text, m) = run("1 uA", 0.3);
+    assert!(text.contains("the feedback current alpha I_b"), "{text}");
+    let w = m["warnings"].as_array().unwrap();
+    assert!(
+        w.iter()
+            .any(|x| x.as_str().unwrap().contains("point 0: hysteretic WTA")),
+        "{w:?}"
+    );
+    let (text, m) = run("5 nA", 0.05);
+    assert!(!text.contains("the feedback current alpha I_b"), "{text}");
+    assert!(m["warnings"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .all(|x| !x.as_str().unwrap().contains("feedback current")));
+}

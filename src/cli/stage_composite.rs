@@ -49,7 +49,7 @@ pub(super) fn ranking_rounds(
     inputs: &[f64],
     rule: &DecisionRule,
     transient: Option<(&TransientOptions, Option<(&NoiseOptions, u64)>)>,
-) -> anyhow::Result<(Vec<(Decision, Option<f64>, Option<f64>)>, RankingTotals)> {
+) -> anyhow::Result<(Vec<Round>, RankingTotals)> {
     let mut rounds = Vec::new();
     let mut prev = (Some(0.0), Some(0.0));
     let mut totals = RankingTotals::default();
@@ -88,6 +88,9 @@ pub(super) fn ranking_rounds(
     }
     Ok((rounds, totals))
 }
+
+/// One round of a ranking: its decision, time (s) and energy (J).
+pub(super) type Round = (Decision, Option<f64>, Option<f64>);
 
 #[derive(Default)]
 pub(super) struct RankingTotals {
@@ -250,11 +253,7 @@ pub(super) fn dc_extra(
 }
 
 /// Rows, JSON and table of a ranking's rounds.
-pub(super) fn ranking_extra(
-    rounds: &[(Decision, Option<f64>, Option<f64>)],
-    totals: &RankingTotals,
-    how: &str,
-) -> Extra {
+pub(super) fn ranking_extra(rounds: &[Round], totals: &RankingTotals, how: &str) -> Extra {
     let mut rows = Vec::new();
     let mut table = format!(
         "\nRounds (repeated maximum, {how})\n  {:<6} {:>7} {:>9} {:>10} {:>12} {:>12}\n",
@@ -367,7 +366,7 @@ pub(super) fn transient(
                 .map(|(_, seed)| crate::rng::stream(seed, &[crate::rng::domain::SAMPLE_NOISE]));
             let nz = match (noise, rng.as_mut()) {
                 (Some((o, _)), Some(r)) => {
-                    nopts = o.clone();
+                    nopts = *o;
                     Some((&nopts, r as &mut dyn rand::RngCore))
                 }
                 _ => None,

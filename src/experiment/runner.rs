@@ -708,38 +708,6 @@ pub fn normal_quantile_two_sided(confidence: f64) -> f64 {
     0.5 * (lo + hi)
 }
 
-#[cfg(test)]
-mod tests {
-    use super::*;
-
-    /// Standard normal two-sided quantiles (Abramowitz & Stegun, Table 26.1): 95 % -> 1.959964,
-    /// 99 % -> 2.575829, 90 % -> 1.644854.
-    /// The report header describes the design over the whole sweep: a swept size shows as its
-    /// range, fixed parts once.
-    #[test]
-    fn swept_values_show_as_their_range() {
-        let d = |w: &str| {
-            format!(
-                "current-mode WTA, 3 cells, sink {w} x 1 µm, output 2 µm x 2 µm, ideal bias 10 nA"
-            )
-        };
-        let all = [d("1 µm"), d("2 µm"), d("8 µm")];
-        assert_eq!(
-            describe_over_points(&all),
-            "current-mode WTA, 3 cells, sink 1 µm ... 8 µm (swept) x 1 µm, output 2 µm x 2 µm, ideal bias 10 nA"
-        );
-        assert_eq!(describe_over_points(&[d("1 µm")]), d("1 µm"));
-        assert_eq!(describe_over_points(&[]), "");
-    }
-
-    #[test]
-    fn normal_quantiles() {
-        assert!((normal_quantile_two_sided(0.95) - 1.959964).abs() < 1e-5);
-        assert!((normal_quantile_two_sided(0.99) - 2.575829).abs() < 1e-5);
-        assert!((normal_quantile_two_sided(0.90) - 1.644854).abs() < 1e-5);
-    }
-}
-
 /// Ratio of a hysteretic WTA's feedback current (alpha I_b, what the winner's input is helped
 /// by) to its inputs at and above which a held winner can no longer be released: the up
 /// switching point of the hysteresis, x_up ~ alpha I_b for large gain (DEVELOPERS.md model notes
@@ -794,4 +762,36 @@ fn hysteretic_feedback_warning(
         mean,
         "the mean competition input (nominal weight stage at the training split's mean input)",
     )
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// Standard normal two-sided quantiles (Abramowitz & Stegun, Table 26.1): 95 % -> 1.959964,
+    /// 99 % -> 2.575829, 90 % -> 1.644854.
+    /// The report header describes the design over the whole sweep: a swept size shows as its
+    /// range, fixed parts once.
+    #[test]
+    fn swept_values_show_as_their_range() {
+        let d = |w: &str| {
+            format!(
+                "current-mode WTA, 3 cells, sink {w} x 1 µm, output 2 µm x 2 µm, ideal bias 10 nA"
+            )
+        };
+        let all = [d("1 µm"), d("2 µm"), d("8 µm")];
+        assert_eq!(
+            describe_over_points(&all),
+            "current-mode WTA, 3 cells, sink 1 µm ... 8 µm (swept) x 1 µm, output 2 µm x 2 µm, ideal bias 10 nA"
+        );
+        assert_eq!(describe_over_points(&[d("1 µm")]), d("1 µm"));
+        assert_eq!(describe_over_points(&[]), "");
+    }
+
+    #[test]
+    fn normal_quantiles() {
+        assert!((normal_quantile_two_sided(0.95) - 1.959964).abs() < 1e-5);
+        assert!((normal_quantile_two_sided(0.99) - 2.575829).abs() < 1e-5);
+        assert!((normal_quantile_two_sided(0.90) - 1.644854).abs() < 1e-5);
+    }
 }
