@@ -1888,6 +1888,14 @@ impl Report {
         for (k, v) in &self.lines {
             let _ = writeln!(s, "  {k:<20} {v}");
         }
+        if self.devices.is_empty() {
+            // A cascade: its devices belong to groups (see the level table).
+            let _ = writeln!(
+                s,
+                "\n  devices per group of the tree: LlGg.A_k, LlGg.B_k, LlGg.bias, LlGg.R (replica), for --offset"
+            );
+            return s;
+        }
         let _ = writeln!(
             s,
             "\n  {:<18} {:>10} {:>7} {:>13} {:>11} {:>10} {:>10}",
