@@ -140,8 +140,7 @@ pub fn parse_corners(
         let at = e.path().to_string();
         let key = match (&unknown, at.as_str()) {
             (Some(u), "." | "") => format!("corners.{u}"),
-            (Some(u), p) => format!("corners.{p}.{u}"),
-            (None, p) => format!("corners.{p}"),
+            (_, p) => format!("corners.{p}"),
         };
         let line = super::config::line_of(text, &key).or_else(|| {
             unknown
@@ -152,8 +151,13 @@ pub fn parse_corners(
             file: fname.clone(),
             line: super::config::LineNo(line),
             message: format!(
-                "`{key}`: {inner}. Corner keys: vt0_sigma, beta_sigma, sigmas, process, vdd, \
-                 temperature, corner (with name, process, vdd, temperature)"
+                "`{key}`: {}. Corner keys: vt0_sigma, beta_sigma, sigmas, process, vdd, \
+                 temperature, corner (with name, process, vdd, temperature)",
+                inner
+                    .split(", expected")
+                    .next()
+                    .unwrap_or(&inner)
+                    .trim_end()
             ),
         }
     })?;
@@ -427,4 +431,114 @@ pub fn corner_count(resolved: &Resolved) -> usize {
 /// same at each of its corners).
 pub fn die_point(resolved: &Resolved, point: usize) -> usize {
     point / corner_count(resolved)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::device::{MosMismatch, Polarity, Transistor};
+
+    const EXP: &str = "name = \"c\"\n[dataset]\nname = \"iris\"\n\
+        [[sweep.axis]]\npath = \"competition.bias_current\"\nvalues = [\"10 nA\", \"100 nA\"]\n\
+        [corners]\nvt0_sigma = \"15 mV\"\nbeta_sigma = 0.05\nprocess = [\"tt\", \"ff\", \"ss\", \"fs\"]\n\
+        temperature = [\"300 K\", \"358.15 K\"]\n";
+
+    fn expanded() -> Resolved {
+        let file = Path::new("c.toml");
+        let r = load_str(EXP, file, &[]).unwrap();
+        let corners = parse_corners(EXP, file, &r).unwrap();
+        expand(EXP, file, &[], r, &corners).unwrap()
+    }
+
+    /// Each sweep point at each corner, corner last: point = sweep point x corners + corner.
+    #[test]
+    fn every_point_at_every_corner() {
+        let r = expanded();
+        assert_eq!(corner_count(&r), 8);
+        assert_eq!(r.points.len(), 16);
+        assert_eq!(r.at_point.len(), 16);
+        let axis = r.axes.last().unwrap();
+        assert_eq!(axis.path, CORNER_AXIS);
+        assert_eq!(axis.labels.as_ref().unwrap()[3], "ff / 358.15 K");
+        assert_eq!(r.points[11].value_index, vec![1, 3]);
+        assert_eq!(die_point(&r, 11), 1);
+        // The corners are in the resolved experiment (hence in its hash).
+        assert!(r.to_toml().contains("[corners]"));
+        // Point 11 = bias 100 nA at ff / 358.15 K.
+        approx::assert_relative_eq!(r.at_point[11].competition.bias_current.si(), 100e-9);
+        approx::assert_relative_eq!(r.at_point[11].conditions.temperature.si(), 358.15);
+    }
+
+    /// A corner's temperature is where the dies are read; the weights stay programmed at
+    /// `weights.program_temperature` (the existing temperature logic applies at each corner).
+    #[test]
+    fn corner_temperature_reads_weights_programmed_elsewhere() {
+        let r = expanded();
+        let cool = &r.at_point[0];
+        let hot = &r.at_point[1];
+        approx::assert_relative_eq!(cool.conditions.temperature.si(), 300.0);
+        approx::assert_relative_eq!(hot.conditions.temperature.si(), 358.15);
+        approx::assert_relative_eq!(hot.weights.program_temperature.si(), 300.0);
+        approx::assert_relative_eq!(cool.weights.program_temperature.si(), 300.0);
+    }
+
+    /// A transistor-biased competition tail (NMOS, gate at a fixed voltage) carries more current
+    /// at the fast corner than at typical and less at the slow one (lower |V_T0| and higher
+    /// beta make a faster device; common practice, no source). PMOS follows its own letter (fs:
+    /// NMOS fast, PMOS slow).
+    #[test]
+    fn fast_corner_draws_more_tail_current_than_slow() {
+        let r = expanded();
+        let tail = Transistor {
+            polarity: Polarity::Nmos,
+            w: 2e-6,
+            l: 2e-6,
+        };
+        let current = |point: usize| {
+            let e = &r.at_point[point];
+            let p = super::super::build::process(e).unwrap();
+            p.ekv(&tail, 300.0, MosMismatch::default())
+                .id(0.6, 0.9, 0.0)
+        };
+        // Corners at 300 K: tt = 0, ff = 2, ss = 4, fs = 6.
+        let (tt, ff, ss, fs) = (current(0), current(2), current(4), current(6));
+        assert!(ff > 1.2 * tt, "ff {ff} tt {tt}");
+        assert!(ss < tt / 1.2, "ss {ss} tt {tt}");
+        approx::assert_relative_eq!(fs, ff, max_relative = 1e-12);
+        let pm = |point: usize| {
+            let p = super::super::build::process(&r.at_point[point]).unwrap();
+            (p.pmos.vt0.abs(), p.pmos.mu_cox)
+        };
+        let (tt_p, fs_p) = (pm(0), pm(6));
+        assert!(fs_p.0 > tt_p.0 && fs_p.1 < tt_p.1, "{fs_p:?} {tt_p:?}");
+    }
+
+    /// A corner may not set a swept key (the sweep would silently lose an axis).
+    #[test]
+    fn corner_setting_a_swept_key_is_refused() {
+        let text = EXP
+            .replace("competition.bias_current", "conditions.temperature")
+            .replace("[\"10 nA\", \"100 nA\"]", "[\"300 K\", \"320 K\"]");
+        let file = Path::new("c.toml");
+        let r = load_str(&text, file, &[]).unwrap();
+        let corners = parse_corners(&text, file, &r).unwrap();
+        let e = expand(&text, file, &[], r, &corners)
+            .unwrap_err()
+            .to_string();
+        assert!(
+            e.contains("sets a swept key (conditions.temperature)"),
+            "{e}"
+        );
+    }
+
+    /// An unknown key in [corners] is named with its line.
+    #[test]
+    fn unknown_corner_key_names_key_and_line() {
+        let text = format!("{EXP}vdd_list = [\"1.8 V\"]\n");
+        let file = Path::new("c.toml");
+        let r = load_str(&text, file, &[]).unwrap();
+        let e = parse_corners(&text, file, &r).unwrap_err().to_string();
+        assert!(e.contains("`corners.vdd_list`"), "{e}");
+        assert!(e.contains("(line 12)"), "{e}");
+    }
 }
