@@ -104,7 +104,8 @@ fn one_row_per_point_and_corner_and_an_all_corners_verdict() {
     assert!(html.contains("id=\"corners-answer\""));
     assert!(html.contains("Design answer at all 6 corners"));
     assert!(html.contains("per-corner-table"));
-    assert!(html.contains(hardmax::CAUTION));
+    assert!(html.contains("id=\"caution\""));
+    assert!(html.contains("architecture-stage estimates"));
 }
 
 /// At the typical corner with no supply or temperature change the dies and results are those
@@ -194,23 +195,21 @@ fn resume_and_batch_are_keyed_by_the_corners() {
                 "-q",
             ])
             .assert()
-            .success()
-            .get_output()
-            .stdout
-            .clone()
     };
-    let first = String::from_utf8_lossy(&batch(&f)).to_string();
+    let first = String::from_utf8_lossy(&batch(&f).success().get_output().stdout).to_string();
     assert!(first.contains(" ran "), "{first}");
     assert!(root.join("iris-corners").join("corners.csv").exists());
-    let second = String::from_utf8_lossy(&batch(&f)).to_string();
+    let second = String::from_utf8_lossy(&batch(&f).success().get_output().stdout).to_string();
     assert!(second.contains("up to date"), "{second}");
+    // Another temperature corner: not up to date, and not mixed into the old folder.
     write(
         d.path(),
         "c.toml",
         &format!("{BASE}{CORNERS}").replace("\"350 K\"", "\"340 K\""),
     );
-    let third = String::from_utf8_lossy(&batch(&f)).to_string();
-    assert!(third.contains(" ran "), "{third}");
+    let third = batch(&f).failure();
+    let err = String::from_utf8_lossy(&third.get_output().stderr).to_string();
+    assert!(err.contains("different experiment"), "{err}");
 }
 
 #[test]
