@@ -227,3 +227,38 @@ fn unknown_corner_key_is_refused_with_key_and_line() {
     assert!(err.contains(&format!("(line {line})")), "{err}");
     assert!(err.contains("Corner keys: vt0_sigma"), "{err}");
 }
+
+/// Shards of a corner run merge into the single run's tables, corners.csv included (work units
+/// run over (point, corner, chip)).
+#[test]
+fn shards_of_a_corner_run_merge_exactly() {
+    let d = tempfile::tempdir().unwrap();
+    let f = write(d.path(), "c.toml", &format!("{BASE}{CORNERS}"));
+    let single = d.path().join("single");
+    run(&f, &single, &["population.chips=5"]).success();
+    let mut parts = Vec::new();
+    for k in 1..=3 {
+        let o = d.path().join(format!("shard-{k}"));
+        let mut c = Command::cargo_bin("hardmax").unwrap();
+        c.args(["run", f.to_str().unwrap(), "--out", o.to_str().unwrap()])
+            .args(["--set", "population.chips=5", "--threads", "1", "-q"])
+            .args(["--shard", &format!("{k}/3")])
+            .assert()
+            .success();
+        parts.push(o);
+    }
+    let merged = d.path().join("merged");
+    let mut c = Command::cargo_bin("hardmax").unwrap();
+    c.args(["merge", "--out", merged.to_str().unwrap()]);
+    for p in &parts {
+        c.arg(p);
+    }
+    c.assert().success();
+    for t in ["points.csv", "chips.csv", "corners.csv"] {
+        assert_eq!(
+            std::fs::read_to_string(single.join(t)).unwrap(),
+            std::fs::read_to_string(merged.join(t)).unwrap(),
+            "{t}"
+        );
+    }
+}
