@@ -262,3 +262,40 @@ fn shards_of_a_corner_run_merge_exactly() {
         );
     }
 }
+
+/// `hardmax stage --results` rebuilds a die of a corner run at its corner (the folder's
+/// experiment.toml keeps the [corners] table, so its point numbers are the run's).
+#[test]
+fn stage_reads_a_die_of_a_corner_run() {
+    let d = tempfile::tempdir().unwrap();
+    let f = write(d.path(), "c.toml", &format!("{BASE}{CORNERS}"));
+    let out = d.path().join("out");
+    run(
+        &f,
+        &out,
+        &["population.chips=3", "population.pairing=independent"],
+    )
+    .success();
+    let stage = |point: &str| -> serde_json::Value {
+        let o = Command::cargo_bin("hardmax")
+            .unwrap()
+            .args(["stage", "--format", "json", "--results"])
+            .arg(&out)
+            .args(["--point", point, "--chip", "1", "--sample", "0"])
+            .output()
+            .unwrap();
+        assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+        serde_json::from_slice(&o.stdout).unwrap()
+    };
+    // Point 9 = design point 1 at corner 3 (ff / 350 K); point 7 = the same die at tt / 350 K.
+    let (ff, tt) = (stage("9"), stage("7"));
+    let t = ff["parameters"]["temperature [K]"].as_f64().unwrap();
+    approx::assert_abs_diff_eq!(t, 350.0, epsilon = 1e-9);
+    let vt0 = |v: &serde_json::Value| {
+        v["parameters"]["device.A_0 (sink).vt0 [V]"]
+            .as_f64()
+            .unwrap()
+    };
+    // The same die's sink threshold, shifted by 3 x 15 mV at the fast corner.
+    approx::assert_abs_diff_eq!(vt0(&tt) - vt0(&ff), 0.045, epsilon = 1e-9);
+}
