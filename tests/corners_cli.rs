@@ -226,6 +226,11 @@ fn unknown_corner_key_is_refused_with_key_and_line() {
     assert!(err.contains("`corners.supply`"), "{err}");
     assert!(err.contains(&format!("(line {line})")), "{err}");
     assert!(err.contains("Corner keys: vt0_sigma"), "{err}");
+    // A corner key on the command line is refused, not ignored.
+    let f = write(d.path(), "ok.toml", &format!("{BASE}{CORNERS}"));
+    let e = run(&f, &d.path().join("out2"), &["corners.sigmas=2"]).failure();
+    let err = String::from_utf8_lossy(&e.get_output().stderr).to_string();
+    assert!(err.contains("cannot be set on the command line"), "{err}");
 }
 
 /// Shards of a corner run merge into the single run's tables, corners.csv included (work units

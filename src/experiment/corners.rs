@@ -323,6 +323,19 @@ pub fn load_run(file: &Path, overrides: &[String]) -> Result<Resolved, CornerRun
         path: file.into(),
         err,
     })?;
+    // The corners are read from the file's text (with its lines for messages): a `--set` of a
+    // corner key would be silently ignored, so it is refused.
+    if let Some(o) = overrides
+        .iter()
+        .find(|o| o.trim_start().starts_with("corners"))
+    {
+        return Err(CornersError {
+            file: file.display().to_string(),
+            line: super::config::LineNo(None),
+            message: format!("`--set {o}`: corner settings cannot be set on the command line; edit the [corners] table of the file"),
+        }
+        .into());
+    }
     let resolved = load_str(&text, file, overrides)?;
     let corners = parse_corners(&text, file, &resolved)?;
     if corners.is_empty() {
