@@ -5,7 +5,7 @@ use std::path::{Path, PathBuf};
 
 use clap::Args;
 
-use crate::experiment::config::load;
+use crate::experiment::corners::load_run as load;
 use crate::experiment::runner::{experiment_hash, folder_status};
 
 #[derive(Debug, Args)]

@@ -12,7 +12,7 @@ use std::path::{Path, PathBuf};
 use anyhow::{bail, Context};
 
 use crate::experiment::build::{build_point, prepare_data};
-use crate::experiment::config::load;
+use crate::experiment::corners::load_run as load;
 use crate::experiment::runner::experiment_hash;
 use crate::stages::competition::{CompetitionChip, DecisionRule};
 
@@ -133,7 +133,11 @@ pub fn load_die(
         &setup,
         &prep,
         id.seed,
-        resolved.base.population.pairing.dies_at(point),
+        resolved
+            .base
+            .population
+            .pairing
+            .dies_at(crate::experiment::corners::die_point(&resolved, point)),
         chip,
         samples,
     )?;

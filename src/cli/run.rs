@@ -6,9 +6,11 @@ use anyhow::Context;
 use clap::Args;
 
 use super::progress::Progress;
-use crate::experiment::config::{load, Resolved};
+use crate::experiment::config::Resolved;
+use crate::experiment::corners::load_run as load;
 use crate::experiment::runner::{run as run_experiment, RunOptions, RunSummary};
 use crate::experiment::shard::ShardSpec;
+use hardmax_report::corners::CORNER_AXIS;
 
 #[derive(Debug, Args)]
 pub struct RunArgs {
@@ -164,8 +166,59 @@ pub fn print_summary(s: &RunSummary, axes: &[crate::experiment::sweep::Axis]) {
         "{} points ({} run now, {} resumed) in {:.1} s",
         s.points_total, s.points_run, s.points_resumed, s.elapsed_s
     );
-    if let Some(line) = verdict_line(&s.records) {
-        println!("{line}");
+    match axes.last().filter(|a| a.path == CORNER_AXIS) {
+        // With corners a design point passes only at every corner: the plain verdict would
+        // name one (point, corner) pair.
+        Some(corner) => print_corners(s, axes, corner.labels.as_deref().unwrap_or_default()),
+        None => {
+            if let Some(line) = verdict_line(&s.records) {
+                println!("{line}");
+            }
+        }
+    }
+}
+
+/// The design points over all their corners: one line each (pass at every corner, the limiting
+/// corner of each metric), then the headline "... at all N corners".
+fn print_corners(s: &RunSummary, axes: &[crate::experiment::sweep::Axis], labels: &[String]) {
+    use hardmax_report::corners::{from_records, headline, limits_text};
+    let rows = from_records(&s.records, labels);
+    let describe = |r: &hardmax_report::corners::AllCorners| {
+        axes.iter()
+            .zip(&r.params)
+            .map(|(a, v)| {
+                let name = a.path.rsplit('.').next().unwrap_or(&a.path);
+                match a.labels.as_ref().and_then(|l| l.get(*v as usize)) {
+                    Some(t) => format!("{name} = {t}"),
+                    None if a.unit.is_empty() => format!("{name} = {v}"),
+                    None => format!("{name} = {}", crate::units::format_si(*v, &a.unit, 4)),
+                }
+            })
+            .collect::<Vec<_>>()
+            .join(", ")
+    };
+    println!("over all {} corners (point = design point):", labels.len());
+    for r in &rows {
+        let verdict = match r.pass {
+            Some(true) => "passes at every corner".to_string(),
+            Some(false) => format!(
+                "fails (at {})",
+                r.margin.as_ref().map_or("?", |m| m.corner.as_str())
+            ),
+            None if r.done < r.total => format!("{} of {} corners finished", r.done, r.total),
+            None => "no yield target".to_string(),
+        };
+        let settings = describe(r);
+        println!(
+            "{:>5}  {}{}{verdict}; {}",
+            r.point,
+            settings,
+            if settings.is_empty() { "" } else { ": " },
+            limits_text(r)
+        );
+    }
+    if let Some(h) = headline(&rows, describe) {
+        println!("{h}");
     }
 }
 

@@ -7,7 +7,7 @@ use std::process::Command;
 use anyhow::{bail, Context};
 use clap::Args;
 
-use crate::experiment::config::load;
+use crate::experiment::corners::load_run as load;
 use crate::experiment::shard::{Plan, ShardSpec};
 use crate::experiment::slurm::{check_memory, check_time_limit, Scripts};
 use crate::io::write_atomic;

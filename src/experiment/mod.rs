@@ -3,6 +3,7 @@
 pub mod budget;
 pub mod build;
 pub mod config;
+pub mod corners;
 pub mod quantity;
 pub use hardmax_report::results;
 pub mod runner;

@@ -497,7 +497,8 @@ pub fn run(
                             Dies::Paired
                         } else {
                             Dies::Independent {
-                                point: p.point as u64,
+                                // With corners: the design point's dies at each of its corners.
+                                point: super::corners::die_point(resolved, p.point) as u64,
                             }
                         };
                         let o = evaluate_chip(setup, prep, seed, dies, c);
@@ -587,6 +588,7 @@ pub fn run(
         // A shard's tables would hold statistics of part of a population: merged ones only.
         if !plan.is_shard() {
             dir.write_tables(&records, &axis_paths, &class_names)?;
+            write_corners(resolved, &opts.out, &records, &axis_paths)?;
         }
         manifest(&records, records.len() == plan_points).map_err(ResultsError::from)?;
         ran += 1;
@@ -611,6 +613,7 @@ pub fn run(
     // Tables also exist when every point was resumed (a run that ran a point wrote them).
     if ran == 0 && !plan.is_shard() {
         dir.write_tables(&records, &axis_paths, &class_names)?;
+        write_corners(resolved, &opts.out, &records, &axis_paths)?;
     }
     manifest(&records, true).map_err(ResultsError::from)?;
     Ok(RunSummary {
@@ -621,6 +624,26 @@ pub fn run(
         elapsed_s: t0.elapsed().as_secs_f64(),
         records,
     })
+}
+
+/// `corners.csv` of a run with corners (nothing otherwise).
+fn write_corners(
+    resolved: &Resolved,
+    out: &Path,
+    records: &[PointRecord],
+    axis_paths: &[String],
+) -> Result<(), RunError> {
+    let Some(labels) = resolved
+        .axes
+        .last()
+        .filter(|a| a.path == super::corners::CORNER_AXIS)
+        .and_then(|a| a.labels.as_ref())
+    else {
+        return Ok(());
+    };
+    hardmax_report::corners::write_corners_table(out, records, axis_paths, labels)
+        .map_err(ResultsError::from)?;
+    Ok(())
 }
 
 /// One description of the competition stage for every sweep point: a part that differs between

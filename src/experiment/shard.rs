@@ -596,6 +596,16 @@ pub fn merge(
     }
     let m = &first.manifest;
     dir.write_tables(&records, &m.axis_paths(), &m.dataset.classes)?;
+    if let Some(labels) = m
+        .sweep
+        .parameters
+        .last()
+        .filter(|p| p.path == super::corners::CORNER_AXIS)
+        .and_then(|p| p.labels.as_ref())
+    {
+        hardmax_report::corners::write_corners_table(out, &records, &m.axis_paths(), labels)
+            .map_err(ResultsError::from)?;
+    }
     shard_elapsed.sort_by_key(|(spec, _)| *spec);
     let merged = Manifest {
         status: RunStatus::Complete,

@@ -23,6 +23,7 @@ use toml::Value;
 
 use super::build::{build_point, cost_settings, prepare_data};
 use super::config::{load_str, Experiment, Resolved};
+pub use super::corners::{parse_corners, Corner, CornersError};
 use super::quantity::{exact_si, parse_resolved};
 use super::runner::normal_quantile_two_sided;
 use super::tree;
@@ -76,6 +77,8 @@ pub enum SizingCfgError {
     },
     #[error("cannot start {threads} worker threads: {message}")]
     Threads { threads: usize, message: String },
+    #[error(transparent)]
+    Corners(#[from] CornersError),
 }
 
 #[derive(Debug, Deserialize)]
@@ -349,258 +352,25 @@ pub fn parse_search(
     Ok(SearchSpec { dims, cost, opts })
 }
 
-#[derive(Debug, Deserialize)]
-#[serde(deny_unknown_fields)]
-struct CornersFile {
-    #[serde(default)]
-    vt0_sigma: Option<String>,
-    #[serde(default)]
-    beta_sigma: Option<f64>,
-    #[serde(default)]
-    sigmas: Option<f64>,
-    #[serde(default)]
-    process: Vec<String>,
-    #[serde(default)]
-    vdd: Vec<String>,
-    #[serde(default)]
-    temperature: Vec<String>,
-    #[serde(default)]
-    corner: Vec<CornerFile>,
-}
-
-#[derive(Debug, Deserialize)]
-#[serde(deny_unknown_fields)]
-struct CornerFile {
-    name: String,
-    #[serde(default)]
-    process: Option<String>,
-    #[serde(default)]
-    vdd: Option<String>,
-    #[serde(default)]
-    temperature: Option<String>,
-}
-
-/// One global corner: a name and the experiment overrides that put every die there.
-#[derive(Debug, Clone, PartialEq)]
-pub struct Corner {
-    pub name: String,
-    pub overrides: Vec<String>,
-}
-
-/// Read the `[corners]` table of `text` (none: an empty list). Process corners are two letters
-/// (NMOS then PMOS) of `t` (typical), `f` (fast: |V_T0| lowered by `sigmas x vt0_sigma`, beta
-/// raised by a factor 1 + `sigmas x beta_sigma` through mu C_ox), `s` (slow: the reverse); the
-/// shifts are stated in the file, no default is assumed. `vdd` and `temperature` set
-/// `process.vdd` and `conditions.temperature` (weights stay programmed at
-/// `weights.program_temperature`, so the temperature logic applies at each corner). The lists
-/// `process`, `vdd`, `temperature` combine as a grid; `[[corners.corner]]` adds named
-/// combinations.
-pub fn parse_corners(
-    text: &str,
-    file: &Path,
-    resolved: &Resolved,
-) -> Result<Vec<Corner>, SizingCfgError> {
-    let fname = file.display().to_string();
-    let root: Value = toml::from_str(text).map_err(|e| SizingCfgError::Key {
-        file: fname.clone(),
-        line: Default::default(),
-        message: e.to_string(),
-    })?;
-    let Some(table) = root.get("corners").cloned() else {
-        return Ok(vec![]);
-    };
-    let bad = |key: &str, message: String| SizingCfgError::Key {
-        file: fname.clone(),
-        line: super::config::LineNo(super::config::line_of(text, key)),
-        message: format!("`{key}`: {message}"),
-    };
-    let c: CornersFile = serde_path_to_error::deserialize(table).map_err(|e| {
-        bad(
-            &format!("corners.{}", e.path()),
-            format!(
-                "{}. Corner keys: vt0_sigma, beta_sigma, sigmas, process, vdd, temperature, \
-                 corner (with name, process, vdd, temperature)",
-                e.inner()
-            ),
-        )
-    })?;
-    let base = |path: &str| -> Result<(f64, &'static str), SizingCfgError> {
-        tree::get(&resolved.tree, path)
-            .and_then(Value::as_str)
-            .and_then(parse_resolved)
-            .map(|(v, d)| (v, d.base_unit()))
-            .ok_or_else(|| bad("corners", format!("internal: `{path}` has no value")))
-    };
-    let sigmas = c.sigmas.unwrap_or(3.0);
-    if !(sigmas.is_finite() && sigmas >= 0.0) {
-        return Err(bad("corners.sigmas", "must be a number >= 0".into()));
-    }
-    let vt0_sigma = match &c.vt0_sigma {
-        Some(t) => Some(
-            parse_quantity(t, Dimension::Voltage)
-                .map_err(|e| bad("corners.vt0_sigma", e.to_string()))?,
-        ),
-        None => None,
-    };
-    if let Some(b) = c.beta_sigma {
-        if !(b.is_finite() && b >= 0.0 && sigmas * b < 1.0) {
-            return Err(bad(
-                "corners.beta_sigma",
-                "must be >= 0 with sigmas x beta_sigma below 1".into(),
-            ));
-        }
-    }
-    let process_overrides = |name: &str, key: &str| -> Result<Vec<String>, SizingCfgError> {
-        let letters: Vec<char> = name.chars().collect();
-        if letters.len() != 2 || !letters.iter().all(|l| matches!(l, 't' | 'f' | 's')) {
-            return Err(bad(
-                key,
-                format!("`{name}` is not a process corner; use tt, ff, ss, fs or sf (NMOS letter first)"),
-            ));
-        }
-        let mut o = Vec::new();
-        for (dev, l) in ["nmos", "pmos"].iter().zip(&letters) {
-            let sign = match l {
-                'f' => -1.0,
-                's' => 1.0,
-                _ => continue,
-            };
-            let (Some(sv), Some(sb)) = (vt0_sigma, c.beta_sigma) else {
-                return Err(bad(
-                    key,
-                    format!("corner `{name}` needs corners.vt0_sigma (e.g. \"15 mV\") and corners.beta_sigma (e.g. 0.05): the global shifts of one sigma, stated for your process"),
-                ));
-            };
-            let (vt0, vu) = base(&format!("process.{dev}.vt0"))?;
-            let (mu, mu_unit) = base(&format!("process.{dev}.mu_cox"))?;
-            o.push(format!(
-                "process.{dev}.vt0=\"{}\"",
-                exact_si(vt0 + sign * sigmas * sv, vu)
-            ));
-            o.push(format!(
-                "process.{dev}.mu_cox=\"{}\"",
-                exact_si(mu * (1.0 - sign * sigmas * sb), mu_unit)
-            ));
-        }
-        Ok(o)
-    };
-    let quantity =
-        |t: &str, key: &str, dim: Dimension, path: &str| -> Result<String, SizingCfgError> {
-            let v = parse_quantity(t, dim).map_err(|e| bad(key, e.to_string()))?;
-            Ok(format!("{path}=\"{}\"", exact_si(v, dim.base_unit())))
-        };
-    let mut out = Vec::new();
-    if !c.process.is_empty() || !c.vdd.is_empty() || !c.temperature.is_empty() {
-        let procs: Vec<Option<&String>> = if c.process.is_empty() {
-            vec![None]
-        } else {
-            c.process.iter().map(Some).collect()
-        };
-        let vdds: Vec<Option<&String>> = if c.vdd.is_empty() {
-            vec![None]
-        } else {
-            c.vdd.iter().map(Some).collect()
-        };
-        let temps: Vec<Option<&String>> = if c.temperature.is_empty() {
-            vec![None]
-        } else {
-            c.temperature.iter().map(Some).collect()
-        };
-        for p in &procs {
-            for v in &vdds {
-                for t in &temps {
-                    let mut o = Vec::new();
-                    let mut name = Vec::new();
-                    if let Some(p) = p {
-                        o.extend(process_overrides(p, "corners.process")?);
-                        name.push(p.to_string());
-                    }
-                    if let Some(v) = v {
-                        o.push(quantity(
-                            v,
-                            "corners.vdd",
-                            Dimension::Voltage,
-                            "process.vdd",
-                        )?);
-                        name.push(v.to_string());
-                    }
-                    if let Some(t) = t {
-                        o.push(quantity(
-                            t,
-                            "corners.temperature",
-                            Dimension::Temperature,
-                            "conditions.temperature",
-                        )?);
-                        name.push(t.to_string());
-                    }
-                    out.push(Corner {
-                        name: name.join(" / "),
-                        overrides: o,
-                    });
-                }
-            }
-        }
-    }
-    for (k, cf) in c.corner.iter().enumerate() {
-        let key = format!("corners.corner.{k}");
-        let mut o = Vec::new();
-        if let Some(p) = &cf.process {
-            o.extend(process_overrides(p, &key)?);
-        }
-        if let Some(v) = &cf.vdd {
-            o.push(quantity(v, &key, Dimension::Voltage, "process.vdd")?);
-        }
-        if let Some(t) = &cf.temperature {
-            o.push(quantity(
-                t,
-                &key,
-                Dimension::Temperature,
-                "conditions.temperature",
-            )?);
-        }
-        out.push(Corner {
-            name: cf.name.clone(),
-            overrides: o,
-        });
-    }
-    if out.is_empty() {
-        return Err(bad(
-            "corners",
-            "the table names no corner; give process, vdd, temperature lists or [[corners.corner]]"
-                .into(),
-        ));
-    }
-    let mut names: Vec<&str> = out.iter().map(|c| c.name.as_str()).collect();
-    names.sort_unstable();
-    if names.windows(2).any(|w| w[0] == w[1]) {
-        return Err(bad("corners", "two corners have the same name".into()));
-    }
-    Ok(out)
-}
-
 /// One row for a candidate evaluated at every corner: it passes only when it passes at each;
 /// its numbers are those of the corner with the lowest yield lower bound (the limiting corner
 /// for yield), and it names the limiting corner of accuracy (lowest mean) and current
 /// (highest supply current). `rows` pairs each corner's name with its row; none is empty.
 pub fn combine_corners(rows: &[(String, SizingRow)]) -> Option<SizingRow> {
-    let by = |f: &dyn Fn(&SizingRow) -> f64| {
-        rows.iter()
-            .min_by(|a, b| f(&a.1).total_cmp(&f(&b.1)))
-            .map(|(n, r)| (n.clone(), r.clone()))
-    };
-    let (ny, ry) = by(&|r| r.margin)?;
-    let (na, _) = by(&|r| r.acc_mean)?;
-    let (nc, _) = by(&|r| -r.supply_current_a)?;
-    let mut out = ry;
+    use hardmax_report::corners::{highest, lowest};
+    let ny = lowest(rows, |r| r.0.as_str(), |r| r.1.margin)?;
+    let na = lowest(rows, |r| r.0.as_str(), |r| r.1.acc_mean)?;
+    let nc = highest(rows, |r| r.0.as_str(), |r| r.1.supply_current_a)?;
+    let mut out = rows
+        .iter()
+        .find(|(n, _)| *n == ny.corner)
+        .map(|(_, r)| r.clone())?;
     out.pass = rows.iter().all(|(_, r)| r.pass);
     out.elapsed_s = rows.iter().map(|(_, r)| r.elapsed_s).sum();
-    out.supply_current_a = rows
-        .iter()
-        .map(|(_, r)| r.supply_current_a)
-        .fold(f64::NEG_INFINITY, f64::max);
-    out.limiting_yield = ny;
-    out.limiting_accuracy = na;
-    out.limiting_current = nc;
+    out.supply_current_a = nc.value;
+    out.limiting_yield = ny.corner;
+    out.limiting_accuracy = na.corner;
+    out.limiting_current = nc.corner;
     Some(out)
 }
 

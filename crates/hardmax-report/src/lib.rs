@@ -11,6 +11,7 @@
 //! crate.
 
 pub mod answers;
+pub mod corners;
 pub mod format;
 pub mod io;
 pub mod paired;

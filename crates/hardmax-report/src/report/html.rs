@@ -10,6 +10,7 @@
 use std::fmt::Write as _;
 
 mod answer;
+mod corners;
 
 use super::folder::{PointRow, ResultsFolder, RunStatus, SweepMode};
 use super::format::{esc, fmt_duration, fmt_kind, fmt_unix_utc, raw_value, NumberKind};
@@ -664,7 +665,12 @@ pub fn report_html(folder: &ResultsFolder, figures: &[Figure], focus: Option<u64
     let _ = write!(
         s,
         r#"<section id="headline"><h2><span class="n">2</span>Headline numbers</h2>{}{}</section>"#,
-        answer::design_answer(folder),
+        match corners::corner_labels(folder) {
+            // A design point passes only at every corner: the plain answer would name one
+            // (point, corner) pair.
+            Some(labels) => corners::corners_answer(folder, labels),
+            None => answer::design_answer(folder),
+        },
         headline(folder)
     );
 
