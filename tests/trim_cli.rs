@@ -71,3 +71,118 @@ fn bad_trim_settings_name_their_key() {
         );
     }
 }
+
+/// The chip rows of `chips.csv` from the `chip` column on (the point and axis columns left
+/// out, so a swept run and a run without a sweep compare), for point `point`.
+fn chip_rows(out: &Path, point: &str) -> Vec<String> {
+    let t = std::fs::read_to_string(out.join("chips.csv")).unwrap();
+    let mut lines = t.lines();
+    let head: Vec<&str> = lines.next().unwrap().split(',').collect();
+    let chip = head.iter().position(|h| *h == "chip").unwrap();
+    lines
+        .filter(|l| l.split(',').next() == Some(point))
+        .map(|l| l.split(',').skip(chip).collect::<Vec<_>>().join(","))
+        .collect()
+}
+
+const PLAIN: &str = "name = \"iris-plain\"\n[dataset]\nname = \"iris\"\n\
+     [competition]\nsink = { w = \"0.3 um\", l = \"0.5 um\" }\noutput = { w = \"0.3 um\", l = \"0.5 um\" }\n\
+     [population]\nchips = 16\n";
+
+#[test]
+fn the_sweeps_untrimmed_point_is_the_run_without_trim() {
+    // Paired dies (DESIGN.md §11): the point with trim.enabled = false must give, die for die,
+    // exactly the per-chip results of the same experiment without [trim] (the trim draws from
+    // streams of its own). Also a bits axis: every point is trimmed, the untrimmed run differs.
+    let d = tempfile::tempdir().unwrap();
+    let plain = d.path().join("plain.toml");
+    std::fs::write(&plain, PLAIN).unwrap();
+    let swept = d.path().join("swept.toml");
+    std::fs::write(
+        &swept,
+        format!(
+            "{PLAIN}[trim]\nbits = 8\nrange = 0.8\na_vt = \"5 mV um\"\n\
+             [[sweep.axis]]\npath = \"trim.enabled\"\nvalues = [false, true]\n"
+        ),
+    )
+    .unwrap();
+    let (a, b) = (d.path().join("a"), d.path().join("b"));
+    run(&plain, &a, &[]).success();
+    run(&swept, &b, &[]).success();
+    let base = chip_rows(&a, "0");
+    assert_eq!(base.len(), 16);
+    assert_eq!(chip_rows(&b, "0"), base);
+    assert_ne!(chip_rows(&b, "1"), base, "the trimmed point must differ");
+    let points = std::fs::read_to_string(b.join("points.csv")).unwrap();
+    assert!(points.starts_with("point,trim.enabled,"), "{points}");
+    // The report names the before/after comparison.
+    let html = std::fs::read_to_string(b.join("report.html")).unwrap();
+    assert!(html.contains("Before and after trim"), "no trim section");
+}
+
+#[test]
+fn a_switch_axis_takes_booleans_only() {
+    let d = tempfile::tempdir().unwrap();
+    let f = d.path().join("bad.toml");
+    std::fs::write(
+        &f,
+        format!("{PLAIN}[trim]\n[[sweep.axis]]\npath = \"trim.enabled\"\nvalues = [0, 1]\n"),
+    )
+    .unwrap();
+    let a = run(&f, &d.path().join("o"), &[]).failure();
+    let err = String::from_utf8_lossy(&a.get_output().stderr).to_string();
+    assert!(
+        err.contains("trim.enabled") && err.contains("booleans"),
+        "{err}"
+    );
+}
+
+#[test]
+fn bad_new_trim_settings_name_their_key() {
+    // Negative threshold mismatch, a calibration subset larger than the training split (iris:
+    // 150 rows, 70 % for training = 105), nothing to trim.
+    let d = tempfile::tempdir().unwrap();
+    let f = d.path().join("t.toml");
+    std::fs::write(
+        &f,
+        format!("{PLAIN}[trim]\nbits = 6\nrange = 0.8\ncolumns = true\n"),
+    )
+    .unwrap();
+    for (set, key, what) in [
+        ("trim.a_vt=\"-5 mV um\"", "trim.a_vt", "out of range"),
+        (
+            "trim.calibration_samples=100000",
+            "trim.calibration_samples",
+            "training split",
+        ),
+        (
+            "trim.calibration_samples=0",
+            "trim.calibration_samples",
+            "training split",
+        ),
+        ("trim.lines=false", "trim.columns", ""),
+    ] {
+        let mut c = Command::cargo_bin("hardmax").unwrap();
+        c.args(["run", f.to_str().unwrap(), "--out"])
+            .arg(d.path().join("bad"))
+            .args(["--threads", "2", "--set", set]);
+        if set == "trim.lines=false" {
+            // Column trim alone is valid (argmax needs no line DACs).
+            c.args(["--set", "competition.circuit=\"argmax\""])
+                .assert()
+                .success();
+            continue;
+        }
+        let a = c.assert().failure();
+        let err = String::from_utf8_lossy(&a.get_output().stderr).to_string();
+        assert!(err.contains(key) && err.contains(what), "{set}: {err}");
+    }
+    let a = run(
+        &f,
+        &d.path().join("bad2"),
+        &["trim.lines=false", "trim.columns=false"],
+    )
+    .failure();
+    let err = String::from_utf8_lossy(&a.get_output().stderr).to_string();
+    assert!(err.contains("trim.lines"), "{err}");
+}

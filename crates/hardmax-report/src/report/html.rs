@@ -10,6 +10,7 @@
 use std::fmt::Write as _;
 
 mod answer;
+mod trim;
 
 use super::folder::{PointRow, ResultsFolder, RunStatus, SweepMode};
 use super::format::{esc, fmt_duration, fmt_kind, fmt_unix_utc, raw_value, NumberKind};
@@ -663,8 +664,9 @@ pub fn report_html(folder: &ResultsFolder, figures: &[Figure], focus: Option<u64
     );
     let _ = write!(
         s,
-        r#"<section id="headline"><h2><span class="n">2</span>Headline numbers</h2>{}{}</section>"#,
+        r#"<section id="headline"><h2><span class="n">2</span>Headline numbers</h2>{}{}{}</section>"#,
         answer::design_answer(folder),
+        trim::trim_section(folder),
         headline(folder)
     );
 
