@@ -186,3 +186,66 @@ fn bad_new_trim_settings_name_their_key() {
     let err = String::from_utf8_lossy(&a.get_output().stderr).to_string();
     assert!(err.contains("trim.lines"), "{err}");
 }
+
+#[test]
+fn budget_and_netlist_export_honour_the_trim() {
+    // `hardmax budget` trims every variant's dies and adds the row `trim` (all on, trim off);
+    // `hardmax export-netlist` exports the trimmed die: its line gains in comment lines and in
+    // the input currents (a ratio against the untrimmed die's, which must equal those gains).
+    let d = tempfile::tempdir().unwrap();
+    let f = write(d.path());
+    let out = d.path().join("budget");
+    Command::cargo_bin("hardmax")
+        .unwrap()
+        .args([
+            "budget",
+            f.to_str().unwrap(),
+            "--chips",
+            "6",
+            "--threads",
+            "2",
+        ])
+        .arg("--out")
+        .arg(&out)
+        .assert()
+        .success();
+    let csv = std::fs::read_to_string(out.join("budget.csv")).unwrap();
+    assert!(csv.lines().any(|l| l.contains(",trim,")), "{csv}");
+    // Netlists of chip 1 of a trimmed and of an untrimmed run (same die).
+    let (on, off) = (d.path().join("on"), d.path().join("off"));
+    run(&f, &on, &["population.chips=3"]).success();
+    run(&f, &off, &["population.chips=3", "trim.enabled=false"]).success();
+    let export = |dir: &Path, name: &str| -> String {
+        let cir = d.path().join(name);
+        Command::cargo_bin("hardmax")
+            .unwrap()
+            .args(["export-netlist", "--results"])
+            .arg(dir)
+            .args(["--chip", "1", "--samples", "0", "--out"])
+            .arg(&cir)
+            .assert()
+            .success();
+        std::fs::read_to_string(cir).unwrap()
+    };
+    let (a, b) = (export(&on, "on.cir"), export(&off, "off.cir"));
+    let gains: Vec<f64> = a
+        .lines()
+        .find_map(|l| l.strip_prefix("* trim line gains (competition line 0..): "))
+        .expect("trim comment")
+        .split(' ')
+        .map(|x| x.parse().unwrap())
+        .collect();
+    assert!(!b.contains("trim line gains"));
+    // The input current sources of sample 0 (`I_S0_k 0 node DC value`), in line order.
+    let currents = |t: &str| -> Vec<f64> {
+        t.lines()
+            .filter(|l| l.starts_with("I_S0_"))
+            .filter_map(|l| l.split_whitespace().nth(4)?.parse().ok())
+            .collect()
+    };
+    let (ia, ib) = (currents(&a), currents(&b));
+    assert_eq!(ia.len(), gains.len(), "{a}");
+    for ((x, y), g) in ia.iter().zip(&ib).zip(&gains) {
+        assert!((x / y / g - 1.0).abs() < 1e-6, "{x} / {y} vs gain {g}");
+    }
+}

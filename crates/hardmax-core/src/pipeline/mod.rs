@@ -2101,7 +2101,7 @@ fn column_trim_gains(
     let cal_t = t.design.calibration_temperature_k;
     let at_cal = Conditions {
         temperature_k: cal_t,
-        ..conditions.clone()
+        ..*conditions
     };
     let die = first.column_currents(&at_cal)?;
     let n_ut = |kelvin: f64| process.nmos.n * crate::physics::thermal_voltage(kelvin);

@@ -104,7 +104,7 @@ pub(super) fn trim_section(folder: &ResultsFolder) -> String {
             esc(&if settings.is_empty() { "—".to_string() } else { settings.join(", ") }),
             pairs.len(),
             pct(mean(&mut pairs.iter().map(|p| p.0))),
-            pct(mean(&mut pairs.iter().map(|p| p.1))).replace(' ', "&#160;"),
+            pct(mean(&mut pairs.iter().map(|p| p.1))),
             pp(t.lo),
             pp(t.hi),
             pct(pa.iter().filter(|&&x| x).count() as f64 / n),
