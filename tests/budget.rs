@@ -57,6 +57,7 @@ fn invented_two_class(per_class: usize) -> Prepared {
         baseline_acc: acc,
         untested_classes: Vec::new(),
         train_mean_u: Vec::new(),
+        train_u: ndarray::Array2::zeros((0, 0)),
     }
 }
 

@@ -68,6 +68,7 @@ fn prepared(n: usize) -> Prepared {
         baseline_acc: acc,
         untested_classes: Vec::new(),
         train_mean_u: Vec::new(),
+        train_u: ndarray::Array2::zeros((0, 0)),
     }
 }
 

@@ -71,3 +71,181 @@ fn bad_trim_settings_name_their_key() {
         );
     }
 }
+
+/// The chip rows of `chips.csv` from the `chip` column on (the point and axis columns left
+/// out, so a swept run and a run without a sweep compare), for point `point`.
+fn chip_rows(out: &Path, point: &str) -> Vec<String> {
+    let t = std::fs::read_to_string(out.join("chips.csv")).unwrap();
+    let mut lines = t.lines();
+    let head: Vec<&str> = lines.next().unwrap().split(',').collect();
+    let chip = head.iter().position(|h| *h == "chip").unwrap();
+    lines
+        .filter(|l| l.split(',').next() == Some(point))
+        .map(|l| l.split(',').skip(chip).collect::<Vec<_>>().join(","))
+        .collect()
+}
+
+const PLAIN: &str = "name = \"iris-plain\"\n[dataset]\nname = \"iris\"\n\
+     [competition]\nsink = { w = \"0.3 um\", l = \"0.5 um\" }\noutput = { w = \"0.3 um\", l = \"0.5 um\" }\n\
+     [population]\nchips = 16\n";
+
+#[test]
+fn the_sweeps_untrimmed_point_is_the_run_without_trim() {
+    // Paired dies (DESIGN.md §11): the point with trim.enabled = false must give, die for die,
+    // exactly the per-chip results of the same experiment without [trim] (the trim draws from
+    // streams of its own). Also a bits axis: every point is trimmed, the untrimmed run differs.
+    let d = tempfile::tempdir().unwrap();
+    let plain = d.path().join("plain.toml");
+    std::fs::write(&plain, PLAIN).unwrap();
+    let swept = d.path().join("swept.toml");
+    std::fs::write(
+        &swept,
+        format!(
+            "{PLAIN}[trim]\nbits = 8\nrange = 0.8\na_vt = \"5 mV um\"\n\
+             [[sweep.axis]]\npath = \"trim.enabled\"\nvalues = [false, true]\n"
+        ),
+    )
+    .unwrap();
+    let (a, b) = (d.path().join("a"), d.path().join("b"));
+    run(&plain, &a, &[]).success();
+    run(&swept, &b, &[]).success();
+    let base = chip_rows(&a, "0");
+    assert_eq!(base.len(), 16);
+    assert_eq!(chip_rows(&b, "0"), base);
+    assert_ne!(chip_rows(&b, "1"), base, "the trimmed point must differ");
+    let points = std::fs::read_to_string(b.join("points.csv")).unwrap();
+    assert!(points.starts_with("point,trim.enabled,"), "{points}");
+    // The report names the before/after comparison.
+    let html = std::fs::read_to_string(b.join("report.html")).unwrap();
+    assert!(html.contains("Before and after trim"), "no trim section");
+}
+
+#[test]
+fn a_switch_axis_takes_booleans_only() {
+    let d = tempfile::tempdir().unwrap();
+    let f = d.path().join("bad.toml");
+    std::fs::write(
+        &f,
+        format!("{PLAIN}[trim]\n[[sweep.axis]]\npath = \"trim.enabled\"\nvalues = [0, 1]\n"),
+    )
+    .unwrap();
+    let a = run(&f, &d.path().join("o"), &[]).failure();
+    let err = String::from_utf8_lossy(&a.get_output().stderr).to_string();
+    assert!(
+        err.contains("trim.enabled") && err.contains("booleans"),
+        "{err}"
+    );
+}
+
+#[test]
+fn bad_new_trim_settings_name_their_key() {
+    // Negative threshold mismatch, a calibration subset larger than the training split (iris:
+    // 150 rows, 70 % for training = 105), nothing to trim.
+    let d = tempfile::tempdir().unwrap();
+    let f = d.path().join("t.toml");
+    std::fs::write(
+        &f,
+        format!("{PLAIN}[trim]\nbits = 6\nrange = 0.8\ncolumns = true\n"),
+    )
+    .unwrap();
+    for (set, key, what) in [
+        ("trim.a_vt=\"-5 mV um\"", "trim.a_vt", "out of range"),
+        (
+            "trim.calibration_samples=100000",
+            "trim.calibration_samples",
+            "training split",
+        ),
+        (
+            "trim.calibration_samples=0",
+            "trim.calibration_samples",
+            "training split",
+        ),
+        ("trim.lines=false", "trim.columns", ""),
+    ] {
+        let mut c = Command::cargo_bin("hardmax").unwrap();
+        c.args(["run", f.to_str().unwrap(), "--out"])
+            .arg(d.path().join("bad"))
+            .args(["--threads", "2", "--set", set]);
+        if set == "trim.lines=false" {
+            // Column trim alone is valid (argmax needs no line DACs).
+            c.args(["--set", "competition.circuit=\"argmax\""])
+                .assert()
+                .success();
+            continue;
+        }
+        let a = c.assert().failure();
+        let err = String::from_utf8_lossy(&a.get_output().stderr).to_string();
+        assert!(err.contains(key) && err.contains(what), "{set}: {err}");
+    }
+    let a = run(
+        &f,
+        &d.path().join("bad2"),
+        &["trim.lines=false", "trim.columns=false"],
+    )
+    .failure();
+    let err = String::from_utf8_lossy(&a.get_output().stderr).to_string();
+    assert!(err.contains("trim.lines"), "{err}");
+}
+
+#[test]
+fn budget_and_netlist_export_honour_the_trim() {
+    // `hardmax budget` trims every variant's dies and adds the row `trim` (all on, trim off);
+    // `hardmax export-netlist` exports the trimmed die: its line gains in comment lines and in
+    // the input currents (a ratio against the untrimmed die's, which must equal those gains).
+    let d = tempfile::tempdir().unwrap();
+    let f = write(d.path());
+    let out = d.path().join("budget");
+    Command::cargo_bin("hardmax")
+        .unwrap()
+        .args([
+            "budget",
+            f.to_str().unwrap(),
+            "--chips",
+            "6",
+            "--threads",
+            "2",
+        ])
+        .arg("--out")
+        .arg(&out)
+        .assert()
+        .success();
+    let csv = std::fs::read_to_string(out.join("budget.csv")).unwrap();
+    assert!(csv.lines().any(|l| l.contains(",trim,")), "{csv}");
+    // Netlists of chip 1 of a trimmed and of an untrimmed run (same die).
+    let (on, off) = (d.path().join("on"), d.path().join("off"));
+    run(&f, &on, &["population.chips=3"]).success();
+    run(&f, &off, &["population.chips=3", "trim.enabled=false"]).success();
+    let export = |dir: &Path, name: &str| -> String {
+        let cir = d.path().join(name);
+        Command::cargo_bin("hardmax")
+            .unwrap()
+            .args(["export-netlist", "--results"])
+            .arg(dir)
+            .args(["--chip", "1", "--samples", "0", "--out"])
+            .arg(&cir)
+            .assert()
+            .success();
+        std::fs::read_to_string(cir).unwrap()
+    };
+    let (a, b) = (export(&on, "on.cir"), export(&off, "off.cir"));
+    let gains: Vec<f64> = a
+        .lines()
+        .find_map(|l| l.strip_prefix("* trim line gains (competition line 0..): "))
+        .expect("trim comment")
+        .split(' ')
+        .map(|x| x.parse().unwrap())
+        .collect();
+    assert!(!b.contains("trim line gains"));
+    // The input current sources of sample 0 (`I_S0_k 0 node DC value`), in line order.
+    let currents = |t: &str| -> Vec<f64> {
+        t.lines()
+            .filter(|l| l.starts_with("I_S0_"))
+            .filter_map(|l| l.split_whitespace().nth(4)?.parse().ok())
+            .collect()
+    };
+    let (ia, ib) = (currents(&a), currents(&b));
+    assert_eq!(ia.len(), gains.len(), "{a}");
+    for ((x, y), g) in ia.iter().zip(&ib).zip(&gains) {
+        assert!((x / y / g - 1.0).abs() < 1e-6, "{x} / {y} vs gain {g}");
+    }
+}

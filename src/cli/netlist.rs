@@ -165,6 +165,7 @@ pub fn export(args: ExportArgs) -> anyhow::Result<()> {
         .file_stem()
         .map(|s| s.to_string_lossy().into_owned())
         .unwrap_or_else(|| "die".into());
+    let mut trim_lines = String::new();
     let (chip, temperature, samples, rule, source, notes, meta) = match (&args.stage, &args.results)
     {
         (Some(file), None) => {
@@ -246,6 +247,7 @@ pub fn export(args: ExportArgs) -> anyhow::Result<()> {
                 point: args.point,
                 chip: chip_index,
             };
+            trim_lines = die.trim.as_ref().map(trim_comment).unwrap_or_default();
             (
                 die.chip,
                 die.temperature,
@@ -274,6 +276,11 @@ pub fn export(args: ExportArgs) -> anyhow::Result<()> {
         sample_notes: notes,
     };
     let mut net = build(&die, &samples, &opts)?;
+    if !trim_lines.is_empty() {
+        // After the title line (a SPICE deck's first line is its title).
+        let at = net.text.find('\n').map_or(net.text.len(), |i| i + 1);
+        net.text.insert_str(at, &trim_lines);
+    }
     let circuit = die.chip.at(temperature)?;
     let ours = solve_samples(&circuit, &samples, &rule);
     if matches!(
@@ -567,4 +574,31 @@ pub fn compare_cmd(args: CompareArgs) -> anyhow::Result<()> {
         }
     }
     Ok(())
+}
+
+/// Comment lines naming a trimmed die's gains: the input sources already carry the line gains
+/// (each competition input current times its line's gain) and the weight stage the column
+/// gains, so the netlist is the trimmed die.
+fn trim_comment(t: &crate::pipeline::DieTrim) -> String {
+    let list = |g: &[f64]| {
+        g.iter()
+            .map(|x| format!("{x:.9}"))
+            .collect::<Vec<_>>()
+            .join(" ")
+    };
+    let mut s =
+        String::from("* trimmed die ([trim]): the input currents below already include the trim\n");
+    if !t.line_gains.is_empty() {
+        s.push_str(&format!(
+            "* trim line gains (competition line 0..): {}\n",
+            list(&t.line_gains)
+        ));
+    }
+    if !t.column_gains.is_empty() {
+        s.push_str(&format!(
+            "* trim column gains (input column 0.., bias line last): {}\n",
+            list(&t.column_gains)
+        ));
+    }
+    s
 }

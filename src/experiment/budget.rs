@@ -145,7 +145,8 @@ pub fn run_budget(resolved: &Resolved, opts: &BudgetOptions) -> Result<Budget, B
         threads: opts.threads,
         command: opts.command.clone(),
     };
-    let mut b = budget_of(&nominal, &prep, &spec).map_err(|err| match err {
+    let trim = super::build::trim_design(e);
+    let mut b = budget_of_with_trim(&nominal, &prep, &spec, trim).map_err(|err| match err {
         BudgetError::NothingActive { .. } => BudgetError::NothingActive {
             file: file.clone(),
             point: opts.point,
@@ -180,6 +181,19 @@ pub fn budget_of(
     nominal: &crate::pipeline::ClassifierDesign,
     prep: &Prepared,
     spec: &BudgetSpec,
+) -> Result<Budget, BudgetError> {
+    budget_of_with_trim(nominal, prep, spec, None)
+}
+
+/// The budget of `nominal` with `trim` (`[trim]` enabled): every variant's dies are trimmed
+/// (each die calibrated as it is in that variant, as after fabrication), and one more variant,
+/// every nonideality on without the trim, gives the row `trim` (the accuracy and yield the trim
+/// wins back on the same dies).
+pub fn budget_of_with_trim(
+    nominal: &crate::pipeline::ClassifierDesign,
+    prep: &Prepared,
+    spec: &BudgetSpec,
+    trim: Option<crate::pipeline::trim::TrimDesign>,
 ) -> Result<Budget, BudgetError> {
     let t0 = std::time::Instant::now();
     let build_err = |m: String| BudgetError::Build {
@@ -229,15 +243,37 @@ pub fn budget_of(
         })
         .collect();
 
-    let setups: Vec<(PointSetup, ChipToggles)> = variants
+    let trim_err = |m: PipelineError| {
+        let key = match &m {
+            PipelineError::Trim(_) => "trim / competition.circuit: ",
+            _ => "",
+        };
+        build_err(format!("{key}{}", BuildError::from(m)))
+    };
+    let mut setups: Vec<(PointSetup, ChipToggles)> = variants
         .iter()
         .map(|v| {
             let (d, t) = variant(nominal, |n| v.on.contains(&n));
-            PointSetup::new(d, prep)
-                .map(|s| (s, t))
-                .map_err(|m: PipelineError| build_err(BuildError::from(m).to_string()))
+            let s = PointSetup::new(d, prep)
+                .map_err(|m: PipelineError| build_err(BuildError::from(m).to_string()))?;
+            let s = match trim {
+                Some(tr) => s.with_trim(tr, prep).map_err(trim_err)?,
+                None => s,
+            };
+            Ok((s, t))
         })
         .collect::<Result<_, _>>()?;
+    // With trim: the all-on variant untrimmed, last.
+    let v_untrimmed = match (trim, setups.get(v_all)) {
+        (Some(_), Some((s, t))) => {
+            let mut s = s.clone();
+            s.trim = None;
+            let t = *t;
+            setups.push((s, t));
+            Some(setups.len() - 1)
+        }
+        _ => None,
+    };
 
     let pool = {
         let mut b = rayon::ThreadPoolBuilder::new();
@@ -263,7 +299,7 @@ pub fn budget_of(
             })
             .collect()
     });
-    let nv = variants.len();
+    let nv = setups.len();
     let accuracies: Vec<Vec<f64>> = (0..nv)
         .map(|v| per_die.iter().map(|d| d[v]).collect())
         .collect();
@@ -417,6 +453,24 @@ pub fn budget_of(
         loo_acc_gain: None,
         loo_yield_gain: None,
     });
+    if let Some(vu) = v_untrimmed {
+        let (ga, gy) = cost(acc(v_all), acc(vu));
+        items.push(BudgetItem {
+            key: "trim".into(),
+            kind: ItemKind::Reference,
+            stage: String::new(),
+            description: "every nonideality on without the trim DACs; cost = what the trim \
+                          wins back (trimmed all-on minus untrimmed, same dies)"
+                .into(),
+            rank: None,
+            accuracy_mean: mean(acc(vu)),
+            yield_: yield_of(acc(vu)),
+            acc_cost: Some(ga),
+            yield_cost: Some(gy),
+            loo_acc_gain: None,
+            loo_yield_gain: None,
+        });
+    }
 
     let table = BudgetTable {
         experiment: spec.experiment.clone(),
@@ -432,7 +486,11 @@ pub fn budget_of(
     };
     Ok(Budget {
         table,
-        variant_names: variants.iter().map(|v| name_of(&v.on, &active)).collect(),
+        variant_names: variants
+            .iter()
+            .map(|v| name_of(&v.on, &active))
+            .chain(v_untrimmed.map(|_| "all_on_untrimmed".to_string()))
+            .collect(),
         accuracies,
         exact_ideal: exact,
         active,

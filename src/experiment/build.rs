@@ -840,6 +840,11 @@ pub fn check_with_core(e: &Experiment) -> Result<(), CoreRefusal> {
                 range,
                 "the gain span lies in (0, 2): gains from 1 - range/2 to 1 + range/2",
             ),
+            crate::pipeline::trim::TrimError::AVt { a_vt } => refusal(
+                trim_key(&err).into(),
+                a_vt,
+                "the DAC units' A_VT is 0 (off) or positive, e.g. \"5 mV um\"",
+            ),
             _ => CoreRefusal {
                 key: trim_key(&err).into(),
                 value: None,
@@ -888,6 +893,10 @@ pub fn trim_design(e: &Experiment) -> Option<crate::pipeline::trim::TrimDesign> 
             unit_area_m2: t.unit.w.si() * t.unit.l.si(),
             mismatch: t.mismatch,
             calibration_temperature_k: t.temperature.si(),
+            a_vt_pair: t.a_vt.map_or(0.0, |a| a.si()),
+            lines: t.lines.unwrap_or(true),
+            columns: t.columns.unwrap_or(false),
+            calibration_samples: t.calibration_samples,
         })
 }
 
@@ -901,6 +910,9 @@ fn trim_key(e: &crate::pipeline::trim::TrimError) -> &'static str {
         T::NoCircuit | T::Circuit { .. } => "competition.circuit",
         T::Temperature { .. } => "trim.temperature",
         T::Lines { .. } | T::Level { .. } => "trim",
+        T::AVt { .. } => "trim.a_vt",
+        T::Nothing => "trim.lines",
+        T::CalibrationSamples { .. } | T::CalibrationEmpty => "trim.calibration_samples",
     }
 }
 

@@ -702,6 +702,20 @@ pub struct TrimCfg {
     /// Die temperature during calibration (once, at test; the die then runs at
     /// `conditions.temperature`).
     pub temperature: Q<Temperature>,
+    /// Pelgrom A_VT (pair) of the DAC's unit devices, e.g. "5 mV um": each bit's threshold
+    /// error. Absent = 0 (not modelled; the results of files without it are unchanged).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub a_vt: Option<Q<VoltageLength>>,
+    /// A DAC per competition-stage input line (absent = true).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub lines: Option<bool>,
+    /// A DAC per input column of the first weight stage, bias line included (absent = false).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub columns: Option<bool>,
+    /// Training rows (the first N of the training split) whose mean input drives each column
+    /// during the column calibration (absent = the whole training split).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub calibration_samples: Option<usize>,
 }
 
 impl Default for TrimCfg {
@@ -713,6 +727,10 @@ impl Default for TrimCfg {
             unit: SizeCfg::um(1.0, 1.0),
             mismatch: true,
             temperature: Q::new(300.0),
+            a_vt: None,
+            lines: None,
+            columns: None,
+            calibration_samples: None,
         }
     }
 }
@@ -837,7 +855,13 @@ impl Experiment {
             population: PopulationCfg::default(),
             target: TargetCfg::default(),
             cost: CostCfg::default(),
-            trim: Some(TrimCfg::default()),
+            trim: Some(TrimCfg {
+                a_vt: Some(Q::new(5e-9)),
+                lines: Some(true),
+                columns: Some(false),
+                calibration_samples: Some(100),
+                ..TrimCfg::default()
+            }),
             sweep: SweepSpec::default(),
             cluster: None,
             search: None,
@@ -1742,6 +1766,7 @@ fn resolve_axes(e: &Experiment, resolved: &Value, file: &Path) -> Result<Vec<Axi
                                 integer: true,
                                 values: (0..t.len()).map(|i| i as f64).collect(),
                                 labels: Some(t),
+                                boolean: false,
                             });
                             continue;
                         }
@@ -1753,6 +1778,40 @@ fn resolve_axes(e: &Experiment, resolved: &Value, file: &Path) -> Result<Vec<Axi
                     }
                 }
             },
+            Value::Boolean(_) => {
+                // A switch (e.g. `trim.enabled`): the axis runs over the given booleans, each
+                // point sets its value; labelled "false" / "true".
+                let flags: Option<Vec<bool>> = spec
+                    .values
+                    .as_ref()
+                    .and_then(|vs| vs.iter().map(Value::as_bool).collect());
+                match flags {
+                    Some(f) if !f.is_empty() && spec.from.is_none() => {
+                        if f.len() > 2 || (f.len() == 2 && f[0] == f[1]) {
+                            return Err(sweep_err(
+                                "a switch takes each of false and true at most once".into(),
+                            ));
+                        }
+                        axes.push(Axis {
+                            path: spec.path.clone(),
+                            unit: String::new(),
+                            spacing: Default::default(),
+                            integer: true,
+                            values: (0..f.len()).map(|i| i as f64).collect(),
+                            labels: Some(f.iter().map(|b| b.to_string()).collect()),
+                            boolean: true,
+                        });
+                        continue;
+                    }
+                    _ => {
+                        return Err(sweep_err(
+                            "the parameter is a switch: sweep it with a list of booleans \
+                             (`values = [false, true]`)"
+                                .into(),
+                        ))
+                    }
+                }
+            }
             other => {
                 return Err(sweep_err(format!(
                     "the parameter is a {}, not a number; only numeric parameters can be swept",

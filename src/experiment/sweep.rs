@@ -61,12 +61,19 @@ pub struct Axis {
     /// of these texts, which are what the points set.
     #[serde(skip_serializing_if = "Option::is_none")]
     pub labels: Option<Vec<String>>,
+    /// A switch (e.g. `trim.enabled`): the labels are "false" / "true" and each point sets the
+    /// boolean, not the text.
+    #[serde(skip_serializing_if = "std::ops::Not::not")]
+    pub boolean: bool,
 }
 
 impl Axis {
     /// The TOML value to assign for value number `i`.
     pub fn toml_value(&self, i: usize) -> Value {
         if let Some(l) = self.labels.as_ref().and_then(|l| l.get(i)) {
+            if self.boolean {
+                return Value::Boolean(l == "true");
+            }
             return Value::String(l.clone());
         }
         let v = self.values[i];
@@ -204,6 +211,7 @@ impl AxisSpec {
             integer,
             values,
             labels: None,
+            boolean: false,
         })
     }
 }
@@ -310,6 +318,7 @@ mod tests {
     fn axis(path: &str, values: &[f64]) -> Axis {
         Axis {
             labels: None,
+            boolean: false,
             path: path.into(),
             unit: String::new(),
             spacing: Scale::Linear,

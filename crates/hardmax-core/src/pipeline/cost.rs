@@ -99,7 +99,7 @@ pub struct Cost {
     pub hidden_area_m2: f64,
     /// Gate area of the competition stage.
     pub competition_area_m2: f64,
-    /// Gate area of the competition lines' trim DACs (0 without trim).
+    /// Gate area of the trim DACs: competition lines and/or input columns (0 without trim).
     pub trim_area_m2: f64,
     /// Sum of the gate areas (weights, DAC, hidden, competition, trim).
     pub gate_area_m2: f64,
@@ -284,7 +284,10 @@ pub fn point_cost(
         }
     }
     if let Some(t) = &setup.trim {
-        cost.trim_area_m2 = t.design.area_m2(stages.last().map_or(0, |s| s.outputs()));
+        cost.trim_area_m2 = t.design.total_area_m2(
+            stages.last().map_or(0, |s| s.outputs()),
+            stages.first().map_or(0, |s| s.inputs() + 1),
+        );
     }
     cost.gate_area_m2 = cost.weights_area_m2
         + cost.dac_area_m2
@@ -347,6 +350,7 @@ mod tests {
             baseline_acc: 1.0,
             untested_classes: Vec::new(),
             train_mean_u: Vec::new(),
+            train_u: ndarray::Array2::zeros((0, 0)),
         };
         let weights = WeightStageDesign {
             input: InputDesign {

@@ -42,7 +42,7 @@ use crate::stages::competition::{
     CompetitionChip, CompetitionError, CompetitionStage, DecisionRule, StageSolution, Workspace,
 };
 use crate::stages::weights::{
-    random_hidden_weights, ChainDesign, ChainScratch, Conditions, EffectiveChain,
+    random_hidden_weights, ChainChip, ChainDesign, ChainScratch, Conditions, EffectiveChain,
     HiddenNonlinearity, MappedChain, WeightStageDesign,
 };
 use crate::training::{accuracy, Trainer};
@@ -118,6 +118,9 @@ pub struct Prepared {
     /// Mean scaled input of the training split (one value per feature; the trim calibration's
     /// level, never the test split). Empty when not known.
     pub train_mean_u: Vec<f64>,
+    /// Training inputs min-max scaled like `test_u` (the column trim's calibration subset is
+    /// its first rows). Empty when not known.
+    pub train_u: Array2<f64>,
 }
 
 /// A hidden stage: a drawn weight layer and a soft competition (normaliser) between the input
@@ -230,7 +233,8 @@ fn prepare_split(
         None,
         [ideal_pred, baseline_pred],
     );
-    p.train_mean_u = cost::mean_input(&model.scale(train.x.view())?);
+    p.train_u = model.scale(train.x.view())?;
+    p.train_mean_u = cost::mean_input(&p.train_u);
     Ok(p)
 }
 
@@ -261,6 +265,7 @@ impl Prepared {
             baseline_pred,
             untested_classes: Vec::new(),
             train_mean_u: Vec::new(),
+            train_u: Array2::zeros((0, 0)),
         }
     }
 }
@@ -361,6 +366,7 @@ fn prepare_hidden(
         [ideal_pred, baseline_pred],
     );
     p.train_mean_u = cost::mean_input(&u_train);
+    p.train_u = u_train;
     Ok(p)
 }
 
@@ -503,12 +509,18 @@ pub struct PointSetup {
 }
 
 /// A trim design with its calibration level (model notes §11, *Trim*).
-#[derive(Debug, Clone, Copy, PartialEq)]
+#[derive(Debug, Clone, PartialEq)]
 pub struct TrimSetup {
     pub design: trim::TrimDesign,
     /// Calibration current per line, A: the nominal chain's mean output over its lines at the
-    /// training split's mean input.
+    /// training split's mean input (line trim only; 0 without it).
     pub level_a: f64,
+    /// Column trim: each input column's drive level during calibration (the calibration
+    /// subset's mean scaled input; 1 for the bias line, last). Empty without column trim.
+    pub column_levels: Vec<f64>,
+    /// Column trim: each input column's nominal current per unit input, A (the comparator's
+    /// reference, from the mapped targets at the element's levels). Empty without column trim.
+    pub column_reference: Vec<f64>,
 }
 
 impl PointSetup {
@@ -583,6 +595,37 @@ impl PointSetup {
         prep: &Prepared,
     ) -> Result<Self, PipelineError> {
         t.validate()?;
+        let mut setup = TrimSetup {
+            design: t,
+            level_a: 0.0,
+            column_levels: Vec::new(),
+            column_reference: Vec::new(),
+        };
+        if t.columns {
+            let rows = t.calibration_rows(prep.n_train)?;
+            let first = self
+                .mapped
+                .stages()
+                .first()
+                .ok_or(trim::TrimError::Lines { lines: 0 })?;
+            setup.column_reference = first.nominal_column_currents();
+            let mut levels: Vec<f64> = (0..first.inputs())
+                .map(|i| {
+                    let col = prep.train_u.column(i);
+                    let n = rows.min(col.len());
+                    if n == 0 {
+                        return 0.0;
+                    }
+                    col.iter().take(n).map(|v| v.clamp(0.0, 1.0)).sum::<f64>() / n as f64
+                })
+                .collect();
+            levels.push(1.0);
+            setup.column_levels = levels;
+        }
+        if !t.lines {
+            self.trim = Some(setup);
+            return Ok(self);
+        }
         match &self.design.competition {
             CompetitionDesign::Argmax => return Err(trim::TrimError::NoCircuit.into()),
             CompetitionDesign::CurrentWta(_) | CompetitionDesign::DiffPair(_) => {}
@@ -619,10 +662,8 @@ impl PointSetup {
         if !(level.is_finite() && level > 0.0) {
             return Err(trim::TrimError::Level { level }.into());
         }
-        self.trim = Some(TrimSetup {
-            design: t,
-            level_a: level,
-        });
+        setup.level_a = level;
+        self.trim = Some(setup);
         Ok(self)
     }
 
@@ -1364,6 +1405,19 @@ pub struct DieSamples {
     /// True class and ideal-argmax class per chosen sample.
     pub truth: Vec<usize>,
     pub ideal: Vec<usize>,
+    /// The die's trim after calibration (with `[trim]`): already applied to `inputs`.
+    pub trim: Option<DieTrim>,
+}
+
+/// One die's trim gains after calibration (model notes §11, *Trim*).
+#[derive(Debug, Clone, PartialEq, Default)]
+pub struct DieTrim {
+    /// Gain of each competition line's input mirror (line 0 the reference, 1); empty without
+    /// line trim.
+    pub line_gains: Vec<f64>,
+    /// Gain of each input column of the first weight stage (bias line last); empty without
+    /// column trim.
+    pub column_gains: Vec<f64>,
 }
 
 /// Rebuild chip `chip` of sweep point `point` and compute its competition inputs for the test
@@ -1383,11 +1437,44 @@ pub fn sample_die(
                    is not supported; export a design without hidden.circuit",
         });
     }
-    let wchip = setup.mapped.sample_chip(&d.process, |k| {
+    let mut wchip = setup.mapped.sample_chip(&d.process, |k| {
         dies.stream(seed, domain::CHIP, &[chip, k as u64])
     });
+    // The die as trimmed (the same calibration as `evaluate_chip_with`).
+    let mut die_trim = setup.trim.as_ref().map(|_| DieTrim::default());
+    if let Some(t) = setup.trim.as_ref().filter(|t| t.design.columns) {
+        let mut r = dies.stream(seed, domain::CHIP, &[chip, trim::COLUMN_TRIM_STREAM]);
+        let gains = column_trim_gains(t, &wchip, &d.process, &d.conditions, &mut r)?;
+        wchip.trim_input_lines(&gains);
+        if let Some(x) = die_trim.as_mut() {
+            x.column_gains = gains;
+        }
+    }
     let mut chip_rng = dies.stream(seed, domain::CHIP, &[chip, COMPETITION_STREAM]);
     let eff = wchip.effective(&d.conditions)?;
+    if let Some(t) = setup.trim.as_ref().filter(|t| t.design.lines) {
+        let mut c = dies.stream(seed, domain::CHIP, &[chip, COMPETITION_STREAM]);
+        let cal = build_decider(
+            &d.competition,
+            &d.process,
+            t.design.calibration_temperature_k,
+            &mut c,
+            1.0,
+            false,
+        )?;
+        let mut r = dies.stream(seed, domain::CHIP, &[chip, trim::TRIM_STREAM]);
+        let gains = trim_gains(
+            t,
+            &cal,
+            &d.process,
+            d.conditions.temperature_k,
+            eff.outputs(),
+            &mut r,
+        )?;
+        if let Some(x) = die_trim.as_mut() {
+            x.line_gains = gains;
+        }
+    }
     let comp = sample_competition(&d.competition, &d.process, &mut chip_rng, 1.0)?.ok_or(
         PipelineError::Unsupported {
             what: "the design's competition stage is the exact argmax (no circuit to export); \
@@ -1406,9 +1493,15 @@ pub fn sample_die(
         let x: Vec<f64> = prep.test_u.row(i).to_vec();
         let mut currents = vec![0.0; eff.outputs()];
         eff.forward_noiseless(&x, &mut scratch, &mut currents)?;
+        if let Some(g) = die_trim.as_ref().filter(|t| !t.line_gains.is_empty()) {
+            for (c, g) in currents.iter_mut().zip(&g.line_gains) {
+                *c *= g;
+            }
+        }
         inputs.push(currents);
     }
     Ok(DieSamples {
+        trim: die_trim,
         chip: comp,
         temperature: d.conditions.temperature_k,
         test_indices: indices.to_vec(),
@@ -1466,11 +1559,18 @@ pub fn evaluate_chip_with(
         }
         std::borrow::Cow::Owned(p)
     };
-    let wchip = setup.mapped.sample_chip(&weight_process, |k| {
+    let mut wchip = setup.mapped.sample_chip(&weight_process, |k| {
         dies.stream(seed, domain::CHIP, &[chip, k as u64])
     });
     let mut chip_rng = dies.stream(seed, domain::CHIP, &[chip, COMPETITION_STREAM]);
     let built = (|| -> Result<_, PipelineError> {
+        // Column trim: calibrated on this die's first weight stage before anything runs; its
+        // DACs draw from a stream of their own.
+        if let Some(t) = setup.trim.as_ref().filter(|t| t.design.columns) {
+            let mut r = dies.stream(seed, domain::CHIP, &[chip, trim::COLUMN_TRIM_STREAM]);
+            let gains = column_trim_gains(t, &wchip, &d.process, &d.conditions, &mut r)?;
+            wchip.trim_input_lines(&gains);
+        }
         let mut eff = wchip.effective(&d.conditions)?;
         if toggles.read_noise != 1.0 {
             eff.scale_read_noise(toggles.read_noise);
@@ -1500,7 +1600,7 @@ pub fn evaluate_chip_with(
             _ => None,
         };
         // Trim: calibrated on this die's own circuit; its DAC draws from a stream of its own.
-        let gains = match &setup.trim {
+        let gains = match setup.trim.as_ref().filter(|t| t.design.lines) {
             Some(t) => {
                 let mut r = dies.stream(seed, domain::CHIP, &[chip, trim::TRIM_STREAM]);
                 // Calibrated at its own temperature: the same draws evaluated there.
@@ -1518,7 +1618,7 @@ pub fn evaluate_chip_with(
                     None
                 };
                 let cal = at_cal.as_ref().unwrap_or(&decider);
-                Some(trim_gains(t, cal, &d.process, eff.outputs(), &mut r)?)
+                Some(trim_gains(t, cal, &d.process, temp, eff.outputs(), &mut r)?)
             }
             None => None,
         };
@@ -1923,10 +2023,13 @@ impl DcBatch {
 
 /// The trim gains of one die: its DAC errors drawn from `rng`, then the calibration of
 /// [`trim::TrimDesign::calibrate`] measured on the die's own competition stage (DC solves).
+/// The gains apply at `temperature_k` (the operating temperature): a DAC threshold error's
+/// effect, exp(-dV / (n U_T)), follows U_T.
 fn trim_gains(
     t: &TrimSetup,
     decider: &Decider,
     process: &Process,
+    temperature_k: f64,
     lines: usize,
     rng: &mut crate::rng::Stream,
 ) -> Result<Vec<f64>, PipelineError> {
@@ -1942,7 +2045,7 @@ fn trim_gains(
     if let Some(circuit) = unsupported {
         return Err(trim::TrimError::Circuit { circuit }.into());
     }
-    let errors = t.design.draw_errors(lines, process.nmos.a_beta_pair, rng);
+    let dacs = t.design.draw_dacs(lines, process.nmos.a_beta_pair, rng);
     let mut ws = Workspace::new();
     let mut sol = StageSolution::default();
     let mut ratio = |x: &[f64], k: usize| -> Result<f64, CompetitionError> {
@@ -1965,10 +2068,61 @@ fn trim_gains(
             | Decider::Ranking(_) => f64::NAN,
         })
     };
-    let (gains, _codes) = t
+    let n_ut = |kelvin: f64| process.nmos.n * crate::physics::thermal_voltage(kelvin);
+    let cal_t = t.design.calibration_temperature_k;
+    let (gains, codes) = t
         .design
-        .calibrate(lines, t.level_a, &errors, &mut ratio)??;
-    Ok(gains)
+        .calibrate(lines, t.level_a, &dacs, n_ut(cal_t), &mut ratio)??;
+    if t.design.unit_vt_sigma() == 0.0 || temperature_k == cal_t {
+        return Ok(gains);
+    }
+    // The codes found at the calibration temperature, their gains where the die runs.
+    Ok(codes
+        .iter()
+        .zip(&dacs)
+        .enumerate()
+        .map(|(k, (&c, dac))| match k {
+            0 => 1.0,
+            _ => t.design.gain_of(c, dac, n_ut(temperature_k)),
+        })
+        .collect())
+}
+
+/// The column-trim gains of one die (bias line last): its DAC errors drawn from `rng`, the
+/// first weight stage's column currents measured at the calibration temperature, each column
+/// brought to its nominal current by [`trim::TrimDesign::calibrate_columns`]; the gains at the
+/// operating conditions' temperature.
+fn column_trim_gains(
+    t: &TrimSetup,
+    chip: &ChainChip,
+    process: &Process,
+    conditions: &Conditions,
+    rng: &mut crate::rng::Stream,
+) -> Result<Vec<f64>, PipelineError> {
+    let Some(first) = chip.stages().first() else {
+        return Err(trim::TrimError::Lines { lines: 0 }.into());
+    };
+    let columns = first.inputs() + 1;
+    let dacs = t.design.draw_dacs(columns, process.nmos.a_beta_pair, rng);
+    let cal_t = t.design.calibration_temperature_k;
+    let at_cal = Conditions {
+        temperature_k: cal_t,
+        ..*conditions
+    };
+    let die = first.column_currents(&at_cal)?;
+    let n_ut = |kelvin: f64| process.nmos.n * crate::physics::thermal_voltage(kelvin);
+    let codes = t.design.calibrate_columns(
+        &die,
+        &t.column_reference,
+        &t.column_levels,
+        &dacs,
+        n_ut(cal_t),
+    );
+    Ok(codes
+        .iter()
+        .zip(&dacs)
+        .map(|(&c, dac)| t.design.gain_of(c, dac, n_ut(conditions.temperature_k)))
+        .collect())
 }
 
 /// One DC solve and decision: `(winner, ambiguous)`, or the failure's kind (its reason kept in

@@ -26,7 +26,8 @@ pub const IDLE_LINE_FRACTION: f64 = 1e-3;
 /// Each line's gain and code after calibration, or why it could not start.
 pub type Calibrated = Result<(Vec<f64>, Vec<u32>), TrimError>;
 
-/// A trim DAC per competition-stage input line (all but the reference line 0).
+/// A trim DAC per competition-stage input line (all but the reference line 0), and/or one per
+/// input column of the first weight stage (`columns`).
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub struct TrimDesign {
     /// Bits of each DAC, 1..=16.
@@ -35,11 +36,45 @@ pub struct TrimDesign {
     pub range: f64,
     /// Gate area of one unit device of the DAC, m^2 (2^bits - 1 units per DAC).
     pub unit_area_m2: f64,
-    /// Draw each DAC's own full-scale error from its area (Pelgrom).
+    /// Draw each DAC's own errors from its area (Pelgrom): full-scale beta error, and the
+    /// threshold error of each bit's devices when `a_vt_pair` > 0.
     pub mismatch: bool,
     /// Die temperature during calibration, K (the operating temperature may differ).
     pub calibration_temperature_k: f64,
+    /// Pelgrom A_VT of a matched pair of the DAC's unit devices, V m (0: no threshold error).
+    pub a_vt_pair: f64,
+    /// A DAC per competition-stage input line (the gain trim of the competition).
+    pub lines: bool,
+    /// A DAC per input column of the first weight stage (features, bias line last).
+    pub columns: bool,
+    /// Training-split rows (the first N) that set the column calibration's drive levels; `None`
+    /// = the whole training split.
+    pub calibration_samples: Option<usize>,
 }
+
+/// A DAC's own errors on one die: its full-scale (beta) error and the threshold offset of each
+/// bit's devices (bit b: 2^b unit devices in parallel).
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct DacDraw {
+    /// Relative full-scale error (beta mismatch of the units, averaged over all of them).
+    pub e: f64,
+    /// Threshold offset of bit b's devices, V (the mean of its 2^b units' offsets).
+    pub dv: [f64; MAX_BITS as usize],
+}
+
+impl DacDraw {
+    /// A DAC without errors.
+    pub const IDEAL: DacDraw = DacDraw {
+        e: 0.0,
+        dv: [0.0; MAX_BITS as usize],
+    };
+}
+
+/// Largest number of trim DAC bits.
+pub const MAX_BITS: u32 = 16;
+
+/// Stream index of a die's column-trim DAC draws (after the line trim's 1002).
+pub const COLUMN_TRIM_STREAM: u64 = 1003;
 
 #[derive(Debug, Error, Clone, PartialEq)]
 pub enum TrimError {
@@ -68,9 +103,43 @@ pub enum TrimError {
     Lines { lines: usize },
     #[error("trim calibration level {level} A is not a positive finite current")]
     Level { level: f64 },
+    #[error(
+        "trim DAC threshold mismatch A_VT {a_vt} V m must be finite and not negative; give 0 \
+         (no threshold error) or the unit devices' Pelgrom coefficient (e.g. \"5 mV um\")"
+    )]
+    AVt { a_vt: f64 },
+    #[error(
+        "trim trims nothing: both trim.lines and trim.columns are false; switch one on or set \
+         trim.enabled = false"
+    )]
+    Nothing,
+    #[error(
+        "trim calibration subset of {given} samples does not fit the training split of {train} \
+         samples; give 1 to {train} (the calibration never uses the test split)"
+    )]
+    CalibrationSamples { given: usize, train: usize },
+    #[error(
+        "trim calibration subset is empty; give at least 1 sample, or leave \
+         trim.calibration_samples out to calibrate on the whole training split"
+    )]
+    CalibrationEmpty,
 }
 
 impl TrimDesign {
+    /// A 6-bit line trim of span 0.5 with 1 um^2 units, its own mismatch, calibrated at 300 K,
+    /// no threshold error of the units: a starting point for struct updates.
+    pub const LINES: TrimDesign = TrimDesign {
+        bits: 6,
+        range: 0.5,
+        unit_area_m2: 1e-12,
+        mismatch: true,
+        calibration_temperature_k: 300.0,
+        a_vt_pair: 0.0,
+        lines: true,
+        columns: false,
+        calibration_samples: None,
+    };
+
     /// The one place of validation.
     pub fn validate(&self) -> Result<(), TrimError> {
         if !(1..=16).contains(&self.bits) {
@@ -88,7 +157,28 @@ impl TrimDesign {
         if !(k.is_finite() && k > 0.0) {
             return Err(TrimError::Temperature { kelvin: k });
         }
+        if !(self.a_vt_pair.is_finite() && self.a_vt_pair >= 0.0) {
+            return Err(TrimError::AVt {
+                a_vt: self.a_vt_pair,
+            });
+        }
+        if !(self.lines || self.columns) {
+            return Err(TrimError::Nothing);
+        }
+        if self.calibration_samples == Some(0) {
+            return Err(TrimError::CalibrationEmpty);
+        }
         Ok(())
+    }
+
+    /// The calibration subset's size for a training split of `train` rows: refused when it
+    /// does not fit.
+    pub fn calibration_rows(&self, train: usize) -> Result<usize, TrimError> {
+        match self.calibration_samples {
+            None => Ok(train),
+            Some(n) if n >= 1 && n <= train => Ok(n),
+            Some(n) => Err(TrimError::CalibrationSamples { given: n, train }),
+        }
     }
 
     /// Largest code, 2^bits - 1 (also the number of unit devices per DAC).
@@ -101,9 +191,96 @@ impl TrimDesign {
         1.0 + self.range * (code as f64 * (1.0 + e) / self.full_code() as f64 - 0.5)
     }
 
-    /// Gate area of the trim DACs of a stage with `lines` input lines, m^2.
+    /// Gain of a DAC with its own errors `dac` at `code`, its devices at `n_ut` = n U_T (V).
+    /// In weak inversion a threshold offset dV multiplies a device's current by
+    /// exp(-dV / (n U_T)) (EKV, model notes §4.1), so the code's unit count is
+    /// `sum_b bit_b 2^b exp(-dV_b / (n U_T))`; without offsets it is the code itself, exactly.
+    pub fn gain_of(&self, code: u32, dac: &DacDraw, n_ut: f64) -> f64 {
+        let units = if dac.dv.iter().all(|&v| v == 0.0) {
+            code as f64
+        } else {
+            (0..self.bits)
+                .filter(|b| code & (1 << b) != 0)
+                .map(|b| (1u32 << b) as f64 * (-dac.dv[b as usize] / n_ut).exp())
+                .sum()
+        };
+        1.0 + self.range * (units * (1.0 + dac.e) / self.full_code() as f64 - 0.5)
+    }
+
+    /// Gate area of the competition-line trim DACs of a stage with `lines` input lines, m^2.
     pub fn area_m2(&self, lines: usize) -> f64 {
         lines.saturating_sub(1) as f64 * self.full_code() as f64 * self.unit_area_m2
+    }
+
+    /// Gate area of every trim DAC: one per competition line but the reference (with `lines`
+    /// on) and one per input column of the first weight stage, bias line included (with
+    /// `columns` on), m^2.
+    pub fn total_area_m2(&self, competition_lines: usize, input_columns: usize) -> f64 {
+        let mut a = 0.0;
+        if self.lines {
+            a += self.area_m2(competition_lines);
+        }
+        if self.columns {
+            a += input_columns as f64 * self.full_code() as f64 * self.unit_area_m2;
+        }
+        a
+    }
+
+    /// Sigma of one unit device's threshold, V: `a_vt_pair / sqrt(2 unit_area)` (a device's
+    /// own is the pair's over sqrt 2, Pelgrom 1989), 0 when mismatch is off.
+    pub fn unit_vt_sigma(&self) -> f64 {
+        if !self.mismatch {
+            return 0.0;
+        }
+        self.a_vt_pair / (2.0 * self.unit_area_m2).sqrt()
+    }
+
+    /// Each DAC's errors, drawn from the die's trim stream: first one standard normal per DAC
+    /// in order (the full-scale error, whatever `mismatch`), then `MAX_BITS` per DAC in order
+    /// (bit b's threshold, whatever `bits` and `a_vt_pair`, so that a sweep of either keeps
+    /// every other draw). Bit b's devices are 2^b units in parallel: their mean offset has
+    /// sigma `unit_vt_sigma / sqrt(2^b)` (to first order in the offsets).
+    pub fn draw_dacs<R: rand::Rng + ?Sized>(
+        &self,
+        count: usize,
+        a_beta_pair: f64,
+        rng: &mut R,
+    ) -> Vec<DacDraw> {
+        let e = self.draw_errors(count, a_beta_pair, rng);
+        let s = self.unit_vt_sigma();
+        e.into_iter()
+            .map(|e| {
+                let mut dv = [0.0; MAX_BITS as usize];
+                for (b, v) in dv.iter_mut().enumerate() {
+                    let z: f64 = rand_distr::Distribution::sample(&rand_distr::StandardNormal, rng);
+                    *v = s * z / ((1u64 << b) as f64).sqrt();
+                }
+                DacDraw { e, dv }
+            })
+            .collect()
+    }
+
+    /// Successive approximation of one DAC: `measure(code)` is ln(out / reference) with the DAC
+    /// at `code`; from the most significant bit, a bit is kept while the output stays at or
+    /// below the reference; then the SAR code or the next one up, whichever is closer.
+    pub fn sar<E>(&self, mut measure: impl FnMut(u32) -> Result<f64, E>) -> Result<u32, E> {
+        let mut code = 0u32;
+        for b in (0..self.bits).rev() {
+            let trial = code | (1 << b);
+            // Keep the bit while the line stays at or below the reference.
+            if measure(trial)? <= 0.0 {
+                code = trial;
+            }
+        }
+        // Half a step: the SAR code or the next one up, whichever is closer.
+        if code < self.full_code() {
+            let lo = measure(code)?;
+            let hi = measure(code + 1)?;
+            if hi.abs() < lo.abs() {
+                code += 1;
+            }
+        }
+        Ok(code)
     }
 
     /// Relative sigma of one DAC's full scale: `a_beta_pair / sqrt(2 units unit_area)` (a
@@ -136,12 +313,14 @@ impl TrimDesign {
     /// Calibrate every line by successive approximation against line 0 at `level` (A).
     /// `log_ratio(inputs)` measures the die: ln(out_k / out_0) for the line under calibration k
     /// given the competition inputs (the die's own trim not applied: the inputs already carry
-    /// the trial gain). Returns each line's gain (1 for line 0) and code.
+    /// the trial gain). `dacs` are the lines' DAC errors (missing = ideal), their devices at
+    /// `n_ut` = n U_T. Returns each line's gain (1 for line 0) and code.
     pub fn calibrate<E>(
         &self,
         lines: usize,
         level: f64,
-        errors: &[f64],
+        dacs: &[DacDraw],
+        n_ut: f64,
         mut log_ratio: impl FnMut(&[f64], usize) -> Result<f64, E>,
     ) -> Result<Calibrated, E> {
         if lines < 2 {
@@ -155,32 +334,52 @@ impl TrimDesign {
         let mut inputs = vec![level * IDLE_LINE_FRACTION; lines];
         inputs[0] = level;
         for k in 1..lines {
-            let e = errors.get(k).copied().unwrap_or(0.0);
-            let mut measure = |code: u32, inputs: &mut Vec<f64>| {
-                inputs[k] = level * self.gain(code, e);
-                log_ratio(inputs, k)
-            };
-            let mut code = 0u32;
-            for b in (0..self.bits).rev() {
-                let trial = code | (1 << b);
-                // Keep the bit while the line stays at or below the reference.
-                if measure(trial, &mut inputs)? <= 0.0 {
-                    code = trial;
-                }
-            }
-            // Half a step: the SAR code or the next one up, whichever is closer.
-            if code < self.full_code() {
-                let lo = measure(code, &mut inputs)?;
-                let hi = measure(code + 1, &mut inputs)?;
-                if hi.abs() < lo.abs() {
-                    code += 1;
-                }
-            }
+            let dac = dacs.get(k).copied().unwrap_or(DacDraw::IDEAL);
+            let code = self.sar(|code| {
+                inputs[k] = level * self.gain_of(code, &dac, n_ut);
+                log_ratio(&inputs, k)
+            })?;
             inputs[k] = level * IDLE_LINE_FRACTION;
             codes[k] = code;
-            gains[k] = self.gain(code, e);
+            gains[k] = self.gain_of(code, &dac, n_ut);
         }
         Ok(Ok((gains, codes)))
+    }
+
+    /// Calibrate every input column against its nominal current: column i driven alone at
+    /// `levels[i]` carries `die[i] levels[i]` on the die and `nominal[i] levels[i]` by design;
+    /// successive approximation brings `gain die` to `nominal` (the comparator's reference).
+    /// A column the calibration cannot drive (level or either current not positive) is left
+    /// at the code nearest unity gain. Returns each column's code.
+    pub fn calibrate_columns(
+        &self,
+        die: &[f64],
+        nominal: &[f64],
+        levels: &[f64],
+        dacs: &[DacDraw],
+        n_ut: f64,
+    ) -> Vec<u32> {
+        let mid = self.full_code().div_ceil(2);
+        (0..die.len())
+            .map(|i| {
+                let (d, m, x) = (
+                    die[i],
+                    nominal.get(i).copied().unwrap_or(0.0),
+                    levels.get(i).copied().unwrap_or(0.0),
+                );
+                let ok = |v: f64| v.is_finite() && v > 0.0;
+                if !(ok(d) && ok(m) && ok(x)) {
+                    return mid;
+                }
+                let dac = dacs.get(i).copied().unwrap_or(DacDraw::IDEAL);
+                self.sar(|code| {
+                    Ok::<_, std::convert::Infallible>(
+                        (self.gain_of(code, &dac, n_ut) * d * x / (m * x)).ln(),
+                    )
+                })
+                .unwrap_or_else(|e| match e {})
+            })
+            .collect()
     }
 }
 
@@ -196,6 +395,10 @@ mod tests {
             unit_area_m2: 1e-12,
             mismatch: false,
             calibration_temperature_k: 300.0,
+            a_vt_pair: 0.0,
+            lines: true,
+            columns: false,
+            calibration_samples: None,
         }
     }
 
@@ -236,7 +439,7 @@ mod tests {
     fn sar(d: &TrimDesign, m: &[f64]) -> Vec<f64> {
         let g = 200.0;
         let (gains, _) = d
-            .calibrate(m.len(), 1e-8, &[], |x, k| {
+            .calibrate(m.len(), 1e-8, &[], 1.0, |x, k| {
                 Ok::<_, ()>(g * ((m[k] * x[k]).ln() - (m[0] * x[0]).ln()))
             })
             .unwrap()
@@ -266,6 +469,94 @@ mod tests {
         let gains = sar(&d, &[1.0, 1.06, 0.96]);
         assert_relative_eq!(gains[1], 0.9, max_relative = 1e-12);
         assert_relative_eq!(gains[2], 1.1, max_relative = 1e-12);
+    }
+
+    #[test]
+    fn zero_threshold_error_gives_the_beta_only_gain_exactly() {
+        // The requirement is identity with the model before threshold errors existed (so that
+        // results stay byte-identical), hence bitwise equality here.
+        let d = design(8, 0.7);
+        let dac = DacDraw {
+            e: 0.013,
+            ..DacDraw::IDEAL
+        };
+        for code in 0..=d.full_code() {
+            assert_eq!(
+                d.gain_of(code, &dac, 0.034).to_bits(),
+                d.gain(code, 0.013).to_bits()
+            );
+        }
+        // The full-scale draws come first in the stream, as before (same values, same order).
+        let mut m = design(8, 0.7);
+        m.mismatch = true;
+        m.a_vt_pair = 5e-9;
+        let mut r1 = crate::rng::stream(9, &[1, 2]);
+        let mut r2 = crate::rng::stream(9, &[1, 2]);
+        let dacs = m.draw_dacs(5, 0.01e-6, &mut r1);
+        let errors = m.draw_errors(5, 0.01e-6, &mut r2);
+        for (a, b) in dacs.iter().zip(&errors) {
+            assert_eq!(a.e.to_bits(), b.to_bits());
+        }
+    }
+
+    #[test]
+    fn a_threshold_offset_scales_its_bit_by_the_weak_inversion_exponential() {
+        // Weak inversion: I = I_0 exp((V_GS - V_T) / (n U_T)), so a threshold offset dV
+        // multiplies the current by exp(-dV / (n U_T)) (EKV; Enz, Krummenacher, Vittoz,
+        // Analog Integrated Circuits and Signal Processing 8, 1995). Hand computation: 3 bits,
+        // code 5 = bits 0 and 2 with offsets 10 mV and -5 mV at n U_T = 30 mV.
+        let d = design(3, 0.7);
+        let mut dac = DacDraw::IDEAL;
+        dac.dv[0] = 0.010;
+        dac.dv[2] = -0.005;
+        let units = (-0.010f64 / 0.030).exp() + 4.0 * (0.005f64 / 0.030).exp();
+        assert_relative_eq!(
+            d.gain_of(5, &dac, 0.030),
+            1.0 + 0.7 * (units / 7.0 - 0.5),
+            max_relative = 1e-14
+        );
+        // Bit b is 2^b units: its offset sigma is the unit's over sqrt(2^b) (Pelgrom 1989:
+        // sigma ~ 1/sqrt(area)); the unit's is A_VT / sqrt(2 W L).
+        let mut m = design(16, 0.7);
+        m.mismatch = true;
+        m.a_vt_pair = 5e-9;
+        assert_relative_eq!(
+            m.unit_vt_sigma(),
+            5e-9 / (2e-12f64).sqrt(),
+            max_relative = 1e-12
+        );
+        let mut r = crate::rng::stream(4, &[7]);
+        let dacs = m.draw_dacs(4000, 0.0, &mut r);
+        for b in [0usize, 6, 12] {
+            let v: Vec<f64> = dacs.iter().map(|x| x.dv[b]).collect();
+            let sd = (v.iter().map(|x| x * x).sum::<f64>() / v.len() as f64).sqrt();
+            let want = m.unit_vt_sigma() / ((1u64 << b) as f64).sqrt();
+            // 4000 draws: the sample sigma is within 3 standard errors (sd / sqrt(2 n) ~ 1.1 %).
+            assert!((sd / want - 1.0).abs() < 0.035, "bit {b}: {sd} vs {want}");
+        }
+    }
+
+    #[test]
+    fn bad_threshold_mismatch_and_empty_trim_are_refused() {
+        let mut d = design(4, 0.5);
+        d.a_vt_pair = -1e-9;
+        assert!(matches!(d.validate(), Err(TrimError::AVt { .. })));
+        d.a_vt_pair = f64::NAN;
+        assert!(matches!(d.validate(), Err(TrimError::AVt { .. })));
+        let mut d = design(4, 0.5);
+        d.lines = false;
+        assert_eq!(d.validate(), Err(TrimError::Nothing));
+        d.columns = true;
+        assert!(d.validate().is_ok());
+        d.calibration_samples = Some(50);
+        assert_eq!(d.calibration_rows(120), Ok(50));
+        assert_eq!(
+            d.calibration_rows(40),
+            Err(TrimError::CalibrationSamples {
+                given: 50,
+                train: 40
+            })
+        );
     }
 
     #[test]
@@ -393,6 +684,7 @@ mod chip_tests {
             unit_area_m2: 1e-12,
             mismatch: false,
             calibration_temperature_k: 300.0,
+            ..TrimDesign::LINES
         };
         let acc = accuracies(t, 40);
         let n_test = 54.0;
@@ -420,6 +712,7 @@ mod chip_tests {
             unit_area_m2: 1e-12,
             mismatch: false,
             calibration_temperature_k: 300.0,
+            ..TrimDesign::LINES
         };
         let acc = accuracies(t, 40);
         let (u, b, f) = (mean(&acc, 0), mean(&acc, 1), mean(&acc, 2));
@@ -438,6 +731,7 @@ mod chip_tests {
             unit_area_m2: 1e-12,
             mismatch: true,
             calibration_temperature_k: 300.0,
+            ..TrimDesign::LINES
         };
         let a = s
             .clone()
@@ -448,7 +742,7 @@ mod chip_tests {
             .clone()
             .with_trim(t, &prep)
             .unwrap_or_else(|e| panic!("{e}"));
-        assert!(a.trim.is_some_and(|x| x.level_a > 0.0));
+        assert!(a.trim.as_ref().is_some_and(|x| x.level_a > 0.0));
         // Trim draws its own stream: untrimmed results do not depend on whether trim exists
         // (the same die evaluated by the same setup before and after building trimmed ones).
         let on = ChipToggles::default();
@@ -462,5 +756,126 @@ mod chip_tests {
         assert!(argmax.with_trim(t, &prep).is_err());
         t.bits = 0;
         assert!(s.with_trim(t, &prep).is_err());
+    }
+
+    #[test]
+    fn threshold_mismatch_of_the_dac_undoes_the_trim_as_it_grows() {
+        // The issue's check: with a large threshold mismatch of the DAC's units the trimmed
+        // accuracy degrades toward the untrimmed one, monotone in sigma (statistically: each
+        // mean within one test decision of the previous one or below it). 4 bits, 1 um^2
+        // units; A_VT from 0 to 0.15 V um (a unit sigma of 0 to 106 mV, 0 to about 3 n U_T:
+        // the bits' weights are then far from binary and the DAC leaves gaps larger than the
+        // offsets it should null; measured here it even falls below untrimmed).
+        let dies = 40;
+        let mut means = Vec::new();
+        let mut untrimmed = 0.0;
+        for a_vt in [0.0, 0.02e-6, 0.06e-6, 0.15e-6] {
+            let t = TrimDesign {
+                bits: 4,
+                range: 1.2,
+                unit_area_m2: 1e-12,
+                mismatch: true,
+                a_vt_pair: a_vt,
+                ..TrimDesign::LINES
+            };
+            let acc = accuracies(t, dies);
+            untrimmed = mean(&acc, 0);
+            means.push(mean(&acc, 1));
+        }
+        let n_test = 54.0;
+        for w in means.windows(2) {
+            assert!(w[1] <= w[0] + 1.0 / n_test, "{means:?}");
+        }
+        let (first, last) = (means[0], means[means.len() - 1]);
+        assert!(
+            last < first - 0.02,
+            "large DAC mismatch should cost accuracy: {means:?}"
+        );
+        // Toward untrimmed: the largest mismatch keeps less than half of the trim's gain.
+        assert!(
+            last - untrimmed < 0.5 * (first - untrimmed),
+            "untrimmed {untrimmed}, trimmed {means:?}"
+        );
+    }
+
+    /// Per-die accuracies on wine with the argmax decision and error-free elements, the only
+    /// mismatch the input lines' gain errors (sigma `sigma`): untrimmed, column-trimmed with
+    /// `t`, and without the gain errors (the same dies: the same draws scaled by zero).
+    fn column_accuracies(t: TrimDesign, sigma: f64, dies: u64) -> Vec<[f64; 3]> {
+        let (s0, prep) = setup();
+        let with_sigma = |sg: f64| {
+            let mut d = s0.design.clone();
+            d.competition = CompetitionDesign::Argmax;
+            d.weights.input.gain_sigma_rel = sg;
+            PointSetup::new(d, &prep).unwrap_or_else(|e| panic!("{e}"))
+        };
+        let s = with_sigma(sigma);
+        let free = with_sigma(0.0);
+        let trimmed = s
+            .clone()
+            .with_trim(t, &prep)
+            .unwrap_or_else(|e| panic!("{e}"));
+        let on = ChipToggles {
+            read_noise: 0.0,
+            shot_noise: 0.0,
+            ..ChipToggles::default()
+        };
+        (0..dies)
+            .map(|c| {
+                let a = evaluate_chip_with(&s, &prep, 11, Dies::Paired, c, &on);
+                let b = evaluate_chip_with(&trimmed, &prep, 11, Dies::Paired, c, &on);
+                let f = evaluate_chip_with(&free, &prep, 11, Dies::Paired, c, &on);
+                assert_eq!(b.chip_error, None);
+                [a.accuracy(), b.accuracy(), f.accuracy()]
+            })
+            .collect()
+    }
+
+    #[test]
+    fn column_trim_with_sixteen_bits_gives_the_gain_error_free_accuracy() {
+        // The issue's check: unlimited bits, no noise, and the mismatch the column trim
+        // corrects (each input line's gain error, bias line included) the only one: the
+        // trimmed dies reach the accuracy of the same dies without it. A pure gain error is
+        // nulled at any level (the weight stage is linear in its inputs), to half a 16-bit step
+        // (1.2 / 65535 / 2 < 1e-5 relative); allowed (ours): one test decision per die.
+        let t = TrimDesign {
+            bits: 16,
+            range: 1.2,
+            unit_area_m2: 1e-12,
+            mismatch: false,
+            lines: false,
+            columns: true,
+            calibration_samples: Some(60),
+            ..TrimDesign::LINES
+        };
+        let acc = column_accuracies(t, 0.1, 40);
+        let n_test = 54.0;
+        for (c, r) in acc.iter().enumerate() {
+            assert!(
+                (r[1] - r[2]).abs() <= 1.0 / n_test + 1e-12,
+                "die {c}: trimmed {} against error-free {}",
+                r[1],
+                r[2]
+            );
+        }
+        assert!((mean(&acc, 1) - mean(&acc, 2)).abs() <= 0.005);
+        // The check has teeth: the gain errors cost the untrimmed dies accuracy.
+        assert!(mean(&acc, 0) < mean(&acc, 2) - 0.01, "{acc:?}");
+    }
+
+    #[test]
+    fn column_trim_refuses_a_subset_larger_than_the_training_split() {
+        let (s, prep) = setup();
+        let t = TrimDesign {
+            lines: false,
+            columns: true,
+            calibration_samples: Some(prep.n_train + 1),
+            ..TrimDesign::LINES
+        };
+        let err = s.with_trim(t, &prep).err().map(|e| e.to_string());
+        assert!(
+            err.as_deref().is_some_and(|e| e.contains("training split")),
+            "{err:?}"
+        );
     }
 }

@@ -219,6 +219,13 @@ impl ChainChip {
     pub fn stages(&self) -> &[WeightStageChip] {
         &self.stages
     }
+    /// Multiply the first stage's input lines (features, bias line last) by `gains`: a trim
+    /// DAC per input column (model notes §11, *Trim*).
+    pub fn trim_input_lines(&mut self, gains: &[f64]) {
+        if let Some(s) = self.stages.first_mut() {
+            s.trim_input_lines(gains);
+        }
+    }
     /// Effective weights of every stage under `c`.
     pub fn effective(&self, c: &Conditions) -> Result<EffectiveChain> {
         Ok(EffectiveChain {

@@ -287,6 +287,26 @@ impl MappedStage {
         }
     }
 
+    /// Each input column's current per unit input on a perfect chip (element targets at their
+    /// levels): the sum over output lines of |effective weight|, A; the bias line last (its
+    /// entries without the offset current). The column trim's reference.
+    pub fn nominal_column_currents(&self) -> Vec<f64> {
+        let e = self.nominal_levels();
+        let no = self.classes.max(1);
+        let mut cols: Vec<f64> = e
+            .matrix()
+            .chunks_exact(no)
+            .map(|row| row.iter().map(|m| m.abs()).sum())
+            .collect();
+        cols.push(
+            e.offset()
+                .iter()
+                .map(|o| (o - self.offset_current_a).abs())
+                .sum(),
+        );
+        cols
+    }
+
     /// The element targets rounded to the element's programmable levels, with no other
     /// nonideality: what a perfect chip of this design holds. Linear elements: evenly spaced
     /// levels of [w_min, w_max]; subthreshold elements: evenly spaced stored voltages, i.e.

@@ -165,6 +165,41 @@ impl WeightStageChip {
         mirror_gain(&self.process, mirror, a, b, i_rep, c.temperature_k, j)
     }
 
+    /// Number of feature inputs (the bias line not counted).
+    pub fn inputs(&self) -> usize {
+        self.mapped.features
+    }
+
+    /// Multiply each input line's gain (features, bias line last) by `gains` (a trim DAC per
+    /// input column; lines without a gain keep theirs).
+    pub fn trim_input_lines(&mut self, gains: &[f64]) {
+        for (g, t) in self.line_gain.iter_mut().zip(gains) {
+            *g *= t;
+        }
+    }
+
+    /// Each input column's current per unit input on this chip under `c`: the sum over output
+    /// lines of |effective weight|, A; the bias line last (without the offset currents). What a
+    /// column trim's calibration measures with the column driven alone.
+    pub fn column_currents(&self, c: &Conditions) -> Result<Vec<f64>> {
+        let e = self.effective(c)?;
+        let no = e.outputs().max(1);
+        let mut cols: Vec<f64> = e
+            .matrix()
+            .chunks_exact(no)
+            .map(|row| row.iter().map(|m| m.abs()).sum())
+            .collect();
+        let oc = self.mapped.offset_current_a;
+        cols.push(
+            e.offset()
+                .iter()
+                .zip(&self.offset_gain)
+                .map(|(o, g)| (o - oc * g).abs())
+                .sum(),
+        );
+        Ok(cols)
+    }
+
     /// Fold every static draw and the conditions into an [`EffectiveStage`] (once per chip and
     /// condition; the per-decision pass is then one sweep over a contiguous matrix).
     pub fn effective(&self, c: &Conditions) -> Result<EffectiveStage> {
