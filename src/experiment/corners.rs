@@ -414,6 +414,7 @@ pub fn expand(
         integer: true,
         values: (0..k).map(|j| j as f64).collect(),
         labels: Some(corners.iter().map(|c| c.name.clone()).collect()),
+        boolean: false,
     });
     resolved.base.sweep.combine = Combine::Grid;
     resolved.points = points;
