@@ -98,6 +98,11 @@ pub enum NetlistError {
          model): choose the behavioural device form"
     )]
     KWinnersForm,
+    #[error(
+        "the WTA cascade is exported in the behavioural form only (the replica's copy into the \
+         next level is the model's ideal mirror): choose the behavioural device form"
+    )]
+    CascadeForm,
     #[error("internal: the evaluated stage does not match its chip; please report this")]
     Inconsistent,
     #[error(transparent)]
