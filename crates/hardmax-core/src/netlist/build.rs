@@ -103,6 +103,11 @@ pub enum NetlistError {
          current_wta, diff_pair, hysteretic_wta or k_winners design"
     )]
     NotExported(&'static str),
+    #[error(
+        "the WTA cascade is exported in the behavioural form only (the replica's copy into the \
+         next level is the model's ideal mirror): choose the behavioural device form"
+    )]
+    CascadeForm,
     #[error("internal: the evaluated stage does not match its chip; please report this")]
     Inconsistent,
     #[error(transparent)]

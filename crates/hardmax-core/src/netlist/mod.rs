@@ -28,9 +28,11 @@
 //!   post-editing, as said in DEVELOPERS.md.
 
 pub mod build;
+pub mod cascade;
 pub mod compare;
 pub mod results;
 
 pub use build::{build, build_kwinners, DeviceForm, Die, Netlist, NetlistError, NetlistOptions};
+pub use cascade::build_cascade;
 pub use compare::{compare, solve_samples, SampleComparison, SampleSolution};
 pub use results::{parse_ascii_raw, parse_results_csv, SimResults, SimResultsError};

@@ -37,7 +37,7 @@
 
 use rand::RngCore;
 
-use crate::device::{MosMismatch, Polarity, Transistor};
+use crate::device::{Ekv, MosMismatch, Polarity, Transistor};
 
 use super::common::{check_mismatch, nonnegative, Devices};
 use super::decision::{Decision, DecisionRule};
@@ -253,6 +253,16 @@ impl CascadeChip {
             groups.push(row);
         }
         Ok(CascadeChip { design, groups })
+    }
+
+    /// The replica sink of group `group` of level `level` at `temperature` (K), with its
+    /// mismatch and the cells' drain coupling, as the solve evaluates it (`None` for a lone line
+    /// or a top-level group, which have no replica). For the netlist export.
+    pub fn copy_device(&self, level: usize, group: usize, temperature: f64) -> Option<Ekv> {
+        let d = &self.design;
+        let m = self.groups.get(level)?.get(group)?.copy?;
+        let devices = Devices::new(&d.cell.process, d.cell.drain_coupling, temperature);
+        Some(devices.one(&d.copy, m))
     }
 
     /// A tree without mismatch.

@@ -397,10 +397,36 @@ impl WtaCircuit {
         (vc, ln_ib)
     }
 
+    /// The pieces of [`Self::closed_form_vc`] for circuits built on these cells (the k-winners
+    /// start): `logs[k]` = ln of the current B_k would carry at V_C = 0 with its sink carrying
+    /// `inputs[k]` (weak-inversion closed form; -inf for an input <= 0), and returns
+    /// `(slope, ln I_b)` where `slope` is d ln I_B / dV_C, so a group of cells sharing a
+    /// current I has `V_C = (ln Σ e^logs - ln I) / slope`.
+    pub(super) fn closed_form_logs(&self, inputs: &[f64], logs: &mut [f64]) -> (f64, f64) {
+        let vout = self.output_voltage;
+        let ln_ib = self.bias_fast.ln_weak_current();
+        let mut slope = 0.0;
+        for k in 0..self.n {
+            let i = inputs[k];
+            if i <= 0.0 {
+                logs[k] = f64::NEG_INFINITY;
+                continue;
+            }
+            let a = &self.sink_fast[k];
+            let b = &self.output_fast[k];
+            let eta_a = a.eta.max(1e-3);
+            let x = ekv_f_inverse(i / a.is);
+            let alpha = (a.n() * a.ut() * x + a.vt0) / eta_a;
+            logs[k] = b.is.ln() + (alpha - b.vt0 + b.eta * vout) * b.inv_n * b.inv_ut;
+            slope = (1.0 / eta_a + b.eta) * b.inv_n * b.inv_ut + b.inv_ut;
+        }
+        (slope, ln_ib)
+    }
+
     /// Starting V_k of a cell expected to carry `i_out` through its output transistor B_k at
     /// a given V_C (saturated B_k, inverted EKV forward law `x = 2 ln(e^sqrt(i) - 1)`).
     #[inline]
-    fn cell_guess_from_output(&self, k: usize, i_out: f64, vc: f64) -> f64 {
+    pub(super) fn cell_guess_from_output(&self, k: usize, i_out: f64, vc: f64) -> f64 {
         let b = &self.output_fast[k];
         let x = ekv_f_inverse(i_out / b.is);
         b.n() * (b.ut() * x + vc) + b.vt0 - b.eta * (self.output_voltage - vc)
@@ -411,7 +437,7 @@ impl WtaCircuit {
     /// solved by a few cheap Newton steps in ln V_k (the law is concave in V_k, near-linear in
     /// ln V_k in triode and convex in saturation).
     #[inline]
-    fn cell_guess(&self, k: usize, i: f64, vc: f64) -> f64 {
+    pub(super) fn cell_guess(&self, k: usize, i: f64, vc: f64) -> f64 {
         if i <= 0.0 {
             return 0.0;
         }
