@@ -14,7 +14,7 @@ use hardmax::experiment::build::prepare_data;
 use hardmax::experiment::config::load_str;
 
 fn bench(c: &mut Criterion) {
-    let text = "[dataset]\nname = \"digits\"\n[training]\nhardware_aware = 1\n\
+    let text = "[dataset]\nname = \"digits\"\n[training]\ntrainer = \"hardware_aware\"\n\
                 [weights]\nlevels = 16\nprogramming_error = 0.01\n\
                 [competition]\nbias_current = \"100 nA\"\n\
                 sink = { w = \"2 um\", l = \"2 um\" }\noutput = { w = \"2 um\", l = \"2 um\" }\n";

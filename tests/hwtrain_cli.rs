@@ -49,6 +49,17 @@ fn bad_options_name_key_and_line() {
         "[training]\ntrainer = \"hardware_aware\"\n[weights]\nencoding = \"differential\"\n",
     );
     assert!(e.contains("shifted"), "{e}");
+    // A used range below half a level step: every element rounds to the same level, so the
+    // float weights' sign pattern (which class line gets more current) cannot be expressed.
+    let e = refused(
+        "[training]\ntrainer = \"hardware_aware\"\n[weights]\nlevels = 4\nrange_use = 0.1\n",
+    );
+    assert!(e.contains("weights.range_use"), "{e}");
+    assert!(e.contains("sign"), "{e}");
+    let e = refused(
+        "[training]\ntrainer = \"hardware_aware\"\n[training.hardware]\nrounding = \"upwards\"\n",
+    );
+    assert!(e.contains("rounding"), "{e}");
 }
 
 /// A sweep over the trainer on paired dies: the manifest says which trainer made each point's
@@ -78,6 +89,11 @@ fn trainer_sweep_on_the_same_dies() {
     );
     assert_eq!(m["trainer"]["hardware_aware"][0]["point"], 1);
     assert!(m["trainer"]["hardware_aware"][0]["converged"].is_boolean());
+    let why = m["trainer"]["hardware_aware"][0]["termination"]
+        .as_str()
+        .unwrap();
+    assert!(["plateau", "epoch_limit"].contains(&why), "{why}");
+    assert!(m["trainer"]["hardware_aware"][0]["window_decrease"].is_number());
     let points = std::fs::read_to_string(out.join("points.csv")).unwrap();
     assert!(points.starts_with("point,training.trainer,"), "{points}");
     assert_eq!(
@@ -116,4 +132,31 @@ fn trainer_sweep_on_the_same_dies() {
         !m2.contains("\"trainer\""),
         "a float-only run keeps its manifest"
     );
+}
+
+/// A design with a hidden stage: the hidden layer is fixed (drawn from its seed), so the
+/// hardware-aware trainer retrains the read-out on the hidden shares; the run completes, the
+/// manifest records that training, and the float point (same dies) is unchanged by it.
+#[test]
+fn hidden_stage_readout_is_retrained() {
+    let d = tempfile::tempdir().unwrap();
+    let f = write(
+        d.path(),
+        "[dataset]\nname = \"iris\"\n[hidden]\nunits = 12\n[weights]\nlevels = 0\n\
+         [competition]\nsink = { w = \"2 um\", l = \"2 um\" }\n[population]\nchips = 10\n\
+         [sweep]\n[[sweep.axis]]\npath = \"training.trainer\"\nvalues = [\"float\", \"hardware_aware\"]\n",
+    );
+    let out = d.path().join("out");
+    Command::cargo_bin("hardmax")
+        .unwrap()
+        .args(["run", f.to_str().unwrap(), "--no-report", "--out"])
+        .arg(&out)
+        .assert()
+        .success();
+    let m: serde_json::Value =
+        serde_json::from_slice(&std::fs::read(out.join("manifest.json")).unwrap()).unwrap();
+    assert_eq!(m["trainer"]["hardware_aware"][0]["point"], 1);
+    assert_eq!(m["trainer"]["hardware_aware"][0]["epochs"], 60);
+    let points = std::fs::read_to_string(out.join("points.csv")).unwrap();
+    assert_eq!(points.lines().count(), 3, "{points}");
 }

@@ -177,7 +177,8 @@ pub fn prepare_data_trained(
         },
     });
     if e.training.is_hardware_aware() {
-        return prepare_hardware_aware(e, &ds, &trainer).map(|(p, t)| (p, Some(t)));
+        return prepare_hardware_aware(e, &ds, &trainer, hidden.as_ref())
+            .map(|(p, t)| (p, Some(t)));
     }
     prepare(
         &ds,
@@ -207,6 +208,12 @@ pub fn hardware_training(e: &Experiment) -> crate::pipeline::hwtrain::HardwareTr
         programming_error: h.programming_error,
         competition_offset: h.competition_offset,
         quantise: h.quantise,
+        rounding: match h.rounding {
+            crate::experiment::config::RoundingCfg::Nearest => crate::training::Rounding::Nearest,
+            crate::experiment::config::RoundingCfg::Stochastic => {
+                crate::training::Rounding::Stochastic
+            }
+        },
     }
 }
 
@@ -251,12 +258,14 @@ fn hardware_keyed(err: PipelineError, fallback: &'static str) -> BuildError {
     }
 }
 
-/// Float training (the baseline), then the read-out retrained through this point's design.
-/// Returns the prepared classifier and the hardware-aware trainer's result.
+/// Float training (the baseline), then the read-out retrained through this point's design
+/// (after the fixed hidden stage, when there is one). Returns the prepared classifier and the
+/// hardware-aware trainer's result.
 pub fn prepare_hardware_aware(
     e: &Experiment,
     ds: &crate::data::Dataset,
     float: &LogisticOptions,
+    hidden: Option<&HiddenSpec>,
 ) -> Result<(Prepared, crate::training::HardwareTrained), BuildError> {
     let trainer = hardware_trainer(e, ds.n_classes())?;
     crate::pipeline::hwtrain::prepare_hardware_aware(
@@ -266,6 +275,7 @@ pub fn prepare_hardware_aware(
         e.dataset.allow_untested_classes,
         float,
         &trainer,
+        hidden,
     )
     .map_err(|err| match err {
         err @ PipelineError::Training(_) => hardware_keyed(err, "training.hardware"),

@@ -182,8 +182,27 @@ pub struct HardwareTrainingCfg {
     /// Relative sigma of each competition line's input-referred offset.
     #[serde(skip_serializing_if = "Option::is_none")]
     pub competition_offset: Option<f64>,
-    /// Round the weights to the element's levels while training (straight-through gradient).
+    /// Round the weights to the element's levels while training.
     pub quantise: bool,
+    /// How training rounds to the levels: `nearest` (straight-through gradient, the default)
+    /// or `stochastic` (DEVELOPERS.md model notes §6.2).
+    #[serde(skip_serializing_if = "RoundingCfg::is_nearest")]
+    pub rounding: RoundingCfg,
+}
+
+/// `training.hardware.rounding`.
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum RoundingCfg {
+    #[default]
+    Nearest,
+    Stochastic,
+}
+
+impl RoundingCfg {
+    fn is_nearest(&self) -> bool {
+        *self == RoundingCfg::Nearest
+    }
 }
 
 impl Default for HardwareTrainingCfg {
@@ -198,6 +217,7 @@ impl Default for HardwareTrainingCfg {
             programming_error: None,
             competition_offset: None,
             quantise: true,
+            rounding: RoundingCfg::Nearest,
         }
     }
 }

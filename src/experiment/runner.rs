@@ -267,6 +267,8 @@ pub fn run(
                         objective: d.objective,
                         gradient_norm: d.gradient_norm,
                         converged: d.converged,
+                        termination: t.termination.as_str().into(),
+                        window_decrease: t.window_decrease,
                     });
                 }
                 let p = std::sync::Arc::new(p);

@@ -276,6 +276,14 @@ pub struct HardwareTraining {
     pub objective: f64,
     pub gradient_norm: f64,
     pub converged: bool,
+    /// Why training stopped: `gradient_tolerance`, `plateau` or `epoch_limit` (empty in a
+    /// folder written before the field existed).
+    #[serde(default)]
+    pub termination: String,
+    /// Relative decrease of the windowed injected objective over the last window (absent
+    /// without injection or before two windows ran).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub window_decrease: Option<f64>,
 }
 
 /// A manifest that cannot be read; each names the file and says what to do.

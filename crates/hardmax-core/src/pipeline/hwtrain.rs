@@ -13,7 +13,7 @@ use crate::physics::thermal_voltage;
 use crate::stages::weights::{ElementDesign, SigmaKind, SignedEncoding, WeightStageDesign};
 use crate::training::{
     accuracy, ElementModel, HardwareAwareOptions, HardwareAwareTrainer, HardwareTrained, Injection,
-    LevelSpacing, LinearClassifier, SoftCompetition, Trainer,
+    LevelSpacing, LinearClassifier, Rounding, SoftCompetition, Trainer,
 };
 
 /// The hardware-aware trainer's settings: its options, and each injection strength given
@@ -27,6 +27,8 @@ pub struct HardwareTraining {
     pub competition_offset: Option<f64>,
     /// Round to the element's levels in the forward pass.
     pub quantise: bool,
+    /// How the forward pass rounds (nearest with a straight-through gradient, or stochastic).
+    pub rounding: Rounding,
 }
 
 /// The strengths of the design's own nonidealities, as the trainer injects them:
@@ -133,6 +135,7 @@ pub fn trainer_for(
         programming_error: spec.programming_error.unwrap_or(p),
         competition_offset: spec.competition_offset.unwrap_or(o),
         quantise: spec.quantise,
+        rounding: spec.rounding,
     };
     Ok(HardwareAwareTrainer::new(
         options,
@@ -144,6 +147,12 @@ pub fn trainer_for(
 /// Retrain `prep`'s read-out through the design (see the module docs). `dataset`,
 /// `test_fraction` and `split_seed` must be those `prep` was made from (the training split is
 /// drawn again, identically).
+///
+/// With a hidden stage the hidden layer stays as it is: the pipeline's hidden layer is fixed
+/// (drawn from its seed or given from a file, never trained, by either trainer), so the read-out
+/// is the only trainable layer. It is retrained on the ideal hidden shares of the training split
+/// (the inputs the float read-out was trained on), through this design's competition stage and
+/// read-out elements; the hidden stage's own mismatch is not injected.
 pub fn retrain(
     prep: &Prepared,
     dataset: &Dataset,
@@ -151,32 +160,68 @@ pub fn retrain(
     split_seed: u64,
     trainer: &HardwareAwareTrainer,
 ) -> Result<(Prepared, HardwareTrained), PipelineError> {
-    if prep.hidden.is_some() || prep.layers.len() != 1 {
-        return Err(PipelineError::Unsupported {
-            what: "hardware-aware training covers the read-out stage without a hidden stage: \
-                   set hidden.units = 0, or training.trainer = \"float\"",
-        });
-    }
+    let hidden = match (&prep.hidden, prep.layers.len()) {
+        (None, 1) => None,
+        (Some(spec), 2) => Some(spec),
+        _ => {
+            return Err(PipelineError::Unsupported {
+                what: "hardware-aware training covers the read-out stage, after at most one \
+                       hidden stage: use training.trainer = \"float\"",
+            })
+        }
+    };
     let (train, _, _) =
         crate::data::stratified_split_allowing_untested(dataset, test_fraction, split_seed)?;
     let scaler = MinMaxScaler::fit(train.x.view())?;
-    let u = scaler.transform(train.x.view())?;
-    let (w0, b0) = &prep.layers[0];
+    let mut u = scaler.transform(train.x.view())?;
+    if let Some(spec) = hidden {
+        let (w1, b1) = &prep.layers[0];
+        u = super::hidden_features(spec, w1, b1, &u)?;
+    }
+    let (w0, b0) = prep.layers.last().expect("one or two layers");
     let f = w0.ncols();
     let mut a0 = Array2::zeros((w0.nrows(), f + 1));
     a0.slice_mut(s![.., ..f]).assign(w0);
     a0.column_mut(f).assign(b0);
     let trained = trainer.train(u.view(), &train.y, prep.class_names.len(), Some(a0.view()))?;
-    let linear = LinearClassifier::new(trained.weights.clone(), trained.bias.clone())?;
-    let ideal_pred = linear.predict(prep.test_u.view())?;
+    let readout = (trained.weights.clone(), trained.bias.clone());
     let mut out = prep.clone();
+    out.layers = match hidden {
+        None => vec![readout],
+        Some(_) => vec![prep.layers[0].clone(), readout],
+    };
+    let ideal_pred = match hidden {
+        None => LinearClassifier::new(trained.weights.clone(), trained.bias.clone())?
+            .predict(prep.test_u.view())?,
+        Some(spec) => {
+            // Ideal argmax of the whole mapped chain, as `prepare_hidden` makes it.
+            let chain = super::chain_design(&spec.stage, 2, Some(spec))
+                .map(
+                    &out.layers
+                        .iter()
+                        .map(|(w, b)| (w.view(), b.view()))
+                        .collect::<Vec<_>>(),
+                )?
+                .ideal();
+            let mut scratch = chain.scratch();
+            let mut o = vec![0.0; prep.class_names.len()];
+            let mut pred = Vec::with_capacity(prep.test_u.nrows());
+            for row in prep.test_u.outer_iter() {
+                chain.forward_noiseless(&row.to_vec(), &mut scratch, &mut o)?;
+                pred.push(crate::training::argmax(&o).ok_or(PipelineError::NonFinite {
+                    what: "an ideal output of the hidden chain",
+                })?);
+            }
+            pred
+        }
+    };
     out.ideal_acc = accuracy(&ideal_pred, &out.test_y);
     out.ideal_pred = ideal_pred;
-    out.layers = vec![(trained.weights.clone(), trained.bias.clone())];
     Ok((out, trained))
 }
 
-/// Split, train the float model (the baseline), then retrain through the design.
+/// Split, train the float model (the baseline; with a hidden stage, its read-out on the hidden
+/// shares), then retrain the read-out through the design.
 pub fn prepare_hardware_aware(
     dataset: &Dataset,
     test_fraction: f64,
@@ -184,6 +229,7 @@ pub fn prepare_hardware_aware(
     allow_untested_classes: bool,
     float_trainer: &dyn Trainer,
     trainer: &HardwareAwareTrainer,
+    hidden: Option<&super::HiddenSpec>,
 ) -> Result<(Prepared, HardwareTrained), PipelineError> {
     let prep = prepare(
         dataset,
@@ -191,7 +237,7 @@ pub fn prepare_hardware_aware(
         split_seed,
         allow_untested_classes,
         float_trainer,
-        None,
+        hidden,
     )?;
     retrain(&prep, dataset, test_fraction, split_seed, trainer)
 }

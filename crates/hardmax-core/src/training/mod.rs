@@ -18,7 +18,7 @@ mod logistic;
 
 pub use hardware::{
     ElementModel, HardwareAwareOptions, HardwareAwareTrainer, HardwareTrained, Injection,
-    LevelSpacing, SoftCompetition,
+    LevelSpacing, Rounding, SoftCompetition,
 };
 pub use linear::{argmax, LinearClassifier};
 pub use logistic::LogisticOptions;
