@@ -36,16 +36,18 @@ fn reads_the_complete_fixture() {
     assert_eq!(f.manifest.status, RunStatus::Complete);
     assert_eq!(f.manifest.sweep.parameters.len(), 2);
     assert_eq!(f.points.rows.len(), 6);
-    assert_eq!(f.chips.len(), 6 * 20);
+    assert_eq!(f.chip_rows(), 6 * 20);
     assert!(!f.is_partial());
     // Point 3 of points.csv: bias 1e-08 A, 6 bits (fixture file, line 5).
     let p3 = f.point(3).unwrap();
     assert_eq!(p3.line, 5);
     assert_eq!(p3.params, vec![1e-8, 6.0]);
     assert_eq!(p3.chips, 20);
-    // The per-point mean equals the mean of that point's chips in chips.csv.
-    let accs: Vec<f64> = f.chips_of(3).map(|c| c.row.accuracy).collect();
-    let mean = accs.iter().sum::<f64>() / accs.len() as f64;
+    // The per-point mean equals the mean of that point's chips in chips.csv (kept as counts of
+    // each accuracy value: 20 chips).
+    let accs = &f.chips_of(3).unwrap().accuracies;
+    assert_eq!(accs.total(), 20);
+    let mean = accs.summary().unwrap().mean;
     approx::assert_relative_eq!(p3.acc_mean.unwrap(), mean, max_relative = 1e-12);
     // Every decision of a point is in confusion.csv: 20 chips x 45 test samples.
     let total: u64 = f.confusion_of(3).map(|c| c.count).sum();
@@ -64,7 +66,7 @@ fn partial_fixture_is_marked_and_keeps_finished_points_only() {
     assert_eq!(f.points.rows.len(), 4);
     assert!(f.point(4).is_none());
     // chips.csv holds 7 chips of the unfinished point 4; they are read but belong to no row.
-    assert_eq!(f.chips_of(4).count(), 7);
+    assert_eq!(f.chips_of(4).map_or(0, |c| c.rows), 7);
 }
 
 #[test]

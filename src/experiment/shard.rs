@@ -473,9 +473,7 @@ pub fn merge(
             message,
         };
         let (start, end) = unit_range(units, s.spec);
-        let shard_dir = ResultsDir {
-            root: s.dir.clone(),
-        };
+        let shard_dir = ResultsDir::at(&s.dir);
         let recs = shard_dir.load_points();
         let mut expected: Vec<(usize, Range<u64>)> = Vec::new();
         for p in 0..points_total {

@@ -179,46 +179,90 @@ pub struct Difference {
     pub independent_dies: Option<f64>,
 }
 
-fn mean_var(v: &[f64]) -> (f64, f64) {
-    let n = v.len() as f64;
-    let m = v.iter().sum::<f64>() / n;
-    let var = if v.len() > 1 {
-        v.iter().map(|x| (x - m).powi(2)).sum::<f64>() / (n - 1.0)
+/// The accuracies of a point's dies in chip order, read one at a time (from the point's chip
+/// file: a point keeps no per-die values in memory). An `Err` item says why reading stopped.
+pub type AccuracyStream<'a> = Box<dyn Iterator<Item = Result<f64, String>> + 'a>;
+
+/// Where [`difference`] reads a point's accuracies from, in chip order; called once per pass.
+pub type AccuracySource<'a> = dyn Fn(&PointRecord) -> AccuracyStream<'a> + 'a;
+
+/// `Iterator::sum` of `f` over the first `n` values of `stream` (the same additions in the same
+/// order as summing a slice), or why the stream did not deliver `n` values.
+fn stream_sum(stream: AccuracyStream<'_>, n: usize, f: impl Fn(f64) -> f64) -> Result<f64, String> {
+    let mut err = None;
+    let mut k = 0usize;
+    let s = stream
+        .take(n)
+        .map_while(|r| match r {
+            Ok(x) => {
+                k += 1;
+                Some(f(x))
+            }
+            Err(e) => {
+                err = Some(e);
+                None
+            }
+        })
+        .sum::<f64>();
+    match err {
+        Some(e) => Err(e),
+        None if k < n => Err(format!("{k} accuracies where {n} were expected")),
+        None => Ok(s),
+    }
+}
+
+/// Mean and sample variance (two passes: the mean, then the squared deviations, each summed in
+/// stream order) of the first `n` values of the stream `open` makes.
+fn mean_var<'s>(open: &dyn Fn() -> AccuracyStream<'s>, n: usize) -> Result<(f64, f64), String> {
+    let nf = n as f64;
+    let m = stream_sum(open(), n, |x| x)? / nf;
+    let var = if n > 1 {
+        stream_sum(open(), n, |x| (x - m).powi(2))? / (nf - 1.0)
     } else {
         f64::NAN
     };
-    (m, var)
+    Ok((m, var))
 }
 
-/// The difference of point `b` minus point `a` (per-die accuracies), paired by die index when
-/// `paired`, at normal quantile `z` (the interval's confidence).
-pub fn difference(a: &PointRecord, b: &PointRecord, paired: bool, z: f64) -> Option<Difference> {
-    let acc_a = &a.stats.accuracies;
-    let acc_b = &b.stats.accuracies;
-    if acc_a.len() < 2 || acc_b.len() < 2 {
-        return None;
+/// The difference of point `b` minus point `a` (per-die accuracies, read in chip order from
+/// `accs`), paired by die index when `paired`, at normal quantile `z` (the interval's
+/// confidence). `Ok(None)`: fewer than two dies. Memory does not depend on the number of dies:
+/// every statistic is a sequential sum over the streams (two passes for a variance).
+pub fn difference<'s>(
+    a: &PointRecord,
+    b: &PointRecord,
+    paired: bool,
+    z: f64,
+    accs: &AccuracySource<'s>,
+) -> Result<Option<Difference>, String> {
+    let (n_a, n_b) = (a.stats.chips(), b.stats.chips());
+    if n_a < 2 || n_b < 2 {
+        return Ok(None);
     }
-    let (ma, va) = mean_var(acc_a);
-    let (mb, vb) = mean_var(acc_b);
+    let (ma, va) = mean_var(&|| accs(a), n_a)?;
+    let (mb, vb) = mean_var(&|| accs(b), n_b)?;
     if paired {
-        // Die c of b against die c of a: both records hold contiguous chips.
-        let d: Vec<f64> = b
-            .chip_range()
-            .zip(acc_b)
-            .filter(|(chip, _)| a.chip_range().contains(chip))
-            .map(|(chip, &acc)| acc - acc_a[(chip - a.first_chip) as usize])
-            .collect();
-        if d.len() < 2 {
-            return None;
+        // Die c of b against die c of a: both records hold contiguous chips, so the common dies
+        // are one range, in chip order in both streams.
+        let (ra, rb) = (a.chip_range(), b.chip_range());
+        let (lo, hi) = (ra.start.max(rb.start), ra.end.min(rb.end));
+        let common = hi.saturating_sub(lo) as usize;
+        if common < 2 {
+            return Ok(None);
         }
-        let n = d.len() as f64;
-        let (md, vd) = mean_var(&d);
+        let diffs = || -> AccuracyStream<'s> {
+            let sa = accs(a).skip((lo - ra.start) as usize);
+            let sb = accs(b).skip((lo - rb.start) as usize);
+            Box::new(sb.zip(sa).map(|(xb, xa)| Ok(xb? - xa?)))
+        };
+        let n = common as f64;
+        let (md, vd) = mean_var(&diffs, common)?;
         let se = (vd / n).sqrt();
         let t = t_quantile_from_z(z, n - 1.0);
-        Some(Difference {
+        Ok(Some(Difference {
             from_point: a.point,
             to_point: b.point,
-            dies: d.len(),
+            dies: common,
             mean: md,
             std_error: se,
             lo: md - t * se,
@@ -228,9 +272,9 @@ pub fn difference(a: &PointRecord, b: &PointRecord, paired: bool, z: f64) -> Opt
             var_to: vb,
             var_diff: Some(vd),
             independent_dies: (vd > 0.0).then(|| n * (va + vb) / vd),
-        })
+        }))
     } else {
-        let (na, nb) = (acc_a.len() as f64, acc_b.len() as f64);
+        let (na, nb) = (n_a as f64, n_b as f64);
         let (sa, sb) = (va / na, vb / nb);
         let se = (sa + sb).sqrt();
         // Welch-Satterthwaite degrees of freedom.
@@ -241,10 +285,10 @@ pub fn difference(a: &PointRecord, b: &PointRecord, paired: bool, z: f64) -> Opt
             z
         };
         let m = mb - ma;
-        Some(Difference {
+        Ok(Some(Difference {
             from_point: a.point,
             to_point: b.point,
-            dies: acc_a.len().min(acc_b.len()),
+            dies: n_a.min(n_b),
             mean: m,
             std_error: se,
             lo: m - t * se,
@@ -254,7 +298,7 @@ pub fn difference(a: &PointRecord, b: &PointRecord, paired: bool, z: f64) -> Opt
             var_to: vb,
             var_diff: None,
             independent_dies: None,
-        })
+        }))
     }
 }
 
@@ -274,23 +318,27 @@ pub const DIFFERENCE_COLUMNS: [&str; 12] = [
     "independent_dies",
 ];
 
-/// Differences between adjacent finished sweep points, in point order.
-pub fn differences(records: &[PointRecord]) -> Vec<Difference> {
-    records
-        .windows(2)
-        .filter_map(|w| match w {
-            [a, b] => difference(a, b, b.paired, b.z),
-            _ => None,
-        })
-        .collect()
+/// Differences between adjacent finished sweep points, in point order, their accuracies read
+/// from `accs`.
+pub fn differences(
+    records: &[PointRecord],
+    accs: &AccuracySource<'_>,
+) -> Result<Vec<Difference>, String> {
+    let mut out = Vec::new();
+    for w in records.windows(2) {
+        if let [a, b] = w {
+            out.extend(difference(a, b, b.paired, b.z, accs)?);
+        }
+    }
+    Ok(out)
 }
 
-/// The `differences.csv` table.
-pub fn differences_csv(records: &[PointRecord]) -> Vec<u8> {
+/// The `differences.csv` table of `diffs` (from [`differences`]).
+pub fn differences_csv(diffs: &[Difference]) -> Vec<u8> {
     let mut w = csv::Writer::from_writer(Vec::new());
     let _ = w.write_record(DIFFERENCE_COLUMNS);
     let opt = |v: Option<f64>| v.map(fmt).unwrap_or_default();
-    for d in differences(records) {
+    for d in diffs {
         let _ = w.write_record([
             d.from_point.to_string(),
             d.to_point.to_string(),
@@ -350,6 +398,66 @@ mod tests {
         }
     }
 
+    /// An accuracy source over per-point values held in memory (point p: `values[p]`).
+    fn in_memory<'a>(values: &'a [&'a [f64]]) -> impl Fn(&PointRecord) -> AccuracyStream<'a> {
+        move |r: &PointRecord| -> AccuracyStream<'a> {
+            Box::new(values[r.point].iter().map(|&x| Ok(x)))
+        }
+    }
+
+    /// Streaming over a source gives, bit for bit, the two-pass statistics of the values held
+    /// in one slice (textbook mean and sample variance, in chip order), paired and Welch; a
+    /// short stream or a read error is reported, not folded in.
+    #[test]
+    fn streamed_difference_equals_the_in_memory_formulas() {
+        let va: Vec<f64> = (0..997u64)
+            .map(|i| ((i * 7919) % 541) as f64 / 540.0)
+            .collect();
+        let vb: Vec<f64> = (0..997u64)
+            .map(|i| ((i * 104_729) % 541) as f64 / 540.0)
+            .collect();
+        let mv = |v: &[f64]| {
+            let n = v.len() as f64;
+            let m = v.iter().sum::<f64>() / n;
+            (
+                m,
+                v.iter().map(|x| (x - m).powi(2)).sum::<f64>() / (n - 1.0),
+            )
+        };
+        let d: Vec<f64> = vb.iter().zip(&va).map(|(b, a)| b - a).collect();
+        let (a, b) = (rec(0, &va, true), rec(1, &vb, true));
+        let both = [&va[..], &vb[..]];
+        let src = in_memory(&both);
+        let got = difference(&a, &b, true, 1.959_964, &src).unwrap().unwrap();
+        let (md, vd) = mv(&d);
+        assert_eq!(got.mean.to_bits(), md.to_bits());
+        assert_eq!(got.var_diff.unwrap().to_bits(), vd.to_bits());
+        assert_eq!(got.var_from.to_bits(), mv(&va).1.to_bits());
+        assert_eq!(got.var_to.to_bits(), mv(&vb).1.to_bits());
+        let w = difference(&a, &b, false, 1.959_964, &src).unwrap().unwrap();
+        assert_eq!(w.mean.to_bits(), (mv(&vb).0 - mv(&va).0).to_bits());
+        // Part of a point (a shard's record starting at chip 3): only common dies pair up.
+        let mut b2 = rec(1, &vb[3..], true);
+        b2.first_chip = 3;
+        let part = [&va[..], &vb[3..]];
+        let src2 = in_memory(&part);
+        let got = difference(&a, &b2, true, 1.959_964, &src2)
+            .unwrap()
+            .unwrap();
+        assert_eq!(got.dies, 994);
+        assert_eq!(got.mean.to_bits(), mv(&d[3..]).0.to_bits());
+        let cut = [&va[..10], &vb[..]];
+        let short = in_memory(&cut);
+        assert!(difference(&a, &b, true, 1.959_964, &short).is_err());
+        let broken = |_: &PointRecord| -> AccuracyStream<'static> {
+            Box::new(std::iter::once(Err("unreadable".to_string())))
+        };
+        assert_eq!(
+            difference(&a, &b, true, 1.959_964, &broken).unwrap_err(),
+            "unreadable"
+        );
+    }
+
     /// Student t quantiles (Abramowitz & Stegun Table 26.10; any statistics handbook):
     /// t_{0.975} = 2.571 (5 df), 2.228 (10), 2.042 (30), 1.972 (199, from memory to 3 digits).
     #[test]
@@ -368,14 +476,20 @@ mod tests {
     fn paired_difference_by_hand() {
         let a = rec(0, &[0.90, 0.80, 0.70], true);
         let b = rec(1, &[0.85, 0.80, 0.60], true);
-        let d = difference(&a, &b, true, 1.959_964).unwrap_or_else(|| panic!("no difference"));
+        let values: [&[f64]; 2] = [&[0.90, 0.80, 0.70], &[0.85, 0.80, 0.60]];
+        let accs = in_memory(&values);
+        let d = difference(&a, &b, true, 1.959_964, &accs)
+            .unwrap()
+            .unwrap_or_else(|| panic!("no difference"));
         assert_relative_eq!(d.mean, -0.05, epsilon = 1e-12);
         assert_relative_eq!(d.std_error, (0.0025f64 / 3.0).sqrt(), epsilon = 1e-12);
         assert!(d.lo < d.mean && d.mean < d.hi);
         // var(a) = 0.01, var(b) = (0.01 + 0.0025 + 0.0225) / 2 = 0.0175: independent dies for
         // the same precision 3 (0.01 + 0.0175) / 0.0025 = 33.
         assert_relative_eq!(d.independent_dies.unwrap_or(0.0), 33.0, max_relative = 1e-9);
-        let w = difference(&a, &b, false, 1.959_964).unwrap_or_else(|| panic!("no difference"));
+        let w = difference(&a, &b, false, 1.959_964, &accs)
+            .unwrap()
+            .unwrap_or_else(|| panic!("no difference"));
         assert_eq!(w.method, "welch");
         assert_relative_eq!(w.mean, -0.05, epsilon = 1e-12);
         assert_relative_eq!(

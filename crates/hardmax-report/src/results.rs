@@ -10,7 +10,7 @@ use std::path::{Path, PathBuf};
 
 use serde::{Deserialize, Serialize};
 
-use super::stats::{summarize, wilson_interval};
+use super::stats::{wilson_interval, ValueCounts};
 use crate::io::{write_atomic, StreamFile};
 // One definition of the format (row type, columns, version), shared with the reader in `report`.
 pub use crate::format::{ChipRow, FORMAT_NAME, FORMAT_VERSION};
@@ -54,14 +54,16 @@ pub struct PointRecord {
 }
 
 /// Statistics of a point's chips, accumulated one chip at a time in chip order. What a point
-/// keeps of its chips in memory: a few sums and counts, and one `f64` accuracy per die (8 bytes
-/// per die: the percentiles and the paired differences between points need every value). The
-/// sums are plain sequential sums in chip order, the order `chips.csv` lists the chips in, so
-/// the statistics do not depend on the thread count or on how a run was sharded.
+/// keeps of its chips in memory does not grow with the number of dies: a few sums and counts,
+/// and exact counts of the distinct accuracy values (at most one per possible number of
+/// correct test decisions), from which the percentiles and the yield follow exactly. The sums
+/// are plain sequential sums in chip order, the order `chips.csv` lists the chips in, so the
+/// statistics do not depend on the thread count or on how a run was sharded. What needs the
+/// dies in chip order (the paired differences between points) reads the point's chip file.
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
 pub struct ChipStats {
-    /// Accuracy of each chip, in chip order.
-    pub accuracies: Vec<f64>,
+    /// How many dies have each accuracy value (exact; bounded by the test split's size).
+    pub accuracy_counts: ValueCounts,
     pub agreement_sum: f64,
     pub samples: u64,
     pub ambiguous: u64,
@@ -80,7 +82,7 @@ impl Default for ChipStats {
     fn default() -> Self {
         // Sums start at -0.0, the neutral element of f64 addition (and `Iterator::sum`'s start).
         ChipStats {
-            accuracies: Vec::new(),
+            accuracy_counts: ValueCounts::default(),
             agreement_sum: -0.0,
             samples: 0,
             ambiguous: 0,
@@ -97,7 +99,7 @@ impl Default for ChipStats {
 impl ChipStats {
     /// Add the next chip (in chip order).
     pub fn push(&mut self, c: &ChipRow) {
-        self.accuracies.push(c.accuracy);
+        self.accuracy_counts.add(c.accuracy);
         self.agreement_sum += c.agreement;
         self.samples += c.samples;
         self.ambiguous += c.ambiguous;
@@ -124,7 +126,7 @@ impl ChipStats {
 
     /// Number of chips.
     pub fn chips(&self) -> usize {
-        self.accuracies.len()
+        self.accuracy_counts.total() as usize
     }
 }
 
@@ -155,14 +157,13 @@ impl PointRecord {
     /// target, with a Wilson score interval (Wilson 1927).
     pub fn summary(&self) -> PointSummary {
         let st = &self.stats;
-        let acc = &st.accuracies;
-        let s = summarize(acc);
-        let pass = acc.iter().filter(|&&a| a >= self.target - 1e-12).count() as u64;
-        let n = acc.len() as u64;
+        let s = st.accuracy_counts.summary();
+        let pass = st.accuracy_counts.at_least(self.target - 1e-12);
+        let n = st.accuracy_counts.total();
         let (lo, hi) = wilson_interval(pass, n, self.z);
         let mean = |sum: f64, k: u64| (k > 0).then(|| sum / k as f64);
         PointSummary {
-            chips: acc.len(),
+            chips: n as usize,
             samples: st.samples,
             acc_mean: s.as_ref().map_or(f64::NAN, |s| s.mean),
             acc_std: s.as_ref().map_or(f64::NAN, |s| s.std),
@@ -234,10 +235,17 @@ fn only_an_abandoned_start(root: &Path) -> bool {
 }
 
 /// A results folder being written.
-#[derive(Debug)]
+#[derive(Debug, Default)]
 pub struct ResultsDir {
     pub root: PathBuf,
+    /// Differences between two points already computed from their chip files (which never
+    /// change once committed), keyed by both points' chips: tables rewritten after every point
+    /// read each pair's chip files once per run, not once per point.
+    diff_cache: std::sync::Mutex<DiffCache>,
 }
+
+type DiffKey = (usize, u64, u64, usize, u64, u64);
+type DiffCache = std::collections::HashMap<DiffKey, Option<crate::answers::Difference>>;
 
 impl ResultsDir {
     /// Open `root` for an experiment with hash `hash`. A folder with the same hash resumes; a
@@ -276,7 +284,84 @@ impl ResultsDir {
         fs::create_dir_all(root.join("points"))
             .map_err(|e| ResultsError::NotWritable(root.into(), e))?;
         write_atomic(&stamp, hash.as_bytes())?;
-        Ok((Self { root: root.into() }, resumed))
+        Ok((Self::at(root), resumed))
+    }
+
+    /// The folder at `root`, as it is (no check, nothing written): for reading and for code
+    /// that has checked the folder itself.
+    pub fn at(root: &Path) -> Self {
+        Self {
+            root: root.into(),
+            diff_cache: Default::default(),
+        }
+    }
+
+    /// The accuracies of `rec`'s chips, read one line at a time from its chip file, in chip
+    /// order (memory does not grow with the number of chips).
+    pub fn chip_accuracies(&self, rec: &PointRecord) -> crate::answers::AccuracyStream<'static> {
+        use std::io::BufRead;
+        let path = self.chips_path(rec.point);
+        let n_params = rec.params.len();
+        let file = match fs::File::open(&path) {
+            Ok(f) => f,
+            Err(e) => {
+                let msg = format!("cannot read `{}`: {e}", path.display());
+                return Box::new(std::iter::once(Err(msg)));
+            }
+        };
+        let lines = std::io::BufReader::with_capacity(1 << 16, file).lines();
+        Box::new(lines.enumerate().map(move |(i, l)| {
+            let line = l.map_err(|e| format!("cannot read `{}`: {e}", path.display()))?;
+            parse_chip_line(&line, n_params)
+                .map(|c| c.accuracy)
+                .ok_or_else(|| {
+                    format!(
+                        "`{}` line {} is not a chip row; delete the file and its point record to recompute the point",
+                        path.display(),
+                        i + 1
+                    )
+                })
+        }))
+    }
+
+    /// The differences between adjacent points of `records` (sorted by point), each pair's
+    /// accuracies streamed from the chip files (cached per pair).
+    pub fn differences(
+        &self,
+        records: &[PointRecord],
+    ) -> Result<Vec<crate::answers::Difference>, ResultsError> {
+        let mut out = Vec::new();
+        for w in records.windows(2) {
+            let [a, b] = w else { continue };
+            let key = (
+                a.point,
+                a.first_chip,
+                a.stats.chips() as u64,
+                b.point,
+                b.first_chip,
+                b.stats.chips() as u64,
+            );
+            let cached = self
+                .diff_cache
+                .lock()
+                .ok()
+                .and_then(|c| c.get(&key).cloned());
+            let d = match cached {
+                Some(d) => d,
+                None => {
+                    let d = crate::answers::difference(a, b, b.paired, b.z, &|r| {
+                        self.chip_accuracies(r)
+                    })
+                    .map_err(|e| ResultsError::Read(self.chips_path(b.point), e))?;
+                    if let Ok(mut c) = self.diff_cache.lock() {
+                        c.insert(key, d.clone());
+                    }
+                    d
+                }
+            };
+            out.extend(d);
+        }
+        Ok(out)
     }
 
     fn point_path(&self, point: usize) -> PathBuf {
@@ -304,7 +389,6 @@ impl ResultsDir {
     /// Save one finished point (atomic). Its chip file must be committed first: a record
     /// without its chip file is not a finished point.
     pub fn save_point(&self, rec: &PointRecord) -> Result<(), ResultsError> {
-        // Streamed: a record holds one accuracy per die, so it is not built in memory first.
         let mut f = StreamFile::create(&self.point_path(rec.point))?;
         serde_json::to_writer_pretty(&mut f, rec).map_err(|e| {
             ResultsError::Read(self.point_path(rec.point), format!("cannot encode: {e}"))
@@ -361,7 +445,7 @@ impl ResultsDir {
         )?;
         write_atomic(
             &self.root.join("differences.csv"),
-            &crate::answers::differences_csv(records),
+            &crate::answers::differences_csv(&self.differences(records)?),
         )?;
         Ok(())
     }

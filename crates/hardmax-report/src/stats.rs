@@ -86,6 +86,124 @@ pub fn summarize(values: &[f64]) -> Option<Summary> {
     })
 }
 
+/// Exact counts of the distinct values of a sample: what a sweep point keeps of its dies'
+/// accuracies. A die's accuracy is `correct / samples` over the point's test split, so a point
+/// holds at most `samples + 1` distinct values whatever its number of dies: memory is bounded
+/// by the test split, not by the population. The values are kept ascending in `f64::total_cmp`
+/// order (the order [`summarize`] sorts in), so every order statistic, the percentiles
+/// included, is exact, and [`ValueCounts::summary`] reproduces [`summarize`] bit for bit (the
+/// same additions in the same order).
+#[derive(Clone, Debug, Default, PartialEq, serde::Serialize, serde::Deserialize)]
+#[serde(transparent)]
+pub struct ValueCounts {
+    /// `(value, count)`, ascending by `total_cmp`, counts above 0.
+    counts: Vec<(f64, u64)>,
+}
+
+impl ValueCounts {
+    /// Count one more value.
+    pub fn add(&mut self, v: f64) {
+        match self.counts.binary_search_by(|(x, _)| x.total_cmp(&v)) {
+            Ok(i) => self.counts[i].1 += 1,
+            Err(i) => self.counts.insert(i, (v, 1)),
+        }
+    }
+
+    /// Add every count of `other`.
+    pub fn merge(&mut self, other: &ValueCounts) {
+        for &(v, c) in &other.counts {
+            match self.counts.binary_search_by(|(x, _)| x.total_cmp(&v)) {
+                Ok(i) => self.counts[i].1 += c,
+                Err(i) => self.counts.insert(i, (v, c)),
+            }
+        }
+    }
+
+    /// The distinct values with their counts, ascending (`total_cmp` order).
+    pub fn iter(&self) -> impl Iterator<Item = (f64, u64)> + '_ {
+        self.counts.iter().copied()
+    }
+
+    /// Number of values counted (NaN included).
+    pub fn total(&self) -> u64 {
+        self.counts.iter().map(|&(_, c)| c).sum()
+    }
+
+    /// Number of distinct values (the memory the counts take, in entries).
+    pub fn distinct(&self) -> usize {
+        self.counts.len()
+    }
+
+    /// Number of values `>= threshold` (NaN never is).
+    pub fn at_least(&self, threshold: f64) -> u64 {
+        self.counts
+            .iter()
+            .filter(|&&(v, _)| v >= threshold)
+            .map(|&(_, c)| c)
+            .sum()
+    }
+
+    /// The values in ascending order, each repeated by its count, NaN left out.
+    fn sorted(&self) -> impl Iterator<Item = f64> + Clone + '_ {
+        self.counts
+            .iter()
+            .filter(|(v, _)| !v.is_nan())
+            .flat_map(|&(v, c)| std::iter::repeat_n(v, c as usize))
+    }
+
+    /// The `k`-th value (0-based) of the ascending order, NaN left out.
+    fn nth(&self, mut k: u64) -> f64 {
+        for &(v, c) in self.counts.iter().filter(|(v, _)| !v.is_nan()) {
+            if k < c {
+                return v;
+            }
+            k -= c;
+        }
+        f64::NAN
+    }
+
+    /// [`percentile_sorted`] over the sorted values (NaN left out).
+    fn percentile(&self, n: u64, q: f64) -> f64 {
+        if n == 0 {
+            return f64::NAN;
+        }
+        let h = (n - 1) as f64 * q.clamp(0.0, 1.0);
+        let lo = h.floor() as u64;
+        let hi = h.ceil() as u64;
+        let (vlo, vhi) = (self.nth(lo), self.nth(hi));
+        vlo + (h - lo as f64) * (vhi - vlo)
+    }
+
+    /// [`summarize`] of the counted values: the same figures, bit for bit.
+    pub fn summary(&self) -> Option<Summary> {
+        let n = self
+            .counts
+            .iter()
+            .filter(|(v, _)| !v.is_nan())
+            .map(|&(_, c)| c)
+            .sum::<u64>();
+        if n == 0 {
+            return None;
+        }
+        let mean = self.sorted().sum::<f64>() / n as f64;
+        let std = if n > 1 {
+            (self.sorted().map(|x| (x - mean).powi(2)).sum::<f64>() / (n - 1) as f64).sqrt()
+        } else {
+            0.0
+        };
+        Some(Summary {
+            count: n as usize,
+            mean,
+            std,
+            p05: self.percentile(n, 0.05),
+            p50: self.percentile(n, 0.50),
+            p95: self.percentile(n, 0.95),
+            min: self.nth(0),
+            max: self.nth(n - 1),
+        })
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -166,5 +284,62 @@ mod tests {
         // sample std of 1..4 = sqrt(5/3)
         assert_abs_diff_eq!(s.std, (5.0f64 / 3.0).sqrt(), epsilon = 1e-12);
         assert!(summarize(&[]).is_none());
+    }
+
+    fn bits(s: &Summary) -> [u64; 7] {
+        [s.mean, s.std, s.p05, s.p50, s.p95, s.min, s.max].map(f64::to_bits)
+    }
+
+    proptest::proptest! {
+        /// The counts give `summarize`'s figures bit for bit (the same sums in the same sorted
+        /// order, the same type-7 interpolation) on accuracies `k / n` of random dies, the
+        /// values a sweep point holds; `summarize` is the reference (mean, sample standard
+        /// deviation, Hyndman & Fan 1996 type 7 percentiles).
+        #[test]
+        fn counts_reproduce_summarize_on_accuracies(
+            n_test in 1u64..600,
+            ks in proptest::collection::vec(0u64..=600, 1..400),
+        ) {
+            let v: Vec<f64> = ks.iter().map(|&k| (k % (n_test + 1)) as f64 / n_test as f64).collect();
+            let mut c = ValueCounts::default();
+            for &x in &v {
+                c.add(x);
+            }
+            let (a, b) = (summarize(&v).unwrap(), c.summary().unwrap());
+            proptest::prop_assert_eq!(a.count, b.count);
+            proptest::prop_assert_eq!(bits(&a), bits(&b));
+            proptest::prop_assert_eq!(c.total(), v.len() as u64);
+            proptest::prop_assert!(c.distinct() as u64 <= n_test + 1);
+            let t = 0.5;
+            proptest::prop_assert_eq!(c.at_least(t), v.iter().filter(|&&x| x >= t).count() as u64);
+        }
+
+        /// Any finite values (with NaN left out like `summarize` does), and counts merged from
+        /// two parts equal counts of the whole.
+        #[test]
+        fn counts_reproduce_summarize_on_any_values(
+            v in proptest::collection::vec(proptest::prop_oneof![
+                -1e3f64..1e3, proptest::strategy::Just(f64::NAN), proptest::strategy::Just(-0.0),
+                proptest::strategy::Just(0.0)], 0..300),
+            split in 0usize..300,
+        ) {
+            let mut whole = ValueCounts::default();
+            let (mut p1, mut p2) = (ValueCounts::default(), ValueCounts::default());
+            for (i, &x) in v.iter().enumerate() {
+                whole.add(x);
+                if i < split { p1.add(x) } else { p2.add(x) }
+            }
+            p1.merge(&p2);
+            let key = |c: &ValueCounts| c.counts.iter().map(|&(v, k)| (v.to_bits(), k)).collect::<Vec<_>>();
+            proptest::prop_assert_eq!(key(&p1), key(&whole));
+            match (summarize(&v), whole.summary()) {
+                (None, None) => {}
+                (Some(a), Some(b)) => {
+                    proptest::prop_assert_eq!(a.count, b.count);
+                    proptest::prop_assert_eq!(bits(&a), bits(&b));
+                }
+                (a, b) => proptest::prop_assert!(false, "{:?} vs {:?}", a, b),
+            }
+        }
     }
 }

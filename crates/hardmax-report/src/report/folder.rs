@@ -139,7 +139,8 @@ pub struct ResultsFolder {
     pub dir: PathBuf,
     pub manifest: Manifest,
     pub points: PointsTable,
-    pub chips: Vec<ChipEntry>,
+    /// What the report needs of `chips.csv`, per sweep point (bounded: no row is kept).
+    pub chips: BTreeMap<u64, PointChips>,
     pub confusion: Vec<ConfusionRow>,
     pub transfers: Vec<NamedTransfer>,
 }
@@ -160,9 +161,17 @@ impl ResultsFolder {
         let text = read_required(&points_path, "one row of statistics per sweep point")?;
         let points = parse_points(&text, &points_path, &manifest)?;
 
+        // chips.csv is streamed (a 10^6-die run's file is about 60 bytes per die): every row
+        // is checked, and each point keeps only the counts the figures need.
         let chips_path = dir.join("chips.csv");
-        let text = read_required(&chips_path, "one row per chip per sweep point")?;
-        let chips = parse_chips(&text, &chips_path, &manifest)?;
+        let file = open_required(&chips_path, "one row per chip per sweep point")?;
+        let mut chips: BTreeMap<u64, PointChips> = BTreeMap::new();
+        for_each_chip(
+            std::io::BufReader::with_capacity(1 << 16, file),
+            &chips_path,
+            &manifest,
+            |c| chips.entry(c.point).or_default().add(&c.row),
+        )?;
 
         let confusion_path = dir.join("confusion.csv");
         let text = read_required(&confusion_path, "decision counts per sweep point")?;
@@ -191,14 +200,87 @@ impl ResultsFolder {
         self.points.rows.iter().find(|r| r.point == point)
     }
 
-    /// Chips of sweep point `point`, in file order.
-    pub fn chips_of(&self, point: u64) -> impl Iterator<Item = &ChipEntry> {
-        self.chips.iter().filter(move |c| c.point == point)
+    /// What `chips.csv` holds of sweep point `point` (none when it has no row).
+    pub fn chips_of(&self, point: u64) -> Option<&PointChips> {
+        self.chips.get(&point)
+    }
+
+    /// Number of rows read from `chips.csv`.
+    pub fn chip_rows(&self) -> u64 {
+        self.chips.values().map(|c| c.rows).sum()
+    }
+
+    /// Call `each` with the mean decision time of every chip of `point` that has one, in file
+    /// order, reading `chips.csv` again (streamed; for figures that need a second pass).
+    pub fn for_each_decision_time(
+        &self,
+        point: u64,
+        mut each: impl FnMut(f64),
+    ) -> Result<(), ReportError> {
+        let path = self.dir.join("chips.csv");
+        let file = open_required(&path, "one row per chip per sweep point")?;
+        for_each_chip(
+            std::io::BufReader::with_capacity(1 << 16, file),
+            &path,
+            &self.manifest,
+            |c| {
+                if c.point == point {
+                    if let Some(t) = c.row.decision_time_mean_s {
+                        each(t);
+                    }
+                }
+            },
+        )
     }
 
     /// Confusion counts of sweep point `point`.
     pub fn confusion_of(&self, point: u64) -> impl Iterator<Item = &ConfusionRow> {
         self.confusion.iter().filter(move |c| c.point == point)
+    }
+}
+
+/// What the report keeps of one sweep point's rows of `chips.csv`: counts, not rows.
+#[derive(Debug, Clone, Default, PartialEq)]
+pub struct PointChips {
+    /// Rows of the point.
+    pub rows: u64,
+    /// How many chips have each accuracy value (exact; at most one value per possible number
+    /// of correct test decisions).
+    pub accuracies: crate::stats::ValueCounts,
+    /// Chips with a finite, positive mean decision time, and the smallest and largest.
+    pub timed: u64,
+    pub time_min_s: f64,
+    pub time_max_s: f64,
+}
+
+impl PointChips {
+    fn add(&mut self, c: &ChipRow) {
+        self.rows += 1;
+        self.accuracies.add(c.accuracy);
+        if let Some(t) = c.decision_time_mean_s.filter(|t| t.is_finite() && *t > 0.0) {
+            if self.timed == 0 {
+                (self.time_min_s, self.time_max_s) = (t, t);
+            } else {
+                self.time_min_s = self.time_min_s.min(t);
+                self.time_max_s = self.time_max_s.max(t);
+            }
+            self.timed += 1;
+        }
+    }
+}
+
+/// Open a file the folder must hold, as [`read_required`] does.
+fn open_required(path: &Path, what: &'static str) -> Result<fs::File, ReportError> {
+    match fs::File::open(path) {
+        Ok(f) => Ok(f),
+        Err(e) if e.kind() == std::io::ErrorKind::NotFound => Err(ReportError::MissingFile {
+            path: path.to_path_buf(),
+            what,
+        }),
+        Err(source) => Err(ReportError::Read {
+            path: path.to_path_buf(),
+            source,
+        }),
     }
 }
 
@@ -238,30 +320,35 @@ type CsvTable = (Vec<String>, Vec<Record>);
 /// One CSV record with its line number.
 type Record = (u64, Vec<String>);
 
-/// Read a CSV text into its header and records, with the line of each record.
-fn read_csv(text: &str, path: &Path) -> Result<CsvTable, ReportError> {
+/// The error of a CSV reader, with the file and line.
+fn csv_error(path: &Path, e: csv::Error) -> ReportError {
+    let line = e.position().map(|p| p.line()).unwrap_or(1);
+    let message = match e.kind() {
+        csv::ErrorKind::UnequalLengths {
+            expected_len, len, ..
+        } => format!("has {len} fields but the header has {expected_len}"),
+        _ => format!("{e}"),
+    };
+    ReportError::Line {
+        path: path.to_path_buf(),
+        line,
+        message,
+    }
+}
+
+/// A CSV reader over `input` and the header it read (an empty file is refused).
+fn csv_reader<R: std::io::Read>(
+    input: R,
+    path: &Path,
+) -> Result<(Vec<String>, csv::Reader<R>), ReportError> {
     let mut rdr = csv::ReaderBuilder::new()
         .has_headers(true)
         .trim(csv::Trim::All)
         .flexible(false)
-        .from_reader(text.as_bytes());
-    let csv_err = |e: csv::Error| {
-        let line = e.position().map(|p| p.line()).unwrap_or(1);
-        let message = match e.kind() {
-            csv::ErrorKind::UnequalLengths {
-                expected_len, len, ..
-            } => format!("has {len} fields but the header has {expected_len}"),
-            _ => format!("{e}"),
-        };
-        ReportError::Line {
-            path: path.to_path_buf(),
-            line,
-            message,
-        }
-    };
+        .from_reader(input);
     let header: Vec<String> = rdr
         .headers()
-        .map_err(csv_err)?
+        .map_err(|e| csv_error(path, e))?
         .iter()
         .map(str::to_string)
         .collect();
@@ -272,9 +359,15 @@ fn read_csv(text: &str, path: &Path) -> Result<CsvTable, ReportError> {
             message: "the file is empty; expected a header line".into(),
         });
     }
+    Ok((header, rdr))
+}
+
+/// Read a CSV text into its header and records, with the line of each record.
+fn read_csv(text: &str, path: &Path) -> Result<CsvTable, ReportError> {
+    let (header, mut rdr) = csv_reader(text.as_bytes(), path)?;
     let mut rows = Vec::new();
     for rec in rdr.records() {
-        let rec = rec.map_err(csv_err)?;
+        let rec = rec.map_err(|e| csv_error(path, e))?;
         let line = rec.position().map(|p| p.line()).unwrap_or(0);
         rows.push((line, rec.iter().map(str::to_string).collect()));
     }
@@ -471,20 +564,30 @@ pub fn parse_points(
     })
 }
 
-/// Parse `chips.csv` text (`path` is for messages).
-pub fn parse_chips(
-    text: &str,
+/// Read `chips.csv` from `input` one row at a time (`path` is for messages), checking every
+/// row, and hand each to `each`: memory does not grow with the number of rows.
+pub fn for_each_chip<R: std::io::Read>(
+    input: R,
     path: &Path,
     manifest: &Manifest,
-) -> Result<Vec<ChipEntry>, ReportError> {
-    let (cols, records) = Columns::read(text, path)?;
+    mut each: impl FnMut(ChipEntry),
+) -> Result<(), ReportError> {
+    let (header, mut rdr) = csv_reader(input, path)?;
+    let cols = Columns { path, header };
     let (point_col, pcols) = cols.point_and_params(manifest)?;
     let c = cols.find_all(&CHIP_COLUMNS, "per-chip column")?;
     let failure_cols = failure_columns(&cols.header);
     let col = |name: &str| c.get(name).copied().unwrap_or(0);
-    let mut out = Vec::with_capacity(records.len());
-    for (line, rec) in &records {
-        let line = *line;
+    let mut record = csv::StringRecord::new();
+    loop {
+        match rdr.read_record(&mut record) {
+            Ok(true) => {}
+            Ok(false) => break,
+            Err(e) => return Err(csv_error(path, e)),
+        }
+        let line = record.position().map(|p| p.line()).unwrap_or(0);
+        let rec: Vec<String> = record.iter().map(str::to_string).collect();
+        let rec = &rec;
         // Counts are whole numbers; an empty cell reads as 0 (NaN for a share).
         let count = |name: &str| -> Result<u64, ReportError> {
             Ok(cols.opt_f64(rec, line, col(name))?.map_or(0, |v| v as u64))
@@ -506,7 +609,7 @@ pub fn parse_chips(
             weight_stage,
             noise,
         };
-        out.push(ChipEntry {
+        each(ChipEntry {
             line,
             point: cols.req_u64(rec, line, point_col)?,
             params: cols.req_all(rec, line, &pcols)?,
@@ -523,6 +626,17 @@ pub fn parse_chips(
             },
         });
     }
+    Ok(())
+}
+
+/// Parse `chips.csv` text (`path` is for messages) into its rows.
+pub fn parse_chips(
+    text: &str,
+    path: &Path,
+    manifest: &Manifest,
+) -> Result<Vec<ChipEntry>, ReportError> {
+    let mut out = Vec::new();
+    for_each_chip(text.as_bytes(), path, manifest, |c| out.push(c))?;
     Ok(out)
 }
 

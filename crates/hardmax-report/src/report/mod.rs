@@ -15,6 +15,7 @@ pub mod render;
 pub mod sizing;
 
 pub use error::{ReportError, SUPPORTED_FORMAT_VERSION};
+pub use folder::{for_each_chip, PointChips};
 pub use folder::{
     ChipEntry, ChipRow, ConfusionRow, Manifest, NamedTransfer, PointRow, PointsTable, Predicted,
     ResultsFolder, RunStatus, Scale, Sweep, SweepMode, SweepParameter, TransferCurve, TransferMeta,

@@ -152,8 +152,9 @@ pub struct YieldPlot {
 #[derive(Debug, Clone, PartialEq)]
 pub struct AccuracyHistogram {
     pub title: String,
-    /// One accuracy per chip (shares in [0, 1]).
-    pub accuracies: Vec<f64>,
+    /// How many chips have each accuracy (shares in [0, 1]; counts, so the figure of a
+    /// million dies takes no more memory than that of a hundred).
+    pub accuracies: crate::stats::ValueCounts,
     /// Test samples per chip; when at most 100, bins are one decision wide (1/samples).
     pub samples: Option<u64>,
     pub target: Option<f64>,
@@ -191,11 +192,92 @@ pub struct TransferPlot<'a> {
     pub x_unit: String,
 }
 
-/// Mean decision times of the chips of one sweep point (seconds).
+/// Mean decision times of the chips of one sweep point (seconds), binned as they are added:
+/// give the smallest and largest time first ([`DecisionTimeHistogram::new`]), then every time
+/// ([`DecisionTimeHistogram::add`]), so memory does not grow with the number of chips.
 #[derive(Debug, Clone, PartialEq)]
 pub struct DecisionTimeHistogram {
     pub title: String,
-    pub times_s: Vec<f64>,
+    /// Smallest and largest finite, positive time (the axis).
+    pub min_s: f64,
+    pub max_s: f64,
+    /// Chips counted per bin (bins of [`time_bins`]).
+    pub counts: Vec<u64>,
+    /// Times counted.
+    pub n: u64,
+}
+
+impl DecisionTimeHistogram {
+    /// An empty histogram whose axis spans `[min_s, max_s]` (finite, positive; else a default
+    /// axis).
+    pub fn new(title: String, min_s: f64, max_s: f64) -> Self {
+        let (min_s, max_s) =
+            if min_s.is_finite() && max_s.is_finite() && 0.0 < min_s && min_s <= max_s {
+                (min_s, max_s)
+            } else {
+                (1e-6, 1e-5)
+            };
+        Self {
+            title,
+            min_s,
+            max_s,
+            counts: vec![0; TIME_BINS],
+            n: 0,
+        }
+    }
+
+    /// Count one chip's time (non-finite or non-positive times are left out, as before).
+    pub fn add(&mut self, t: f64) {
+        if !(t.is_finite() && t > 0.0) {
+            return;
+        }
+        let (x, lo, width) = time_bins(self.min_s, self.max_s);
+        let k = ((x.fwd(t) - lo) / width).floor();
+        let k = if k < 0.0 {
+            0
+        } else {
+            (k as usize).min(TIME_BINS - 1)
+        };
+        self.counts[k] += 1;
+        self.n += 1;
+    }
+
+    /// The histogram of `times` (all in memory; the axis from their range).
+    pub fn of(title: String, times: &[f64]) -> Self {
+        let vals: Vec<f64> = times
+            .iter()
+            .copied()
+            .filter(|v| v.is_finite() && *v > 0.0)
+            .collect();
+        let (mn, mx) = min_max(&vals).unwrap_or((1e-6, 1e-5));
+        let mut h = Self::new(title, mn, mx);
+        for &t in &vals {
+            h.add(t);
+        }
+        h
+    }
+}
+
+/// Bins of the decision-time histogram.
+const TIME_BINS: usize = 20;
+
+/// The decision-time axis over `[mn, max]` (logarithmic when the times span two decades) and
+/// its bins in plotted space: first edge and width ([`TIME_BINS`] bins; the last one closed).
+fn time_bins(mn: f64, mx: f64) -> (AxisMap, f64, f64) {
+    let log = spans_two_decades(mn, mx);
+    let x = if log {
+        AxisMap::logarithmic(mn, mx, 0.05, Labels::Quantity("s".into()))
+    } else {
+        AxisMap::linear(mn, mx, 0.08, Labels::Quantity("s".into()))
+    };
+    let (a, b) = (x.fwd(mn), x.fwd(mx));
+    let width = if b > a {
+        (b - a) / TIME_BINS as f64
+    } else {
+        (x.hi - x.lo) / TIME_BINS as f64
+    };
+    let lo = if b > a { a } else { x.lo };
+    (x, lo, width)
 }
 
 // ---------------------------------------------------------------------------------------------
@@ -1001,6 +1083,24 @@ fn draw_yield(plot: &YieldPlot, buf: &mut String) -> Result<(), String> {
 }
 
 /// Equal-width bins over [lo, hi): counts per bin (index from the value, clamped).
+/// [`bin_counts`] of values given with their counts.
+fn weighted_bin_counts(values: &[(f64, u64)], lo: f64, width: f64, nbins: usize) -> Vec<u64> {
+    let mut counts = vec![0u64; nbins];
+    for &(v, n) in values.iter().filter(|(v, _)| v.is_finite()) {
+        let k = ((v - lo) / width).floor();
+        let k = if k < 0.0 {
+            0
+        } else {
+            (k as usize).min(nbins.saturating_sub(1))
+        };
+        if let Some(c) = counts.get_mut(k) {
+            *c += n;
+        }
+    }
+    counts
+}
+
+#[cfg(test)]
 fn bin_counts(values: &[f64], lo: f64, width: f64, nbins: usize) -> Vec<u64> {
     let mut counts = vec![0u64; nbins];
     for v in values.iter().filter(|v| v.is_finite()) {
@@ -1023,13 +1123,11 @@ pub fn accuracy_histogram(h: &AccuracyHistogram) -> Result<String, ReportError> 
 }
 
 fn draw_acc_hist(h: &AccuracyHistogram, buf: &mut String) -> Result<(), String> {
-    let vals: Vec<f64> = h
-        .accuracies
-        .iter()
-        .copied()
-        .filter(|v| v.is_finite())
-        .collect();
-    let (mn, mx) = min_max(&vals).unwrap_or((0.0, 1.0));
+    // The distinct finite accuracies with their counts, ascending.
+    let vals: Vec<(f64, u64)> = h.accuracies.iter().filter(|(v, _)| v.is_finite()).collect();
+    let n_vals: u64 = vals.iter().map(|&(_, c)| c).sum();
+    let mn_mx = vals.first().zip(vals.last()).map(|(a, b)| (a.0, b.0));
+    let (mn, mx) = mn_mx.unwrap_or((0.0, 1.0));
     // One bin per possible accuracy value k/samples when the test set is small, else 24 bins.
     let (lo, width, nbins) = match h.samples.filter(|n| (1..=100).contains(n)) {
         Some(n) => {
@@ -1045,7 +1143,7 @@ fn draw_acc_hist(h: &AccuracyHistogram, buf: &mut String) -> Result<(), String> 
             (mn - w / 2.0, w, 25)
         }
     };
-    let counts = bin_counts(&vals, lo, width, nbins);
+    let counts = weighted_bin_counts(&vals, lo, width, nbins);
     let hi = lo + width * nbins as f64;
     let mut xr = vec![lo, hi];
     xr.extend(h.target);
@@ -1067,7 +1165,7 @@ fn draw_acc_hist(h: &AccuracyHistogram, buf: &mut String) -> Result<(), String> 
             draw_bars(chart, &counts, lo, width, bar, |x0| {
                 (x0 + gap, x0 + width - gap)
             })?;
-            keys.push((Key::Bar(bar), format!("chips (n = {})", vals.len())));
+            keys.push((Key::Bar(bar), format!("chips (n = {n_vals})")));
             let refs = [
                 (h.target, TARGET, Dash::Solid, "target"),
                 (h.ideal, IDEAL, Dash::Dashed, "ideal argmax"),
@@ -1089,30 +1187,8 @@ pub fn decision_time_histogram(h: &DecisionTimeHistogram) -> Result<String, Repo
 }
 
 fn draw_time_hist(h: &DecisionTimeHistogram, buf: &mut String) -> Result<(), String> {
-    let vals: Vec<f64> = h
-        .times_s
-        .iter()
-        .copied()
-        .filter(|v| v.is_finite() && *v > 0.0)
-        .collect();
-    let (mn, mx) = min_max(&vals).unwrap_or((1e-6, 1e-5));
-    let log = spans_two_decades(mn, mx);
-    let x = if log {
-        AxisMap::logarithmic(mn, mx, 0.05, Labels::Quantity("s".into()))
-    } else {
-        AxisMap::linear(mn, mx, 0.08, Labels::Quantity("s".into()))
-    };
-    let nbins = 20usize;
-    let (a, b) = (x.fwd(mn), x.fwd(mx));
-    let width = if b > a {
-        (b - a) / nbins as f64
-    } else {
-        (x.hi - x.lo) / nbins as f64
-    };
-    let lo = if b > a { a } else { x.lo };
-    let plotted: Vec<f64> = vals.iter().map(|v| x.fwd(*v)).collect();
-    // The last bin is closed so the largest value lands in it.
-    let counts = bin_counts(&plotted, lo, width, nbins);
+    let (x, lo, width) = time_bins(h.min_s, h.max_s);
+    let counts = h.counts.clone();
     let y = count_axis(&counts);
     framed_chart(
         buf,
@@ -1126,7 +1202,7 @@ fn draw_time_hist(h: &DecisionTimeHistogram, buf: &mut String) -> Result<(), Str
             draw_bars(chart, &counts, lo, width, bar, |x0| {
                 (x0 + width * 0.06, x0 + width * 0.94)
             })?;
-            keys.push((Key::Bar(bar), format!("chips (n = {})", vals.len())));
+            keys.push((Key::Bar(bar), format!("chips (n = {})", h.n)));
             Ok(())
         },
     )
@@ -1474,16 +1550,13 @@ mod tests {
         assert!(accuracy_vs_param(&plot).is_ok());
         let h = AccuracyHistogram {
             title: "h".into(),
-            accuracies: vec![],
+            accuracies: Default::default(),
             samples: None,
             target: None,
             ideal: None,
         };
         assert!(accuracy_histogram(&h).is_ok());
-        let d = DecisionTimeHistogram {
-            title: "d".into(),
-            times_s: vec![1e-6],
-        };
+        let d = DecisionTimeHistogram::of("d".into(), &[1e-6]);
         assert!(decision_time_histogram(&d).is_ok());
         let m = ConfusionMatrix::zeros("c", vec![]);
         assert!(confusion_heatmap(&m).is_ok());

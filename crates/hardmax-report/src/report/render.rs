@@ -291,7 +291,8 @@ pub(super) fn describe_point(
         .join(", ")
 }
 
-/// Build every figure of the report (no I/O).
+/// Build every figure of the report (no I/O but a second streamed read of `chips.csv` for the
+/// decision-time histogram of a transient run).
 pub fn build_figures(
     folder: &ResultsFolder,
     focus: Option<u64>,
@@ -404,14 +405,10 @@ pub fn build_figures(
 
     if let Some(row) = focus.and_then(|p| folder.point(p)) {
         let label = point_label(folder, row);
-        let accs: Vec<f64> = folder
-            .chips_of(row.point)
-            .map(|c| c.row.accuracy)
-            .filter(|a| !a.is_nan())
-            .collect();
+        let chips = folder.chips_of(row.point).cloned().unwrap_or_default();
         let h = AccuracyHistogram {
             title: format!("Per-chip accuracy at point {} ({label})", row.point),
-            accuracies: accs,
+            accuracies: chips.accuracies.clone(),
             samples: Some(row.samples),
             target: row.target,
             ideal: row.ideal_acc,
@@ -455,15 +452,14 @@ pub fn build_figures(
             svg: plots::confusion_heatmap(&cm)?,
         });
 
-        let times: Vec<f64> = folder
-            .chips_of(row.point)
-            .filter_map(|c| c.row.decision_time_mean_s)
-            .collect();
-        if m.transient && !times.is_empty() {
-            let d = DecisionTimeHistogram {
-                title: format!("Decision time at point {} ({label})", row.point),
-                times_s: times,
-            };
+        if m.transient && chips.timed > 0 {
+            // A second pass over chips.csv bins the times between the extremes the first found.
+            let mut d = DecisionTimeHistogram::new(
+                format!("Decision time at point {} ({label})", row.point),
+                chips.time_min_s,
+                chips.time_max_s,
+            );
+            folder.for_each_decision_time(row.point, |t| d.add(t))?;
             figs.push(Figure {
                 file: "decision_time.svg".into(),
                 id: "fig-decision-time".into(),

@@ -485,8 +485,8 @@ fn ekv_f_inverse_lanes(i: &Lanes) -> Lanes {
     for l in 0..LANES {
         y[l] = i[l].sqrt();
     }
-    let e = maths::exp_m1(&y);
-    let mut x = maths::ln(&e);
+    let e = maths::exp_m1_start(&y);
+    let mut x = maths::ln_start(&e);
     for v in x.iter_mut() {
         *v *= 2.0;
     }
@@ -530,7 +530,7 @@ impl WtaCircuit {
             for l in 0..LANES {
                 d[l] = shares[k][l] - max_e[l];
             }
-            shares[k] = maths::exp(&d);
+            shares[k] = maths::exp_start(&d);
             for l in 0..LANES {
                 s[l] += shares[k][l];
             }
@@ -540,7 +540,7 @@ impl WtaCircuit {
                 shares[k][l] /= s[l];
             }
         }
-        let ln_s = maths::ln(&s);
+        let ln_s = maths::ln_start(&s);
         let mut vc = [0.0; LANES];
         for l in 0..LANES {
             let v = (max_e[l] + ln_s[l] - ln_ib) / slope[l];
@@ -563,8 +563,8 @@ impl WtaCircuit {
         for l in 0..LANES {
             h[l] = -(0.5 * (vc[l] - a.vt0) * a.inv_n * a.inv_ut).abs();
         }
-        let eh = maths::exp(&h);
-        let lp = maths::ln_1p(&eh);
+        let eh = maths::exp_start(&h);
+        let lp = maths::ln_1p_start(&eh);
         let mut r = [0.0; LANES];
         let mut mr = [0.0; LANES];
         for l in 0..LANES {
@@ -573,8 +573,8 @@ impl WtaCircuit {
             r[l] = i[l] / (a.is * sp * sp);
             mr[l] = -r[l];
         }
-        let ln_r = maths::ln(&r);
-        let l1 = maths::ln_1p(&mr);
+        let ln_r = maths::ln_start(&r);
+        let l1 = maths::ln_1p_start(&mr);
         let mut v = [0.0; LANES];
         let mut live = [true; LANES];
         for l in 0..LANES {
@@ -595,8 +595,8 @@ impl WtaCircuit {
             for l in 0..LANES {
                 y[l] = v[l] * a.inv_ut;
             }
-            let e = maths::exp_m1(&y);
-            let le = maths::ln(&e);
+            let e = maths::exp_m1_start(&y);
+            let le = maths::ln_start(&e);
             let mut dy = [0.0; LANES];
             for l in 0..LANES {
                 let g = alpha * v[l] + le[l] - v[l] * a.inv_ut - ln_r[l];
@@ -604,7 +604,7 @@ impl WtaCircuit {
                 let d = (-g / dg).clamp(-5.0, 2.0);
                 dy[l] = if live[l] { d } else { 0.0 };
             }
-            let g = maths::exp(&dy);
+            let g = maths::exp_start(&dy);
             let mut any = false;
             for l in 0..LANES {
                 if live[l] {
