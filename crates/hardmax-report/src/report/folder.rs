@@ -217,6 +217,20 @@ impl ResultsFolder {
         point: u64,
         mut each: impl FnMut(f64),
     ) -> Result<(), ReportError> {
+        self.for_each_chip_of(point, |row| {
+            if let Some(t) = row.decision_time_mean_s {
+                each(t);
+            }
+        })
+    }
+
+    /// Call `each` with every chip row of `point`, in file order, reading `chips.csv` again
+    /// (streamed; for sections that need the dies themselves, e.g. paired comparisons).
+    pub fn for_each_chip_of(
+        &self,
+        point: u64,
+        mut each: impl FnMut(&ChipRow),
+    ) -> Result<(), ReportError> {
         let path = self.dir.join("chips.csv");
         let file = open_required(&path, "one row per chip per sweep point")?;
         for_each_chip(
@@ -225,9 +239,7 @@ impl ResultsFolder {
             &self.manifest,
             |c| {
                 if c.point == point {
-                    if let Some(t) = c.row.decision_time_mean_s {
-                        each(t);
-                    }
+                    each(&c.row);
                 }
             },
         )

@@ -49,21 +49,27 @@ pub(super) fn trim_section(folder: &ResultsFolder) -> String {
         }) else {
             continue;
         };
-        let acc = |point: u64| -> Vec<(u64, f64)> {
-            let mut v: Vec<(u64, f64)> = folder
-                .chips
-                .iter()
-                .filter(|c| c.point == point)
-                .map(|c| (c.row.chip, c.row.accuracy))
-                .collect();
+        // The two points' dies, read from chips.csv (the folder keeps only per-point counts);
+        // an unreadable file leaves the section out rather than showing partial pairs.
+        let acc = |point: u64| -> Option<Vec<(u64, f64)>> {
+            let mut v: Vec<(u64, f64)> = Vec::new();
+            folder
+                .for_each_chip_of(point, |row| v.push((row.chip, row.accuracy)))
+                .ok()?;
             v.sort_by_key(|x| x.0);
-            v
+            Some(v)
         };
-        let (a, b) = (acc(before.point), acc(after.point));
+        let (Some(a), Some(b)) = (acc(before.point), acc(after.point)) else {
+            continue;
+        };
         // Paired on the die index: only dies present at both points.
         let pairs: Vec<(f64, f64)> = a
             .iter()
-            .filter_map(|(c, x)| b.iter().find(|(d, _)| d == c).map(|(_, y)| (*x, *y)))
+            .filter_map(|(c, x)| {
+                b.binary_search_by_key(c, |d| d.0)
+                    .ok()
+                    .map(|i| (*x, b[i].1))
+            })
             .collect();
         if pairs.is_empty() {
             continue;
