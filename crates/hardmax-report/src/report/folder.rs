@@ -520,6 +520,8 @@ pub fn parse_chips(
                 samples: count("samples")?,
                 decision_time_mean_s: cols.opt_f64(rec, line, col("decision_time_mean_s"))?,
                 energy_mean_j: cols.opt_f64(rec, line, col("energy_mean_j"))?,
+                // The report reads the program-and-verify figures from points.csv.
+                programming: None,
             },
         });
     }
