@@ -972,7 +972,7 @@ pub fn run_size(file: &Path, opts: &SizeOptions) -> Result<Sized, SizingCfgError
             .and_then(|s| s.verdict.programming);
         format!(
             "weights programmed and verified: tolerance {} of the element range, at most {} \
-             cycles, verify read noise {} of the range, {} s per cycle{}\n",
+             cycles, verify read noise {} of the range, {:.3e} s per cycle{}\n",
             v.tolerance,
             v.max_cycles,
             v.read_noise,
