@@ -124,6 +124,10 @@ fn verify_off_or_one_cycle_is_one_shot_and_verify_helps() {
         m.contains("program_and_verify") && m.contains("\"max_cycles\": 50"),
         "{m}"
     );
+    let html = std::fs::read_to_string(on.join("report.html")).unwrap();
+    assert!(html.contains("program-and-verify: accepted within 0.01"));
+    let html = std::fs::read_to_string(none.join("report.html")).unwrap();
+    assert!(!html.contains("program-and-verify"));
 }
 
 #[test]
