@@ -44,7 +44,10 @@ pub fn run(args: SizeArgs) -> anyhow::Result<()> {
     std::fs::create_dir_all(&out)
         .with_context(|| format!("creating the output folder {} (--out)", out.display()))?;
     let svg = sizing_svg(r)?;
-    let answer = answer_text(r, crate::CAUTION);
+    let mut answer = answer_text(r, crate::CAUTION);
+    if let Some(note) = &s.programming_note {
+        answer.push_str(note);
+    }
     let files = [
         ("search.csv", search_csv(r)),
         ("front.csv", front_csv(r)),

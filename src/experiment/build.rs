@@ -25,6 +25,7 @@ use crate::stages::competition::transient::{NoiseOptions, TransientOptions};
 use crate::stages::competition::wta::WtaDesign;
 use crate::stages::competition::CurrentSource;
 use crate::stages::competition::DecisionRule;
+use crate::stages::weights::verify::{VerifyError, MAX_VERIFY_CYCLES};
 use crate::stages::weights::{
     Conditions, DriftSpec, ElementDesign, ErrorSpec, HiddenNonlinearity, InputDesign,
     LinearElement, OffsetSetting, SigmaKind, SignedEncoding, SubthresholdElement,
@@ -862,8 +863,65 @@ pub fn check_with_core(e: &Experiment) -> Result<(), CoreRefusal> {
             },
         })?;
     }
+    if let Some(v) = program_verify(e) {
+        v.validate()
+            .and_then(|()| v.check_element(&e_element(e)))
+            .map_err(|err| {
+                let key = verify_key(&err);
+                match err {
+                    VerifyError::Tolerance { value } => refusal(
+                        key.into(),
+                        value,
+                        "a fraction of the element's range above 0",
+                    ),
+                    VerifyError::MaxCycles { value } => refusal(
+                        key.into(),
+                        f64::from(value),
+                        &format!("a whole number of writes from 1 to {MAX_VERIFY_CYCLES}"),
+                    ),
+                    VerifyError::ReadNoise { value } => {
+                        refusal(key.into(), value, "a fraction of the element's range, >= 0")
+                    }
+                    _ => CoreRefusal {
+                        key: key.into(),
+                        value: None,
+                        message: err.to_string(),
+                    },
+                }
+            })?;
+    }
     let _ = p;
     Ok(())
+}
+
+/// The element design of an experiment's weight stage (for the program-and-verify check).
+fn e_element(e: &Experiment) -> crate::stages::weights::ElementDesign {
+    weight_stage(e).element
+}
+
+/// The program-and-verify settings of an experiment (`[programming]` present with
+/// `verify = true`).
+pub fn program_verify(e: &Experiment) -> Option<crate::stages::weights::ProgramVerify> {
+    e.programming
+        .as_ref()
+        .filter(|p| p.verify)
+        .map(|p| crate::stages::weights::ProgramVerify {
+            tolerance: p.tolerance,
+            max_cycles: p.max_cycles,
+            read_noise: p.read_noise,
+            cycle_time_s: p.cycle_time.si(),
+        })
+}
+
+/// The user's key of a program-and-verify refusal.
+fn verify_key(e: &VerifyError) -> &'static str {
+    match e {
+        VerifyError::Tolerance { .. } => "programming.tolerance",
+        VerifyError::MaxCycles { .. } => "programming.max_cycles",
+        VerifyError::ReadNoise { .. } => "programming.read_noise",
+        VerifyError::CycleTime { .. } => "programming.cycle_time",
+        VerifyError::Element => "weights.element",
+    }
 }
 
 /// Build a point's setup (weights mapped) from its experiment and prepared classifier.
@@ -880,6 +938,16 @@ pub fn build_point(e: &Experiment, prep: &Prepared) -> Result<PointSetup, BuildE
         },
         other => other.into(),
     })?;
+    let s = match program_verify(e) {
+        Some(v) => s.with_program_verify(v).map_err(|err| match &err {
+            PipelineError::Verify(v) => BuildError::Keyed {
+                key: verify_key(v),
+                source: Box::new(err),
+            },
+            _ => BuildError::from(err),
+        })?,
+        None => s,
+    };
     match trim_design(e) {
         Some(t) => s.with_trim(t, prep).map_err(|err| match &err {
             PipelineError::Trim(t) => BuildError::Keyed {

@@ -755,6 +755,36 @@ impl Default for TrimCfg {
     }
 }
 
+/// `[programming]`: program-and-verify of the weight elements (DEVELOPERS.md, model notes
+/// §5.1): write, read back, correct until the read is within `tolerance` of the level or
+/// `max_cycles` writes are spent. Absent = one-shot programming.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields, default)]
+pub struct ProgrammingCfg {
+    /// Program and verify (false: the table is kept but every element is written once).
+    pub verify: bool,
+    /// Accepted |read - level|, a fraction of the element's range w_max - w_min.
+    pub tolerance: f64,
+    /// Most writes per element, the first included (1 = one-shot with a verify read).
+    pub max_cycles: u32,
+    /// Sigma of one verify read, a fraction of the element's range.
+    pub read_noise: f64,
+    /// Time of one write-and-read cycle (programming time = cycles x this).
+    pub cycle_time: Q<Time>,
+}
+
+impl Default for ProgrammingCfg {
+    fn default() -> Self {
+        Self {
+            verify: true,
+            tolerance: 0.01,
+            max_cycles: 20,
+            read_noise: 0.0,
+            cycle_time: Q::new(1e-6),
+        }
+    }
+}
+
 /// `[target]`: the accuracy a chip must reach to count towards yield.
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
 #[serde(deny_unknown_fields, default)]
@@ -834,6 +864,9 @@ pub struct Experiment {
     /// `[trim]`: absent = no trim (and the resolved experiment, hence its hash, unchanged).
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub trim: Option<TrimCfg>,
+    /// `[programming]`: absent = one-shot programming (the resolved experiment unchanged).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub programming: Option<ProgrammingCfg>,
     #[serde(default)]
     pub sweep: SweepSpec,
     /// Batch-scheduler settings (taken out of the resolved experiment, see [`ClusterCfg`]).
@@ -882,6 +915,7 @@ impl Experiment {
                 calibration_samples: Some(100),
                 ..TrimCfg::default()
             }),
+            programming: Some(ProgrammingCfg::default()),
             sweep: SweepSpec::default(),
             cluster: None,
             search: None,

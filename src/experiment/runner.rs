@@ -440,6 +440,17 @@ pub fn run(
                     .collect(),
                 hardware_aware: trainers.clone(),
             }),
+            programming: resolved
+                .at_point
+                .iter()
+                .find_map(super::build::program_verify)
+                .map(|v| crate::format::ProgrammingInfo {
+                    method: "program_and_verify".into(),
+                    tolerance: v.tolerance,
+                    max_cycles: u64::from(v.max_cycles),
+                    read_noise: v.read_noise,
+                    cycle_time_s: v.cycle_time_s,
+                }),
         }
         .write(&opts.out.join("manifest.json"))
     };
@@ -538,6 +549,7 @@ pub fn run(
                     decision_time_mean_s: (o.timed > 0)
                         .then(|| o.decision_time_sum / o.timed as f64),
                     energy_mean_j: (o.timed > 0).then(|| o.energy_sum / o.timed as f64),
+                    programming: o.programming.map(|c| chip_programming(&c, setup)),
                 };
                 stats.push(&row);
                 rows.push(row);
@@ -787,6 +799,21 @@ fn hysteretic_feedback_warning(
         mean,
         "the mean competition input (nominal weight stage at the training split's mean input)",
     )
+}
+
+/// A die's program-and-verify cost as a `chips.csv` row holds it: programming time = cycles x
+/// the setting's cycle time.
+fn chip_programming(
+    c: &crate::stages::weights::ProgramCounts,
+    setup: &crate::pipeline::PointSetup,
+) -> crate::format::ChipProgramming {
+    let cycle_time = setup.program_verify.map_or(0.0, |v| v.cycle_time_s);
+    crate::format::ChipProgramming {
+        elements: c.elements,
+        cycles: c.cycles,
+        unverified: c.unverified,
+        time_s: c.cycles as f64 * cycle_time,
+    }
 }
 
 #[cfg(test)]

@@ -379,6 +379,9 @@ pub fn combine_corners(rows: &[(String, SizingRow)]) -> Option<SizingRow> {
 pub struct Probe {
     pub row: SizingRow,
     pub cost: f64,
+    /// Program-and-verify (`[programming]` on): cycles per element over the dies, mean
+    /// programming time of a die, s.
+    pub programming: Option<(f64, f64)>,
 }
 
 impl Verdict for Probe {
@@ -411,6 +414,9 @@ pub struct SizeOptions {
 pub struct Sized {
     pub result: SearchResult<Probe>,
     pub report: SizingReport,
+    /// With `[programming]` on: one sentence on program-and-verify and its cost at the final
+    /// design, for `answer.txt`.
+    pub programming_note: Option<String>,
 }
 
 fn prep_key(e: &Experiment) -> String {
@@ -427,6 +433,16 @@ fn prep_key(e: &Experiment) -> String {
         .map(|p| p.as_ref().map(|v| v.to_string()).unwrap_or_default())
         .collect::<Vec<_>>()
         .join("\n")
+}
+
+/// The program-and-verify settings of the experiment file (with the command's overrides).
+fn resolved_programming(
+    text: &str,
+    file: &Path,
+    overrides: &[String],
+) -> Option<crate::stages::weights::ProgramVerify> {
+    let r = load_str(text, file, overrides).ok()?;
+    r.at_point.first().and_then(super::build::program_verify)
 }
 
 /// Run the sizing search of the experiment file `file` (its `[search]` table).
@@ -575,12 +591,29 @@ pub fn run_size(file: &Path, opts: &SizeOptions) -> Result<Sized, SizingCfgError
         let cost = point_cost(&setup, prep, &mean_input(&prep.test_u), &cost_settings(e))
             .map_err(|m| cand_err(values, format!("cost.{m}")))?;
         let n = e.population.chips;
-        let mut acc: Vec<f64> = pool.install(|| {
-            (0..n)
-                .into_par_iter()
-                .map(|c| evaluate_chip(&setup, prep, seed, Dies::Paired, c).accuracy())
-                .collect()
+        let outcomes: Vec<(f64, Option<crate::stages::weights::ProgramCounts>)> =
+            pool.install(|| {
+                (0..n)
+                    .into_par_iter()
+                    .map(|c| {
+                        let o = evaluate_chip(&setup, prep, seed, Dies::Paired, c);
+                        (o.accuracy(), o.programming)
+                    })
+                    .collect()
+            });
+        let programming = setup.program_verify.map(|v| {
+            let mut sum = crate::stages::weights::ProgramCounts::default();
+            for (_, c) in &outcomes {
+                if let Some(c) = c {
+                    sum.merge(c);
+                }
+            }
+            (
+                sum.cycles_per_element(),
+                sum.cycles as f64 * v.cycle_time_s / n.max(1) as f64,
+            )
         });
+        let mut acc: Vec<f64> = outcomes.iter().map(|(a, _)| *a).collect();
         let reached = acc.iter().filter(|&&a| a >= e.target.accuracy).count() as u64;
         let (lo, hi) = hardmax_report::stats::wilson_interval(reached, n, z);
         let mean = acc.iter().sum::<f64>() / n.max(1) as f64;
@@ -622,6 +655,7 @@ pub fn run_size(file: &Path, opts: &SizeOptions) -> Result<Sized, SizingCfgError
                 limiting_current: String::new(),
             },
             cost: c,
+            programming,
         })
     };
     let eval = |values: &[f64], seed: u64, role: Role| -> Result<Probe, SizingCfgError> {
@@ -630,16 +664,26 @@ pub fn run_size(file: &Path, opts: &SizeOptions) -> Result<Sized, SizingCfgError
         }
         let mut rows = Vec::with_capacity(corners.len());
         let mut cost = f64::NEG_INFINITY;
+        // Programming is at one temperature and supply: the corners' largest cost is kept.
+        let mut programming: Option<(f64, f64)> = None;
         for c in &corners {
             let p = eval_one(values, &c.overrides, seed, role)?;
             cost = cost.max(p.cost);
+            if let Some((a, b)) = p.programming {
+                let (x, y) = programming.unwrap_or((a, b));
+                programming = Some((x.max(a), y.max(b)));
+            }
             rows.push((c.name.clone(), p.row));
         }
         let mut row = combine_corners(&rows).expect("at least one corner");
         // The cost of a design at corners: its largest over the corners (current grows at the
         // fast corner and high supply; the area is the same everywhere).
         row.cost = cost;
-        Ok(Probe { row, cost })
+        Ok(Probe {
+            row,
+            cost,
+            programming,
+        })
     };
     let ranges: Vec<LogRange> = spec.dims.iter().map(|d| d.range.clone()).collect();
     let result = search(&ranges, &spec.opts, eval)?.map_err(|e| SizingCfgError::Key {
@@ -691,7 +735,32 @@ pub fn run_size(file: &Path, opts: &SizeOptions) -> Result<Sized, SizingCfgError
         command: opts.command.clone(),
         elapsed_s: t0.elapsed().as_secs_f64(),
     };
-    Ok(Sized { result, report })
+    let programming_note = resolved_programming(&text, file, &opts.overrides).map(|v| {
+        let at = result
+            .final_step()
+            .and_then(|i| result.trace.get(i))
+            .and_then(|s| s.verdict.programming);
+        format!(
+            "weights programmed and verified: tolerance {} of the element range, at most {} \
+             cycles, verify read noise {} of the range, {:.3e} s per cycle{}\n",
+            v.tolerance,
+            v.max_cycles,
+            v.read_noise,
+            v.cycle_time_s,
+            match at {
+                Some((per, t)) => format!(
+                    "; at the final design {per:.3} cycles per element, {t:.3e} s of programming \
+                     per die"
+                ),
+                None => String::new(),
+            }
+        )
+    });
+    Ok(Sized {
+        result,
+        report,
+        programming_note,
+    })
 }
 
 #[cfg(test)]

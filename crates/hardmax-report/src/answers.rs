@@ -380,6 +380,7 @@ mod tests {
                         nonconverged: 0,
                         samples: 100,
                         decision_time_mean_s: None,
+                        programming: None,
                         energy_mean_j: None,
                         failed: Default::default(),
                     })

@@ -65,6 +65,36 @@ pub const FAILURE_COLUMNS: [&str; 4] = [
     "failed_noise",
 ];
 
+/// Program-and-verify columns of `chips.csv`, after the failure columns; written only when
+/// the run programmed and verified its weights (`[programming]`), so other folders keep their
+/// bytes: elements programmed, write-read cycles, elements left outside the tolerance at the
+/// cycle limit, programming time (cycles x cycle time).
+pub const PROGRAM_CHIP_COLUMNS: [&str; 4] = [
+    "program_elements",
+    "program_cycles",
+    "program_unverified",
+    "program_time_s",
+];
+
+/// Program-and-verify columns of `points.csv`, after the design columns (only with
+/// `[programming]`): cycles per element over every die's elements, the share of elements left
+/// unverified, and the mean programming time of a die.
+pub const PROGRAM_POINT_COLUMNS: [&str; 3] = [
+    "program_cycles_per_element",
+    "program_unverified_frac",
+    "program_time_mean_s",
+];
+
+/// What programming one die's weights cost (program-and-verify only).
+#[derive(Clone, Copy, Debug, PartialEq, Serialize, Deserialize)]
+pub struct ChipProgramming {
+    pub elements: u64,
+    pub cycles: u64,
+    pub unverified: u64,
+    /// Cycles x cycle time, s.
+    pub time_s: f64,
+}
+
 /// Columns of `confusion.csv`.
 pub const CONFUSION_COLUMNS: [&str; 4] = ["point", "true_class", "predicted_class", "count"];
 
@@ -88,6 +118,9 @@ pub struct ChipRow {
     pub decision_time_mean_s: Option<f64>,
     /// Mean energy per decision (transient evaluation only).
     pub energy_mean_j: Option<f64>,
+    /// Program-and-verify cost of the die (absent without `[programming]`).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub programming: Option<ChipProgramming>,
 }
 
 /// Whether a run finished every sweep point.
@@ -254,6 +287,23 @@ pub struct Manifest {
     /// hardware-aware trainer (float-only folders keep their manifest unchanged).
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub trainer: Option<TrainerInfo>,
+    /// Program-and-verify settings; present only when the run used it (other manifests are
+    /// unchanged).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub programming: Option<ProgrammingInfo>,
+}
+
+/// The manifest's record of program-and-verify (model notes §5.1).
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub struct ProgrammingInfo {
+    /// `program_and_verify`.
+    pub method: String,
+    /// Accepted |read - level| as a fraction of the element's range.
+    pub tolerance: f64,
+    pub max_cycles: u64,
+    /// Sigma of a verify read as a fraction of the element's range.
+    pub read_noise: f64,
+    pub cycle_time_s: f64,
 }
 
 /// The manifest's record of the trainers behind a run's weights.
@@ -525,6 +575,7 @@ mod tests {
             shard: None,
             merged_from: None,
             trainer: None,
+            programming: None,
         }
     }
 

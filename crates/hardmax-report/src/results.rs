@@ -13,8 +13,11 @@ use serde::{Deserialize, Serialize};
 use super::stats::{wilson_interval, ValueCounts};
 use crate::io::{write_atomic, StreamFile};
 // One definition of the format (row type, columns, version), shared with the reader in `report`.
+use crate::format::{
+    ChipProgramming, CHIP_COLUMNS, CONFUSION_COLUMNS, FAILURE_COLUMNS, POINT_STAT_COLUMNS,
+    PROGRAM_CHIP_COLUMNS, PROGRAM_POINT_COLUMNS,
+};
 pub use crate::format::{ChipRow, FORMAT_NAME, FORMAT_VERSION};
-use crate::format::{CHIP_COLUMNS, CONFUSION_COLUMNS, FAILURE_COLUMNS, POINT_STAT_COLUMNS};
 use hardmax_core::pipeline::{FailureCounts, FailureKind};
 
 /// Everything recorded for one finished sweep point.
@@ -76,6 +79,20 @@ pub struct ChipStats {
     /// Sum and count of the chips' mean energies per decision (transient only).
     pub energy_sum_j: f64,
     pub energy_chips: u64,
+    /// Program-and-verify sums over the chips (absent without `[programming]`, so other
+    /// records keep their bytes).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub programming: Option<ProgramSums>,
+}
+
+/// Program-and-verify cost summed over a point's chips, in chip order.
+#[derive(Clone, Copy, Debug, PartialEq, Serialize, Deserialize)]
+pub struct ProgramSums {
+    pub chips: u64,
+    pub elements: u64,
+    pub cycles: u64,
+    pub unverified: u64,
+    pub time_sum_s: f64,
 }
 
 impl Default for ChipStats {
@@ -92,6 +109,7 @@ impl Default for ChipStats {
             decision_time_chips: 0,
             energy_sum_j: -0.0,
             energy_chips: 0,
+            programming: None,
         }
     }
 }
@@ -112,6 +130,20 @@ impl ChipStats {
         if let Some(e) = c.energy_mean_j {
             self.energy_sum_j += e;
             self.energy_chips += 1;
+        }
+        if let Some(p) = &c.programming {
+            let s = self.programming.get_or_insert(ProgramSums {
+                chips: 0,
+                elements: 0,
+                cycles: 0,
+                unverified: 0,
+                time_sum_s: -0.0,
+            });
+            s.chips += 1;
+            s.elements += p.elements;
+            s.cycles += p.cycles;
+            s.unverified += p.unverified;
+            s.time_sum_s += p.time_s;
         }
     }
 
@@ -150,6 +182,9 @@ pub struct PointSummary {
     pub failed: FailureCounts,
     pub decision_time_mean_s: Option<f64>,
     pub energy_mean_j: Option<f64>,
+    /// Program-and-verify: cycles per element, unverified share of the elements, mean
+    /// programming time of a die (absent without `[programming]`).
+    pub programming: Option<[f64; 3]>,
 }
 
 impl PointRecord {
@@ -191,6 +226,20 @@ impl PointRecord {
             failed: st.failed,
             decision_time_mean_s: mean(st.decision_time_sum_s, st.decision_time_chips),
             energy_mean_j: mean(st.energy_sum_j, st.energy_chips),
+            programming: st.programming.map(|p| {
+                let per = |x: u64| {
+                    if p.elements == 0 {
+                        f64::NAN
+                    } else {
+                        x as f64 / p.elements as f64
+                    }
+                };
+                [
+                    per(p.cycles),
+                    per(p.unverified),
+                    mean(p.time_sum_s, p.chips).unwrap_or(f64::NAN),
+                ]
+            }),
         }
     }
 
@@ -434,7 +483,8 @@ impl ResultsDir {
             &points_csv(records, axis_paths),
         )?;
         let mut chips = StreamFile::create(&self.root.join("chips.csv"))?;
-        chips.write(&chips_csv_header(axis_paths))?;
+        let programming = records.iter().any(|r| r.stats.programming.is_some());
+        chips.write(&chips_csv_header_with(axis_paths, programming))?;
         for r in records {
             chips.append_file(&self.chips_path(r.point))?;
         }
@@ -480,6 +530,10 @@ pub fn points_csv(records: &[PointRecord], axis_paths: &[String]) -> Vec<u8> {
     header.extend(POINT_STAT_COLUMNS.map(String::from));
     header.extend(FAILURE_COLUMNS.map(String::from));
     header.extend(crate::answers::DESIGN_COLUMNS.map(String::from));
+    let programming = records.iter().any(|r| r.stats.programming.is_some());
+    if programming {
+        header.extend(PROGRAM_POINT_COLUMNS.map(String::from));
+    }
     let mut rows = vec![header];
     for r in records {
         let s = r.summary();
@@ -508,6 +562,12 @@ pub fn points_csv(records: &[PointRecord], axis_paths: &[String]) -> Vec<u8> {
         ]);
         row.extend(FailureKind::ALL.map(|k| s.failed.get(k).to_string()));
         row.extend(design);
+        if programming {
+            match s.programming {
+                Some(p) => row.extend(p.map(fmt)),
+                None => row.extend(PROGRAM_POINT_COLUMNS.map(|_| String::new())),
+            }
+        }
         rows.push(row);
     }
     to_bytes(rows)
@@ -515,10 +575,18 @@ pub fn points_csv(records: &[PointRecord], axis_paths: &[String]) -> Vec<u8> {
 
 /// The header line of `chips.csv`.
 pub fn chips_csv_header(axis_paths: &[String]) -> Vec<u8> {
+    chips_csv_header_with(axis_paths, false)
+}
+
+/// The header line of `chips.csv`, with the program-and-verify columns when `programming`.
+pub fn chips_csv_header_with(axis_paths: &[String], programming: bool) -> Vec<u8> {
     let mut header = vec!["point".to_string()];
     header.extend(axis_paths.iter().cloned());
     header.extend(CHIP_COLUMNS.map(String::from));
     header.extend(FAILURE_COLUMNS.map(String::from));
+    if programming {
+        header.extend(PROGRAM_CHIP_COLUMNS.map(String::from));
+    }
     to_bytes(vec![header])
 }
 
@@ -544,6 +612,14 @@ pub fn chip_rows_csv<'a>(
                 opt(c.energy_mean_j),
             ]);
             row.extend(FailureKind::ALL.map(|k| c.failed.get(k).to_string()));
+            if let Some(p) = &c.programming {
+                row.extend([
+                    p.elements.to_string(),
+                    p.cycles.to_string(),
+                    p.unverified.to_string(),
+                    fmt(p.time_s),
+                ]);
+            }
             row
         })
         .collect();
@@ -556,7 +632,8 @@ pub fn chip_rows_csv<'a>(
 pub fn parse_chip_line(line: &str, n_params: usize) -> Option<ChipRow> {
     let cells: Vec<&str> = line.trim_end_matches(['\r', '\n']).split(',').collect();
     let c = cells.get(1 + n_params..)?;
-    if c.len() != CHIP_COLUMNS.len() + FAILURE_COLUMNS.len() {
+    let fixed = CHIP_COLUMNS.len() + FAILURE_COLUMNS.len();
+    if c.len() != fixed && c.len() != fixed + PROGRAM_CHIP_COLUMNS.len() {
         return None;
     }
     let float = |t: &str| -> Option<f64> {
@@ -587,6 +664,15 @@ pub fn parse_chip_line(line: &str, n_params: usize) -> Option<ChipRow> {
             out_of_supply_compliance: c[9].parse().ok()?,
             weight_stage: c[10].parse().ok()?,
             noise: c[11].parse().ok()?,
+        },
+        programming: match c.get(fixed..) {
+            Some([e, n, u, t]) => Some(ChipProgramming {
+                elements: e.parse().ok()?,
+                cycles: n.parse().ok()?,
+                unverified: u.parse().ok()?,
+                time_s: t.parse().ok()?,
+            }),
+            _ => None,
         },
     })
 }
@@ -659,6 +745,7 @@ mod tests {
                 samples: 10,
                 decision_time_mean_s: None,
                 energy_mean_j: None,
+                programming: None,
             })
             .collect()
     }
@@ -756,6 +843,45 @@ mod tests {
         for (line, row) in ch.lines().skip(1).zip(rows(&[0.9, 0.7])) {
             assert_eq!(parse_chip_line(line, 1), Some(row));
         }
+    }
+
+    /// Program-and-verify columns appear only when the chips carry them: the chip rows read
+    /// back bit for bit, and the point's cycles per element are the summed cycles over the
+    /// summed elements (a plain ratio, no source needed).
+    #[test]
+    fn programming_columns_only_when_present() {
+        let mut chips = rows(&[0.9, 0.7]);
+        for (i, c) in chips.iter_mut().enumerate() {
+            c.programming = Some(ChipProgramming {
+                elements: 100,
+                cycles: 150 + 10 * i as u64,
+                unverified: i as u64,
+                time_s: 1e-6 * (150 + 10 * i) as f64,
+            });
+        }
+        let mut rec = record(0, &[]);
+        rec.stats = ChipStats::of(&chips);
+        let p = String::from_utf8(points_csv(&[rec.clone()], &[])).unwrap();
+        assert!(p.lines().next().unwrap().ends_with(
+            "energy_per_decision_j,program_cycles_per_element,program_unverified_frac,\
+             program_time_mean_s"
+        ));
+        let s = rec.summary().programming.unwrap();
+        assert!((s[0] - 310.0 / 200.0).abs() < 1e-12);
+        assert!((s[1] - 1.0 / 200.0).abs() < 1e-12);
+        assert!((s[2] - 155e-6).abs() < 1e-15);
+        let mut ch = chips_csv_header_with(&[], true);
+        ch.extend(chip_rows_csv(0, &[], &chips));
+        let ch = String::from_utf8(ch).unwrap();
+        assert!(ch.lines().next().unwrap().ends_with(
+            "failed_noise,program_elements,program_cycles,program_unverified,program_time_s"
+        ));
+        for (line, row) in ch.lines().skip(1).zip(&chips) {
+            assert_eq!(parse_chip_line(line, 0).as_ref(), Some(row));
+        }
+        // Without programming nothing changes.
+        let plain = String::from_utf8(points_csv(&[record(0, &[0.9])], &[])).unwrap();
+        assert!(!plain.contains("program_"));
     }
 
     /// The online statistics against a direct computation over all chips at once: mean and

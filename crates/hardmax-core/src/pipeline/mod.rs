@@ -60,6 +60,8 @@ pub enum PipelineError {
     Competition(#[from] CompetitionError),
     #[error("trim: {0}")]
     Trim(#[from] trim::TrimError),
+    #[error("program-and-verify: {0}")]
+    Verify(#[from] crate::stages::weights::VerifyError),
     #[error("{what} is not a finite number; check the dataset and the weight-stage settings")]
     NonFinite { what: &'static str },
     #[error("{what}")]
@@ -506,6 +508,9 @@ pub struct PointSetup {
     pub mapped: MappedChain,
     /// Post-fabrication trim of the competition stage's lines ([`PointSetup::with_trim`]).
     pub trim: Option<TrimSetup>,
+    /// Program-and-verify of the weight elements ([`PointSetup::with_program_verify`]);
+    /// `None` = one-shot programming.
+    pub program_verify: Option<crate::stages::weights::ProgramVerify>,
 }
 
 /// A trim design with its calibration level (model notes §11, *Trim*).
@@ -584,7 +589,22 @@ impl PointSetup {
             design,
             mapped,
             trim: None,
+            program_verify: None,
         })
+    }
+
+    /// This point with its weight elements programmed and verified (model notes §5.1): every
+    /// stage's element must be a linear one.
+    pub fn with_program_verify(
+        mut self,
+        pv: crate::stages::weights::ProgramVerify,
+    ) -> Result<Self, PipelineError> {
+        pv.validate()?;
+        for s in self.mapped.stages() {
+            pv.check_element(&s.design().element)?;
+        }
+        self.program_verify = Some(pv);
+        Ok(self)
     }
 
     /// This point with a trim DAC per competition line, calibrated at the nominal chain's mean
@@ -987,6 +1007,8 @@ pub struct ChipOutcome {
     pub chip_error: Option<String>,
     /// The first failed decision's reason (solver or compliance), if any.
     pub first_failure: Option<String>,
+    /// What programming the die's weights cost (program-and-verify only).
+    pub programming: Option<crate::stages::weights::ProgramCounts>,
 }
 
 impl ChipOutcome {
@@ -1004,6 +1026,7 @@ impl ChipOutcome {
             timed: 0,
             chip_error: None,
             first_failure: None,
+            programming: None,
         }
     }
 
@@ -1255,6 +1278,21 @@ pub const COMPETITION_STREAM: u64 = 1000;
 /// Stream index of the hidden normaliser circuit's chip draws.
 pub const HIDDEN_CIRCUIT_STREAM: u64 = 1001;
 
+/// Program-and-verify a die's weight elements: element `i` of array `a` of stage `k` draws
+/// from `[CHIP, (point,) chip, VERIFY_STREAM + k, a, i]`.
+fn program_verify(
+    wchip: &mut crate::stages::weights::ChainChip,
+    pv: &crate::stages::weights::ProgramVerify,
+    seed: u64,
+    dies: Dies,
+    chip: u64,
+) -> Result<crate::stages::weights::ProgramCounts, PipelineError> {
+    use crate::stages::weights::verify::VERIFY_STREAM;
+    Ok(wchip.program_verify(pv, |k, a, i| {
+        dies.stream(seed, domain::CHIP, &[chip, VERIFY_STREAM + k, a, i])
+    })?)
+}
+
 /// Sample the competition chip of a design from its chip stream (`None` for the exact argmax).
 /// Its Pelgrom draws are multiplied by `mismatch` (the draws are made whatever the scale).
 pub fn sample_competition(
@@ -1440,6 +1478,9 @@ pub fn sample_die(
     let mut wchip = setup.mapped.sample_chip(&d.process, |k| {
         dies.stream(seed, domain::CHIP, &[chip, k as u64])
     });
+    if let Some(pv) = &setup.program_verify {
+        program_verify(&mut wchip, pv, seed, dies, chip)?;
+    }
     // The die as trimmed (the same calibration as `evaluate_chip_with`).
     let mut die_trim = setup.trim.as_ref().map(|_| DieTrim::default());
     if let Some(t) = setup.trim.as_ref().filter(|t| t.design.columns) {
@@ -1562,6 +1603,20 @@ pub fn evaluate_chip_with(
     let mut wchip = setup.mapped.sample_chip(&weight_process, |k| {
         dies.stream(seed, domain::CHIP, &[chip, k as u64])
     });
+    // Program-and-verify after the one-shot write (its own streams; none drawn when off).
+    if let Some(pv) = &setup.program_verify {
+        match program_verify(&mut wchip, pv, seed, dies, chip) {
+            Ok(c) => out.programming = Some(c),
+            Err(e) => {
+                let kind = FailureKind::of_pipeline(&e);
+                for (&t, &ideal) in prep.test_y.iter().zip(&prep.ideal_pred) {
+                    out.record(DecisionOutcome::Failed(kind), t, ideal);
+                }
+                out.chip_error = Some(e.to_string());
+                return out;
+            }
+        }
+    }
     let mut chip_rng = dies.stream(seed, domain::CHIP, &[chip, COMPETITION_STREAM]);
     let built = (|| -> Result<_, PipelineError> {
         // Column trim: calibrated on this die's first weight stage before anything runs; its

@@ -635,6 +635,8 @@ pub fn for_each_chip<R: std::io::Read>(
                 samples: count("samples")?,
                 decision_time_mean_s: cols.opt_f64(rec, line, col("decision_time_mean_s"))?,
                 energy_mean_j: cols.opt_f64(rec, line, col("energy_mean_j"))?,
+                // The report reads the program-and-verify figures from points.csv.
+                programming: None,
             },
         });
     }

@@ -561,6 +561,17 @@ fn provenance(folder: &ResultsFolder) -> String {
         ),
     );
     item("master seed", manifest_int(m.seed, "seed"));
+    if let Some(p) = &m.programming {
+        item(
+            "weight programming",
+            esc(&format!(
+                "program-and-verify: accepted within {} of the element range, at most {} \
+                 write-read cycles per element, verify read noise {} of the range, {:e} s per \
+                 cycle (swept values: see the sweep); cost per point in the program_* columns",
+                p.tolerance, p.max_cycles, p.read_noise, p.cycle_time_s
+            )),
+        );
+    }
     item("command", format!("<code>{}</code>", esc(&m.command)));
     item(
         "host",

@@ -215,6 +215,19 @@ pub struct ChainChip {
 }
 
 impl ChainChip {
+    /// Program-and-verify every stage's elements (see [`super::verify`]); element `i` of array
+    /// `a` of stage `k` draws from `stream_for(k, a, i)`. Returns the summed cycles.
+    pub fn program_verify<R: Rng>(
+        &mut self,
+        pv: &super::verify::ProgramVerify,
+        mut stream_for: impl FnMut(u64, u64, u64) -> R,
+    ) -> std::result::Result<super::verify::ProgramCounts, super::verify::VerifyError> {
+        let mut counts = super::verify::ProgramCounts::default();
+        for (k, s) in self.stages.iter_mut().enumerate() {
+            counts.merge(&s.program_verify(pv, |a, i| stream_for(k as u64, a, i))?);
+        }
+        Ok(counts)
+    }
     /// The stage chips.
     pub fn stages(&self) -> &[WeightStageChip] {
         &self.stages

@@ -28,6 +28,7 @@ pub mod error;
 pub mod input;
 pub mod mapping;
 pub mod stage;
+pub mod verify;
 
 use serde::{Deserialize, Serialize};
 
@@ -44,6 +45,7 @@ pub use error::WeightStageError;
 pub use input::{InputDesign, Quantiser, MAX_DAC_BITS};
 pub use mapping::{default_mirror, MappedStage, OffsetSetting, SignedEncoding, WeightStageDesign};
 pub use stage::{mirror_gain, WeightStageChip};
+pub use verify::{ProgramCounts, ProgramVerify, VerifyError};
 
 /// What a chip sees when it runs.
 #[derive(Clone, Copy, Debug, PartialEq, Serialize, Deserialize)]

@@ -126,6 +126,25 @@ pub fn mirror_gain(
 }
 
 impl WeightStageChip {
+    /// Program-and-verify this chip's elements after their one-shot write (see
+    /// [`super::verify`]): array 0 (positive) then 1 (subtracted); element `i` of array `a`
+    /// draws from `stream_for(a, i)`. Returns the cycles it took.
+    pub fn program_verify<R: Rng>(
+        &mut self,
+        pv: &super::verify::ProgramVerify,
+        mut stream_for: impl FnMut(u64, u64) -> R,
+    ) -> std::result::Result<super::verify::ProgramCounts, super::verify::VerifyError> {
+        let flat_plus: Vec<f64> = self.mapped.plus.iter().copied().collect();
+        let mut counts = pv.array(&mut self.plus, &flat_plus, |i| stream_for(0, i as u64))?;
+        if let (Some(m), Some(chip)) = (self.mapped.minus.as_ref(), self.minus.as_mut()) {
+            let flat: Vec<f64> = m.iter().copied().collect();
+            counts.merge(&pv.array(chip, &flat, |i| stream_for(1, i as u64))?);
+        }
+        Ok(counts)
+    }
+}
+
+impl WeightStageChip {
     /// The mapped stage this chip instantiates.
     pub fn mapped(&self) -> &MappedStage {
         &self.mapped
