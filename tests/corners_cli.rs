@@ -304,3 +304,59 @@ fn stage_reads_a_die_of_a_corner_run() {
     // The same die's sink threshold, shifted by 3 x 15 mV at the fast corner.
     approx::assert_abs_diff_eq!(vt0(&tt) - vt0(&ff), 0.045, epsilon = 1e-9);
 }
+
+/// `hardmax budget` and `hardmax resolve` number the points of a corner experiment as a run's
+/// points.csv does ((design point, corner) pairs), so a budget at point P is the budget at that
+/// corner, not silently at nominal conditions.
+#[test]
+fn budget_and_resolve_number_points_with_their_corner() {
+    let d = tempfile::tempdir().unwrap();
+    let f = write(d.path(), "c.toml", &format!("{BASE}{CORNERS}"));
+    let o = Command::cargo_bin("hardmax")
+        .unwrap()
+        .args(["resolve", f.to_str().unwrap(), "--points"])
+        .output()
+        .unwrap();
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    let text = String::from_utf8_lossy(&o.stdout);
+    // 2 design points x 3 process corners x 2 temperatures.
+    assert!(text.contains("12 sweep point(s)"), "{text}");
+    assert!(text.contains("# point 3: "), "{text}");
+    let line = text.lines().find(|l| l.starts_with("# point 3: ")).unwrap();
+    assert!(line.contains("corner = ff / 350 K"), "{line}");
+    let o = Command::cargo_bin("hardmax")
+        .unwrap()
+        .args([
+            "budget",
+            f.to_str().unwrap(),
+            "--point",
+            "3",
+            "--chips",
+            "3",
+        ])
+        .args(["--threads", "2", "--out"])
+        .arg(d.path().join("budget"))
+        .output()
+        .unwrap();
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    let head = String::from_utf8_lossy(&o.stdout);
+    assert!(head.contains("corner = ff / 350 K"), "{head}");
+    let csv = std::fs::read_to_string(d.path().join("budget").join("budget.csv")).unwrap();
+    assert!(!csv.is_empty());
+    // Beyond the (point, corner) pairs: refused with the count.
+    Command::cargo_bin("hardmax")
+        .unwrap()
+        .args([
+            "budget",
+            f.to_str().unwrap(),
+            "--point",
+            "12",
+            "--chips",
+            "3",
+        ])
+        .args(["--out"])
+        .arg(d.path().join("budget2"))
+        .assert()
+        .failure()
+        .stderr(predicates::str::contains("12"));
+}

@@ -6,7 +6,8 @@ use anyhow::Context;
 use clap::Args;
 
 use crate::experiment::budget::{dies_csv, run_budget, BudgetOptions};
-use crate::experiment::config::load;
+// Corner-aware: with a `[corners]` table, point P is (design point, corner) as in a run's points.csv.
+use crate::experiment::corners::load_run as load;
 use crate::io::write_atomic;
 use hardmax_report::report::budget::{budget_csv, budget_html, budget_svg, stdout_table};
 

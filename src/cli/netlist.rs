@@ -15,7 +15,8 @@ use clap::Args;
 use serde::{Deserialize, Serialize};
 
 use crate::experiment::build::{build_point, prepare_data};
-use crate::experiment::config::load;
+// Corner-aware: with a `[corners]` table, point P is (design point, corner) as in a run's points.csv.
+use crate::experiment::corners::load_run as load;
 use crate::experiment::runner::experiment_hash;
 use crate::io::write_atomic;
 use crate::netlist::{

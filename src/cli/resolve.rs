@@ -4,7 +4,8 @@ use std::path::PathBuf;
 
 use clap::Args;
 
-use crate::experiment::config::load;
+// Corner-aware: with a `[corners]` table, point P is (design point, corner) as in a run's points.csv.
+use crate::experiment::corners::load_run as load;
 
 #[derive(Debug, Args)]
 pub struct ResolveArgs {
