@@ -284,6 +284,10 @@ pub struct HardwareTraining {
     /// without injection or before two windows ran).
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub window_decrease: Option<f64>,
+    /// Whether the hidden stage was trained together with the read-out
+    /// (`training.hardware.train_hidden`; absent, false, in a folder written before).
+    #[serde(default, skip_serializing_if = "std::ops::Not::not")]
+    pub hidden_trained: bool,
 }
 
 /// A manifest that cannot be read; each names the file and says what to do.
