@@ -573,4 +573,24 @@ mod tests {
         let e = Manifest::parse(&text, Path::new("m.json")).unwrap_err();
         assert!(e.to_string().contains("key `status`"), "{e}");
     }
+
+    /// A trainer record written before `hidden_trained` existed reads as false, and a false
+    /// flag is not written (folders of runs that keep the hidden layer fixed are unchanged).
+    #[test]
+    fn hidden_trained_defaults_to_false_and_is_not_written_when_false() {
+        let old = r#"{"point":1,"trainer":"hardware_aware","epochs":60,"steps":120,
+            "objective":91.5,"gradient_norm":3.0,"converged":false}"#;
+        let t: HardwareTraining = serde_json::from_str(old).unwrap();
+        assert!(!t.hidden_trained);
+        assert!(!serde_json::to_string(&t)
+            .unwrap()
+            .contains("hidden_trained"));
+        let joint = HardwareTraining {
+            hidden_trained: true,
+            ..t
+        };
+        let back: HardwareTraining =
+            serde_json::from_str(&serde_json::to_string(&joint).unwrap()).unwrap();
+        assert!(back.hidden_trained);
+    }
 }

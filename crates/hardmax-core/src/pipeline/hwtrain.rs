@@ -394,3 +394,74 @@ pub fn prepare_hardware_aware_joint(
     )?;
     retrain_joint(&prep, dataset, test_fraction, split_seed, trainer, hs)
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::stages::weights::HiddenNonlinearity;
+    use crate::training::LogisticOptions;
+
+    /// The joint trainer's hidden forward pass (its closed form of the normaliser, shares
+    /// `I_k^g / sum_j I_j^g`, Lazzaro et al. 1989, model notes §4) is the pipeline's ideal
+    /// hidden chain: with nothing rounded or drawn, the joint objective at the fixed hidden
+    /// layer equals the read-out objective on the shares the mapped chain and
+    /// `HiddenNonlinearity::normalise_in_place` give (iris, 6 hidden lines; relative 1e-9,
+    /// rounding only; the input DAC is off because the trainer does not model it).
+    #[test]
+    fn joint_forward_is_the_pipelines_hidden_chain() {
+        let ds = Dataset::builtin("iris").unwrap();
+        let mut stage = WeightStageDesign::default();
+        stage.input.dac_bits = None;
+        let ElementDesign::Linear(lin) = &stage.element else {
+            unreachable!("the default element is linear")
+        };
+        let element = ElementModel {
+            w_min: lin.w_min,
+            w_max: lin.w_max,
+            range_use: stage.range_use,
+            levels: None,
+            spacing: LevelSpacing::Linear,
+        };
+        let spec = super::super::HiddenSpec {
+            units: 6,
+            nonlinearity: HiddenNonlinearity::PowerLawNormaliser {
+                exponent: 3.0,
+                bias_current_a: 1e-7,
+            },
+            seed: 4,
+            stage,
+            readout: LogisticOptions::default(),
+            given: None,
+        };
+        let prep = prepare(&ds, 0.3, 1, false, &LogisticOptions::default(), Some(&spec)).unwrap();
+        let (train, _, _) = crate::data::stratified_split_allowing_untested(&ds, 0.3, 1).unwrap();
+        let u = MinMaxScaler::fit(train.x.view())
+            .unwrap()
+            .transform(train.x.view())
+            .unwrap();
+        let (w1, b1) = &prep.layers[0];
+        let h = super::super::hidden_features(&spec, w1, b1, &u).unwrap();
+        let aug = |(w, b): &(Array2<f64>, ndarray::Array1<f64>)| {
+            let mut a = Array2::zeros((w.nrows(), w.ncols() + 1));
+            a.slice_mut(s![.., ..w.ncols()]).assign(w);
+            a.column_mut(w.ncols()).assign(b);
+            a
+        };
+        let trainer = HardwareAwareTrainer::new(
+            HardwareAwareOptions::default(),
+            SoftCompetition::PowerLaw { gain: 5.0 },
+            Some(element.clone()),
+        )
+        .unwrap();
+        let hs = HiddenStageModel {
+            element,
+            gain: 3.0,
+            weight_mismatch: 0.0,
+            programming_error: 0.0,
+        };
+        let (a1, a0) = (aug(&prep.layers[0]), aug(&prep.layers[1]));
+        let joint = trainer.joint_objective(&hs, a1.view(), a0.view(), u.view(), &train.y);
+        let readout = trainer.objective(a0.view(), h.view(), &train.y);
+        approx::assert_relative_eq!(joint, readout, max_relative = 1e-9);
+    }
+}
