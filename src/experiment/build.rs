@@ -215,6 +215,7 @@ pub fn hardware_training(e: &Experiment) -> crate::pipeline::hwtrain::HardwareTr
                 crate::training::Rounding::Stochastic
             }
         },
+        train_hidden: h.train_hidden,
     }
 }
 
@@ -247,6 +248,7 @@ fn hardware_keyed(err: PipelineError, fallback: &'static str) -> BuildError {
                 "competition_offset" => "training.hardware.competition_offset",
                 "l2" => "training.l2",
                 "range_use" => "weights.range_use",
+                "hidden.exponent" => "hidden.exponent",
                 "levels" => "weights.levels",
                 _ => fallback,
             }
@@ -269,17 +271,48 @@ pub fn prepare_hardware_aware(
     hidden: Option<&HiddenSpec>,
 ) -> Result<(Prepared, crate::training::HardwareTrained), BuildError> {
     let trainer = hardware_trainer(e, ds.n_classes())?;
-    crate::pipeline::hwtrain::prepare_hardware_aware(
-        ds,
-        e.dataset.test_fraction,
-        e.dataset.split_seed,
-        e.dataset.allow_untested_classes,
-        float,
-        &trainer,
-        hidden,
-    )
-    .map_err(|err| match err {
+    let hw = hardware_training(e);
+    let result = match (hw.train_hidden, hidden) {
+        (false, _) => crate::pipeline::hwtrain::prepare_hardware_aware(
+            ds,
+            e.dataset.test_fraction,
+            e.dataset.split_seed,
+            e.dataset.allow_untested_classes,
+            float,
+            &trainer,
+            hidden,
+        ),
+        (true, None) => Err(PipelineError::Unsupported {
+            what: "training.hardware.train_hidden = true needs a hidden stage (hidden.units > \
+                   0): set it to false, or add a hidden stage",
+        }),
+        (true, Some(spec)) => {
+            let d = design(e, ds.n_classes())?;
+            let hs = crate::pipeline::hwtrain::hidden_model_for(
+                spec,
+                &d.competition,
+                &d.process,
+                d.conditions.temperature_k,
+                &hw,
+            )
+            .map_err(|err| hardware_keyed(err, "training.hardware.train_hidden"))?;
+            crate::pipeline::hwtrain::prepare_hardware_aware_joint(
+                ds,
+                e.dataset.test_fraction,
+                e.dataset.split_seed,
+                e.dataset.allow_untested_classes,
+                float,
+                &trainer,
+                hidden,
+                &hs,
+            )
+        }
+    };
+    result.map_err(|err| match err {
         err @ PipelineError::Training(_) => hardware_keyed(err, "training.hardware"),
+        err @ PipelineError::Unsupported { .. } if hw.train_hidden => {
+            hardware_keyed(err, "training.hardware.train_hidden")
+        }
         err @ PipelineError::Unsupported { .. } => hardware_keyed(err, "training.trainer"),
         other => other.into(),
     })

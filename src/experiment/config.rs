@@ -188,6 +188,10 @@ pub struct HardwareTrainingCfg {
     /// or `stochastic` (DEVELOPERS.md model notes §6.2).
     #[serde(skip_serializing_if = "RoundingCfg::is_nearest")]
     pub rounding: RoundingCfg,
+    /// Train the hidden stage together with the read-out, through its normaliser
+    /// (DEVELOPERS.md model notes §6.2); false (the default) keeps the hidden layer fixed.
+    #[serde(skip_serializing_if = "std::ops::Not::not")]
+    pub train_hidden: bool,
 }
 
 /// `training.hardware.rounding`.
@@ -218,6 +222,7 @@ impl Default for HardwareTrainingCfg {
             competition_offset: None,
             quantise: true,
             rounding: RoundingCfg::Nearest,
+            train_hidden: false,
         }
     }
 }

@@ -269,6 +269,11 @@ pub fn run(
                         converged: d.converged,
                         termination: t.termination.as_str().into(),
                         window_decrease: t.window_decrease,
+                        hidden_trained: e
+                            .training
+                            .hardware
+                            .as_ref()
+                            .is_some_and(|h| h.train_hidden),
                     });
                 }
                 let p = std::sync::Arc::new(p);

@@ -334,6 +334,10 @@ pub struct HardwareTraining {
     /// without injection or before two windows ran).
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub window_decrease: Option<f64>,
+    /// Whether the hidden stage was trained together with the read-out
+    /// (`training.hardware.train_hidden`; absent, false, in a folder written before).
+    #[serde(default, skip_serializing_if = "std::ops::Not::not")]
+    pub hidden_trained: bool,
 }
 
 /// A manifest that cannot be read; each names the file and says what to do.
@@ -619,5 +623,25 @@ mod tests {
         let text = String::from_utf8(m.to_bytes()).unwrap();
         let e = Manifest::parse(&text, Path::new("m.json")).unwrap_err();
         assert!(e.to_string().contains("key `status`"), "{e}");
+    }
+
+    /// A trainer record written before `hidden_trained` existed reads as false, and a false
+    /// flag is not written (folders of runs that keep the hidden layer fixed are unchanged).
+    #[test]
+    fn hidden_trained_defaults_to_false_and_is_not_written_when_false() {
+        let old = r#"{"point":1,"trainer":"hardware_aware","epochs":60,"steps":120,
+            "objective":91.5,"gradient_norm":3.0,"converged":false}"#;
+        let t: HardwareTraining = serde_json::from_str(old).unwrap();
+        assert!(!t.hidden_trained);
+        assert!(!serde_json::to_string(&t)
+            .unwrap()
+            .contains("hidden_trained"));
+        let joint = HardwareTraining {
+            hidden_trained: true,
+            ..t
+        };
+        let back: HardwareTraining =
+            serde_json::from_str(&serde_json::to_string(&joint).unwrap()).unwrap();
+        assert!(back.hidden_trained);
     }
 }

@@ -12,8 +12,9 @@ use crate::device::mismatch::{device_sigma_beta_rel, device_sigma_vt0};
 use crate::physics::thermal_voltage;
 use crate::stages::weights::{ElementDesign, SigmaKind, SignedEncoding, WeightStageDesign};
 use crate::training::{
-    accuracy, ElementModel, HardwareAwareOptions, HardwareAwareTrainer, HardwareTrained, Injection,
-    LevelSpacing, LinearClassifier, Rounding, SoftCompetition, Trainer,
+    accuracy, ElementModel, HardwareAwareOptions, HardwareAwareTrainer, HardwareTrained,
+    HiddenStageModel, Injection, LevelSpacing, LinearClassifier, Rounding, SoftCompetition,
+    Trainer,
 };
 
 /// The hardware-aware trainer's settings: its options, and each injection strength given
@@ -29,6 +30,9 @@ pub struct HardwareTraining {
     pub quantise: bool,
     /// How the forward pass rounds (nearest with a straight-through gradient, or stochastic).
     pub rounding: Rounding,
+    /// Train the hidden stage (when there is one) together with the read-out, through its
+    /// normaliser ([`prepare_hardware_aware_joint`]); false keeps it fixed.
+    pub train_hidden: bool,
 }
 
 /// The strengths of the design's own nonidealities, as the trainer injects them:
@@ -240,4 +244,224 @@ pub fn prepare_hardware_aware(
         hidden,
     )?;
     retrain(&prep, dataset, test_fraction, split_seed, trainer)
+}
+
+/// The hidden stage as the joint trainer sees it: its element under the shifted encoding, its
+/// normaliser's exponent, and its elements' injected strengths (given in `spec`, else the
+/// hidden stage design's own, [`design_injection`]).
+pub fn hidden_model_for(
+    hidden: &super::HiddenSpec,
+    competition: &CompetitionDesign,
+    process: &crate::device::Process,
+    temperature_k: f64,
+    spec: &HardwareTraining,
+) -> Result<HiddenStageModel, PipelineError> {
+    let stage = &hidden.stage;
+    if !matches!(stage.encoding, SignedEncoding::Shifted) {
+        return Err(PipelineError::Unsupported {
+            what: "training the hidden stage places its weights with the shifted encoding: use \
+                   weights.encoding = \"shifted\", or training.hardware.train_hidden = false",
+        });
+    }
+    let element = match &stage.element {
+        ElementDesign::Linear(e) => ElementModel {
+            w_min: e.w_min,
+            w_max: e.w_max,
+            range_use: stage.range_use,
+            levels: e.levels,
+            spacing: LevelSpacing::Linear,
+        },
+        ElementDesign::Subthreshold(e) => ElementModel {
+            w_min: e.w_min,
+            w_max: e.w_max,
+            range_use: stage.range_use,
+            levels: e.levels,
+            spacing: LevelSpacing::Logarithmic,
+        },
+    };
+    let super::HiddenNonlinearity::PowerLawNormaliser { exponent, .. } = hidden.nonlinearity;
+    let (m, p, _) = design_injection(stage, competition, process, temperature_k);
+    let model = HiddenStageModel {
+        element,
+        gain: exponent,
+        weight_mismatch: spec.weight_mismatch.unwrap_or(m),
+        programming_error: spec.programming_error.unwrap_or(p),
+    };
+    model.validate()?;
+    Ok(model)
+}
+
+/// Retrain `prep`'s hidden stage and read-out together through the design (model notes §6.2),
+/// starting from the fixed hidden layer and the float read-out. The trained hidden layer
+/// replaces the fixed one exactly as a hidden layer given from a file would (the same chain
+/// mapping, range and levels); a hidden layer whose levels cannot hold its signs is refused
+/// (`range_use`). `dataset`, `test_fraction` and `split_seed` must be those `prep` was made
+/// from.
+pub fn retrain_joint(
+    prep: &Prepared,
+    dataset: &Dataset,
+    test_fraction: f64,
+    split_seed: u64,
+    trainer: &HardwareAwareTrainer,
+    hs: &HiddenStageModel,
+) -> Result<(Prepared, HardwareTrained), PipelineError> {
+    let (Some(spec), 2) = (&prep.hidden, prep.layers.len()) else {
+        return Err(PipelineError::Unsupported {
+            what: "training.hardware.train_hidden = true needs a hidden stage (hidden.units > \
+                   0): set it to false, or add a hidden stage",
+        });
+    };
+    let (train, _, _) =
+        crate::data::stratified_split_allowing_untested(dataset, test_fraction, split_seed)?;
+    let scaler = MinMaxScaler::fit(train.x.view())?;
+    let u = scaler.transform(train.x.view())?;
+    let augmented = |(w, b): &(Array2<f64>, ndarray::Array1<f64>)| {
+        let f = w.ncols();
+        let mut a = Array2::zeros((w.nrows(), f + 1));
+        a.slice_mut(s![.., ..f]).assign(w);
+        a.column_mut(f).assign(b);
+        a
+    };
+    let a1 = augmented(&prep.layers[0]);
+    let a0 = augmented(&prep.layers[1]);
+    let joint = trainer.train_joint(
+        hs,
+        u.view(),
+        &train.y,
+        prep.class_names.len(),
+        a1.view(),
+        a0.view(),
+    )?;
+    // The trained hidden matrix must keep its signs on the levels, as the read-out must.
+    let mut t1 = Array2::zeros(a1.raw_dim());
+    let f = joint.hidden_weights.ncols();
+    t1.slice_mut(s![.., ..f]).assign(&joint.hidden_weights);
+    t1.column_mut(f).assign(&joint.hidden_bias);
+    HardwareAwareTrainer::new(
+        trainer.options().clone(),
+        SoftCompetition::PowerLaw { gain: hs.gain },
+        Some(hs.element.clone()),
+    )?
+    .check_expressible(t1.view())?;
+    let mut out = prep.clone();
+    out.layers = vec![
+        (joint.hidden_weights.clone(), joint.hidden_bias.clone()),
+        (joint.readout.weights.clone(), joint.readout.bias.clone()),
+    ];
+    // Ideal argmax of the whole mapped chain, as `prepare_hidden` makes it.
+    let chain = super::chain_design(&spec.stage, 2, Some(spec))
+        .map(
+            &out.layers
+                .iter()
+                .map(|(w, b)| (w.view(), b.view()))
+                .collect::<Vec<_>>(),
+        )?
+        .ideal();
+    let mut scratch = chain.scratch();
+    let mut o = vec![0.0; prep.class_names.len()];
+    let mut pred = Vec::with_capacity(prep.test_u.nrows());
+    for row in prep.test_u.outer_iter() {
+        chain.forward_noiseless(&row.to_vec(), &mut scratch, &mut o)?;
+        pred.push(crate::training::argmax(&o).ok_or(PipelineError::NonFinite {
+            what: "an ideal output of the hidden chain",
+        })?);
+    }
+    out.ideal_acc = accuracy(&pred, &out.test_y);
+    out.ideal_pred = pred;
+    Ok((out, joint.readout))
+}
+
+/// [`prepare_hardware_aware`] with the hidden stage trained together with the read-out
+/// ([`retrain_joint`]).
+#[allow(clippy::too_many_arguments)]
+pub fn prepare_hardware_aware_joint(
+    dataset: &Dataset,
+    test_fraction: f64,
+    split_seed: u64,
+    allow_untested_classes: bool,
+    float_trainer: &dyn Trainer,
+    trainer: &HardwareAwareTrainer,
+    hidden: Option<&super::HiddenSpec>,
+    hs: &HiddenStageModel,
+) -> Result<(Prepared, HardwareTrained), PipelineError> {
+    let prep = prepare(
+        dataset,
+        test_fraction,
+        split_seed,
+        allow_untested_classes,
+        float_trainer,
+        hidden,
+    )?;
+    retrain_joint(&prep, dataset, test_fraction, split_seed, trainer, hs)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::stages::weights::HiddenNonlinearity;
+    use crate::training::LogisticOptions;
+
+    /// The joint trainer's hidden forward pass (its closed form of the normaliser, shares
+    /// `I_k^g / sum_j I_j^g`, Lazzaro et al. 1989, model notes §4) is the pipeline's ideal
+    /// hidden chain: with nothing rounded or drawn, the joint objective at the fixed hidden
+    /// layer equals the read-out objective on the shares the mapped chain and
+    /// `HiddenNonlinearity::normalise_in_place` give (iris, 6 hidden lines; relative 1e-9,
+    /// rounding only; the input DAC is off because the trainer does not model it).
+    #[test]
+    fn joint_forward_is_the_pipelines_hidden_chain() {
+        let ds = Dataset::builtin("iris").unwrap();
+        let mut stage = WeightStageDesign::default();
+        stage.input.dac_bits = None;
+        let ElementDesign::Linear(lin) = &stage.element else {
+            unreachable!("the default element is linear")
+        };
+        let element = ElementModel {
+            w_min: lin.w_min,
+            w_max: lin.w_max,
+            range_use: stage.range_use,
+            levels: None,
+            spacing: LevelSpacing::Linear,
+        };
+        let spec = super::super::HiddenSpec {
+            units: 6,
+            nonlinearity: HiddenNonlinearity::PowerLawNormaliser {
+                exponent: 3.0,
+                bias_current_a: 1e-7,
+            },
+            seed: 4,
+            stage,
+            readout: LogisticOptions::default(),
+            given: None,
+        };
+        let prep = prepare(&ds, 0.3, 1, false, &LogisticOptions::default(), Some(&spec)).unwrap();
+        let (train, _, _) = crate::data::stratified_split_allowing_untested(&ds, 0.3, 1).unwrap();
+        let u = MinMaxScaler::fit(train.x.view())
+            .unwrap()
+            .transform(train.x.view())
+            .unwrap();
+        let (w1, b1) = &prep.layers[0];
+        let h = super::super::hidden_features(&spec, w1, b1, &u).unwrap();
+        let aug = |(w, b): &(Array2<f64>, ndarray::Array1<f64>)| {
+            let mut a = Array2::zeros((w.nrows(), w.ncols() + 1));
+            a.slice_mut(s![.., ..w.ncols()]).assign(w);
+            a.column_mut(w.ncols()).assign(b);
+            a
+        };
+        let trainer = HardwareAwareTrainer::new(
+            HardwareAwareOptions::default(),
+            SoftCompetition::PowerLaw { gain: 5.0 },
+            Some(element.clone()),
+        )
+        .unwrap();
+        let hs = HiddenStageModel {
+            element,
+            gain: 3.0,
+            weight_mismatch: 0.0,
+            programming_error: 0.0,
+        };
+        let (a1, a0) = (aug(&prep.layers[0]), aug(&prep.layers[1]));
+        let joint = trainer.joint_objective(&hs, a1.view(), a0.view(), u.view(), &train.y);
+        let readout = trainer.objective(a0.view(), h.view(), &train.y);
+        approx::assert_relative_eq!(joint, readout, max_relative = 1e-9);
+    }
 }

@@ -639,6 +639,21 @@ impl HardwareAwareTrainer {
         draw: Option<&Draw>,
         data_scale: f64,
     ) -> (f64, Array2<f64>) {
+        let (loss, g, _) = self.loss_grad_dx(a, x, y, draw, data_scale, false);
+        (loss, g)
+    }
+
+    /// [`Self::loss_grad`], and with `want_dx` (chip model only) also the data term's gradient
+    /// in the inputs `x` (times `data_scale`): dL/dx = dL/dI T' (currents I = x T'^T).
+    fn loss_grad_dx(
+        &self,
+        a: &Array2<f64>,
+        x: ArrayView2<'_, f64>,
+        y: &[usize],
+        draw: Option<&Draw>,
+        data_scale: f64,
+        want_dx: bool,
+    ) -> (f64, Array2<f64>, Option<Array2<f64>>) {
         let f = a.ncols() - 1;
         let l2 = self.options.l2;
         let Some(e) = &self.element else {
@@ -649,7 +664,7 @@ impl HardwareAwareTrainer {
             let mut w = g.slice_mut(s![.., ..f]);
             w.scaled_add(l2, &a.slice(s![.., ..f]));
             let pen = 0.5 * l2 * a.slice(s![.., ..f]).iter().map(|v| v * v).sum::<f64>();
-            return (loss * data_scale + pen, g);
+            return (loss * data_scale + pen, g, None);
         };
         let gain = match self.competition {
             SoftCompetition::PowerLaw { gain } => gain,
@@ -712,6 +727,7 @@ impl HardwareAwareTrainer {
                 0.0
             }
         });
+        let dx = want_dx.then(|| d.dot(&tn) * data_scale);
         let mut gp = match &brackets {
             // Stochastic rounding: dE[L]/dT = (L(hi) - L(lo)) / (hi - lo) per element.
             Some((lo, hi, tq)) => {
@@ -758,7 +774,405 @@ impl HardwareAwareTrainer {
         let (jj, ii) = argmax;
         ga[(jj, ii)] -= gm;
         ga[(argmin[ii], ii)] += gm;
-        (loss * data_scale + pen, ga)
+        (loss * data_scale + pen, ga, dx)
+    }
+}
+
+/// A hidden stage trained jointly with the read-out ([`HardwareAwareTrainer::train_joint`]):
+/// its element under the shifted encoding, the exponent of its power-law normaliser and the
+/// strengths of its own injected element draws.
+#[derive(Debug, Clone, PartialEq)]
+pub struct HiddenStageModel {
+    pub element: ElementModel,
+    /// Exponent g_h of the normaliser's shares `I_k^g_h / sum_j I_j^g_h` (> 0).
+    pub gain: f64,
+    /// Relative sigma of each hidden element's value (>= 0).
+    pub weight_mismatch: f64,
+    /// Sigma of each hidden element's programming error, in units of its range (>= 0).
+    pub programming_error: f64,
+}
+
+/// What the joint trainer returns: the hidden stage's canonical weights and biases, and the
+/// read-out's result (its diagnostics are the joint objective's).
+#[derive(Debug, Clone, PartialEq)]
+pub struct JointTrained {
+    /// Hidden weights (units x features), acting on [0, 1] inputs.
+    pub hidden_weights: Array2<f64>,
+    /// Hidden biases (one per hidden line).
+    pub hidden_bias: Array1<f64>,
+    /// The read-out (acting on the hidden shares) and how the optimiser ended.
+    pub readout: HardwareTrained,
+}
+
+/// One hidden-stage forward pass, kept for the backward pass.
+struct HiddenPass {
+    p: Array2<f64>,
+    argmin: Vec<usize>,
+    m: f64,
+    argmax: (usize, usize),
+    mult: Option<Array2<f64>>,
+    currents: Array2<f64>,
+    floor: f64,
+    shares: Array2<f64>,
+}
+
+/// One chip's draws of the hidden stage's elements: (E_1, E_2), standard normals.
+struct HiddenDraw {
+    mismatch: Array2<f64>,
+    programming: Array2<f64>,
+}
+
+impl HiddenStageModel {
+    /// Refuse a non-positive exponent or a negative strength, naming it.
+    pub fn validate(&self) -> Result<(), TrainingError> {
+        if !(self.gain.is_finite() && self.gain > 0.0) {
+            return Err(bad(
+                "hidden.exponent",
+                self.gain,
+                "the hidden normaliser's exponent must be positive",
+            ));
+        }
+        for (key, v) in [
+            ("weight_mismatch", self.weight_mismatch),
+            ("programming_error", self.programming_error),
+        ] {
+            if !(v.is_finite() && v >= 0.0) {
+                return Err(bad(key, v, "use a strength >= 0 (0 switches it off)"));
+            }
+        }
+        Ok(())
+    }
+
+    /// Shares of the hidden normaliser for augmented inputs `x` (samples x (features + 1)):
+    /// `T` from the canonical form of `a1`, rounded to the nearest level when `quantise`, the
+    /// draw applied, currents `I = x T'^T`, shares `softmax(g_h ln I)` (the closed form of
+    /// `HiddenNonlinearity::normalise_in_place`).
+    fn forward(
+        &self,
+        a1: &Array2<f64>,
+        x: ArrayView2<'_, f64>,
+        quantise: bool,
+        draw: Option<&HiddenDraw>,
+    ) -> HiddenPass {
+        let e = &self.element;
+        let (p, argmin, m, argmax) = canonical(a1);
+        let span = e.span();
+        let t = p.mapv(|v| e.w_min + span * v);
+        let tq = if quantise {
+            t.mapv(|v| e.quantise(v))
+        } else {
+            t
+        };
+        let (tn, mult) = match draw {
+            Some(d) => {
+                let mult = d.mismatch.mapv(|z| 1.0 + self.weight_mismatch * z);
+                let tn = &tq * &mult
+                    + &(d
+                        .programming
+                        .mapv(|z| z * self.programming_error * (e.w_max - e.w_min)));
+                (tn, Some(mult))
+            }
+            None => (tq, None),
+        };
+        let currents = x.dot(&tn.t());
+        let floor = 1e-12 * (e.w_max * x.ncols() as f64).max(1e-300);
+        let mut shares = currents.mapv(|i| self.gain * i.max(floor).ln());
+        for mut row in shares.rows_mut() {
+            let max = row.iter().copied().fold(f64::NEG_INFINITY, f64::max);
+            row.mapv_inplace(|v| (v - max).exp());
+            let sum = row.sum();
+            row /= sum;
+        }
+        HiddenPass {
+            p,
+            argmin,
+            m,
+            argmax,
+            mult,
+            currents,
+            floor,
+            shares,
+        }
+    }
+
+    /// Gradient in A_1 from dL/dh (samples x units): through the normaliser's softmax
+    /// Jacobian `dh_k/dz_j = h_k (delta_kj - h_j)`, `dz/dI = g_h / I`, the currents, the draw,
+    /// the (straight-through) rounding and the encoding's canonical map.
+    fn backward(
+        &self,
+        pass: &HiddenPass,
+        x: ArrayView2<'_, f64>,
+        dh: ArrayView2<'_, f64>,
+    ) -> Array2<f64> {
+        let mut di = Array2::zeros(pass.shares.raw_dim());
+        for (r, (h, g)) in pass.shares.rows().into_iter().zip(dh.rows()).enumerate() {
+            let dot = h.dot(&g);
+            for k in 0..h.len() {
+                let i = pass.currents[(r, k)];
+                di[(r, k)] = if i > pass.floor {
+                    h[k] * (g[k] - dot) * self.gain / i
+                } else {
+                    0.0
+                };
+            }
+        }
+        let mut gp = di.t().dot(&x);
+        if let Some(mult) = &pass.mult {
+            gp *= mult;
+        }
+        gp *= self.element.span();
+        canonical_backward(&gp, &pass.p, &pass.argmin, pass.m, pass.argmax)
+    }
+}
+
+/// Gradient in A from the gradient `gp` in the canonical weights P = (A - c) / m
+/// (c_i = A[argmin_i, i], m = A[J, I] - c_I).
+fn canonical_backward(
+    gp: &Array2<f64>,
+    p: &Array2<f64>,
+    argmin: &[usize],
+    m: f64,
+    argmax: (usize, usize),
+) -> Array2<f64> {
+    let mut ga = gp / m;
+    for (i, col) in gp.columns().into_iter().enumerate() {
+        ga[(argmin[i], i)] -= col.sum() / m;
+    }
+    let gm: f64 = gp.iter().zip(p.iter()).map(|(g, pv)| g * pv).sum::<f64>() / m;
+    let (jj, ii) = argmax;
+    ga[(jj, ii)] -= gm;
+    ga[(argmin[ii], ii)] += gm;
+    ga
+}
+
+impl HardwareAwareTrainer {
+    /// The hidden stage's draws from `stream(seed, [TRAINING, sub, index])` (sub 3: optimiser
+    /// steps; sub 4: the stopping rule's fixed chips), or `None` when it injects nothing.
+    fn hidden_draw(
+        &self,
+        hs: &HiddenStageModel,
+        dim: (usize, usize),
+        sub: u64,
+        index: u64,
+    ) -> Option<HiddenDraw> {
+        if hs.weight_mismatch == 0.0 && hs.programming_error == 0.0 {
+            return None;
+        }
+        let mut rng = stream(self.options.seed, &[domain::TRAINING, sub, index]);
+        let mismatch = Array2::random_using(dim, StandardNormal, &mut rng);
+        let programming = Array2::random_using(dim, StandardNormal, &mut rng);
+        Some(HiddenDraw {
+            mismatch,
+            programming,
+        })
+    }
+
+    /// Joint loss (the read-out's objective on the hidden stage's shares; the hidden weights
+    /// carry no l2 term, so it is the read-out-only objective's own function) and its
+    /// gradients in A_1 (hidden) and A_0 (read-out), on augmented inputs `x`.
+    #[allow(clippy::too_many_arguments)]
+    fn joint_loss_grad(
+        &self,
+        hs: &HiddenStageModel,
+        a1: &Array2<f64>,
+        a0: &Array2<f64>,
+        x: ArrayView2<'_, f64>,
+        y: &[usize],
+        draws: (Option<&Draw>, Option<&HiddenDraw>),
+        data_scale: f64,
+    ) -> (f64, Array2<f64>, Array2<f64>) {
+        let pass = hs.forward(a1, x, self.options.injection.quantise, draws.1);
+        let h = augment(pass.shares.view());
+        let (loss, g0, dx) = self.loss_grad_dx(a0, h.view(), y, draws.0, data_scale, true);
+        let units = pass.shares.ncols();
+        let g1 = match dx {
+            Some(dx) => hs.backward(&pass, x, dx.slice(s![.., ..units])),
+            None => Array2::zeros(a1.raw_dim()),
+        };
+        (loss, g1, g0)
+    }
+
+    /// The joint objective (no injection; levels round when asked) of hidden weights `a1` =
+    /// [W_1 | b_1] and read-out `a0` = [W_0 | b_0] on scaled inputs `u`, labels `y`.
+    pub fn joint_objective(
+        &self,
+        hs: &HiddenStageModel,
+        a1: ArrayView2<'_, f64>,
+        a0: ArrayView2<'_, f64>,
+        u: ArrayView2<'_, f64>,
+        y: &[usize],
+    ) -> f64 {
+        let a1 = canonical(&a1.to_owned()).0;
+        let a0 = canonical(&a0.to_owned()).0;
+        self.joint_loss_grad(hs, &a1, &a0, augment(u).view(), y, (None, None), 1.0)
+            .0
+    }
+
+    /// Train the hidden stage and the read-out together (model notes §6.2) on scaled inputs
+    /// `u` (samples x features, in [0, 1]), from `a1` = [W_1 | b_1] (units x (features + 1))
+    /// and `a0` = [W_0 | b_0] (classes x (units + 1)). The same optimiser, schedule, draws
+    /// of the read-out and stopping rules as [`Self::train`]; the hidden stage rounds to the
+    /// nearest level (straight-through) and draws its own elements from `[TRAINING, 3, step]`.
+    pub fn train_joint(
+        &self,
+        hs: &HiddenStageModel,
+        u: ArrayView2<'_, f64>,
+        y: &[usize],
+        n_classes: usize,
+        a1: ArrayView2<'_, f64>,
+        a0: ArrayView2<'_, f64>,
+    ) -> Result<JointTrained, TrainingError> {
+        hs.validate()?;
+        let (n, f) = u.dim();
+        let units = a1.nrows();
+        if self.element.is_none() {
+            return Err(TrainingError::Shape(
+                "joint training of a hidden stage needs the chip model (an element)".into(),
+            ));
+        }
+        if n == 0 || n != y.len() {
+            return Err(TrainingError::Shape(format!(
+                "{n} samples but {} labels; give one label per sample",
+                y.len()
+            )));
+        }
+        if n_classes < 2 || y.iter().any(|&c| c >= n_classes) {
+            return Err(TrainingError::Shape(
+                "labels must be class indices below the class count (at least two classes)".into(),
+            ));
+        }
+        if a1.dim() != (units, f + 1) || units == 0 || a0.dim() != (n_classes, units + 1) {
+            return Err(TrainingError::Shape(format!(
+                "initial weights are {:?} (hidden) and {:?} (read-out), expected {units} x {} \
+                 and {n_classes} x {}",
+                a1.dim(),
+                a0.dim(),
+                f + 1,
+                units + 1
+            )));
+        }
+        if u.iter()
+            .chain(a1.iter())
+            .chain(a0.iter())
+            .any(|v| !v.is_finite())
+        {
+            return Err(TrainingError::Shape(
+                "inputs and initial weights must be finite".into(),
+            ));
+        }
+        self.check_expressible(a0)?;
+        let x = augment(u);
+        let mut a1 = canonical(&a1.to_owned()).0;
+        let mut a0 = canonical(&a0.to_owned()).0;
+        let o = &self.options;
+        let (b1, b2, eps) = (0.9f64, 0.999f64, 1e-8);
+        let mut m = [
+            Array2::<f64>::zeros(a1.raw_dim()),
+            Array2::<f64>::zeros(a0.raw_dim()),
+        ];
+        let mut v = m.clone();
+        let batch = o.batch_size.min(n);
+        let mut order: Vec<usize> = (0..n).collect();
+        let mut step: u64 = 0;
+        let window = (o.epochs / 10).max(1);
+        let mut window_start: Option<(Array2<f64>, Array2<f64>)> = None;
+        let mut epochs_run = 0;
+        let mut termination = Termination::EpochLimit;
+        let injects = o.injection.any() || hs.weight_mismatch > 0.0 || hs.programming_error > 0.0;
+        for epoch in 0..o.epochs {
+            epochs_run = epoch + 1;
+            if o.epochs >= 2 && epoch == o.epochs - window {
+                window_start = Some((a1.clone(), a0.clone()));
+            }
+            let lr = o.learning_rate * (1.0 - 0.9 * f64::from(epoch) / f64::from(o.epochs));
+            order.sort_unstable();
+            order.shuffle(&mut stream(
+                o.seed,
+                &[domain::TRAINING, 0, u64::from(epoch)],
+            ));
+            for chunk in order.chunks(batch) {
+                let xb = x.select(Axis(0), chunk);
+                let yb: Vec<usize> = chunk.iter().map(|&i| y[i]).collect();
+                let d0 = self.draw(n_classes, units + 1, step);
+                let d1 = self.hidden_draw(hs, (units, f + 1), 3, step);
+                let (_, g1, g0) = self.joint_loss_grad(
+                    hs,
+                    &a1,
+                    &a0,
+                    xb.view(),
+                    &yb,
+                    (d0.as_ref(), d1.as_ref()),
+                    n as f64 / chunk.len() as f64,
+                );
+                step += 1;
+                let t = step as i32;
+                let (c1, c2) = (1.0 - b1.powi(t), 1.0 - b2.powi(t));
+                for (k, (a, g)) in [(&mut a1, &g1), (&mut a0, &g0)].into_iter().enumerate() {
+                    ndarray::Zip::from(&mut *a)
+                        .and(&mut m[k])
+                        .and(&mut v[k])
+                        .and(g)
+                        .for_each(|w, m, v, &g| {
+                            *m = b1 * *m + (1.0 - b1) * g;
+                            *v = b2 * *v + (1.0 - b2) * g * g;
+                            *w -= lr * (*m / c1) / ((*v / c2).sqrt() + eps);
+                        });
+                }
+                a1 = canonical(&a1).0;
+                a0 = canonical(&a0).0;
+                if a1.iter().chain(a0.iter()).any(|v| !v.is_finite()) {
+                    return Err(TrainingError::NonFiniteWeights);
+                }
+            }
+            if !injects {
+                let (_, g1, g0) =
+                    self.joint_loss_grad(hs, &a1, &a0, x.view(), y, (None, None), 1.0);
+                if (norm(&g1).powi(2) + norm(&g0).powi(2)).sqrt() <= o.gradient_tolerance {
+                    termination = Termination::GradientTolerance;
+                    break;
+                }
+            }
+        }
+        let mut window_decrease = None;
+        if injects {
+            if let Some((s1, s0)) = &window_start {
+                let (mut lb, mut la) = (0.0, 0.0);
+                for k in 0..PLATEAU_CHIPS {
+                    let d0 = self.draw_keyed(n_classes, units + 1, 2, k);
+                    let d1 = self.hidden_draw(hs, (units, f + 1), 4, k);
+                    let d = (d0.as_ref(), d1.as_ref());
+                    lb += self.joint_loss_grad(hs, s1, s0, x.view(), y, d, 1.0).0;
+                    la += self.joint_loss_grad(hs, &a1, &a0, x.view(), y, d, 1.0).0;
+                }
+                let decrease = (lb - la) / lb.abs().max(1e-300);
+                window_decrease = Some(decrease);
+                if decrease <= o.plateau_tolerance {
+                    termination = Termination::Plateau;
+                }
+            }
+        }
+        let (objective, g1, g0) =
+            self.joint_loss_grad(hs, &a1, &a0, x.view(), y, (None, None), 1.0);
+        let gradient_norm = (norm(&g1).powi(2) + norm(&g0).powi(2)).sqrt();
+        let converged = termination != Termination::EpochLimit;
+        Ok(JointTrained {
+            hidden_weights: a1.slice(s![.., ..f]).to_owned(),
+            hidden_bias: a1.column(f).to_owned(),
+            readout: HardwareTrained {
+                weights: a0.slice(s![.., ..units]).to_owned(),
+                bias: a0.column(units).to_owned(),
+                diagnostics: TrainingDiagnostics {
+                    gradient_norm,
+                    gradient_tolerance: o.gradient_tolerance,
+                    objective,
+                    converged,
+                },
+                epochs_run,
+                steps: step,
+                termination,
+                window_decrease,
+            },
+        })
     }
 }
 
@@ -994,6 +1408,127 @@ mod tests {
                 }
             }
         }
+    }
+
+    /// The hidden stage's element and normaliser for the joint tests.
+    fn hidden_model(gain: f64, drawn: bool) -> HiddenStageModel {
+        HiddenStageModel {
+            element: ElementModel {
+                w_min: 0.05,
+                w_max: 1.0,
+                range_use: 0.9,
+                levels: None,
+                spacing: LevelSpacing::Linear,
+            },
+            gain,
+            weight_mismatch: if drawn { 0.05 } else { 0.0 },
+            programming_error: if drawn { 0.01 } else { 0.0 },
+        }
+    }
+
+    proptest! {
+        #![proptest_config(ProptestConfig::with_cases(16))]
+        // Joint training: the analytic gradients in the hidden weights A_1 (through the
+        // read-out's input gradient, the normaliser's softmax Jacobian and the encoding) and in
+        // the read-out A_0 against central finite differences of the joint loss (the
+        // derivative's definition; error O(h^2), step 1e-6, tolerance 1e-5 relative as in the
+        // read-out's check), with and without fixed injected draws of both stages.
+        #[test]
+        fn joint_gradients_match_finite_differences(
+            seed in 0u64..1000,
+            gain in 2.0f64..40.0,
+            hidden_gain in 1.0f64..8.0,
+            l2 in 0.0f64..1.0,
+        ) {
+            let mut rng = stream(seed, &[98]);
+            let (c, f, h, n) = (3, 4, 5, 7);
+            let a1 = canonical(&Array2::random_using((h, f + 1), StandardNormal, &mut rng)).0;
+            let a0 = canonical(&Array2::random_using((c, h + 1), StandardNormal, &mut rng)).0;
+            let u = Array2::random_using((n, f), rand::distributions::Uniform::new(0.0, 1.0), &mut rng);
+            let x = augment(u.view());
+            let y: Vec<usize> = (0..n).map(|i| i % c).collect();
+            let inj = Injection {
+                weight_mismatch: 0.05,
+                programming_error: 0.01,
+                competition_offset: 0.02,
+                quantise: false,
+                rounding: Rounding::Nearest,
+            };
+            let t = chip_trainer(gain, inj, l2);
+            let hs = hidden_model(hidden_gain, true);
+            let d0 = t.draw(c, h + 1, seed);
+            let d1 = t.hidden_draw(&hs, (h, f + 1), 3, seed);
+            prop_assert!(d0.is_some() && d1.is_some());
+            for d in [(d0.as_ref(), d1.as_ref()), (None, None)] {
+                let (_, g1, g0) = t.joint_loss_grad(&hs, &a1, &a0, x.view(), &y, d, 1.0);
+                let loss = |b1: &Array2<f64>, b0: &Array2<f64>| {
+                    t.joint_loss_grad(&hs, b1, b0, x.view(), &y, d, 1.0).0
+                };
+                let step = 1e-6;
+                for (which, g) in [(0, &g1), (1, &g0)] {
+                    for ((j, i), &an) in g.indexed_iter() {
+                        let (mut p1, mut p0, mut m1, mut m0) =
+                            (a1.clone(), a0.clone(), a1.clone(), a0.clone());
+                        if which == 0 {
+                            p1[(j, i)] += step;
+                            m1[(j, i)] -= step;
+                        } else {
+                            p0[(j, i)] += step;
+                            m0[(j, i)] -= step;
+                        }
+                        let num = (loss(&p1, &p0) - loss(&m1, &m0)) / (2.0 * step);
+                        let tol = 1e-5 * (1.0 + num.abs().max(an.abs()));
+                        prop_assert!((num - an).abs() <= tol,
+                            "stage {which} entry ({j},{i}): analytic {an} vs numeric {num}");
+                    }
+                }
+            }
+        }
+    }
+
+    /// With nothing injected, joint training from a start lowers the joint objective below
+    /// that start and below read-out-only training from the same start (the read-out-only
+    /// optimum is a point of the joint search space); invented data (three Gaussian blobs).
+    #[test]
+    fn joint_training_improves_on_readout_only() {
+        let mut rng = stream(5, &[97]);
+        let (c, f, h, n) = (3, 2, 4, 60);
+        let mut u = Array2::<f64>::zeros((n, f));
+        let y: Vec<usize> = (0..n).map(|i| i % c).collect();
+        let centres = [[0.2, 0.3], [0.7, 0.2], [0.5, 0.8]];
+        let noise: Array2<f64> = Array2::random_using((n, f), StandardNormal, &mut rng);
+        for r in 0..n {
+            for k in 0..f {
+                u[(r, k)] = (centres[y[r]][k] + 0.1 * noise[(r, k)]).clamp(0.0, 1.0);
+            }
+        }
+        let t = chip_trainer(8.0, Injection::default(), 0.3);
+        let hs = hidden_model(2.0, false);
+        let a1 = Array2::random_using((h, f + 1), StandardNormal, &mut rng);
+        let a0 = Array2::random_using((c, h + 1), StandardNormal, &mut rng);
+        let start = t.joint_objective(&hs, a1.view(), a0.view(), u.view(), &y);
+        let shares = hs
+            .forward(&canonical(&a1).0, augment(u.view()).view(), false, None)
+            .shares;
+        let readout = t.train(shares.view(), &y, c, Some(a0.view())).unwrap();
+        let mut r0 = Array2::zeros((c, h + 1));
+        r0.slice_mut(s![.., ..h]).assign(&readout.weights);
+        r0.column_mut(h).assign(&readout.bias);
+        let readout_only = t.joint_objective(&hs, a1.view(), r0.view(), u.view(), &y);
+        approx::assert_relative_eq!(
+            readout_only,
+            readout.diagnostics.objective,
+            max_relative = 1e-12
+        );
+        let joint = t
+            .train_joint(&hs, u.view(), &y, c, a1.view(), a0.view())
+            .unwrap();
+        assert!(
+            joint.readout.diagnostics.objective < readout_only,
+            "joint {} vs read-out only {readout_only} (start {start})",
+            joint.readout.diagnostics.objective
+        );
+        assert!(readout_only < start);
     }
 
     /// Stochastic rounding's gradient is the derivative of the expected loss (the definition

@@ -17,8 +17,8 @@ mod linear;
 mod logistic;
 
 pub use hardware::{
-    ElementModel, HardwareAwareOptions, HardwareAwareTrainer, HardwareTrained, Injection,
-    LevelSpacing, Rounding, SoftCompetition,
+    ElementModel, HardwareAwareOptions, HardwareAwareTrainer, HardwareTrained, HiddenStageModel,
+    Injection, JointTrained, LevelSpacing, Rounding, SoftCompetition,
 };
 pub use linear::{argmax, LinearClassifier};
 pub use logistic::LogisticOptions;
