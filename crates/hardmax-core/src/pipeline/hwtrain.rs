@@ -4,7 +4,7 @@
 //! element (range, levels) and injected draws of its nonidealities. The result replaces the
 //! prepared classifier's weights and ideal argmax; the float baseline stays the reference.
 
-use ndarray::{s, Array2};
+use ndarray::{s, Array1, Array2};
 
 use super::{prepare, CompetitionDesign, PipelineError, Prepared};
 use crate::data::{Dataset, MinMaxScaler};
@@ -197,27 +197,7 @@ pub fn retrain(
     let ideal_pred = match hidden {
         None => LinearClassifier::new(trained.weights.clone(), trained.bias.clone())?
             .predict(prep.test_u.view())?,
-        Some(spec) => {
-            // Ideal argmax of the whole mapped chain, as `prepare_hidden` makes it.
-            let chain = super::chain_design(&spec.stage, 2, Some(spec))
-                .map(
-                    &out.layers
-                        .iter()
-                        .map(|(w, b)| (w.view(), b.view()))
-                        .collect::<Vec<_>>(),
-                )?
-                .ideal();
-            let mut scratch = chain.scratch();
-            let mut o = vec![0.0; prep.class_names.len()];
-            let mut pred = Vec::with_capacity(prep.test_u.nrows());
-            for row in prep.test_u.outer_iter() {
-                chain.forward_noiseless(&row.to_vec(), &mut scratch, &mut o)?;
-                pred.push(crate::training::argmax(&o).ok_or(PipelineError::NonFinite {
-                    what: "an ideal output of the hidden chain",
-                })?);
-            }
-            pred
-        }
+        Some(spec) => chain_ideal_predictions(spec, &out.layers, prep)?,
     };
     out.ideal_acc = accuracy(&ideal_pred, &out.test_y);
     out.ideal_pred = ideal_pred;
@@ -348,24 +328,7 @@ pub fn retrain_joint(
         (joint.hidden_weights.clone(), joint.hidden_bias.clone()),
         (joint.readout.weights.clone(), joint.readout.bias.clone()),
     ];
-    // Ideal argmax of the whole mapped chain, as `prepare_hidden` makes it.
-    let chain = super::chain_design(&spec.stage, 2, Some(spec))
-        .map(
-            &out.layers
-                .iter()
-                .map(|(w, b)| (w.view(), b.view()))
-                .collect::<Vec<_>>(),
-        )?
-        .ideal();
-    let mut scratch = chain.scratch();
-    let mut o = vec![0.0; prep.class_names.len()];
-    let mut pred = Vec::with_capacity(prep.test_u.nrows());
-    for row in prep.test_u.outer_iter() {
-        chain.forward_noiseless(&row.to_vec(), &mut scratch, &mut o)?;
-        pred.push(crate::training::argmax(&o).ok_or(PipelineError::NonFinite {
-            what: "an ideal output of the hidden chain",
-        })?);
-    }
+    let pred = chain_ideal_predictions(spec, &out.layers, prep)?;
     out.ideal_acc = accuracy(&pred, &out.test_y);
     out.ideal_pred = pred;
     Ok((out, joint.readout))
@@ -464,4 +427,31 @@ mod tests {
         let readout = trainer.objective(a0.view(), h.view(), &train.y);
         approx::assert_relative_eq!(joint, readout, max_relative = 1e-9);
     }
+}
+
+/// Ideal argmax on the test split of the whole mapped chain (hidden stage and read-out with
+/// `layers`), as `prepare_hidden` makes it.
+fn chain_ideal_predictions(
+    spec: &super::HiddenSpec,
+    layers: &[(Array2<f64>, Array1<f64>)],
+    prep: &Prepared,
+) -> Result<Vec<usize>, PipelineError> {
+    let chain = super::chain_design(&spec.stage, 2, Some(spec))
+        .map(
+            &layers
+                .iter()
+                .map(|(w, b)| (w.view(), b.view()))
+                .collect::<Vec<_>>(),
+        )?
+        .ideal();
+    let mut scratch = chain.scratch();
+    let mut o = vec![0.0; prep.class_names.len()];
+    let mut pred = Vec::with_capacity(prep.test_u.nrows());
+    for row in prep.test_u.outer_iter() {
+        chain.forward_noiseless(&row.to_vec(), &mut scratch, &mut o)?;
+        pred.push(crate::training::argmax(&o).ok_or(PipelineError::NonFinite {
+            what: "an ideal output of the hidden chain",
+        })?);
+    }
+    Ok(pred)
 }
