@@ -358,6 +358,33 @@ pub fn prepare_hardware_aware_joint(
     retrain_joint(&prep, dataset, test_fraction, split_seed, trainer, hs)
 }
 
+/// Ideal argmax on the test split of the whole mapped chain (hidden stage and read-out with
+/// `layers`), as `prepare_hidden` makes it.
+fn chain_ideal_predictions(
+    spec: &super::HiddenSpec,
+    layers: &[(Array2<f64>, Array1<f64>)],
+    prep: &Prepared,
+) -> Result<Vec<usize>, PipelineError> {
+    let chain = super::chain_design(&spec.stage, 2, Some(spec))
+        .map(
+            &layers
+                .iter()
+                .map(|(w, b)| (w.view(), b.view()))
+                .collect::<Vec<_>>(),
+        )?
+        .ideal();
+    let mut scratch = chain.scratch();
+    let mut o = vec![0.0; prep.class_names.len()];
+    let mut pred = Vec::with_capacity(prep.test_u.nrows());
+    for row in prep.test_u.outer_iter() {
+        chain.forward_noiseless(&row.to_vec(), &mut scratch, &mut o)?;
+        pred.push(crate::training::argmax(&o).ok_or(PipelineError::NonFinite {
+            what: "an ideal output of the hidden chain",
+        })?);
+    }
+    Ok(pred)
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -427,31 +454,4 @@ mod tests {
         let readout = trainer.objective(a0.view(), h.view(), &train.y);
         approx::assert_relative_eq!(joint, readout, max_relative = 1e-9);
     }
-}
-
-/// Ideal argmax on the test split of the whole mapped chain (hidden stage and read-out with
-/// `layers`), as `prepare_hidden` makes it.
-fn chain_ideal_predictions(
-    spec: &super::HiddenSpec,
-    layers: &[(Array2<f64>, Array1<f64>)],
-    prep: &Prepared,
-) -> Result<Vec<usize>, PipelineError> {
-    let chain = super::chain_design(&spec.stage, 2, Some(spec))
-        .map(
-            &layers
-                .iter()
-                .map(|(w, b)| (w.view(), b.view()))
-                .collect::<Vec<_>>(),
-        )?
-        .ideal();
-    let mut scratch = chain.scratch();
-    let mut o = vec![0.0; prep.class_names.len()];
-    let mut pred = Vec::with_capacity(prep.test_u.nrows());
-    for row in prep.test_u.outer_iter() {
-        chain.forward_noiseless(&row.to_vec(), &mut scratch, &mut o)?;
-        pred.push(crate::training::argmax(&o).ok_or(PipelineError::NonFinite {
-            what: "an ideal output of the hidden chain",
-        })?);
-    }
-    Ok(pred)
 }
