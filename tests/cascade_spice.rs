@@ -14,8 +14,6 @@
 
 mod competition_support;
 
-use std::process::Command;
-
 use competition_support::*;
 use hardmax::device::{MosMismatch, Transistor};
 use hardmax::netlist::{
@@ -25,23 +23,10 @@ use hardmax::stages::competition::cascade::{CascadeChip, CascadeDesign};
 use hardmax::stages::competition::{CurrentSource, DecisionRule};
 use rand_distr::{Distribution, Normal};
 
-const TOLERANCE_V: f64 = 1e-6;
+mod spice_support;
+use spice_support::ngspice_available;
 
-fn ngspice_available() -> bool {
-    let ok = Command::new("ngspice")
-        .arg("--version")
-        .output()
-        .map(|o| o.status.success())
-        .unwrap_or(false);
-    if !ok {
-        assert!(
-            std::env::var_os("HARDMAX_CI").is_none(),
-            "ngspice is not installed but HARDMAX_CI is set: CI must run this cross-check"
-        );
-        eprintln!("ngspice not on PATH: WTA cascade cross-check skipped");
-    }
-    ok
-}
+const TOLERANCE_V: f64 = 1e-6;
 
 /// A tree of `classes` at `fan_in`, gain about 1/eta = 100; with `tail` every group's bias is
 /// a biased NMOS (gate 0.32 V: about 20 nA in weak inversion for I_S ≈ 1 µA) instead of an
@@ -148,21 +133,7 @@ fn check(name: &str, chip: &CascadeChip, samples: &[Vec<f64>], winners: &[usize]
         assert_eq!(o.winner, winners[s], "{name} sample {s}: {:?}", o.outputs);
         assert_eq!(o.node_voltages.len(), net.nodes.len());
     }
-    let tmp = tempfile::tempdir().unwrap();
-    let cir = tmp.path().join(format!("{name}.cir"));
-    std::fs::write(&cir, &net.text).unwrap();
-    let o = Command::new("ngspice")
-        .current_dir(tmp.path())
-        .args(["-b"])
-        .arg(&cir)
-        .output()
-        .unwrap();
-    assert!(
-        o.status.success(),
-        "ngspice failed: {}",
-        String::from_utf8_lossy(&o.stderr)
-    );
-    let raw = std::fs::read_to_string(tmp.path().join(format!("{name}.raw"))).unwrap();
+    let raw = spice_support::run_ngspice(name, &net.text);
     let sim = SimResults::from_raw(&raw, "raw", net.n, &net.nodes, samples.len()).unwrap();
     for (s, ours) in ours.iter().enumerate() {
         for (i, (&a, &b)) in ours
@@ -192,7 +163,7 @@ fn check(name: &str, chip: &CascadeChip, samples: &[Vec<f64>], winners: &[usize]
 /// fan-in 3: 3+3+3+1, 3+1, 2), nominal die.
 #[test]
 fn agrees_with_ngspice_nominal() {
-    if !ngspice_available() {
+    if !ngspice_available("WTA cascade cross-check") {
         return;
     }
     for (classes, f) in [(9usize, 3usize), (10, 3)] {
@@ -210,7 +181,7 @@ fn agrees_with_ngspice_nominal() {
 /// Mismatch on every device (sinks, outputs, the biased NMOS tails, the replicas).
 #[test]
 fn agrees_with_ngspice_with_mismatch() {
-    if !ngspice_available() {
+    if !ngspice_available("WTA cascade cross-check") {
         return;
     }
     for (classes, f, seed) in [(9usize, 3usize, 41u64), (10, 3, 42)] {

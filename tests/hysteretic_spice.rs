@@ -14,8 +14,6 @@
 
 mod competition_support;
 
-use std::process::Command;
-
 use competition_support::*;
 use hardmax::device::{MosMismatch, Polarity, Transistor};
 use hardmax::netlist::{build, solve_samples, DeviceForm, Die, NetlistOptions, SimResults};
@@ -24,23 +22,10 @@ use hardmax::stages::competition::{
 };
 use rand_distr::{Distribution, Normal};
 
-const TOLERANCE_V: f64 = 1e-6;
+mod spice_support;
+use spice_support::ngspice_available;
 
-fn ngspice_available() -> bool {
-    let ok = Command::new("ngspice")
-        .arg("--version")
-        .output()
-        .map(|o| o.status.success())
-        .unwrap_or(false);
-    if !ok {
-        assert!(
-            std::env::var_os("HARDMAX_CI").is_none(),
-            "ngspice is not installed but HARDMAX_CI is set: CI must run this cross-check"
-        );
-        eprintln!("ngspice not on PATH: hysteretic WTA cross-check skipped");
-    }
-    ok
-}
+const TOLERANCE_V: f64 = 1e-6;
 
 fn design(n: usize, alpha: f64) -> HysteresisDesign {
     HysteresisDesign {
@@ -107,21 +92,7 @@ fn check(name: &str, chip: HysteresisChip, samples: &[Vec<f64>], nodeset: &[usiz
         text.contains("F0 0 n0 VM0"),
         "the feedback source is in the netlist"
     );
-    let tmp = tempfile::tempdir().unwrap();
-    let cir = tmp.path().join(format!("{name}.cir"));
-    std::fs::write(&cir, &text).unwrap();
-    let o = Command::new("ngspice")
-        .current_dir(tmp.path())
-        .args(["-b"])
-        .arg(&cir)
-        .output()
-        .unwrap();
-    assert!(
-        o.status.success(),
-        "ngspice failed: {}",
-        String::from_utf8_lossy(&o.stderr)
-    );
-    let raw = std::fs::read_to_string(tmp.path().join(format!("{name}.raw"))).unwrap();
+    let raw = spice_support::run_ngspice(name, &text);
     let sim = SimResults::from_raw(&raw, "raw", net.n, &net.nodes, samples.len()).unwrap();
     for (s, ours) in ours.iter().enumerate() {
         assert!(
@@ -147,7 +118,7 @@ fn check(name: &str, chip: HysteresisChip, samples: &[Vec<f64>], nodeset: &[usiz
 /// Inputs far apart (a single solution), nominal devices: no initial condition needed.
 #[test]
 fn agrees_with_ngspice_single_solution() {
-    if !ngspice_available() {
+    if !ngspice_available("hysteretic WTA cross-check") {
         return;
     }
     let chip = HysteresisChip::nominal(design(3, 0.1)).unwrap();
@@ -165,7 +136,7 @@ fn agrees_with_ngspice_single_solution() {
 /// branch, converges to the same solution.
 #[test]
 fn agrees_with_ngspice_bistable_with_mismatch() {
-    if !ngspice_available() {
+    if !ngspice_available("hysteretic WTA cross-check") {
         return;
     }
     let chip = mismatched(design(4, 0.2), 21);

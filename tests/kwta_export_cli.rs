@@ -14,6 +14,9 @@ use std::process::Command;
 
 use assert_cmd::prelude::*;
 
+mod spice_support;
+use spice_support::ngspice_available;
+
 const TOLERANCE_V: f64 = 1e-6;
 
 fn hardmax() -> Command {
@@ -22,22 +25,6 @@ fn hardmax() -> Command {
 
 fn root() -> PathBuf {
     PathBuf::from(env!("CARGO_MANIFEST_DIR"))
-}
-
-fn ngspice_available() -> bool {
-    let ok = Command::new("ngspice")
-        .arg("--version")
-        .output()
-        .map(|o| o.status.success())
-        .unwrap_or(false);
-    if !ok {
-        assert!(
-            std::env::var_os("HARDMAX_CI").is_none(),
-            "ngspice is not installed but HARDMAX_CI is set: CI must run this cross-check"
-        );
-        eprintln!("ngspice not on PATH: k-winners export cross-check skipped");
-    }
-    ok
 }
 
 /// A small run of `circuit` on the invented demo data (3 classes), 3 chips, one point.
@@ -108,7 +95,7 @@ fn exported_k_winners_die_agrees_with_ngspice() {
         )
         .unwrap();
         assert_eq!(rec["stage"], "k-winners WTA");
-        if !ngspice_available() {
+        if !ngspice_available("k-winners export cross-check") {
             return;
         }
         hardmax()

@@ -11,8 +11,6 @@
 
 mod competition_support;
 
-use std::process::Command;
-
 use competition_support::*;
 use hardmax::device::{MosMismatch, Polarity, Transistor};
 use hardmax::netlist::{build_kwinners, solve_samples, DeviceForm, NetlistOptions, SimResults};
@@ -20,24 +18,11 @@ use hardmax::stages::competition::kwta::{KWinnersChip, KWinnersDesign};
 use hardmax::stages::competition::DecisionRule;
 use rand_distr::{Distribution, Normal};
 
+mod spice_support;
+use spice_support::ngspice_available;
+
 const TOLERANCE_V: f64 = 1e-6;
 const UNIT: f64 = 20e-9;
-
-fn ngspice_available() -> bool {
-    let ok = Command::new("ngspice")
-        .arg("--version")
-        .output()
-        .map(|o| o.status.success())
-        .unwrap_or(false);
-    if !ok {
-        assert!(
-            std::env::var_os("HARDMAX_CI").is_none(),
-            "ngspice is not installed but HARDMAX_CI is set: CI must run this cross-check"
-        );
-        eprintln!("ngspice not on PATH: k-winners WTA cross-check skipped");
-    }
-    ok
-}
 
 fn design(n: usize, k: usize) -> KWinnersDesign {
     KWinnersDesign::new(
@@ -128,21 +113,7 @@ fn check(name: &str, chip: &KWinnersChip, samples: &[Vec<f64>]) {
         text.push_str(line);
         text.push('\n');
     }
-    let tmp = tempfile::tempdir().unwrap();
-    let cir = tmp.path().join(format!("{name}.cir"));
-    std::fs::write(&cir, &text).unwrap();
-    let o = Command::new("ngspice")
-        .current_dir(tmp.path())
-        .args(["-b"])
-        .arg(&cir)
-        .output()
-        .unwrap();
-    assert!(
-        o.status.success(),
-        "ngspice failed: {}",
-        String::from_utf8_lossy(&o.stderr)
-    );
-    let raw = std::fs::read_to_string(tmp.path().join(format!("{name}.raw"))).unwrap();
+    let raw = spice_support::run_ngspice(name, &text);
     let sim = SimResults::from_raw(&raw, "raw", net.n, &net.nodes, samples.len()).unwrap();
     for (s, ours) in ours.iter().enumerate() {
         for (i, (&a, &b)) in ours
@@ -163,7 +134,7 @@ fn check(name: &str, chip: &KWinnersChip, samples: &[Vec<f64>]) {
 
 #[test]
 fn agrees_with_ngspice_nominal() {
-    if !ngspice_available() {
+    if !ngspice_available("k-winners WTA cross-check") {
         return;
     }
     for k in [1, 2, 3] {
@@ -174,7 +145,7 @@ fn agrees_with_ngspice_nominal() {
 
 #[test]
 fn agrees_with_ngspice_with_mismatch() {
-    if !ngspice_available() {
+    if !ngspice_available("k-winners WTA cross-check") {
         return;
     }
     for k in [2, 3] {
