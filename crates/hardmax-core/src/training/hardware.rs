@@ -696,17 +696,13 @@ impl HardwareAwareTrainer {
             None if inj.quantise => t.mapv(|v| e.quantise(v)),
             None => t,
         };
-        let (tn, mult) = match draw {
-            Some(d) => {
-                let mult = d.mismatch.mapv(|z| 1.0 + inj.weight_mismatch * z);
-                let tn = &tq * &mult
-                    + &(d
-                        .programming
-                        .mapv(|z| z * inj.programming_error * (e.w_max - e.w_min)));
-                (tn, Some(mult))
-            }
-            None => (tq, None),
-        };
+        let (tn, mult) = apply_draw(
+            tq,
+            draw.map(|d| (&d.mismatch, &d.programming)),
+            inj.weight_mismatch,
+            inj.programming_error,
+            e,
+        );
         let currents = x.dot(&tn.t());
         // A line whose current would be at or below zero carries a floor current (its share is
         // then nil); no gradient flows through the floor.
@@ -863,17 +859,13 @@ impl HiddenStageModel {
         } else {
             t
         };
-        let (tn, mult) = match draw {
-            Some(d) => {
-                let mult = d.mismatch.mapv(|z| 1.0 + self.weight_mismatch * z);
-                let tn = &tq * &mult
-                    + &(d
-                        .programming
-                        .mapv(|z| z * self.programming_error * (e.w_max - e.w_min)));
-                (tn, Some(mult))
-            }
-            None => (tq, None),
-        };
+        let (tn, mult) = apply_draw(
+            tq,
+            draw.map(|d| (&d.mismatch, &d.programming)),
+            self.weight_mismatch,
+            self.programming_error,
+            e,
+        );
         let currents = x.dot(&tn.t());
         let floor = 1e-12 * (e.w_max * x.ncols() as f64).max(1e-300);
         let mut shares = currents.mapv(|i| self.gain * i.max(floor).ln());
@@ -1173,6 +1165,27 @@ impl HardwareAwareTrainer {
                 window_decrease,
             },
         })
+    }
+}
+
+/// One chip's element errors on the levels `tq`: with the standard normals (E_1, E_2) of
+/// `draws`, `T' = tq (1 + s_m E_1) + s_p (w_max - w_min) E_2`, and the multiplier `1 + s_m E_1`
+/// (what the gradient flows through); without draws `tq` itself.
+fn apply_draw(
+    tq: Array2<f64>,
+    draws: Option<(&Array2<f64>, &Array2<f64>)>,
+    weight_mismatch: f64,
+    programming_error: f64,
+    e: &ElementModel,
+) -> (Array2<f64>, Option<Array2<f64>>) {
+    match draws {
+        Some((mismatch, programming)) => {
+            let mult = mismatch.mapv(|z| 1.0 + weight_mismatch * z);
+            let tn =
+                &tq * &mult + &programming.mapv(|z| z * programming_error * (e.w_max - e.w_min));
+            (tn, Some(mult))
+        }
+        None => (tq, None),
     }
 }
 
