@@ -64,6 +64,26 @@ fn pow2_split(n: u64) -> (f64, f64) {
     )
 }
 
+/// `e^r` on the reduced range as `1 + r + r^2 T(r)`, `T(r) = Σ_{i=2..13} r^(i-2)/i!` by
+/// Estrin's scheme (Taylor to r^13).
+#[inline(always)]
+fn exp_reduced(r: f64) -> f64 {
+    let r2 = r * r;
+    let r4 = r2 * r2;
+    let r8 = r4 * r4;
+    let a0 = 1.0 / 2.0 + r * (1.0 / 6.0);
+    let a1 = 1.0 / 24.0 + r * (1.0 / 120.0);
+    let a2 = 1.0 / 720.0 + r * (1.0 / 5_040.0);
+    let a3 = 1.0 / 40_320.0 + r * (1.0 / 362_880.0);
+    let a4 = 1.0 / 3_628_800.0 + r * (1.0 / 39_916_800.0);
+    let a5 = 1.0 / 479_001_600.0 + r * (1.0 / 6_227_020_800.0);
+    let b0 = a0 + a1 * r2;
+    let b1 = a2 + a3 * r2;
+    let b2 = a4 + a5 * r2;
+    let t = (b0 + b1 * r4) + b2 * r8;
+    1.0 + (r + r2 * t)
+}
+
 /// `e^x`, one lane (module table for the error bound).
 #[inline(always)]
 pub fn exp1(x: f64) -> f64 {
@@ -72,21 +92,11 @@ pub fn exp1(x: f64) -> f64 {
     let nf = t - ROUND_MAGIC;
     let n = t.to_bits().wrapping_sub(ROUND_MAGIC.to_bits());
     let r = (xc - nf * LN2_HI) - nf * LN2_LO;
-    // e^r, |r| <= 0.3466 (+ rounding): Taylor to r^13, remainder < r^14/14! e^r < 1e-17 e^r.
-    let p = 1.0 / 6_227_020_800.0;
-    let p = 1.0 / 479_001_600.0 + r * p;
-    let p = 1.0 / 39_916_800.0 + r * p;
-    let p = 1.0 / 3_628_800.0 + r * p;
-    let p = 1.0 / 362_880.0 + r * p;
-    let p = 1.0 / 40_320.0 + r * p;
-    let p = 1.0 / 5_040.0 + r * p;
-    let p = 1.0 / 720.0 + r * p;
-    let p = 1.0 / 120.0 + r * p;
-    let p = 1.0 / 24.0 + r * p;
-    let p = 1.0 / 6.0 + r * p;
-    let p = 0.5 + r * p;
-    let p = 1.0 + r * p;
-    let p = 1.0 + r * p;
+    // e^r, |r| <= 0.3466 (+ rounding): Taylor to r^13, remainder < r^14/14! e^r < 1e-17 e^r,
+    // as 1 + r + r^2 T(r) with T evaluated by Estrin's scheme (independent pairs combined
+    // with r^2, r^4, r^8: a dependency chain of 8 operations instead of Horner's 26, so the
+    // vector units are not left waiting on one long chain).
+    let p = exp_reduced(r);
     let (s1, s2) = pow2_split(n);
     let y = p * s1 * s2;
     let y = if x < EXP_ZERO_BELOW { 0.0 } else { y };
@@ -101,17 +111,18 @@ pub fn exp1(x: f64) -> f64 {
 /// `2 atanh(s) - 2 s = s R(s^2)` part: `R(z) = Σ_{j=1..10} 2 z^j / (2j+1)`.
 #[inline(always)]
 fn atanh_tail(z: f64) -> f64 {
-    let p = 2.0 / 21.0;
-    let p = 2.0 / 19.0 + z * p;
-    let p = 2.0 / 17.0 + z * p;
-    let p = 2.0 / 15.0 + z * p;
-    let p = 2.0 / 13.0 + z * p;
-    let p = 2.0 / 11.0 + z * p;
-    let p = 2.0 / 9.0 + z * p;
-    let p = 2.0 / 7.0 + z * p;
-    let p = 2.0 / 5.0 + z * p;
-    let p = 2.0 / 3.0 + z * p;
-    z * p
+    // Estrin's scheme (as `exp_reduced`).
+    let z2 = z * z;
+    let z4 = z2 * z2;
+    let z8 = z4 * z4;
+    let a0 = 2.0 / 3.0 + z * (2.0 / 5.0);
+    let a1 = 2.0 / 7.0 + z * (2.0 / 9.0);
+    let a2 = 2.0 / 11.0 + z * (2.0 / 13.0);
+    let a3 = 2.0 / 15.0 + z * (2.0 / 17.0);
+    let a4 = 2.0 / 19.0 + z * (2.0 / 21.0);
+    let b0 = a0 + a1 * z2;
+    let b1 = a2 + a3 * z2;
+    z * ((b0 + b1 * z4) + a4 * z8)
 }
 
 /// Natural logarithm, one lane (module table for the error bound).
@@ -162,20 +173,23 @@ pub fn ln_1p1(x: f64) -> f64 {
 /// `e^x - 1` for `|x| <= 0.5` only (Taylor to x^15), one lane.
 #[inline(always)]
 pub fn exp_m1_small1(x: f64) -> f64 {
-    let p = 1.0 / 1_307_674_368_000.0;
-    let p = 1.0 / 87_178_291_200.0 + x * p;
-    let p = 1.0 / 6_227_020_800.0 + x * p;
-    let p = 1.0 / 479_001_600.0 + x * p;
-    let p = 1.0 / 39_916_800.0 + x * p;
-    let p = 1.0 / 3_628_800.0 + x * p;
-    let p = 1.0 / 362_880.0 + x * p;
-    let p = 1.0 / 40_320.0 + x * p;
-    let p = 1.0 / 5_040.0 + x * p;
-    let p = 1.0 / 720.0 + x * p;
-    let p = 1.0 / 120.0 + x * p;
-    let p = 1.0 / 24.0 + x * p;
-    let p = 1.0 / 6.0 + x * p;
-    let p = 0.5 + x * p;
+    // x + x^2 P(x), P(x) = Σ_{i=2..15} x^(i-2)/i! by Estrin's scheme (as `exp_reduced`).
+    let x2 = x * x;
+    let x4 = x2 * x2;
+    let x8 = x4 * x4;
+    let a0 = 1.0 / 2.0 + x * (1.0 / 6.0);
+    let a1 = 1.0 / 24.0 + x * (1.0 / 120.0);
+    let a2 = 1.0 / 720.0 + x * (1.0 / 5_040.0);
+    let a3 = 1.0 / 40_320.0 + x * (1.0 / 362_880.0);
+    let a4 = 1.0 / 3_628_800.0 + x * (1.0 / 39_916_800.0);
+    let a5 = 1.0 / 479_001_600.0 + x * (1.0 / 6_227_020_800.0);
+    let a6 = 1.0 / 87_178_291_200.0 + x * (1.0 / 1_307_674_368_000.0);
+    let b0 = a0 + a1 * x2;
+    let b1 = a2 + a3 * x2;
+    let b2 = a4 + a5 * x2;
+    let c0 = b0 + b1 * x4;
+    let c1 = b2 + a6 * x4;
+    let p = c0 + c1 * x8;
     x + x * (x * p)
 }
 

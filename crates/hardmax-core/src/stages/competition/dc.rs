@@ -581,13 +581,14 @@ fn newton_linear<C: SharedNodeCircuit + ?Sized>(
     })
 }
 
-/// Newton passes a batch runs in lockstep before its unconverged lanes leave it for the scalar
-/// [`solve`] (a decision of the current-mode WTA takes 3 to 6; the rare one that needs more, or
-/// the bracketing fallback, is solved exactly as it would be alone).
+/// Newton passes a decision runs in the batch before it leaves for the scalar [`solve`] (a
+/// decision of the current-mode WTA takes 2 to 5; the rare one that needs more, or the
+/// bracketing fallback, is solved exactly as it would be alone).
 pub const BATCH_PASSES: usize = 12;
 
 /// Scratch of [`solve_batch`]: the Newton state of [`LANES`] decisions as struct-of-arrays (one
-/// [`Lanes`] per line). No allocation once grown to the circuit's size.
+/// [`Lanes`] per line), the starting points of the waiting decisions, and the queue. No
+/// allocation once grown to the circuit's size and the batch's length.
 #[derive(Clone, Debug, Default)]
 pub struct BatchWorkspace {
     inputs: Vec<Lanes>,
@@ -595,9 +596,14 @@ pub struct BatchWorkspace {
     load_d_line: Vec<Lanes>,
     load_d_common: Vec<Lanes>,
     scaled_residual: Vec<Lanes>,
+    load_current: Vec<Lanes>,
     output_current: Vec<Lanes>,
     scratch: Vec<Lanes>,
-    /// The scalar solve's workspace (lanes that leave the batch).
+    /// Decisions that enter the lanes, in row order.
+    queue: Vec<usize>,
+    /// Their starting points, N line voltages then V_C each, in queue order.
+    starts: Vec<f64>,
+    /// The scalar solve's workspace (decisions that leave the batch).
     scalar: Workspace,
 }
 
@@ -613,6 +619,7 @@ impl BatchWorkspace {
             &mut self.load_d_line,
             &mut self.load_d_common,
             &mut self.scaled_residual,
+            &mut self.load_current,
             &mut self.output_current,
             &mut self.scratch,
         ] {
@@ -630,8 +637,7 @@ enum Lane {
     Running,
     /// Converged at this pass (its solution is stored).
     Done,
-    /// Left the batch: solved alone by [`solve`] (invalid inputs, a failed guard, or the pass
-    /// budget spent).
+    /// Leaves the batch: solved alone by [`solve`] (a failed guard or the pass budget spent).
     Scalar,
     /// No decision in this lane.
     Empty,
@@ -640,11 +646,20 @@ enum Lane {
 /// DC operating points of `c` for `m` decisions at once: `inputs` holds them row by row (`m`
 /// rows of N), `outs[j]` and `results[j]` receive decision j's solution and status (both at
 /// least `m` long). Same answers as [`solve`] on each row within the solver's tolerance, and
-/// the same errors (a decision that does not converge in the batch is solved by [`solve`]).
-/// Decisions run [`LANES`] at a time in lockstep Newton with the vectorised kernels of
-/// [`crate::maths`]; circuits of strategy [`DcStrategy::LinesFirst`] and circuits that hold
-/// state (solved in row order, each from the state the previous left) are solved one by one.
-/// The answer of a decision does not depend on the other decisions in its batch.
+/// the same errors (a decision that does not converge in the batch, or whose inputs are not
+/// valid, is solved by [`solve`]).
+///
+/// The starting points of all decisions are computed first, [`LANES`] at a time
+/// ([`SharedNodeCircuit::closed_form_start_lanes`]); then Newton runs on [`LANES`] decisions in
+/// lockstep with the vectorised kernels of [`crate::maths`], and a lane whose decision
+/// converges (or leaves) takes the next waiting decision at once, so no lane idles while
+/// another needs more passes. Circuits of strategy [`DcStrategy::LinesFirst`] and circuits
+/// that hold state (solved in row order, each from the state the previous left) are solved one
+/// by one.
+///
+/// A decision's answer is bit for bit the same whatever else is in the batch: every lane's
+/// arithmetic depends on that lane alone (kernels computed for all lanes are selected lane by
+/// lane), and a decision's passes are its own.
 pub fn solve_batch<C: SharedNodeCircuit + ?Sized>(
     c: &C,
     inputs: &[f64],
@@ -679,117 +694,216 @@ pub fn solve_batch<C: SharedNodeCircuit + ?Sized>(
     };
     bw.ensure(n);
     bw.scalar.ensure(n);
-    for (start, (outs, results)) in (0..m)
-        .step_by(LANES)
-        .zip(outs.chunks_mut(LANES).zip(results.chunks_mut(LANES)))
-    {
-        let count = LANES.min(m - start);
-        let rows = &inputs[start * n..(start + count) * n];
-        batch(c, n, max_newton, rows, count, bw, outs, results);
-    }
-}
-
-/// One batch of `count <= LANES` decisions (`rows`: `count` rows of N).
-#[allow(clippy::too_many_arguments)]
-fn batch<C: SharedNodeCircuit + ?Sized>(
-    c: &C,
-    n: usize,
-    max_newton: usize,
-    rows: &[f64],
-    count: usize,
-    bw: &mut BatchWorkspace,
-    outs: &mut [StageSolution],
-    results: &mut [Result<(), CompetitionError>],
-) {
-    let mut state = [Lane::Empty; LANES];
-    let mut first = None;
-    for lane in 0..count {
-        let row = &rows[lane * n..(lane + 1) * n];
+    // Invalid rows go to the scalar solve (which reports them); the others queue.
+    bw.queue.clear();
+    for (j, row) in inputs.chunks(n).enumerate() {
         let valid = row
             .iter()
             .all(|x| x.is_finite() && (c.inputs_unit() != "A" || *x >= 0.0));
-        state[lane] = if valid { Lane::Running } else { Lane::Scalar };
-        if valid && first.is_none() {
-            first = Some(lane);
+        if valid {
+            bw.queue.push(j);
+        } else {
+            results[j] = solve(c, row, &mut bw.scalar, &mut outs[j]);
         }
     }
-    if let Some(f) = first {
-        // Empty and invalid lanes compute a copy of a valid decision (ignored).
-        for k in 0..n {
-            for lane in 0..LANES {
-                let src = if state[lane] == Lane::Running {
-                    lane
-                } else {
-                    f
-                };
-                bw.inputs[k][lane] = rows[src * n + k];
-            }
-        }
-        lockstep(
-            c,
-            n,
-            max_newton.min(BATCH_PASSES),
-            bw,
-            &mut state,
-            outs,
-            results,
-        );
+    if bw.queue.is_empty() {
+        return;
     }
-    for lane in 0..count {
-        if matches!(state[lane], Lane::Scalar | Lane::Running) {
-            let row = &rows[lane * n..(lane + 1) * n];
-            results[lane] = solve(c, row, &mut bw.scalar, &mut outs[lane]);
-        }
-    }
+    lanes(
+        c,
+        n,
+        max_newton.min(BATCH_PASSES),
+        inputs,
+        bw,
+        outs,
+        results,
+    );
 }
 
-/// [`lockstep_body`], compiled for AVX2 (four lanes per instruction instead of SSE2's two) when
+/// [`lanes_body`], compiled for AVX2 (four lanes per instruction instead of SSE2's two) when
 /// the CPU has it. The code is the same and no fused multiply-add is formed (Rust never fuses
 /// `a * b + c`), so both versions give the same bits.
 #[allow(clippy::too_many_arguments)]
-fn lockstep<C: SharedNodeCircuit + ?Sized>(
+fn lanes<C: SharedNodeCircuit + ?Sized>(
     c: &C,
     n: usize,
     passes: usize,
+    rows: &[f64],
     bw: &mut BatchWorkspace,
-    state: &mut [Lane; LANES],
     outs: &mut [StageSolution],
     results: &mut [Result<(), CompetitionError>],
 ) {
     #[cfg(target_arch = "x86_64")]
     if std::arch::is_x86_feature_detected!("avx2") {
-        // SAFETY: `lockstep_avx2` only requires AVX2, which the CPU has (checked just above).
-        unsafe { lockstep_avx2(c, n, passes, bw, state, outs, results) };
+        // SAFETY: `lanes_avx2` only requires AVX2, which the CPU has (checked just above).
+        unsafe { lanes_avx2(c, n, passes, rows, bw, outs, results) };
         return;
     }
-    lockstep_body(c, n, passes, bw, state, outs, results);
+    lanes_body(c, n, passes, rows, bw, outs, results);
 }
 
-/// [`lockstep_body`] with AVX2 enabled for the code inlined into it.
+/// [`lanes_body`] with AVX2 enabled for the code inlined into it.
 #[cfg(target_arch = "x86_64")]
 #[target_feature(enable = "avx2")]
 #[allow(clippy::too_many_arguments)]
-unsafe fn lockstep_avx2<C: SharedNodeCircuit + ?Sized>(
+unsafe fn lanes_avx2<C: SharedNodeCircuit + ?Sized>(
     c: &C,
     n: usize,
     passes: usize,
+    rows: &[f64],
     bw: &mut BatchWorkspace,
-    state: &mut [Lane; LANES],
     outs: &mut [StageSolution],
     results: &mut [Result<(), CompetitionError>],
 ) {
-    lockstep_body(c, n, passes, bw, state, outs, results);
+    lanes_body(c, n, passes, rows, bw, outs, results);
 }
 
-/// The Newton iteration of [`newton`] on every lane in lockstep (same arithmetic, lane-wise; a
-/// converged lane is stored and frozen, a lane whose guard fails is handed to the scalar solve).
+/// The starting points of the queued decisions, then the Newton passes with lanes refilled
+/// from the queue (see [`solve_batch`]).
 #[allow(clippy::too_many_arguments)]
 #[inline(always)]
-fn lockstep_body<C: SharedNodeCircuit + ?Sized>(
+fn lanes_body<C: SharedNodeCircuit + ?Sized>(
     c: &C,
     n: usize,
     passes: usize,
+    rows: &[f64],
     bw: &mut BatchWorkspace,
+    outs: &mut [StageSolution],
+    results: &mut [Result<(), CompetitionError>],
+) {
+    let BatchWorkspace {
+        inputs,
+        line_voltage,
+        load_d_line,
+        load_d_common,
+        scaled_residual,
+        load_current,
+        output_current,
+        scratch,
+        queue,
+        starts,
+        scalar,
+    } = bw;
+    let (x, v) = (&mut inputs[..n], &mut line_voltage[..n]);
+    let stride = n + 1;
+    starts.clear();
+    starts.resize(queue.len() * stride, 0.0);
+    for (g, group) in queue.chunks(LANES).enumerate() {
+        // Lanes beyond the group's end start a copy of its last decision (ignored).
+        for l in 0..LANES {
+            let j = group[l.min(group.len() - 1)];
+            for k in 0..n {
+                x[k][l] = rows[j * n + k];
+            }
+        }
+        let vc = c.closed_form_start_lanes(x, &mut scratch[..n], v);
+        for l in 0..group.len() {
+            let s = &mut starts[(g * LANES + l) * stride..][..stride];
+            for k in 0..n {
+                s[k] = v[k][l];
+            }
+            s[n] = vc[l];
+        }
+    }
+    let mut lanes = PassLanes {
+        x,
+        v,
+        a: &mut load_d_line[..n],
+        cc: &mut load_d_common[..n],
+        q: &mut scaled_residual[..n],
+        il: &mut load_current[..n],
+        io: &mut output_current[..n],
+    };
+    let mut vc = [0.0; LANES];
+    let mut state = [Lane::Empty; LANES];
+    // Per lane: the decision (row) it holds and the passes it has run.
+    let mut dest = [0usize; LANES];
+    let mut it = [0usize; LANES];
+    let mut next = 0;
+    loop {
+        // Decisions that left: solved alone. Free lanes: the next waiting decisions.
+        for l in 0..LANES {
+            if state[l] == Lane::Scalar {
+                let j = dest[l];
+                results[j] = solve(c, &rows[j * n..(j + 1) * n], scalar, &mut outs[j]);
+            }
+            if state[l] == Lane::Running {
+                continue;
+            }
+            if next < queue.len() {
+                let j = queue[next];
+                let s = &starts[next * stride..][..stride];
+                for k in 0..n {
+                    lanes.x[k][l] = rows[j * n + k];
+                    lanes.v[k][l] = s[k];
+                }
+                vc[l] = s[n];
+                (dest[l], it[l], state[l]) = (j, 0, Lane::Running);
+                next += 1;
+            } else {
+                state[l] = Lane::Empty;
+            }
+        }
+        let Some(live) = (0..LANES).find(|&l| state[l] == Lane::Running) else {
+            return;
+        };
+        // An empty lane computes a copy of a running one (ignored; keeps its arithmetic
+        // finite).
+        for l in 0..LANES {
+            if state[l] == Lane::Empty {
+                for k in 0..n {
+                    lanes.x[k][l] = lanes.x[k][live];
+                    lanes.v[k][l] = lanes.v[k][live];
+                }
+                vc[l] = vc[live];
+            }
+        }
+        for l in 0..LANES {
+            if state[l] == Lane::Running {
+                it[l] += 1;
+            }
+        }
+        pass(
+            c, &it, &dest, &mut lanes, &mut vc, &mut state, outs, results,
+        );
+        for l in 0..LANES {
+            // The pass budget spent: the decision leaves the batch.
+            if state[l] == Lane::Running && it[l] >= passes {
+                state[l] = Lane::Scalar;
+            }
+        }
+    }
+}
+
+/// The per-line lane arrays of the batch (struct of arrays, N entries each).
+struct PassLanes<'a> {
+    /// Inputs.
+    x: &'a mut [Lanes],
+    /// Line voltages.
+    v: &'a mut [Lanes],
+    /// dI_L/dV_k (0 on a line without input).
+    a: &'a mut [Lanes],
+    /// dI_L/dV_C.
+    cc: &'a mut [Lanes],
+    /// ln(I_L/I) I_L.
+    q: &'a mut [Lanes],
+    /// Load currents I_L.
+    il: &'a mut [Lanes],
+    /// Output currents.
+    io: &'a mut [Lanes],
+}
+
+/// One Newton pass of [`newton`] on every running lane (same arithmetic, lane-wise): `it[l]` is
+/// the pass lane l is at, `dest[l]` its decision. A converged lane is stored and marked done, a
+/// lane whose guard fails is marked for the scalar solve.
+#[allow(clippy::too_many_arguments)]
+#[inline(always)]
+fn pass<C: SharedNodeCircuit + ?Sized>(
+    c: &C,
+    it: &[usize; LANES],
+    dest: &[usize; LANES],
+    lanes: &mut PassLanes<'_>,
+    vc: &mut Lanes,
     state: &mut [Lane; LANES],
     outs: &mut [StageSolution],
     results: &mut [Result<(), CompetitionError>],
@@ -798,138 +912,136 @@ fn lockstep_body<C: SharedNodeCircuit + ?Sized>(
     let vc_min = c.common_min();
     let tolerance = c.tolerance();
     let source = c.source_fast();
-    let BatchWorkspace {
-        inputs,
-        line_voltage,
-        load_d_line,
-        load_d_common,
-        scaled_residual,
-        output_current,
-        scratch,
-        ..
-    } = bw;
-    let (x, v, a, cc, q, io) = (
-        &inputs[..n],
-        &mut line_voltage[..n],
-        &mut load_d_line[..n],
-        &mut load_d_common[..n],
-        &mut scaled_residual[..n],
-        &mut output_current[..n],
-    );
-    let mut vc = c.closed_form_start_lanes(x, &mut scratch[..n], v);
-    for it in 1..=passes {
-        let mut s_sum = [0.0; LANES];
-        let mut e_sum = [0.0; LANES];
-        let mut bca = [0.0; LANES];
-        let mut bqa = [0.0; LANES];
-        let mut res = [0.0_f64; LANES];
-        let mut bad = [false; LANES];
-        for k in 0..n {
-            let eb = c.output_lanes(k, &v[k], &vc);
-            let ea = c.load_lanes(k, &v[k], &vc);
-            let mut ratio = [1.0; LANES];
-            for l in 0..LANES {
-                io[k][l] = eb.current[l];
-                s_sum[l] += eb.current[l];
-                e_sum[l] += eb.d_common[l];
-                let i = x[k][l];
-                if i > 0.0 {
-                    ratio[l] = ea.current[l] / i;
-                    bad[l] |=
-                        !(ea.current[l] > 0.0 && ea.d_line[l] > 0.0 && ea.current[l].is_finite());
-                }
-            }
-            let rho = crate::maths::ln(&ratio);
-            for l in 0..LANES {
-                if x[k][l] > 0.0 {
-                    res[l] = res[l].max(rho[l].abs());
-                    let qk = rho[l] * ea.current[l];
-                    a[k][l] = ea.d_line[l];
-                    cc[k][l] = ea.d_common[l];
-                    q[k][l] = qk;
-                    bca[l] += eb.d_line[l] * ea.d_common[l] / ea.d_line[l];
-                    bqa[l] += eb.d_line[l] * qk / ea.d_line[l];
-                } else {
-                    a[k][l] = 0.0;
-                }
-            }
-        }
-        let (ib, p) = source.eval_lanes(&vc);
+    let PassLanes {
+        x,
+        v,
+        a,
+        cc,
+        q,
+        il,
+        io,
+    } = lanes;
+    let n = x.len();
+    let mut s_sum = [0.0; LANES];
+    let mut e_sum = [0.0; LANES];
+    let mut bca = [0.0; LANES];
+    let mut bqa = [0.0; LANES];
+    let mut res = [0.0_f64; LANES];
+    let mut bad = [false; LANES];
+    for k in 0..n {
+        let eb = c.output_lanes(k, &v[k], vc);
+        let ea = c.load_lanes(k, &v[k], vc);
         let mut ratio = [1.0; LANES];
         for l in 0..LANES {
-            bad[l] |= !(s_sum[l] > 0.0 && ib[l] > 0.0 && s_sum[l].is_finite());
-            ratio[l] = s_sum[l] / ib[l];
+            io[k][l] = eb.current[l];
+            s_sum[l] += eb.current[l];
+            e_sum[l] += eb.d_common[l];
+            let i = x[k][l];
+            if i > 0.0 {
+                ratio[l] = ea.current[l] / i;
+                bad[l] |= !(ea.current[l] > 0.0 && ea.d_line[l] > 0.0 && ea.current[l].is_finite());
+            }
         }
-        let r = crate::maths::ln(&ratio);
-        let mut dvc = [0.0; LANES];
-        let mut running = false;
+        let rho = crate::maths::ln(&ratio);
         for l in 0..LANES {
-            if state[l] != Lane::Running {
-                continue;
-            }
-            res[l] = res[l].max(r[l].abs());
-            if bad[l] {
-                state[l] = Lane::Scalar;
-                continue;
-            }
-            if res[l] <= 0.5 * tolerance {
-                // |ln(x)| <= tol implies |x - 1| <= tol (1 + tol): the relative residual.
-                store(n, l, v, io, vc[l], it, res[l].exp_m1(), &mut outs[l]);
-                results[l] = Ok(());
-                state[l] = Lane::Done;
-                continue;
-            }
-            let den = e_sum[l] / s_sum[l] - p[l] / ib[l] - bca[l] / s_sum[l];
-            let d = (-r[l] + bqa[l] / s_sum[l]) / den;
-            if !d.is_finite() {
-                state[l] = Lane::Scalar;
-                continue;
-            }
-            dvc[l] = d.clamp(-0.1, 0.1);
-            running = true;
-        }
-        if !running {
-            return;
-        }
-        let mut live = [false; LANES];
-        for l in 0..LANES {
-            live[l] = state[l] == Lane::Running;
-        }
-        for k in 0..n {
-            // Newton in ln V_k, as in `newton`; frozen lanes and lines without input keep
-            // their voltage.
-            let mut dy = [0.0; LANES];
-            for l in 0..LANES {
-                if live[l] && a[k][l] != 0.0 {
-                    let vk = v[k][l];
-                    dy[l] = (-(q[k][l] + cc[k][l] * dvc[l]) / (a[k][l] * vk)).clamp(-20.0, 2.0);
-                }
-            }
-            let g = crate::maths::exp(&dy);
-            for l in 0..LANES {
-                let vk = v[k][l];
-                let mut nv = vk * g[l];
-                if nv >= vmax {
-                    nv = 0.5 * (vk + vmax);
-                }
-                if live[l] && a[k][l] != 0.0 {
-                    v[k][l] = nv;
-                }
-            }
-        }
-        for l in 0..LANES {
-            if live[l] {
-                let mut nvc = vc[l] + dvc[l];
-                if nvc < vc_min {
-                    nvc = 0.5 * (vc[l] + vc_min);
-                } else if nvc > vmax {
-                    nvc = 0.5 * (vc[l] + vmax);
-                }
-                vc[l] = nvc;
+            if x[k][l] > 0.0 {
+                res[l] = res[l].max(rho[l].abs());
+                let qk = rho[l] * ea.current[l];
+                a[k][l] = ea.d_line[l];
+                cc[k][l] = ea.d_common[l];
+                q[k][l] = qk;
+                il[k][l] = ea.current[l];
+                bca[l] += eb.d_line[l] * ea.d_common[l] / ea.d_line[l];
+                bqa[l] += eb.d_line[l] * qk / ea.d_line[l];
+            } else {
+                a[k][l] = 0.0;
             }
         }
     }
-    // Lanes still running after the pass budget leave the batch (`batch` solves them alone).
+    let (ib, p) = source.eval_lanes(vc);
+    let mut ratio = [1.0; LANES];
+    for l in 0..LANES {
+        bad[l] |= !(s_sum[l] > 0.0 && ib[l] > 0.0 && s_sum[l].is_finite());
+        ratio[l] = s_sum[l] / ib[l];
+    }
+    let r = crate::maths::ln(&ratio);
+    let mut dvc = [0.0; LANES];
+    let mut running = false;
+    for l in 0..LANES {
+        if state[l] != Lane::Running {
+            continue;
+        }
+        res[l] = res[l].max(r[l].abs());
+        if bad[l] {
+            state[l] = Lane::Scalar;
+            continue;
+        }
+        if res[l] <= 0.5 * tolerance {
+            // |ln(x)| <= tol implies |x - 1| <= tol (1 + tol): the relative residual.
+            let j = dest[l];
+            store(n, l, v, io, vc[l], it[l], res[l].exp_m1(), &mut outs[j]);
+            results[j] = Ok(());
+            state[l] = Lane::Done;
+            continue;
+        }
+        let den = e_sum[l] / s_sum[l] - p[l] / ib[l] - bca[l] / s_sum[l];
+        let d = (-r[l] + bqa[l] / s_sum[l]) / den;
+        if !d.is_finite() {
+            state[l] = Lane::Scalar;
+            continue;
+        }
+        dvc[l] = d.clamp(-0.1, 0.1);
+        running = true;
+    }
+    if !running {
+        return;
+    }
+    let mut live = [false; LANES];
+    for l in 0..LANES {
+        live[l] = state[l] == Lane::Running;
+    }
+    for k in 0..n {
+        // Newton in ln V_k, as in `newton`, on a line whose load is in triode (d ln I_L /
+        // d ln V_k above 1/2: close to linear in ln V_k); in V_k itself on a saturated one
+        // (ln I_L close to linear in V_k through the drain coupling, convex in ln V_k, where
+        // steps in ln V_k fall short) unless that step would more than halve V_k. Frozen
+        // lanes and lines without input keep their voltage.
+        let mut dy = [0.0; LANES];
+        let mut linear = [false; LANES];
+        for l in 0..LANES {
+            if live[l] && a[k][l] != 0.0 {
+                let vk = v[k][l];
+                dy[l] = (-(q[k][l] + cc[k][l] * dvc[l]) / (a[k][l] * vk)).clamp(-20.0, 2.0);
+                linear[l] = a[k][l] * vk < 0.5 * il[k][l] && dy[l] > -0.5;
+            }
+        }
+        let g = crate::maths::exp(&dy);
+        for l in 0..LANES {
+            let vk = v[k][l];
+            let mut nv = if linear[l] {
+                vk * (1.0 + dy[l])
+            } else {
+                vk * g[l]
+            };
+            if nv >= vmax {
+                nv = 0.5 * (vk + vmax);
+            }
+            if live[l] && a[k][l] != 0.0 {
+                v[k][l] = nv;
+            }
+        }
+    }
+    for l in 0..LANES {
+        if live[l] {
+            let mut nvc = vc[l] + dvc[l];
+            if nvc < vc_min {
+                nvc = 0.5 * (vc[l] + vc_min);
+            } else if nvc > vmax {
+                nvc = 0.5 * (vc[l] + vmax);
+            }
+            vc[l] = nvc;
+        }
+    }
 }
 
 /// Store lane `l`'s converged solution (its outputs in `io`, lines in `v`).

@@ -553,6 +553,118 @@ impl WtaCircuit {
         (vc, ln_ib)
     }
 
+    /// V_C and V_k of a cell expected to carry `share` of the bias (> 1/2, the closed form's
+    /// winner) from the exact device laws: its sink carries `input`, and its output transistor
+    /// with the other cells' outputs carries the bias current at V_C. The others' outputs are
+    /// the closed form's `(1 - share)` of the bias at its V_C, moved with V_C as a
+    /// source-driven transistor in weak inversion (`e^(-V_C/U_T)`; they are a small part of the
+    /// sum, and in weak inversion, where the closed form holds). Newton on the two equations in
+    /// log form from the closed form's V_C and the output law's V_k (two steps, scalar EKV).
+    /// None when a step leaves the supply or a current is not positive.
+    fn refine_winner(&self, k: usize, input: f64, share: f64, vc0: f64) -> Option<(f64, f64)> {
+        let (a, b) = (&self.sink_fast[k], &self.output_fast[k]);
+        let mut vc = vc0;
+        let ib0 = self.bias_fast.eval(vc0).0;
+        let others0 = (1.0 - share) * ib0;
+        let mut vk = self.cell_guess_from_output(k, share * ib0, vc);
+        for _ in 0..1 {
+            let sink = a.eval(vc, vk, 0.0);
+            let out = b.eval(vk, self.output_voltage, vc);
+            let (ib, dib) = self.bias_fast.eval(vc);
+            let others = others0 * ((vc0 - vc) * b.inv_ut).exp();
+            let sum = out.id + others;
+            if !(sink.id > 0.0 && out.id > 0.0 && ib > 0.0) {
+                return None;
+            }
+            // f1 = ln(I_A/I_k), f2 = ln((I_B + others)/I_b); rows: d/dV_k, d/dV_C.
+            let f1 = (sink.id / input).ln();
+            let f2 = (sum / ib).ln();
+            let (j11, j12) = (sink.d_vd / sink.id, sink.d_vg / sink.id);
+            let j21 = out.d_vg / sum;
+            let j22 = (out.d_vs - others * b.inv_ut) / sum - dib / ib;
+            let det = j11 * j22 - j12 * j21;
+            let dvk = (-f1 * j22 + f2 * j12) / det;
+            let dvc = (-f2 * j11 + f1 * j21) / det;
+            if !(dvk.is_finite() && dvc.is_finite()) {
+                return None;
+            }
+            vk += dvk.clamp(-0.1, 0.1);
+            vc += dvc.clamp(-0.05, 0.05);
+            if !(vk > 0.0 && vk < 0.999 * self.supply && vc > self.vc_min && vc < self.supply) {
+                return None;
+            }
+        }
+        Some((vc, vk))
+    }
+
+    /// Starting V_k of a losing cell at each lane's V_C: its sink in triode carries I_k, so
+    /// `F(x_r) = F(x_f) - I_k/I_S` in the EKV form `I = I_S (F(x_f) - F(x_r))` (Enz, Krummenacher,
+    /// Vittoz 1995; `F(x) = s(x/2)^2`, `s` the softplus), solved for the drain in closed form:
+    /// `s_r = sqrt(s_f^2 - I_k/I_S)`, `h_r = ln(e^(s_r) - 1)`, `V_k = v_p - 2 U_T h_r`. The pinch-off
+    /// voltage `v_p` depends on V_k through the drain coupling eta: two rounds, the first at
+    /// V_k = 0, the second a Newton step on the fixed point `V_k = G(V_k)` from the first's V_k
+    /// (a plain fixed-point step would contract by only `eta/n (e^(V_k/U_T) - 1)`, which passes 1
+    /// near V_k = 4 U_T, where a runner-up cell sits). NaN in a lane whose sink cannot carry I_k in
+    /// triode at that V_C (it saturates: the caller uses the saturation-law guess there) or
+    /// whose input is not positive. Starting-point kernels: about 1e-5 relative.
+    #[inline(always)]
+    fn loser_start_lanes(&self, k: usize, i: &Lanes, vc: &Lanes) -> Lanes {
+        let a = &self.sink_fast[k];
+        let p = a.sign;
+        let ut = a.ut();
+        let mut v = [0.0; LANES];
+        let mut out = [f64::NAN; LANES];
+        let en = a.eta * a.inv_n;
+        for round in 0..2 {
+            let mut hf = [0.0; LANES];
+            let mut na = [0.0; LANES];
+            let mut vp = [0.0; LANES];
+            for l in 0..LANES {
+                vp[l] = (p * vc[l] - a.vt0 + a.eta * p * v[l]) * a.inv_n;
+                hf[l] = 0.5 * vp[l] * a.inv_ut;
+                na[l] = -hf[l].abs();
+            }
+            let e = maths::exp_start(&na);
+            let lp = maths::ln_1p_start(&e);
+            let mut sf = [0.0; LANES];
+            let mut sr = [0.0; LANES];
+            let mut ok = [false; LANES];
+            for l in 0..LANES {
+                sf[l] = hf[l].max(0.0) + lp[l];
+                let d = sf[l] * sf[l] - i[l] / a.is;
+                ok[l] = i[l] > 0.0 && d > 0.0 && d.is_finite();
+                sr[l] = if ok[l] { d.sqrt() } else { 1.0 };
+            }
+            let em = maths::exp_m1_start(&sr);
+            let hr = maths::ln_start(&em);
+            for l in 0..LANES {
+                // G(V): the drain voltage the closed form gives at the pinch-off of V.
+                let g = p * (vp[l] - 2.0 * ut * hr[l]);
+                let vk = if round == 0 {
+                    g
+                } else {
+                    // Newton on V = G(V): G'(V) = (eta/n) (1 - s_f l_f/(s_r l_r)), from
+                    // dh_r/dv_p = s_f l_f/(2 U_T s_r l_r), l = logistic (l_r = 1 - e^(-s_r)).
+                    let lf = if hf[l] >= 0.0 {
+                        1.0 / (1.0 + e[l])
+                    } else {
+                        e[l] / (1.0 + e[l])
+                    };
+                    let lr = em[l] / (1.0 + em[l]);
+                    let dg = en * (1.0 - sf[l] * lf / (sr[l] * lr));
+                    v[l] + (g - v[l]) / (1.0 - dg)
+                };
+                if ok[l] && vk.is_finite() && vk > 0.0 && vk < 0.999 * self.supply {
+                    v[l] = vk;
+                    out[l] = vk;
+                } else if round == 0 {
+                    out[l] = f64::NAN;
+                }
+            }
+        }
+        out
+    }
+
     /// [`WtaCircuit::cell_guess`] on every lane (same start, same steps, vectorised kernels).
     #[inline(always)]
     fn cell_guess_lanes(&self, k: usize, i: &Lanes, vc: &Lanes) -> Lanes {
@@ -753,8 +865,25 @@ impl SharedNodeCircuit for WtaCircuit {
         let n = self.n;
         let vmax = self.supply;
         let share = &mut scratch[..n];
-        let (vc, ln_ib) = self.closed_form_vc_lanes(inputs, share);
+        let (mut vc, ln_ib) = self.closed_form_vc_lanes(inputs, share);
         let ib = ln_ib.exp();
+        // A clear winner's cell and V_C from the exact device laws (the closed form is
+        // weak-inversion; a winning output transistor sits in moderate inversion).
+        let mut winner = [(usize::MAX, 0.0); LANES];
+        for l in 0..LANES {
+            let (mut kw, mut best) = (0, 0.0);
+            for k in 0..n {
+                if share[k][l] > best {
+                    (kw, best) = (k, share[k][l]);
+                }
+            }
+            if best > 0.5 && inputs[kw][l] > 0.0 {
+                if let Some((v_c, v_w)) = self.refine_winner(kw, inputs[kw][l], best, vc[l]) {
+                    vc[l] = v_c;
+                    winner[l] = (kw, v_w);
+                }
+            }
+        }
         for k in 0..n {
             let b = &self.output_fast[k];
             let mut use_b = [false; LANES];
@@ -764,6 +893,19 @@ impl SharedNodeCircuit for WtaCircuit {
                 r[l] = share[k][l] * ib / b.is;
             }
             let mut need_sink = [true; LANES];
+            let loser = self.loser_start_lanes(k, &inputs[k], &vc);
+            for l in 0..LANES {
+                if winner[l].0 == k {
+                    use_b[l] = false;
+                    lines[k][l] = winner[l].1;
+                    need_sink[l] = false;
+                } else if loser[l].is_finite() && (!use_b[l] || winner[l].0 != usize::MAX) {
+                    // Beside a refined winner every other cell starts from its sink's law.
+                    use_b[l] = false;
+                    lines[k][l] = loser[l];
+                    need_sink[l] = false;
+                }
+            }
             if use_b.iter().any(|&u| u) {
                 let x = ekv_f_inverse_lanes(&r);
                 for l in 0..LANES {
