@@ -5,8 +5,10 @@
 //! `dc_decision_n10`: the N = 10 DC decisions of one die alone (its WTA fed the weight stage's
 //! currents of every test sample): `scalar` is the reference, a plain scalar solve one decision
 //! at a time (`CompetitionStage::solve`), `batched` the batched solve the chip loop uses
-//! (`dc::solve_batch`, lockstep lanes with vectorised kernels). The README's speed table gives
-//! each figure as a ratio to `scalar`.
+//! (`dc::solve_batch`, lanes refilled from a queue, vectorised kernels), `batched_start_only`
+//! its starting points alone. Setup prints the batched decisions' Newton passes and their
+//! largest node-voltage difference to the scalar solve. The README's speed table gives each
+//! figure as a ratio to `scalar`.
 //!
 //! `digits_chip_forward_pass/k_winners`: the same chip with a k-winners WTA (k = 2, unit
 //! current = bias, DEVELOPERS.md model notes §4.5), solved one decision at a time (not
@@ -29,7 +31,7 @@ use hardmax::device::{Ekv, Polarity, Transistor};
 use hardmax::experiment::build::{build_point, prepare_data};
 use hardmax::experiment::config::load_str;
 use hardmax::pipeline::{evaluate_chip, sample_die, Dies};
-use hardmax::stages::competition::dc::{solve_batch, BatchWorkspace};
+use hardmax::stages::competition::dc::{batch_starts, solve_batch, BatchWorkspace};
 use hardmax::stages::competition::kwta::{KWinnersChip, KWinnersCircuit, KWinnersDesign};
 use hardmax::stages::competition::mos::Mos;
 use hardmax::stages::competition::{
@@ -175,11 +177,34 @@ fn bench(c: &mut Criterion) {
     let mut bw = BatchWorkspace::new();
     let mut sols = vec![StageSolution::default(); rows.len()];
     let mut res = vec![Ok(()); rows.len()];
+    // Setup printout: passes per decision and the largest node-voltage difference to the scalar
+    // solve (the README's figures).
+    solve_batch(&wta, &flat, &mut bw, &mut sols, &mut res);
+    let mut passes = std::collections::BTreeMap::new();
+    let mut worst = 0.0f64;
+    for (x, (b, r)) in rows.iter().zip(sols.iter().zip(&res)) {
+        if r.is_ok() && wta.solve(x, &mut ws, &mut sol).is_ok() {
+            *passes.entry(b.info.iterations).or_insert(0usize) += 1;
+            for (p, q) in sol.node_voltages.iter().zip(&b.node_voltages) {
+                worst = worst.max((p - q).abs());
+            }
+        }
+    }
+    eprintln!(
+        "batched, {} decisions: decisions by Newton passes {passes:?}, largest node voltage \
+         difference to the scalar solve {worst:.2e} V",
+        rows.len()
+    );
     g.bench_function("batched", |b| {
         b.iter(|| {
             solve_batch(&wta, &flat, &mut bw, &mut sols, &mut res);
             res.iter().filter(|r| r.is_ok()).count()
         })
+    });
+    // The batched solve's starting points alone (`dc::batch_starts`, the same code and AVX2
+    // dispatch as `solve_batch`): the share of the batched time spent before the first pass.
+    g.bench_function("batched_start_only", |b| {
+        b.iter(|| batch_starts(&wta, &flat, &mut bw))
     });
     g.finish();
 

@@ -188,7 +188,7 @@ fn a_decision_does_not_depend_on_its_batch() {
     // saturated loads) and need different numbers of passes.
     let rows: Vec<Vec<f64>> = (0..19)
         .map(|j| {
-            let scale = 10f64.powi((j % 6) as i32 - 11) * if j % 4 == 0 { 3.0 } else { 1.0 };
+            let scale = 10f64.powi((j % 6) - 11) * if j % 4 == 0 { 3.0 } else { 1.0 };
             (0..10)
                 .map(|k| scale * (1.0 + 0.01 * ((j * 7 + k * 3) % 11) as f64))
                 .collect()

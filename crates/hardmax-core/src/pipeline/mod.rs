@@ -2017,8 +2017,10 @@ fn add_time(out_time: &mut (f64, f64, u64), time: Option<f64>, energy: Option<f6
 /// Winner marking a decision left to the batched DC solve (never a class index).
 const DEFERRED: usize = usize::MAX;
 
-/// Decisions handed to the batched DC solve at once (a multiple of the solver's lanes).
-const DC_BATCH: usize = 2 * crate::maths::LANES;
+/// Decisions handed to the batched DC solve at once: long enough that the solver's lanes stay
+/// full while the slowest decisions finish (it refills a lane as soon as its decision leaves),
+/// short enough to keep the waiting rows small (512 rows of N inputs).
+const DC_BATCH: usize = 32 * crate::maths::LANES;
 
 /// DC decisions of one chip waiting for the batched solve, in sample order.
 #[derive(Default)]

@@ -717,7 +717,36 @@ pub fn solve_batch<C: SharedNodeCircuit + ?Sized>(
         bw,
         outs,
         results,
+        false,
     );
+}
+
+/// The starting points [`solve_batch`] computes before its Newton passes, alone (for the
+/// benchmarks: the share of the batched time spent before the first pass). Rows with invalid
+/// inputs are skipped; returns how many starts were made (0 for a circuit `solve_batch` solves
+/// one by one).
+pub fn batch_starts<C: SharedNodeCircuit + ?Sized>(
+    c: &C,
+    inputs: &[f64],
+    bw: &mut BatchWorkspace,
+) -> usize {
+    let n = c.lines();
+    let batched = matches!(c.strategy(), DcStrategy::Coupled { .. }) && !c.carries_state();
+    if n == 0 || inputs.len() % n != 0 || !batched {
+        return 0;
+    }
+    bw.ensure(n);
+    bw.queue.clear();
+    for (j, row) in inputs.chunks(n).enumerate() {
+        if row
+            .iter()
+            .all(|x| x.is_finite() && (c.inputs_unit() != "A" || *x >= 0.0))
+        {
+            bw.queue.push(j);
+        }
+    }
+    lanes(c, n, 0, inputs, bw, &mut [], &mut [], true);
+    bw.queue.len()
 }
 
 /// [`lanes_body`], compiled for AVX2 (four lanes per instruction instead of SSE2's two) when
@@ -732,14 +761,15 @@ fn lanes<C: SharedNodeCircuit + ?Sized>(
     bw: &mut BatchWorkspace,
     outs: &mut [StageSolution],
     results: &mut [Result<(), CompetitionError>],
+    starts_only: bool,
 ) {
     #[cfg(target_arch = "x86_64")]
     if std::arch::is_x86_feature_detected!("avx2") {
         // SAFETY: `lanes_avx2` only requires AVX2, which the CPU has (checked just above).
-        unsafe { lanes_avx2(c, n, passes, rows, bw, outs, results) };
+        unsafe { lanes_avx2(c, n, passes, rows, bw, outs, results, starts_only) };
         return;
     }
-    lanes_body(c, n, passes, rows, bw, outs, results);
+    lanes_body(c, n, passes, rows, bw, outs, results, starts_only);
 }
 
 /// [`lanes_body`] with AVX2 enabled for the code inlined into it.
@@ -754,12 +784,13 @@ unsafe fn lanes_avx2<C: SharedNodeCircuit + ?Sized>(
     bw: &mut BatchWorkspace,
     outs: &mut [StageSolution],
     results: &mut [Result<(), CompetitionError>],
+    starts_only: bool,
 ) {
-    lanes_body(c, n, passes, rows, bw, outs, results);
+    lanes_body(c, n, passes, rows, bw, outs, results, starts_only);
 }
 
-/// The starting points of the queued decisions, then the Newton passes with lanes refilled
-/// from the queue (see [`solve_batch`]).
+/// The starting points of the queued decisions, then (unless `starts_only`) the Newton passes
+/// with lanes refilled from the queue (see [`solve_batch`]).
 #[allow(clippy::too_many_arguments)]
 #[inline(always)]
 fn lanes_body<C: SharedNodeCircuit + ?Sized>(
@@ -770,6 +801,7 @@ fn lanes_body<C: SharedNodeCircuit + ?Sized>(
     bw: &mut BatchWorkspace,
     outs: &mut [StageSolution],
     results: &mut [Result<(), CompetitionError>],
+    starts_only: bool,
 ) {
     let BatchWorkspace {
         inputs,
@@ -804,6 +836,9 @@ fn lanes_body<C: SharedNodeCircuit + ?Sized>(
             }
             s[n] = vc[l];
         }
+    }
+    if starts_only {
+        return;
     }
     let mut lanes = PassLanes {
         x,

@@ -24,14 +24,18 @@ pub struct EkvLanes {
 }
 
 /// `(softplus(h), logistic(h))` on every lane with the vectorised kernels (the same formulas as
-/// [`softplus_logistic`]).
+/// [`softplus_logistic`]; `ROUGH`: the starting-point kernels).
 #[inline(always)]
-fn softplus_logistic_lanes(h: &Lanes) -> (Lanes, Lanes) {
+fn softplus_logistic_lanes<const ROUGH: bool>(h: &Lanes) -> (Lanes, Lanes) {
     let mut na = [0.0; LANES];
     for i in 0..LANES {
         na[i] = -h[i].abs();
     }
-    let e = maths::exp(&na);
+    let e = if ROUGH {
+        maths::exp_start(&na)
+    } else {
+        maths::exp(&na)
+    };
     // As the scalar form, lane by lane: the short series below 0.01 (deep weak inversion), the
     // kernel otherwise (computed only when some lane needs it). Each lane's value depends on
     // that lane alone.
@@ -40,7 +44,11 @@ fn softplus_logistic_lanes(h: &Lanes) -> (Lanes, Lanes) {
         lp[i] = ln_1p_small(e[i]);
     }
     if e.iter().any(|&x| x >= 0.01) {
-        let k = maths::ln_1p(&e);
+        let k = if ROUGH {
+            maths::ln_1p_start(&e)
+        } else {
+            maths::ln_1p(&e)
+        };
         for i in 0..LANES {
             if e[i] >= 0.01 {
                 lp[i] = k[i];
@@ -72,6 +80,8 @@ const REVERSE_NEGLIGIBLE: f64 = 24.0;
 pub struct Mos {
     /// Specific current I_S, A.
     pub is: f64,
+    /// ln I_S (I_S in A), for the closed-form starts.
+    pub ln_is: f64,
     /// Threshold magnitude V_T0, V.
     pub vt0: f64,
     /// 1/n.
@@ -118,6 +128,7 @@ impl Mos {
     pub fn new(d: &Ekv) -> Mos {
         Mos {
             is: d.specific_current(),
+            ln_is: d.specific_current().ln(),
             vt0: d.vt0,
             inv_n: 1.0 / d.n,
             eta: d.eta,
@@ -184,84 +195,206 @@ impl Mos {
     /// within about 1e-15 relative of [`Mos::eval`]; tested below).
     #[inline(always)]
     pub fn eval_lanes(&self, vg: &Lanes, vd: &Lanes, vs: &Lanes) -> EkvLanes {
-        let p = self.sign;
-        let mut hf = [0.0; LANES];
-        let mut hr = [0.0; LANES];
-        let mut dh = [0.0; LANES];
-        for i in 0..LANES {
-            let (g, d, s) = (p * vg[i], p * vd[i], p * vs[i]);
-            let vp = (g - self.vt0 + self.eta * (d - s)) * self.inv_n;
-            hf[i] = 0.5 * (vp - s) * self.inv_ut;
-            hr[i] = 0.5 * (vp - d) * self.inv_ut;
-            dh[i] = 0.5 * (d - s) * self.inv_ut;
-        }
-        let en = self.eta * self.inv_n;
-        let kp = self.is * self.inv_ut * p;
-        let mut forward_only = [false; LANES];
-        for i in 0..LANES {
-            forward_only[i] = hr[i] <= -REVERSE_NEGLIGIBLE && hr[i] - hf[i] <= -REVERSE_NEGLIGIBLE;
-        }
-        if forward_only.iter().all(|&f| f) {
-            // Saturated in every lane, the reverse part below the last bit (`REVERSE_NEGLIGIBLE`):
-            // the forward part alone (the same per-lane formula as below).
-            let (sf, lf) = softplus_logistic_lanes(&hf);
-            let mut out = EkvLanes {
-                id: [0.0; LANES],
-                d_vg: [0.0; LANES],
-                d_vd: [0.0; LANES],
-                d_vs: [0.0; LANES],
-            };
-            for i in 0..LANES {
-                out.id[i] = self.is * sf[i] * sf[i];
-                let gf = sf[i] * lf[i];
-                out.d_vg[i] = kp * self.inv_n * gf;
-                out.d_vd[i] = kp * (gf * en);
-                out.d_vs[i] = kp * (gf * (-en - 1.0));
-            }
-            return out;
-        }
-        let (sf, lf) = softplus_logistic_lanes(&hf);
-        let (sr, lr) = softplus_logistic_lanes(&hr);
-        // The folded difference only where some lane has drain and source close.
-        let mut lq = [0.0; LANES];
-        if dh.iter().any(|d| d.abs() < 0.5) {
-            let em = maths::exp_m1_small(&dh);
-            let mut q = [0.0; LANES];
-            for i in 0..LANES {
-                q[i] = lr[i] * em[i];
-            }
-            lq = maths::ln_1p(&q);
-        }
-        let mut out = EkvLanes {
-            id: [0.0; LANES],
-            d_vg: [0.0; LANES],
-            d_vd: [0.0; LANES],
-            d_vs: [0.0; LANES],
-        };
-        for i in 0..LANES {
-            if forward_only[i] {
-                // Lane by lane the same value as the all-saturated path above.
-                out.id[i] = self.is * sf[i] * sf[i];
-                let gf = sf[i] * lf[i];
-                out.d_vg[i] = kp * self.inv_n * gf;
-                out.d_vd[i] = kp * (gf * en);
-                out.d_vs[i] = kp * (gf * (-en - 1.0));
-                continue;
-            }
-            // As in `eval`: the folded difference when drain and source are close.
-            let ds = if dh[i].abs() < 0.5 {
-                lq[i]
-            } else {
-                sf[i] - sr[i]
-            };
-            out.id[i] = self.is * ds * (sf[i] + sr[i]);
-            let (gf, gr) = (sf[i] * lf[i], sr[i] * lr[i]);
-            out.d_vg[i] = kp * self.inv_n * (gf - gr);
-            out.d_vd[i] = kp * (gf * en - gr * (en - 1.0));
-            out.d_vs[i] = kp * (gf * (-en - 1.0) + gr * en);
-        }
-        out
+        ekv_lanes::<Mos, false>(self, vg, vd, vs)
     }
+
+    /// [`Mos::eval_lanes`] with the starting-point kernels (about 1e-5 relative), for starting
+    /// points.
+    #[inline(always)]
+    pub fn eval_lanes_start(&self, vg: &Lanes, vd: &Lanes, vs: &Lanes) -> EkvLanes {
+        ekv_lanes::<Mos, true>(self, vg, vd, vs)
+    }
+}
+
+/// The folded constants a lane evaluation reads: the same for every lane ([`Mos`]) or one device
+/// per lane ([`MosLanes`]).
+trait LaneParams {
+    fn sign(&self) -> f64;
+    fn is(&self, i: usize) -> f64;
+    fn vt0(&self, i: usize) -> f64;
+    fn inv_n(&self, i: usize) -> f64;
+    fn eta(&self, i: usize) -> f64;
+    fn inv_ut(&self, i: usize) -> f64;
+}
+
+impl LaneParams for Mos {
+    #[inline(always)]
+    fn sign(&self) -> f64 {
+        self.sign
+    }
+    #[inline(always)]
+    fn is(&self, _: usize) -> f64 {
+        self.is
+    }
+    #[inline(always)]
+    fn vt0(&self, _: usize) -> f64 {
+        self.vt0
+    }
+    #[inline(always)]
+    fn inv_n(&self, _: usize) -> f64 {
+        self.inv_n
+    }
+    #[inline(always)]
+    fn eta(&self, _: usize) -> f64 {
+        self.eta
+    }
+    #[inline(always)]
+    fn inv_ut(&self, _: usize) -> f64 {
+        self.inv_ut
+    }
+}
+
+/// One device per lane (devices of one polarity), gathered from a circuit's per-line devices
+/// for a lane-wise evaluation where each decision looks at a different line.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct MosLanes {
+    pub is: Lanes,
+    pub vt0: Lanes,
+    pub inv_n: Lanes,
+    pub eta: Lanes,
+    pub inv_ut: Lanes,
+    /// +1 NMOS, -1 PMOS (the same for every lane).
+    pub sign: f64,
+}
+
+impl LaneParams for MosLanes {
+    #[inline(always)]
+    fn sign(&self) -> f64 {
+        self.sign
+    }
+    #[inline(always)]
+    fn is(&self, i: usize) -> f64 {
+        self.is[i]
+    }
+    #[inline(always)]
+    fn vt0(&self, i: usize) -> f64 {
+        self.vt0[i]
+    }
+    #[inline(always)]
+    fn inv_n(&self, i: usize) -> f64 {
+        self.inv_n[i]
+    }
+    #[inline(always)]
+    fn eta(&self, i: usize) -> f64 {
+        self.eta[i]
+    }
+    #[inline(always)]
+    fn inv_ut(&self, i: usize) -> f64 {
+        self.inv_ut[i]
+    }
+}
+
+impl MosLanes {
+    /// Lane i takes `devices[pick[i]]` (all of one polarity: the sign is the first's).
+    #[inline(always)]
+    pub fn gather(devices: &[Mos], pick: &[usize; LANES]) -> MosLanes {
+        let d = |i: usize| &devices[pick[i]];
+        MosLanes {
+            is: std::array::from_fn(|i| d(i).is),
+            vt0: std::array::from_fn(|i| d(i).vt0),
+            inv_n: std::array::from_fn(|i| d(i).inv_n),
+            eta: std::array::from_fn(|i| d(i).eta),
+            inv_ut: std::array::from_fn(|i| d(i).inv_ut),
+            sign: d(0).sign,
+        }
+    }
+
+    /// [`Mos::eval_lanes_start`], lane i with its own device.
+    #[inline(always)]
+    pub fn eval_start(&self, vg: &Lanes, vd: &Lanes, vs: &Lanes) -> EkvLanes {
+        ekv_lanes::<MosLanes, true>(self, vg, vd, vs)
+    }
+}
+
+/// The lane evaluation behind [`Mos::eval_lanes`] (`ROUGH`: the starting-point kernels).
+#[inline(always)]
+fn ekv_lanes<P: LaneParams, const ROUGH: bool>(
+    d: &P,
+    vg: &Lanes,
+    vd: &Lanes,
+    vs: &Lanes,
+) -> EkvLanes {
+    let p = d.sign();
+    let mut hf = [0.0; LANES];
+    let mut hr = [0.0; LANES];
+    let mut dh = [0.0; LANES];
+    let mut en = [0.0; LANES];
+    let mut kp = [0.0; LANES];
+    for i in 0..LANES {
+        let (g, dr, s) = (p * vg[i], p * vd[i], p * vs[i]);
+        let vp = (g - d.vt0(i) + d.eta(i) * (dr - s)) * d.inv_n(i);
+        hf[i] = 0.5 * (vp - s) * d.inv_ut(i);
+        hr[i] = 0.5 * (vp - dr) * d.inv_ut(i);
+        dh[i] = 0.5 * (dr - s) * d.inv_ut(i);
+        en[i] = d.eta(i) * d.inv_n(i);
+        kp[i] = d.is(i) * d.inv_ut(i) * p;
+    }
+    let mut forward_only = [false; LANES];
+    for i in 0..LANES {
+        forward_only[i] = hr[i] <= -REVERSE_NEGLIGIBLE && hr[i] - hf[i] <= -REVERSE_NEGLIGIBLE;
+    }
+    let mut out = EkvLanes {
+        id: [0.0; LANES],
+        d_vg: [0.0; LANES],
+        d_vd: [0.0; LANES],
+        d_vs: [0.0; LANES],
+    };
+    if forward_only.iter().all(|&f| f) {
+        // Saturated in every lane, the reverse part below the last bit (`REVERSE_NEGLIGIBLE`):
+        // the forward part alone (the same per-lane formula as below).
+        let (sf, lf) = softplus_logistic_lanes::<ROUGH>(&hf);
+        for i in 0..LANES {
+            out.id[i] = d.is(i) * sf[i] * sf[i];
+            let gf = sf[i] * lf[i];
+            out.d_vg[i] = kp[i] * d.inv_n(i) * gf;
+            out.d_vd[i] = kp[i] * (gf * en[i]);
+            out.d_vs[i] = kp[i] * (gf * (-en[i] - 1.0));
+        }
+        return out;
+    }
+    let (sf, lf) = softplus_logistic_lanes::<ROUGH>(&hf);
+    let (sr, lr) = softplus_logistic_lanes::<ROUGH>(&hr);
+    // The folded difference only where some lane has drain and source close.
+    let mut lq = [0.0; LANES];
+    if dh.iter().any(|d| d.abs() < 0.5) {
+        let em = if ROUGH {
+            maths::exp_m1_start(&dh)
+        } else {
+            maths::exp_m1_small(&dh)
+        };
+        let mut q = [0.0; LANES];
+        for i in 0..LANES {
+            q[i] = lr[i] * em[i];
+        }
+        lq = if ROUGH {
+            maths::ln_1p_start(&q)
+        } else {
+            maths::ln_1p(&q)
+        };
+    }
+    for i in 0..LANES {
+        if forward_only[i] {
+            // Lane by lane the same value as the all-saturated path above.
+            out.id[i] = d.is(i) * sf[i] * sf[i];
+            let gf = sf[i] * lf[i];
+            out.d_vg[i] = kp[i] * d.inv_n(i) * gf;
+            out.d_vd[i] = kp[i] * (gf * en[i]);
+            out.d_vs[i] = kp[i] * (gf * (-en[i] - 1.0));
+            continue;
+        }
+        // As in `Mos::eval`: the folded difference when drain and source are close.
+        let ds = if dh[i].abs() < 0.5 {
+            lq[i]
+        } else {
+            sf[i] - sr[i]
+        };
+        out.id[i] = d.is(i) * ds * (sf[i] + sr[i]);
+        let (gf, gr) = (sf[i] * lf[i], sr[i] * lr[i]);
+        out.d_vg[i] = kp[i] * d.inv_n(i) * (gf - gr);
+        out.d_vd[i] = kp[i] * (gf * en[i] - gr * (en[i] - 1.0));
+        out.d_vs[i] = kp[i] * (gf * (-en[i] - 1.0) + gr * en[i]);
+    }
+    out
 }
 
 #[cfg(test)]
@@ -382,6 +515,65 @@ mod tests {
                         (a.d_vs, b.d_vs[lane]),
                     ] {
                         assert!((x - y).abs() <= 1e-13 * x.abs(), "{a:?} {b:?} {lane}");
+                    }
+                }
+            }
+        }
+    }
+
+    /// The starting-point lane evaluation stays within 2e-5 relative of the full scalar one (its
+    /// kernels' bounds, `maths` module table: exp_start 4e-6 and exp_m1_start 1e-5 relative,
+    /// ln_1p_start 4e-8 absolute, compounded through the EKV expression), both with one device
+    /// for all lanes (`Mos::eval_lanes_start`) and with a device per lane (`MosLanes`, devices
+    /// of different thresholds, slope factors, drain couplings and specific currents), over
+    /// weak to strong inversion, forward, reverse and V_DS ~ 0, both polarities. Reference:
+    /// `Mos::eval`.
+    #[test]
+    fn start_lanes_stay_near_eval() {
+        use rand::{Rng, SeedableRng};
+        let mut r = rand_chacha::ChaCha8Rng::seed_from_u64(6);
+        for p in [Polarity::Nmos, Polarity::Pmos] {
+            let devices: Vec<Mos> = (0..5)
+                .map(|j| {
+                    Mos::new(&Ekv {
+                        vt0: 0.40 + 0.02 * j as f64,
+                        n: 1.3 + 0.03 * j as f64,
+                        eta: 0.01 + 0.005 * j as f64,
+                        beta: 3e-4 * (1.0 + 0.1 * j as f64),
+                        ..dev(p)
+                    })
+                })
+                .collect();
+            let s = p.sign();
+            for _ in 0..3000 {
+                let mut v = [[0.0; LANES]; 3];
+                for lane in 0..LANES {
+                    let vs = r.gen_range(0.0..0.6);
+                    let vd = if r.gen_bool(0.3) {
+                        vs + r.gen_range(-1e-3..1e-3) * 10f64.powi(-r.gen_range(0..12))
+                    } else {
+                        r.gen_range(0.0..1.8)
+                    };
+                    v[0][lane] = s * r.gen_range(-0.2..1.8);
+                    v[1][lane] = s * vd;
+                    v[2][lane] = s * vs;
+                }
+                let pick: [usize; LANES] = std::array::from_fn(|_| r.gen_range(0..devices.len()));
+                let per_lane = MosLanes::gather(&devices, &pick).eval_start(&v[0], &v[1], &v[2]);
+                let shared = devices[0].eval_lanes_start(&v[0], &v[1], &v[2]);
+                for lane in 0..LANES {
+                    for (m, b) in [(&devices[pick[lane]], &per_lane), (&devices[0], &shared)] {
+                        let a = m.eval(v[0][lane], v[1][lane], v[2][lane]);
+                        let ok = (a.id - b.id[lane]).abs() <= 2e-5 * a.id.abs().max(1e-300);
+                        assert!(ok, "{a:?} {b:?} {lane}");
+                        let scale = a.d_vg.abs().max(a.d_vd.abs()).max(a.d_vs.abs()).max(1e-300);
+                        for (x, y) in [
+                            (a.d_vg, b.d_vg[lane]),
+                            (a.d_vd, b.d_vd[lane]),
+                            (a.d_vs, b.d_vs[lane]),
+                        ] {
+                            assert!((x - y).abs() <= 2e-5 * scale, "{a:?} {b:?} {lane}");
+                        }
                     }
                 }
             }

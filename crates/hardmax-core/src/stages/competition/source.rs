@@ -146,9 +146,26 @@ impl CurrentSource<Mos> {
         }
     }
 
+    /// [`CurrentSource::eval_lanes`] with the starting-point kernels ([`Mos::eval_lanes_start`]).
+    #[inline]
+    pub fn eval_lanes_start(
+        &self,
+        v: &crate::maths::Lanes,
+    ) -> (crate::maths::Lanes, crate::maths::Lanes) {
+        self.eval_lanes_with::<true>(v)
+    }
+
     /// [`CurrentSource::eval`] at [`LANES`](crate::maths::LANES) voltages (vectorised EKV).
     #[inline]
     pub fn eval_lanes(
+        &self,
+        v: &crate::maths::Lanes,
+    ) -> (crate::maths::Lanes, crate::maths::Lanes) {
+        self.eval_lanes_with::<false>(v)
+    }
+
+    #[inline(always)]
+    fn eval_lanes_with<const START: bool>(
         &self,
         v: &crate::maths::Lanes,
     ) -> (crate::maths::Lanes, crate::maths::Lanes) {
@@ -159,7 +176,12 @@ impl CurrentSource<Mos> {
                 device,
                 gate_voltage,
             } => {
-                let e = device.eval_lanes(&[gate_voltage; LANES], v, &[0.0; LANES]);
+                let (g, s) = (&[gate_voltage; LANES], &[0.0; LANES]);
+                let e = if START {
+                    device.eval_lanes_start(g, v, s)
+                } else {
+                    device.eval_lanes(g, v, s)
+                };
                 (e.id, e.d_vd)
             }
         }

@@ -40,7 +40,7 @@ use super::circuit::{
 use super::common::{
     at_least_two, check_count, check_mismatch, draw_n, ekv_f_inverse, nmos, nonnegative, Devices,
 };
-use super::mos::Mos;
+use super::mos::{Mos, MosLanes};
 use super::source::{CurrentSource, SourceKeys};
 use super::{positive, CompetitionError};
 use crate::maths;
@@ -478,6 +478,100 @@ impl WtaCircuit {
     }
 }
 
+/// `|x| < 0.05`, the reach of the start's short series (false for NaN: the kernels take it).
+#[inline(always)]
+fn within_series_reach(x: f64) -> bool {
+    x.abs() < 0.05
+}
+
+/// `ln(1 + u)` by its series to `u^5` (remainder under `|u|^6/6`: 3e-9 for `|u| < 0.05`).
+#[inline(always)]
+fn ln_1p_series(u: f64) -> f64 {
+    u * (1.0 - u * (0.5 - u * (1.0 / 3.0 - u * (0.25 - u * 0.2))))
+}
+
+/// A sink's drain law at given pinch-off voltages (`WtaCircuit::loser_start_lanes`), every lane:
+/// `h_f = v_p/(2 U_T)` at the grounded source, `e = e^(-|h_f|)`, `lp = ln(1 + e)`, `s_f =
+/// softplus(h_f)`, `s_r = sqrt(s_f^2 - I_k/I_S)`, `em = e^(s_r) - 1`, `h_r = ln(em)` (so the
+/// drain sits at `V_k = v_p - 2 U_T h_r`), and whether the sink carries I_k below saturation
+/// there (`ok`). Starting-point kernels.
+#[derive(Clone, Copy)]
+struct DrainLaw {
+    hf: Lanes,
+    e: Lanes,
+    lp: Lanes,
+    sf: Lanes,
+    sr: Lanes,
+    em: Lanes,
+    hr: Lanes,
+    ok: [bool; LANES],
+}
+
+impl DrainLaw {
+    /// `(h_f, e, lp)` at the pinch-off voltages `vp`.
+    #[inline(always)]
+    fn source_side(a: &Mos, vp: &Lanes) -> (Lanes, Lanes, Lanes) {
+        let mut hf = [0.0; LANES];
+        let mut na = [0.0; LANES];
+        for l in 0..LANES {
+            hf[l] = 0.5 * vp[l] * a.inv_ut;
+            na[l] = -hf[l].abs();
+        }
+        let e = maths::exp_start(&na);
+        let lp = maths::ln_1p_start(&e);
+        (hf, e, lp)
+    }
+
+    #[inline(always)]
+    fn at(a: &Mos, i: &Lanes, vp: &Lanes) -> DrainLaw {
+        let (hf, e, lp) = DrainLaw::source_side(a, vp);
+        let mut sf = [0.0; LANES];
+        let mut sr = [0.0; LANES];
+        let mut ok = [false; LANES];
+        for l in 0..LANES {
+            sf[l] = hf[l].max(0.0) + lp[l];
+            let d = sf[l] * sf[l] - i[l] / a.is;
+            ok[l] = i[l] > 0.0 && d > 0.0 && d.is_finite();
+            sr[l] = if ok[l] { d.sqrt() } else { 1.0 };
+        }
+        let em = maths::exp_m1_start(&sr);
+        let hr = maths::ln_start(&em);
+        DrainLaw {
+            hf,
+            e,
+            lp,
+            sf,
+            sr,
+            em,
+            hr,
+            ok,
+        }
+    }
+
+    /// One Newton step on the fixed point `V = G(V)`, `G(V) = v_p(V) - 2 U_T h_r(V)` (times the
+    /// polarity), from `v` where the law was taken (pinch-off `vp`): `G'(V) = (eta/n) (1 - s_f
+    /// l_f/(s_r l_r))`, from `dh_r/dv_p = s_f l_f/(2 U_T s_r l_r)`, `l` the logistic (`l_r = 1 -
+    /// e^(-s_r)`).
+    #[inline(always)]
+    fn newton(&self, a: &Mos, vp: &Lanes, v: &Lanes) -> Lanes {
+        let (p, ut, en) = (a.sign, a.ut(), a.eta * a.inv_n);
+        let mut out = [0.0; LANES];
+        for l in 0..LANES {
+            let g = p * (vp[l] - 2.0 * ut * self.hr[l]);
+            let e = self.e[l];
+            let lf = if self.hf[l] >= 0.0 {
+                1.0 / (1.0 + e)
+            } else {
+                e / (1.0 + e)
+            };
+            let lr = self.em[l] / (1.0 + self.em[l]);
+            let dg = en * (1.0 - self.sf[l] * lf / (self.sr[l] * lr));
+            out[l] = v[l] + (g - v[l]) / (1.0 - dg);
+        }
+        out
+    }
+}
+
 /// `ekv_f_inverse` on every lane: `2 ln(e^sqrt(i) - 1)`.
 #[inline(always)]
 fn ekv_f_inverse_lanes(i: &Lanes) -> Lanes {
@@ -497,7 +591,12 @@ impl WtaCircuit {
     /// [`WtaCircuit::closed_form_vc`] on every lane (the same formulas with the vectorised
     /// kernels). Writes the shares into `shares` and returns `(V_C, ln I_b)`.
     #[inline(always)]
-    fn closed_form_vc_lanes(&self, inputs: &[Lanes], shares: &mut [Lanes]) -> (Lanes, f64) {
+    fn closed_form_vc_lanes(
+        &self,
+        inputs: &[Lanes],
+        shares: &mut [Lanes],
+        f_inverse: &mut [Lanes],
+    ) -> (Lanes, f64) {
         let vout = self.output_voltage;
         let ln_ib = self.bias_fast.ln_weak_current();
         let mut max_e = [f64::NEG_INFINITY; LANES];
@@ -506,12 +605,14 @@ impl WtaCircuit {
             let a = &self.sink_fast[k];
             let b = &self.output_fast[k];
             let eta_a = a.eta.max(1e-3);
+            let inv_is = 1.0 / a.is;
             let mut r = [0.0; LANES];
             for l in 0..LANES {
-                r[l] = inputs[k][l] / a.is;
+                r[l] = inputs[k][l] * inv_is;
             }
             let x = ekv_f_inverse_lanes(&r);
-            let ln_bis = b.is.ln();
+            f_inverse[k] = x;
+            let ln_bis = b.ln_is;
             let slope_k = (1.0 / eta_a + b.eta) * b.inv_n * b.inv_ut + b.inv_ut;
             for l in 0..LANES {
                 let alpha = (a.n() * a.ut() * x[l] + a.vt0) / eta_a;
@@ -535,9 +636,13 @@ impl WtaCircuit {
                 s[l] += shares[k][l];
             }
         }
+        let mut inv_s = [0.0; LANES];
+        for l in 0..LANES {
+            inv_s[l] = 1.0 / s[l];
+        }
         for k in 0..self.n {
             for l in 0..LANES {
-                shares[k][l] /= s[l];
+                shares[k][l] *= inv_s[l];
             }
         }
         let ln_s = maths::ln_start(&s);
@@ -553,48 +658,100 @@ impl WtaCircuit {
         (vc, ln_ib)
     }
 
-    /// V_C and V_k of a cell expected to carry `share` of the bias (> 1/2, the closed form's
-    /// winner) from the exact device laws: its sink carries `input`, and its output transistor
+    /// In each lane whose closed form has a clear winner (a share above 1/2), that cell's V_k
+    /// and V_C from the exact device laws: its sink carries its input, and its output transistor
     /// with the other cells' outputs carries the bias current at V_C. The others' outputs are
     /// the closed form's `(1 - share)` of the bias at its V_C, moved with V_C as a
     /// source-driven transistor in weak inversion (`e^(-V_C/U_T)`; they are a small part of the
-    /// sum, and in weak inversion, where the closed form holds). Newton on the two equations in
-    /// log form from the closed form's V_C and the output law's V_k (two steps, scalar EKV).
-    /// None when a step leaves the supply or a current is not positive.
-    fn refine_winner(&self, k: usize, input: f64, share: f64, vc0: f64) -> Option<(f64, f64)> {
-        let (a, b) = (&self.sink_fast[k], &self.output_fast[k]);
-        let mut vc = vc0;
-        let ib0 = self.bias_fast.eval(vc0).0;
-        let others0 = (1.0 - share) * ib0;
-        let mut vk = self.cell_guess_from_output(k, share * ib0, vc);
-        for _ in 0..1 {
-            let sink = a.eval(vc, vk, 0.0);
-            let out = b.eval(vk, self.output_voltage, vc);
-            let (ib, dib) = self.bias_fast.eval(vc);
-            let others = others0 * ((vc0 - vc) * b.inv_ut).exp();
-            let sum = out.id + others;
-            if !(sink.id > 0.0 && out.id > 0.0 && ib > 0.0) {
-                return None;
-            }
-            // f1 = ln(I_A/I_k), f2 = ln((I_B + others)/I_b); rows: d/dV_k, d/dV_C.
-            let f1 = (sink.id / input).ln();
-            let f2 = (sum / ib).ln();
-            let (j11, j12) = (sink.d_vd / sink.id, sink.d_vg / sink.id);
-            let j21 = out.d_vg / sum;
-            let j22 = (out.d_vs - others * b.inv_ut) / sum - dib / ib;
-            let det = j11 * j22 - j12 * j21;
-            let dvk = (-f1 * j22 + f2 * j12) / det;
-            let dvc = (-f2 * j11 + f1 * j21) / det;
-            if !(dvk.is_finite() && dvc.is_finite()) {
-                return None;
-            }
-            vk += dvk.clamp(-0.1, 0.1);
-            vc += dvc.clamp(-0.05, 0.05);
-            if !(vk > 0.0 && vk < 0.999 * self.supply && vc > self.vc_min && vc < self.supply) {
-                return None;
+    /// sum, and in weak inversion, where the closed form holds). One Newton step on the two
+    /// equations in log form from the closed form's V_C and the output law's V_k, every lane
+    /// with its own winner's devices (`MosLanes`), starting-point kernels. Updates `vc` and
+    /// returns `(winner, V_k)` per lane (`usize::MAX` where there is no clear winner, or the step
+    /// leaves the supply, or a current is not positive).
+    #[inline(always)]
+    fn refine_winner_lanes(
+        &self,
+        inputs: &[Lanes],
+        share: &[Lanes],
+        vc: &mut Lanes,
+    ) -> [(usize, f64); LANES] {
+        let mut kw = [0usize; LANES];
+        let mut best = [0.0; LANES];
+        for k in 0..self.n {
+            for l in 0..LANES {
+                if share[k][l] > best[l] {
+                    (kw[l], best[l]) = (k, share[k][l]);
+                }
             }
         }
-        Some((vc, vk))
+        let mut input = [0.0; LANES];
+        let mut clear = [false; LANES];
+        for l in 0..LANES {
+            input[l] = inputs[kw[l]][l];
+            clear[l] = best[l] > 0.5 && input[l] > 0.0;
+        }
+        let mut out = [(usize::MAX, 0.0); LANES];
+        if !clear.iter().any(|&c| c) {
+            return out;
+        }
+        let a = MosLanes::gather(&self.sink_fast, &kw);
+        let b = MosLanes::gather(&self.output_fast, &kw);
+        let vc0 = *vc;
+        let (ib0, _) = self.bias_fast.eval_lanes_start(&vc0);
+        let mut y = [0.0; LANES];
+        for l in 0..LANES {
+            y[l] = (best[l] * ib0[l] / b.is[l]).sqrt();
+        }
+        let x = maths::ln_start(&maths::exp_m1_start(&y));
+        let vout = self.output_voltage;
+        let mut vk = [0.0; LANES];
+        for l in 0..LANES {
+            // The output law (saturated B_k, inverted EKV forward law), as `cell_guess_from_output`.
+            let (n, ut) = (1.0 / b.inv_n[l], 1.0 / b.inv_ut[l]);
+            vk[l] = n * (ut * 2.0 * x[l] + vc0[l]) + b.vt0[l] - b.eta[l] * (vout - vc0[l]);
+        }
+        let sink = a.eval_start(&vc0, &vk, &[0.0; LANES]);
+        let outp = b.eval_start(&vk, &[vout; LANES], &vc0);
+        let (ib, dib) = self.bias_fast.eval_lanes_start(&vc0);
+        // `others` at V_C = vc0: the closed form's (1 - share) of the bias.
+        let mut sum = [0.0; LANES];
+        let mut r1 = [1.0; LANES];
+        let mut r2 = [1.0; LANES];
+        for l in 0..LANES {
+            let others = (1.0 - best[l]) * ib0[l];
+            sum[l] = outp.id[l] + others;
+            if sink.id[l] > 0.0 && outp.id[l] > 0.0 && ib[l] > 0.0 {
+                r1[l] = sink.id[l] / input[l];
+                r2[l] = sum[l] / ib[l];
+            } else {
+                clear[l] = false;
+            }
+        }
+        let f1 = maths::ln_start(&r1);
+        let f2 = maths::ln_start(&r2);
+        for l in 0..LANES {
+            let others = (1.0 - best[l]) * ib0[l];
+            // f1 = ln(I_A/I_k), f2 = ln((I_B + others)/I_b); rows: d/dV_k, d/dV_C.
+            let (j11, j12) = (sink.d_vd[l] / sink.id[l], sink.d_vg[l] / sink.id[l]);
+            let j21 = outp.d_vg[l] / sum[l];
+            let j22 = (outp.d_vs[l] - others * b.inv_ut[l]) / sum[l] - dib[l] / ib[l];
+            let det = j11 * j22 - j12 * j21;
+            let dvk = (-f1[l] * j22 + f2[l] * j12) / det;
+            let dvc = (-f2[l] * j11 + f1[l] * j21) / det;
+            let nvk = vk[l] + dvk.clamp(-0.1, 0.1);
+            let nvc = vc0[l] + dvc.clamp(-0.05, 0.05);
+            let inside = dvk.is_finite()
+                && dvc.is_finite()
+                && nvk > 0.0
+                && nvk < 0.999 * self.supply
+                && nvc > self.vc_min
+                && nvc < self.supply;
+            if clear[l] && inside {
+                vc[l] = nvc;
+                out[l] = (kw[l], nvk);
+            }
+        }
+        out
     }
 
     /// Starting V_k of a losing cell at each lane's V_C: its sink in triode carries I_k, so
@@ -608,57 +765,104 @@ impl WtaCircuit {
     /// triode at that V_C (it saturates: the caller uses the saturation-law guess there) or
     /// whose input is not positive. Starting-point kernels: about 1e-5 relative.
     #[inline(always)]
-    fn loser_start_lanes(&self, k: usize, i: &Lanes, vc: &Lanes) -> Lanes {
+    fn loser_start_lanes(
+        &self,
+        k: usize,
+        i: &Lanes,
+        vc: &Lanes,
+        want: &[bool; LANES],
+        f_inv: &Lanes,
+    ) -> Lanes {
         let a = &self.sink_fast[k];
-        let p = a.sign;
-        let ut = a.ut();
-        let mut v = [0.0; LANES];
-        let mut out = [f64::NAN; LANES];
-        let en = a.eta * a.inv_n;
-        for round in 0..2 {
-            let mut hf = [0.0; LANES];
-            let mut na = [0.0; LANES];
-            let mut vp = [0.0; LANES];
+        let (p, ut, en) = (a.sign, a.ut(), a.eta * a.inv_n);
+        // Round 1, at V_k = 0.
+        let mut vp0 = [0.0; LANES];
+        for l in 0..LANES {
+            vp0[l] = (p * vc[l] - a.vt0) * a.inv_n;
+        }
+        let r1 = DrainLaw::at(a, i, &vp0);
+        let mut ok = r1.ok;
+        let mut v1 = [0.0; LANES];
+        for l in 0..LANES {
+            // G(0): the drain voltage the closed form gives at the pinch-off of V_k = 0.
+            let g = p * (vp0[l] - 2.0 * ut * r1.hr[l]);
+            ok[l] &= g.is_finite() && g > 0.0 && g < 0.999 * self.supply;
+            v1[l] = if ok[l] { g } else { 0.0 };
+        }
+        // Round 2, at V_k = G(0): the pinch-off moves by (eta/n) V_k, a small step, so each
+        // quantity is round 1's times a short series (exp to t^4, ln(1 + u) to u^5, remainders
+        // under 3e-9 for |t|, |u| < 0.05); a lane beyond that reach takes the kernels.
+        let mut r2 = r1;
+        let mut vp = [0.0; LANES];
+        let mut far = [false; LANES];
+        for l in 0..LANES {
+            vp[l] = vp0[l] + en * p * v1[l];
+            r2.hf[l] = 0.5 * vp[l] * a.inv_ut;
+            let t = r1.hf[l].abs() - r2.hf[l].abs();
+            r2.e[l] = r1.e[l] * (1.0 + t * (1.0 + t * (0.5 + t * (1.0 / 6.0 + t * (1.0 / 24.0)))));
+            r2.lp[l] = r1.lp[l] + ln_1p_series((r2.e[l] - r1.e[l]) / (1.0 + r1.e[l]));
+            r2.sf[l] = r2.hf[l].max(0.0) + r2.lp[l];
+            far[l] = !within_series_reach(t);
+        }
+        if far.iter().any(|&f| f) {
+            let (_, e, lp) = DrainLaw::source_side(a, &vp);
             for l in 0..LANES {
-                vp[l] = (p * vc[l] - a.vt0 + a.eta * p * v[l]) * a.inv_n;
-                hf[l] = 0.5 * vp[l] * a.inv_ut;
-                na[l] = -hf[l].abs();
+                if far[l] {
+                    (r2.e[l], r2.lp[l]) = (e[l], lp[l]);
+                    r2.sf[l] = r2.hf[l].max(0.0) + lp[l];
+                }
             }
-            let e = maths::exp_start(&na);
-            let lp = maths::ln_1p_start(&e);
-            let mut sf = [0.0; LANES];
-            let mut sr = [0.0; LANES];
-            let mut ok = [false; LANES];
-            for l in 0..LANES {
-                sf[l] = hf[l].max(0.0) + lp[l];
-                let d = sf[l] * sf[l] - i[l] / a.is;
-                ok[l] = i[l] > 0.0 && d > 0.0 && d.is_finite();
-                sr[l] = if ok[l] { d.sqrt() } else { 1.0 };
-            }
-            let em = maths::exp_m1_start(&sr);
+        }
+        for l in 0..LANES {
+            let d = r2.sf[l] * r2.sf[l] - i[l] / a.is;
+            ok[l] &= d > 0.0 && d.is_finite();
+            r2.sr[l] = if ok[l] { d.sqrt() } else { 1.0 };
+            let dl = r2.sr[l] - r1.sr[l];
+            let ed = dl * (1.0 + dl * (0.5 + dl * (1.0 / 6.0 + dl * (1.0 / 24.0))));
+            r2.em[l] = r1.em[l] + (1.0 + r1.em[l]) * ed;
+            let w = (r2.em[l] - r1.em[l]) / r1.em[l];
+            r2.hr[l] = r1.hr[l] + ln_1p_series(w);
+            far[l] = !(within_series_reach(dl) && within_series_reach(w));
+        }
+        if far.iter().any(|&f| f) {
+            let em = maths::exp_m1_start(&r2.sr);
             let hr = maths::ln_start(&em);
             for l in 0..LANES {
-                // G(V): the drain voltage the closed form gives at the pinch-off of V.
-                let g = p * (vp[l] - 2.0 * ut * hr[l]);
-                let vk = if round == 0 {
-                    g
-                } else {
-                    // Newton on V = G(V): G'(V) = (eta/n) (1 - s_f l_f/(s_r l_r)), from
-                    // dh_r/dv_p = s_f l_f/(2 U_T s_r l_r), l = logistic (l_r = 1 - e^(-s_r)).
-                    let lf = if hf[l] >= 0.0 {
-                        1.0 / (1.0 + e[l])
-                    } else {
-                        e[l] / (1.0 + e[l])
-                    };
-                    let lr = em[l] / (1.0 + em[l]);
-                    let dg = en * (1.0 - sf[l] * lf / (sr[l] * lr));
-                    v[l] + (g - v[l]) / (1.0 - dg)
-                };
-                if ok[l] && vk.is_finite() && vk > 0.0 && vk < 0.999 * self.supply {
-                    v[l] = vk;
-                    out[l] = vk;
-                } else if round == 0 {
-                    out[l] = f64::NAN;
+                if far[l] {
+                    (r2.em[l], r2.hr[l]) = (em[l], hr[l]);
+                }
+            }
+        }
+        let v2 = r2.newton(a, &vp, &v1);
+        let mut out = [f64::NAN; LANES];
+        for l in 0..LANES {
+            out[l] = if !ok[l] {
+                f64::NAN
+            } else if v2[l].is_finite() && v2[l] > 0.0 && v2[l] < 0.999 * self.supply {
+                v2[l]
+            } else {
+                v1[l]
+            };
+        }
+        // A saturated cell: at V_k = 0 its sink cannot carry I_k (s_f^2 <= I_k/I_S); the drain
+        // coupling lifts v_p to the saturation law's `U_T F^-1(I_k/I_S)` near
+        // `V_sat = (U_T F^-1(I_k/I_S) - v_p0)/(eta/n)`. One Newton step on `V = G(V)` from
+        // `V_sat + 2 U_T`, in the lanes of `want` only (computed when one of them needs it).
+        let mut sat = [false; LANES];
+        for l in 0..LANES {
+            sat[l] = want[l] && out[l].is_nan() && i[l] > 0.0 && en > 0.0;
+        }
+        if sat.iter().any(|&x| x) {
+            let mut v = [0.0; LANES];
+            for l in 0..LANES {
+                v[l] = ((ut * f_inv[l] - vp0[l]) / en).max(0.0) + 2.0 * ut;
+                vp[l] = vp0[l] + en * p * v[l];
+            }
+            let law = DrainLaw::at(a, i, &vp);
+            let nv = law.newton(a, &vp, &v);
+            for l in 0..LANES {
+                if sat[l] && law.ok[l] && nv[l].is_finite() && nv[l] > 0.0 {
+                    out[l] = nv[l].min(0.999 * self.supply);
                 }
             }
         }
@@ -865,25 +1069,12 @@ impl SharedNodeCircuit for WtaCircuit {
         let n = self.n;
         let vmax = self.supply;
         let share = &mut scratch[..n];
-        let (mut vc, ln_ib) = self.closed_form_vc_lanes(inputs, share);
+        // `lines` holds each line's F^-1(I_k/I_S) until the line's start is written over it.
+        let (mut vc, ln_ib) = self.closed_form_vc_lanes(inputs, share, lines);
         let ib = ln_ib.exp();
         // A clear winner's cell and V_C from the exact device laws (the closed form is
         // weak-inversion; a winning output transistor sits in moderate inversion).
-        let mut winner = [(usize::MAX, 0.0); LANES];
-        for l in 0..LANES {
-            let (mut kw, mut best) = (0, 0.0);
-            for k in 0..n {
-                if share[k][l] > best {
-                    (kw, best) = (k, share[k][l]);
-                }
-            }
-            if best > 0.5 && inputs[kw][l] > 0.0 {
-                if let Some((v_c, v_w)) = self.refine_winner(kw, inputs[kw][l], best, vc[l]) {
-                    vc[l] = v_c;
-                    winner[l] = (kw, v_w);
-                }
-            }
-        }
+        let winner = self.refine_winner_lanes(inputs, share, &mut vc);
         for k in 0..n {
             let b = &self.output_fast[k];
             let mut use_b = [false; LANES];
@@ -893,7 +1084,14 @@ impl SharedNodeCircuit for WtaCircuit {
                 r[l] = share[k][l] * ib / b.is;
             }
             let mut need_sink = [true; LANES];
-            let loser = self.loser_start_lanes(k, &inputs[k], &vc);
+            // Lanes that start this line from its sink's law: all but its refined winner, and
+            // beside no refined winner only the cells of no visible share.
+            let mut want = [false; LANES];
+            for l in 0..LANES {
+                want[l] = winner[l].0 != k && (!use_b[l] || winner[l].0 != usize::MAX);
+            }
+            let f_inv = lines[k];
+            let loser = self.loser_start_lanes(k, &inputs[k], &vc, &want, &f_inv);
             for l in 0..LANES {
                 if winner[l].0 == k {
                     use_b[l] = false;
