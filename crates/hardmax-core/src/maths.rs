@@ -93,16 +93,23 @@ fn exp_reduced(r: f64) -> f64 {
 /// `e^x`, one lane (module table for the error bound).
 #[inline(always)]
 pub fn exp1(x: f64) -> f64 {
+    // e^r, |r| <= 0.3466 (+ rounding): Taylor to r^13, remainder < r^14/14! e^r < 1e-17 e^r,
+    // as 1 + r + r^2 T(r) with T evaluated by Estrin's scheme (independent pairs combined
+    // with r^2, r^4, r^8: a dependency chain of 8 operations instead of Horner's 26, so the
+    // vector units are not left waiting on one long chain).
+    exp_by(x, exp_reduced)
+}
+
+/// `e^x` from `e^r` on the reduced range (`poly`): Cody–Waite reduction `x = n ln 2 + r`,
+/// `2^n` as two exponent-bit factors, the ends (0 below -745.2, +inf above 709.78, NaN kept).
+#[inline(always)]
+fn exp_by(x: f64, poly: impl Fn(f64) -> f64) -> f64 {
     let xc = x.clamp(EXP_ZERO_BELOW, EXP_INF_ABOVE);
     let t = xc * LOG2_E + ROUND_MAGIC;
     let nf = t - ROUND_MAGIC;
     let n = t.to_bits().wrapping_sub(ROUND_MAGIC.to_bits());
     let r = (xc - nf * LN2_HI) - nf * LN2_LO;
-    // e^r, |r| <= 0.3466 (+ rounding): Taylor to r^13, remainder < r^14/14! e^r < 1e-17 e^r,
-    // as 1 + r + r^2 T(r) with T evaluated by Estrin's scheme (independent pairs combined
-    // with r^2, r^4, r^8: a dependency chain of 8 operations instead of Horner's 26, so the
-    // vector units are not left waiting on one long chain).
-    let p = exp_reduced(r);
+    let p = poly(r);
     let (s1, s2) = pow2_split(n);
     let y = p * s1 * s2;
     let y = if x < EXP_ZERO_BELOW { 0.0 } else { y };
@@ -134,6 +141,14 @@ fn atanh_tail(z: f64) -> f64 {
 /// Natural logarithm, one lane (module table for the error bound).
 #[inline(always)]
 pub fn ln1(x: f64) -> f64 {
+    ln_by(x, atanh_tail)
+}
+
+/// `ln x` with `tail(s^2)` for `2 atanh(s) - 2 s` over `s` (`tail`: [`atanh_tail`] or a shorter
+/// series): the reduction `x = 2^k m`, `m` in `[sqrt(1/2), sqrt 2)`, subnormals scaled by 2^54,
+/// and the special values (0 -> -inf, < 0 or NaN -> NaN, +inf -> +inf).
+#[inline(always)]
+fn ln_by(x: f64, tail: impl Fn(f64) -> f64) -> f64 {
     let sub = x < f64::MIN_POSITIVE;
     // Subnormals scaled into the normal range by 2^54.
     let xs = if sub { x * 18_014_398_509_481_984.0 } else { x };
@@ -148,7 +163,7 @@ pub fn ln1(x: f64) -> f64 {
     let f = m - 1.0;
     let s = f / (2.0 + f);
     let hfsq = 0.5 * f * f;
-    let tail = atanh_tail(s * s);
+    let tail = tail(s * s);
     let y = k * LN2_HI + ((f - hfsq + s * (hfsq + tail)) + k * LN2_LO);
     let y = if x == 0.0 { f64::NEG_INFINITY } else { y };
     let y = if x == f64::INFINITY { x } else { y };
@@ -162,11 +177,18 @@ pub fn ln1(x: f64) -> f64 {
 /// `ln(1 + x)`, one lane (module table for the error bound).
 #[inline(always)]
 pub fn ln_1p1(x: f64) -> f64 {
+    ln_1p_by(x, ln1)
+}
+
+/// `ln(1 + x)` through `ln` of `u = 1 + x` with the rounding of `u` corrected, and the special
+/// values (-1 -> -inf, < -1 or NaN -> NaN, +inf -> +inf).
+#[inline(always)]
+fn ln_1p_by(x: f64, ln: impl Fn(f64) -> f64) -> f64 {
     let u = 1.0 + x;
     // (u - 1) is exact (Sterbenz) for u in [0.5, 2]; the correction is the rounding of u,
     // first order: ln(1 + x) = ln(u) + (1 + x - u)/u.
     let c = (x - (u - 1.0)) / u;
-    let y = ln1(u) + c;
+    let y = ln(u) + c;
     let y = if x == -1.0 { f64::NEG_INFINITY } else { y };
     let y = if x == f64::INFINITY { x } else { y };
     if x < -1.0 || x.is_nan() {
@@ -219,26 +241,14 @@ pub fn exp_m1_1(x: f64) -> f64 {
 /// [`exp1`].
 #[inline(always)]
 pub fn exp_start1(x: f64) -> f64 {
-    let xc = x.clamp(EXP_ZERO_BELOW, EXP_INF_ABOVE);
-    let t = xc * LOG2_E + ROUND_MAGIC;
-    let nf = t - ROUND_MAGIC;
-    let n = t.to_bits().wrapping_sub(ROUND_MAGIC.to_bits());
-    let r = (xc - nf * LN2_HI) - nf * LN2_LO;
-    let p = 1.0 / 120.0;
-    let p = 1.0 / 24.0 + r * p;
-    let p = 1.0 / 6.0 + r * p;
-    let p = 0.5 + r * p;
-    let p = 1.0 + r * p;
-    let p = 1.0 + r * p;
-    let (s1, s2) = pow2_split(n);
-    let y = p * s1 * s2;
-    let y = if x < EXP_ZERO_BELOW { 0.0 } else { y };
-    let y = if x > EXP_INF_ABOVE { f64::INFINITY } else { y };
-    if x.is_nan() {
-        x
-    } else {
-        y
-    }
+    exp_by(x, |r| {
+        let p = 1.0 / 120.0;
+        let p = 1.0 / 24.0 + r * p;
+        let p = 1.0 / 6.0 + r * p;
+        let p = 0.5 + r * p;
+        let p = 1.0 + r * p;
+        1.0 + r * p
+    })
 }
 
 /// Low-accuracy natural logarithm, one lane, for starting points only: the reduction of
@@ -247,44 +257,14 @@ pub fn exp_start1(x: f64) -> f64 {
 /// same special values as [`ln1`].
 #[inline(always)]
 pub fn ln_start1(x: f64) -> f64 {
-    let sub = x < f64::MIN_POSITIVE;
-    let xs = if sub { x * 18_014_398_509_481_984.0 } else { x };
-    let extra = if sub { 54.0 } else { 0.0 };
-    let ix = xs
-        .to_bits()
-        .wrapping_add((0x3ff0_0000_u64 - 0x3fe6_a09e_u64) << 32);
-    let kb = ix >> 52;
-    let m = f64::from_bits((ix & 0x000f_ffff_ffff_ffff).wrapping_add(0x3fe6_a09e_u64 << 32));
-    let k = (f64::from_bits(0x4330_0000_0000_0000 | kb) - TWO_52) - 1023.0 - extra;
-    let f = m - 1.0;
-    let s = f / (2.0 + f);
-    let z = s * s;
-    let tail = z * (2.0 / 3.0 + z * (2.0 / 5.0 + z * (2.0 / 7.0)));
-    let hfsq = 0.5 * f * f;
-    let y = k * LN2_HI + ((f - hfsq + s * (hfsq + tail)) + k * LN2_LO);
-    let y = if x == 0.0 { f64::NEG_INFINITY } else { y };
-    let y = if x == f64::INFINITY { x } else { y };
-    if x < 0.0 || x.is_nan() {
-        f64::NAN
-    } else {
-        y
-    }
+    ln_by(x, |z| z * (2.0 / 3.0 + z * (2.0 / 5.0 + z * (2.0 / 7.0))))
 }
 
 /// Low-accuracy `ln(1 + x)`, one lane: [`ln_1p1`]'s rounding correction on [`ln_start1`].
 /// Absolute error within 4e-8 of `std` on `(-1, +inf)` (tested).
 #[inline(always)]
 pub fn ln_1p_start1(x: f64) -> f64 {
-    let u = 1.0 + x;
-    let c = (x - (u - 1.0)) / u;
-    let y = ln_start1(u) + c;
-    let y = if x == -1.0 { f64::NEG_INFINITY } else { y };
-    let y = if x == f64::INFINITY { x } else { y };
-    if x < -1.0 || x.is_nan() {
-        f64::NAN
-    } else {
-        y
-    }
+    ln_1p_by(x, ln_start1)
 }
 
 /// The Taylor polynomial of [`exp_m1_start1`] (`|x| <= 0.5`).
