@@ -225,8 +225,14 @@ pub fn exp_m1_small1(x: f64) -> f64 {
 /// otherwise (there `e^x - 1` loses at most about 1.6 bits: 3 ulp).
 #[inline(always)]
 pub fn exp_m1_1(x: f64) -> f64 {
-    let small = exp_m1_small1(x);
-    let big = exp1(x) - 1.0;
+    exp_m1_select(x, exp_m1_small1, exp1)
+}
+
+/// `small(x)` for `|x| <= 0.5`, `big(x) - 1` otherwise, both computed (branch-free).
+#[inline(always)]
+fn exp_m1_select(x: f64, small: impl Fn(f64) -> f64, big: impl Fn(f64) -> f64) -> f64 {
+    let small = small(x);
+    let big = big(x) - 1.0;
     if x.abs() <= 0.5 {
         small
     } else {
@@ -285,13 +291,7 @@ fn exp_m1_start_small(x: f64) -> f64 {
 /// largest near `|x| = 0.5`, where `e^x - 1` divides [`exp_start1`]'s error by `1 - e^-|x|`).
 #[inline(always)]
 pub fn exp_m1_start1(x: f64) -> f64 {
-    let small = exp_m1_start_small(x);
-    let big = exp_start1(x) - 1.0;
-    if x.abs() <= 0.5 {
-        small
-    } else {
-        big
-    }
+    exp_m1_select(x, exp_m1_start_small, exp_start1)
 }
 
 macro_rules! lanes_fn {

@@ -697,10 +697,7 @@ pub fn solve_batch<C: SharedNodeCircuit + ?Sized>(
     // Invalid rows go to the scalar solve (which reports them); the others queue.
     bw.queue.clear();
     for (j, row) in inputs.chunks(n).enumerate() {
-        let valid = row
-            .iter()
-            .all(|x| x.is_finite() && (c.inputs_unit() != "A" || *x >= 0.0));
-        if valid {
+        if batchable_row(c, row) {
             bw.queue.push(j);
         } else {
             results[j] = solve(c, row, &mut bw.scalar, &mut outs[j]);
@@ -738,15 +735,19 @@ pub fn batch_starts<C: SharedNodeCircuit + ?Sized>(
     bw.ensure(n);
     bw.queue.clear();
     for (j, row) in inputs.chunks(n).enumerate() {
-        if row
-            .iter()
-            .all(|x| x.is_finite() && (c.inputs_unit() != "A" || *x >= 0.0))
-        {
+        if batchable_row(c, row) {
             bw.queue.push(j);
         }
     }
     lanes(c, n, 0, inputs, bw, &mut [], &mut [], true);
     bw.queue.len()
+}
+
+/// Inputs the lanes take: finite, and not negative for current inputs (any other row goes to
+/// the scalar solve, which reports it).
+fn batchable_row<C: SharedNodeCircuit + ?Sized>(c: &C, row: &[f64]) -> bool {
+    row.iter()
+        .all(|x| x.is_finite() && (c.inputs_unit() != "A" || *x >= 0.0))
 }
 
 /// [`lanes_body`], compiled for AVX2 (four lanes per instruction instead of SSE2's two) when

@@ -484,6 +484,12 @@ fn within_series_reach(x: f64) -> bool {
     x.abs() < 0.05
 }
 
+/// `e^t - 1` by its series to `t^4` (remainder under `|t|^5/120 e^|t|`: 3e-9 for `|t| < 0.05`).
+#[inline(always)]
+fn exp_m1_series(t: f64) -> f64 {
+    t * (1.0 + t * (0.5 + t * (1.0 / 6.0 + t * (1.0 / 24.0))))
+}
+
 /// `ln(1 + u)` by its series to `u^5` (remainder under `|u|^6/6`: 3e-9 for `|u| < 0.05`).
 #[inline(always)]
 fn ln_1p_series(u: f64) -> f64 {
@@ -697,10 +703,10 @@ impl WtaCircuit {
         let a = MosLanes::gather(&self.sink_fast, &kw);
         let b = MosLanes::gather(&self.output_fast, &kw);
         let vc0 = *vc;
-        let (ib0, _) = self.bias_fast.eval_lanes_start(&vc0);
+        let (ib, dib) = self.bias_fast.eval_lanes_start(&vc0);
         let mut y = [0.0; LANES];
         for l in 0..LANES {
-            y[l] = (best[l] * ib0[l] / b.is[l]).sqrt();
+            y[l] = (best[l] * ib[l] / b.is[l]).sqrt();
         }
         let x = maths::ln_start(&maths::exp_m1_start(&y));
         let vout = self.output_voltage;
@@ -712,14 +718,14 @@ impl WtaCircuit {
         }
         let sink = a.eval_start(&vc0, &vk, &[0.0; LANES]);
         let outp = b.eval_start(&vk, &[vout; LANES], &vc0);
-        let (ib, dib) = self.bias_fast.eval_lanes_start(&vc0);
         // `others` at V_C = vc0: the closed form's (1 - share) of the bias.
+        let mut others = [0.0; LANES];
         let mut sum = [0.0; LANES];
         let mut r1 = [1.0; LANES];
         let mut r2 = [1.0; LANES];
         for l in 0..LANES {
-            let others = (1.0 - best[l]) * ib0[l];
-            sum[l] = outp.id[l] + others;
+            others[l] = (1.0 - best[l]) * ib[l];
+            sum[l] = outp.id[l] + others[l];
             if sink.id[l] > 0.0 && outp.id[l] > 0.0 && ib[l] > 0.0 {
                 r1[l] = sink.id[l] / input[l];
                 r2[l] = sum[l] / ib[l];
@@ -730,11 +736,10 @@ impl WtaCircuit {
         let f1 = maths::ln_start(&r1);
         let f2 = maths::ln_start(&r2);
         for l in 0..LANES {
-            let others = (1.0 - best[l]) * ib0[l];
             // f1 = ln(I_A/I_k), f2 = ln((I_B + others)/I_b); rows: d/dV_k, d/dV_C.
             let (j11, j12) = (sink.d_vd[l] / sink.id[l], sink.d_vg[l] / sink.id[l]);
             let j21 = outp.d_vg[l] / sum[l];
-            let j22 = (outp.d_vs[l] - others * b.inv_ut[l]) / sum[l] - dib[l] / ib[l];
+            let j22 = (outp.d_vs[l] - others[l] * b.inv_ut[l]) / sum[l] - dib[l] / ib[l];
             let det = j11 * j22 - j12 * j21;
             let dvk = (-f1[l] * j22 + f2[l] * j12) / det;
             let dvc = (-f2[l] * j11 + f1[l] * j21) / det;
@@ -761,9 +766,11 @@ impl WtaCircuit {
     /// voltage `v_p` depends on V_k through the drain coupling eta: two rounds, the first at
     /// V_k = 0, the second a Newton step on the fixed point `V_k = G(V_k)` from the first's V_k
     /// (a plain fixed-point step would contract by only `eta/n (e^(V_k/U_T) - 1)`, which passes 1
-    /// near V_k = 4 U_T, where a runner-up cell sits). NaN in a lane whose sink cannot carry I_k in
-    /// triode at that V_C (it saturates: the caller uses the saturation-law guess there) or
-    /// whose input is not positive. Starting-point kernels: about 1e-5 relative.
+    /// near V_k = 4 U_T, where a runner-up cell sits). A cell whose sink cannot carry I_k at
+    /// V_k = 0 (it saturates) starts, in the lanes of `want`, one Newton step from its
+    /// saturation law (`f_inv`: `F^-1(I_k/I_S)` from the closed form). NaN where neither gives a
+    /// voltage inside the supply or the input is not positive (the caller then uses its
+    /// saturation-law guess). Starting-point kernels: about 1e-5 relative.
     #[inline(always)]
     fn loser_start_lanes(
         &self,
@@ -799,7 +806,7 @@ impl WtaCircuit {
             vp[l] = vp0[l] + en * p * v1[l];
             r2.hf[l] = 0.5 * vp[l] * a.inv_ut;
             let t = r1.hf[l].abs() - r2.hf[l].abs();
-            r2.e[l] = r1.e[l] * (1.0 + t * (1.0 + t * (0.5 + t * (1.0 / 6.0 + t * (1.0 / 24.0)))));
+            r2.e[l] = r1.e[l] * (1.0 + exp_m1_series(t));
             r2.lp[l] = r1.lp[l] + ln_1p_series((r2.e[l] - r1.e[l]) / (1.0 + r1.e[l]));
             r2.sf[l] = r2.hf[l].max(0.0) + r2.lp[l];
             far[l] = !within_series_reach(t);
@@ -818,8 +825,7 @@ impl WtaCircuit {
             ok[l] &= d > 0.0 && d.is_finite();
             r2.sr[l] = if ok[l] { d.sqrt() } else { 1.0 };
             let dl = r2.sr[l] - r1.sr[l];
-            let ed = dl * (1.0 + dl * (0.5 + dl * (1.0 / 6.0 + dl * (1.0 / 24.0))));
-            r2.em[l] = r1.em[l] + (1.0 + r1.em[l]) * ed;
+            r2.em[l] = r1.em[l] + (1.0 + r1.em[l]) * exp_m1_series(dl);
             let w = (r2.em[l] - r1.em[l]) / r1.em[l];
             r2.hr[l] = r1.hr[l] + ln_1p_series(w);
             far[l] = !(within_series_reach(dl) && within_series_reach(w));
