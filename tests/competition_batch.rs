@@ -76,40 +76,76 @@ proptest! {
         let mut rng = hardmax::rng::stream(seed, &[hardmax::rng::domain::CHIP]);
         let c = gaussian_chip(d, 3e-3, 0.01, &mut rng).at(300.0).unwrap();
         let rows: Vec<Vec<f64>> = rows.into_iter().map(|r| r[..n].to_vec()).collect();
-        let got = batched(&c, &rows);
-        let rule = DecisionRule::default();
-        for (x, b) in rows.iter().zip(&got) {
-            let a = scalar(&c, x);
-            match (&a, b) {
-                // Same variant and message (an error holding a NaN input is not `==` itself).
-                (Err(ea), Err(eb)) => {
-                    prop_assert_eq!(std::mem::discriminant(ea), std::mem::discriminant(eb));
-                    prop_assert_eq!(ea.to_string(), eb.to_string());
-                }
-                (Ok(sa), Ok(sb)) => {
-                    prop_assert!(sb.info.converged);
-                    prop_assert!(sb.info.residual <= c.tolerance);
-                    for k in 0..=n {
-                        let (va, vb) = (sa.node_voltages[k], sb.node_voltages[k]);
-                        prop_assert!(close(va, vb), "node {}: {} vs {} for {:?}", k, va, vb, x);
-                    }
-                    for k in 0..n {
-                        prop_assert!((sa.shares[k] - sb.shares[k]).abs() <= 1e-6);
-                    }
-                    // Same decision unless the two leading shares are within the tolerance's
-                    // reach of each other (a tie the solver cannot resolve either way).
-                    let (da, db) = (sa.decide(&rule), sb.decide(&rule));
-                    let mut s = sa.shares.clone();
-                    s.sort_by(|p, q| q.total_cmp(p));
-                    if s[0] - s[1] > 1e-6 {
-                        prop_assert_eq!(da.winner, db.winner);
-                    }
-                    prop_assert_eq!(da.ambiguous, db.ambiguous);
-                }
-                _ => prop_assert!(false, "scalar {:?} vs batched {:?} for {:?}", a, b, x),
+        agree_with_scalar(&c, &rows, n)?;
+    }
+
+    /// Near-ties at high and low gain (drain coupling 0.002 to 0.05): rows whose inputs lie
+    /// within a few per cent of each other, so the runner-up cells' sinks sit near or past
+    /// saturation (the start's saturation-side path, `wta.rs`), some inputs exactly equal:
+    /// the same agreement with the scalar solve as above.
+    #[test]
+    fn near_ties_match_scalar(
+        n in 2usize..12,
+        spread in proptest::collection::vec(
+            proptest::collection::vec(prop_oneof![1 => Just(0.0), 6 => -0.05f64..0.05], 11),
+            1..21,
+        ),
+        seed in any::<u64>(),
+        eta_exp in -2.7f64..-1.3,
+        ib_exp in -9.0f64..-6.5,
+        level in -0.7f64..0.3,
+    ) {
+        let ib = 10f64.powf(ib_exp);
+        let mut rng = hardmax::rng::stream(seed, &[hardmax::rng::domain::CHIP]);
+        let c = gaussian_chip(wta_design(n, 10f64.powf(eta_exp), ib), 3e-3, 0.01, &mut rng)
+            .at(300.0)
+            .unwrap();
+        let base = ib * 10f64.powf(level);
+        let rows: Vec<Vec<f64>> = spread
+            .into_iter()
+            .map(|r| r[..n].iter().map(|d| base * (1.0 + d)).collect())
+            .collect();
+        agree_with_scalar(&c, &rows, n)?;
+    }
+}
+
+/// Each decision of `rows` solved in one batch has the scalar solve's status (the same error,
+/// message included); converged ones agree on node voltages, shares and the decision.
+fn agree_with_scalar(c: &WtaCircuit, rows: &[Vec<f64>], n: usize) -> Result<(), TestCaseError> {
+    let got = batched(c, rows);
+    let rule = DecisionRule::default();
+    for (x, b) in rows.iter().zip(&got) {
+        let a = scalar(c, x);
+        match (&a, b) {
+            // Same variant and message (an error holding a NaN input is not `==` itself).
+            (Err(ea), Err(eb)) => {
+                prop_assert_eq!(std::mem::discriminant(ea), std::mem::discriminant(eb));
+                prop_assert_eq!(ea.to_string(), eb.to_string());
             }
+            (Ok(sa), Ok(sb)) => {
+                prop_assert!(sb.info.converged);
+                prop_assert!(sb.info.residual <= c.tolerance);
+                for k in 0..=n {
+                    let (va, vb) = (sa.node_voltages[k], sb.node_voltages[k]);
+                    prop_assert!(close(va, vb), "node {}: {} vs {} for {:?}", k, va, vb, x);
+                }
+                for k in 0..n {
+                    prop_assert!((sa.shares[k] - sb.shares[k]).abs() <= 1e-6);
+                }
+                // Same decision unless the two leading shares are within the tolerance's
+                // reach of each other (a tie the solver cannot resolve either way).
+                let (da, db) = (sa.decide(&rule), sb.decide(&rule));
+                let mut s = sa.shares.clone();
+                s.sort_by(|p, q| q.total_cmp(p));
+                if s[0] - s[1] > 1e-6 {
+                    prop_assert_eq!(da.winner, db.winner);
+                }
+                prop_assert_eq!(da.ambiguous, db.ambiguous);
+            }
+            _ => prop_assert!(false, "scalar {:?} vs batched {:?} for {:?}", a, b, x),
         }
     }
+    Ok(())
 }
 
 /// Failures keep their kind and flags: invalid inputs, a missing bias path (all inputs 0), an

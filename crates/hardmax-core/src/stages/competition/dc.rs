@@ -929,8 +929,10 @@ struct PassLanes<'a> {
     io: &'a mut [Lanes],
 }
 
-/// One Newton pass of [`newton`] on every running lane (same arithmetic, lane-wise): `it[l]` is
-/// the pass lane l is at, `dest[l]` its decision. A converged lane is stored and marked done, a
+/// One Newton pass of [`newton`] on every running lane (its residuals, Jacobian, step limits
+/// and convergence test, lane-wise; the arrowhead's elimination takes one division per line,
+/// and a saturated line steps in V_k): `it[l]` is the pass lane l is at, `dest[l]` its
+/// decision. A converged lane is stored and marked done, a
 /// lane whose guard fails is marked for the scalar solve.
 #[allow(clippy::too_many_arguments)]
 #[inline(always)]
@@ -987,8 +989,10 @@ fn pass<C: SharedNodeCircuit + ?Sized>(
                 cc[k][l] = ea.d_common[l];
                 q[k][l] = qk;
                 il[k][l] = ea.current[l];
-                bca[l] += eb.d_line[l] * ea.d_common[l] / ea.d_line[l];
-                bqa[l] += eb.d_line[l] * qk / ea.d_line[l];
+                // The arrowhead's elimination of line k: its output's d/dV_k over its load's.
+                let w = eb.d_line[l] / ea.d_line[l];
+                bca[l] += w * ea.d_common[l];
+                bqa[l] += w * qk;
             } else {
                 a[k][l] = 0.0;
             }
