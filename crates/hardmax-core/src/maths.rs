@@ -22,6 +22,8 @@
 //! | [`ln_start`] (starting points only) | as [`ln`] | [`ln`]'s reduction, atanh series to `s^7` | 4e-8 absolute |
 //! | [`ln_1p_start`] (starting points only) | as [`ln_1p`] | [`ln_1p`]'s correction on [`ln_start`] | 4e-8 absolute |
 //! | [`exp_m1_start`] (starting points only) | `[-700, 709]` | Taylor degree 7 for `|x| <= 0.5`, else [`exp_start`] - 1 | 1e-5 relative |
+//! | [`exp_mostly_small`] | as [`exp`] | [`exp`]'s polynomial alone where `|x| <= 0.34` (no reduction needed), [`exp`] elsewhere | bit for bit [`exp`] |
+//! | [`ln_mostly_near_1`] | as [`ln`] | [`ln`]'s series alone on `[0.7072, 1.414)` (no reduction needed), [`ln`] elsewhere | bit for bit [`ln`] |
 //! | [`lambert_w_start`] (starting points only) | `ln z` in `[-700, 700]` | two Newton steps on `ln w + w = ln z` from `ln(1 + z)` | 1e-3 relative (measured 4.9e-4) |
 //!
 //! The series are the Taylor series of `e^x` and of `atanh` (`ln((1+s)/(1-s)) = 2 Σ s^(2j+1) /
@@ -329,6 +331,69 @@ lanes_fn!(
     exp_m1_small,
     exp_m1_small1
 );
+/// `|x| <= 0.34`: the reduction of [`exp1`] leaves such an `x` as it is (`n = 0`, `r = x`,
+/// scale 1), so [`exp_reduced`] alone gives [`exp1`]'s bits (false for NaN).
+#[inline(always)]
+fn unreduced_exp(x: f64) -> bool {
+    x.abs() <= 0.34
+}
+
+/// [`exp`] for arguments that are mostly small (Newton steps near convergence): where
+/// `|x| <= 0.34` the reduced-range polynomial alone, bit for bit [`exp1`]'s value there; [`exp`]
+/// computed only when some lane is beyond it, and selected lane by lane.
+#[inline(always)]
+pub fn exp_mostly_small(x: &Lanes) -> Lanes {
+    let mut y = [0.0; LANES];
+    for i in 0..LANES {
+        y[i] = exp_reduced(x[i]);
+    }
+    if x.iter().any(|&v| !unreduced_exp(v)) {
+        let e = exp(x);
+        for i in 0..LANES {
+            if !unreduced_exp(x[i]) {
+                y[i] = e[i];
+            }
+        }
+    }
+    y
+}
+
+/// `x` in `[0.7072, 1.414)`, inside `[sqrt(1/2), sqrt 2)`: [`ln1`]'s reduction leaves such an
+/// `x` as it is (`k = 0`, `m = x`), so its tail alone gives [`ln1`]'s bits (false for NaN).
+#[inline(always)]
+fn unreduced_ln(x: f64) -> bool {
+    (0.7072..1.414).contains(&x)
+}
+
+/// `ln x` at `k = 0` of [`ln_by`]: `f = x - 1`, `s = f/(2 + f)`, the same tail and sum.
+#[inline(always)]
+fn ln_unreduced(x: f64) -> f64 {
+    let f = x - 1.0;
+    let s = f / (2.0 + f);
+    let hfsq = 0.5 * f * f;
+    (f - hfsq + s * (hfsq + atanh_tail(s * s))) + 0.0
+}
+
+/// [`ln`] for arguments that are mostly near 1 (residual ratios near convergence): where `x` is
+/// in `[0.7072, 1.414)` the series without the reduction, bit for bit [`ln1`]'s value there;
+/// [`ln`] computed only when some lane is beyond it, and selected lane by lane.
+#[inline(always)]
+pub fn ln_mostly_near_1(x: &Lanes) -> Lanes {
+    let mut y = [0.0; LANES];
+    for i in 0..LANES {
+        y[i] = ln_unreduced(x[i]);
+    }
+    if x.iter().any(|&v| !unreduced_ln(v)) {
+        let l = ln(x);
+        for i in 0..LANES {
+            if !unreduced_ln(x[i]) {
+                y[i] = l[i];
+            }
+        }
+    }
+    y
+}
+
 /// `|x| <= 0.5` (false for NaN, which then takes the `exp` path, as in [`exp_m1_1`]).
 #[inline(always)]
 fn within_half(x: f64) -> bool {
@@ -582,6 +647,50 @@ mod tests {
     // over the ranges the full kernels are tested on: the bounds stated in their docs and in
     // the module table. The batched solve's start needs about 1e-2 (issue figure); these keep
     // four orders of magnitude below that.
+    /// The shortcuts for small arguments give the full kernels' bits on every input: around
+    /// their range limits, across the whole range, and at the special values.
+    #[test]
+    fn shortcut_kernels_are_the_full_kernels_bit_for_bit() {
+        let mut rng = rand::rngs::StdRng::seed_from_u64(5);
+        let mut xs: Vec<f64> = vec![
+            0.0,
+            -0.0,
+            0.34,
+            -0.34,
+            0.3400000000000001,
+            0.7072,
+            0.7071999999999999,
+            1.414,
+            1.4139999999999999,
+            1.0,
+            f64::NAN,
+            f64::INFINITY,
+            f64::NEG_INFINITY,
+            -1.0,
+            1e-300,
+            5e-324,
+        ];
+        for _ in 0..20_000 {
+            xs.push(rng.gen_range(-1.0..2.0));
+            xs.push(rng.gen_range(-1e-3..1e-3));
+            xs.push(rng.gen_range(-700.0f64..700.0));
+        }
+        for chunk in xs.chunks(LANES) {
+            let mut x = [1.0; LANES];
+            x[..chunk.len()].copy_from_slice(chunk);
+            let (a, b) = (exp_mostly_small(&x), exp(&x));
+            let (c, d) = (ln_mostly_near_1(&x), ln(&x));
+            for l in 0..LANES {
+                assert_eq!(a[l].to_bits(), b[l].to_bits(), "exp at {}", x[l]);
+                assert!(
+                    c[l].to_bits() == d[l].to_bits() || (c[l].is_nan() && d[l].is_nan()),
+                    "ln at {}",
+                    x[l]
+                );
+            }
+        }
+    }
+
     /// Lambert's W (starting points) against published values and its definition: W(1) is
     /// the omega constant 0.567143290409783873 (OEIS A030178, from memory), W(e) = 1 and
     /// W(2 e^2) = 2 from `W e^W = z`; over ln z in [-700, 700] the relative error against W

@@ -980,7 +980,7 @@ fn pass<C: SharedNodeCircuit + ?Sized>(
                 bad[l] |= !(ea.current[l] > 0.0 && ea.d_line[l] > 0.0 && ea.current[l].is_finite());
             }
         }
-        let rho = crate::maths::ln(&ratio);
+        let rho = crate::maths::ln_mostly_near_1(&ratio);
         for l in 0..LANES {
             if x[k][l] > 0.0 {
                 res[l] = res[l].max(rho[l].abs());
@@ -1004,7 +1004,7 @@ fn pass<C: SharedNodeCircuit + ?Sized>(
         bad[l] |= !(s_sum[l] > 0.0 && ib[l] > 0.0 && s_sum[l].is_finite());
         ratio[l] = s_sum[l] / ib[l];
     }
-    let r = crate::maths::ln(&ratio);
+    let r = crate::maths::ln_mostly_near_1(&ratio);
     let mut dvc = [0.0; LANES];
     let mut running = false;
     for l in 0..LANES {
@@ -1055,7 +1055,7 @@ fn pass<C: SharedNodeCircuit + ?Sized>(
                 linear[l] = a[k][l] * vk < 0.5 * il[k][l] && dy[l] > -0.5;
             }
         }
-        let g = crate::maths::exp(&dy);
+        let g = crate::maths::exp_mostly_small(&dy);
         for l in 0..LANES {
             let vk = v[k][l];
             let mut nv = if linear[l] {
