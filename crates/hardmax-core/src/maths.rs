@@ -331,6 +331,31 @@ lanes_fn!(
     exp_m1_small,
     exp_m1_small1
 );
+/// On every lane `cheap(x)` where `near(x)`, and `full(x)` elsewhere, the lanes' `full` computed
+/// only when some lane is not `near`: each lane's value depends on that lane alone. The shape of
+/// every kernel below with a cheap form on part of its range.
+#[inline(always)]
+pub(crate) fn cheap_where_near(
+    x: &Lanes,
+    cheap: impl Fn(f64) -> f64,
+    near: impl Fn(f64) -> bool,
+    full: impl Fn(&Lanes) -> Lanes,
+) -> Lanes {
+    let mut y = [0.0; LANES];
+    for i in 0..LANES {
+        y[i] = cheap(x[i]);
+    }
+    if x.iter().any(|&v| !near(v)) {
+        let f = full(x);
+        for i in 0..LANES {
+            if !near(x[i]) {
+                y[i] = f[i];
+            }
+        }
+    }
+    y
+}
+
 /// `|x| <= 0.34`: the reduction of [`exp1`] leaves such an `x` as it is (`n = 0`, `r = x`,
 /// scale 1), so [`exp_reduced`] alone gives [`exp1`]'s bits (false for NaN).
 #[inline(always)]
@@ -343,19 +368,7 @@ fn unreduced_exp(x: f64) -> bool {
 /// computed only when some lane is beyond it, and selected lane by lane.
 #[inline(always)]
 pub fn exp_mostly_small(x: &Lanes) -> Lanes {
-    let mut y = [0.0; LANES];
-    for i in 0..LANES {
-        y[i] = exp_reduced(x[i]);
-    }
-    if x.iter().any(|&v| !unreduced_exp(v)) {
-        let e = exp(x);
-        for i in 0..LANES {
-            if !unreduced_exp(x[i]) {
-                y[i] = e[i];
-            }
-        }
-    }
-    y
+    cheap_where_near(x, exp_reduced, unreduced_exp, exp)
 }
 
 /// `x` in `[0.7072, 1.414)`, inside `[sqrt(1/2), sqrt 2)`: [`ln1`]'s reduction leaves such an
@@ -379,19 +392,7 @@ fn ln_unreduced(x: f64) -> f64 {
 /// [`ln`] computed only when some lane is beyond it, and selected lane by lane.
 #[inline(always)]
 pub fn ln_mostly_near_1(x: &Lanes) -> Lanes {
-    let mut y = [0.0; LANES];
-    for i in 0..LANES {
-        y[i] = ln_unreduced(x[i]);
-    }
-    if x.iter().any(|&v| !unreduced_ln(v)) {
-        let l = ln(x);
-        for i in 0..LANES {
-            if !unreduced_ln(x[i]) {
-                y[i] = l[i];
-            }
-        }
-    }
-    y
+    cheap_where_near(x, ln_unreduced, unreduced_ln, ln)
 }
 
 /// `|x| <= 0.5` (false for NaN, which then takes the `exp` path, as in [`exp_m1_1`]).
@@ -400,32 +401,18 @@ fn within_half(x: f64) -> bool {
     x.abs() <= 0.5
 }
 
-/// `e^x - 1` on every lane: `$small` where `|x| <= 0.5`, `$big(x) - 1` elsewhere, `$big`
-/// computed only when some lane needs it.
-macro_rules! exp_m1_by {
-    ($x:expr, $small:ident, $big:ident) => {{
-        let x: &Lanes = $x;
-        let mut y = [0.0; LANES];
-        for i in 0..LANES {
-            y[i] = $small(x[i]);
-        }
-        if x.iter().any(|&v| !within_half(v)) {
-            let e = $big(x);
-            for i in 0..LANES {
-                if !within_half(x[i]) {
-                    y[i] = e[i] - 1.0;
-                }
-            }
-        }
-        y
-    }};
+/// `e^x - 1` on every lane: `small` where `|x| <= 0.5`, `big(x) - 1` elsewhere, `big` computed
+/// only when some lane needs it.
+#[inline(always)]
+fn exp_m1_by(x: &Lanes, small: impl Fn(f64) -> f64, big: impl Fn(&Lanes) -> Lanes) -> Lanes {
+    cheap_where_near(x, small, within_half, |x| big(x).map(|e| e - 1.0))
 }
 
 /// [`exp_m1_1`] on every lane: the small-argument polynomial, and [`exp`] only when some lane
 /// is beyond it (each lane's value as [`exp_m1_1`] gives it).
 #[inline(always)]
 pub fn exp_m1(x: &Lanes) -> Lanes {
-    exp_m1_by!(x, exp_m1_small1, exp)
+    exp_m1_by(x, exp_m1_small1, exp)
 }
 
 lanes_fn!(
@@ -448,7 +435,7 @@ lanes_fn!(
 /// gives it).
 #[inline(always)]
 pub fn exp_m1_start(x: &Lanes) -> Lanes {
-    exp_m1_by!(x, exp_m1_start_small, exp_start)
+    exp_m1_by(x, exp_m1_start_small, exp_start)
 }
 
 /// Lambert's W (the root `w >= 0` of `w e^w = z`, z >= 0) on every lane from `ln z`, so that z

@@ -39,22 +39,12 @@ fn softplus_logistic_lanes<const ROUGH: bool>(h: &Lanes) -> (Lanes, Lanes) {
     // As the scalar form, lane by lane: the short series below 0.01 (deep weak inversion), the
     // kernel otherwise (computed only when some lane needs it). Each lane's value depends on
     // that lane alone.
-    let mut lp = [0.0; LANES];
-    for i in 0..LANES {
-        lp[i] = ln_1p_small(e[i]);
-    }
-    if e.iter().any(|&x| x >= 0.01) {
-        let k = if ROUGH {
-            maths::ln_1p_start(&e)
-        } else {
-            maths::ln_1p(&e)
-        };
-        for i in 0..LANES {
-            if e[i] >= 0.01 {
-                lp[i] = k[i];
-            }
-        }
-    }
+    let full = if ROUGH {
+        maths::ln_1p_start
+    } else {
+        maths::ln_1p
+    };
+    let lp = maths::cheap_where_near(&e, ln_1p_small, |x| x < 0.01 || x.is_nan(), full);
     let mut s = [0.0; LANES];
     let mut l = [0.0; LANES];
     for i in 0..LANES {
