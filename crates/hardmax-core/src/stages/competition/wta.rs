@@ -830,11 +830,12 @@ impl WtaCircuit {
     /// voltage `v_p` depends on V_k through the drain coupling eta: two rounds, the first at
     /// V_k = 0, the second a Newton step on the fixed point `V_k = G(V_k)` from the first's V_k
     /// (a plain fixed-point step would contract by only `eta/n (e^(V_k/U_T) - 1)`, which passes 1
-    /// near V_k = 4 U_T, where a runner-up cell sits). A cell whose sink cannot carry I_k at
-    /// V_k = 0 (it saturates) starts, in the lanes of `want`, one Newton step from its
-    /// saturation law (`f_inv`: `F^-1(I_k/I_S)` from the closed form). NaN where neither gives a
-    /// voltage inside the supply or the input is not positive (the caller then uses its
-    /// saturation-law guess). Starting-point kernels: about 1e-5 relative.
+    /// near V_k = 4 U_T, where a runner-up cell sits). Returns these starts (NaN where the
+    /// drain law gives no voltage inside the supply or the input is not positive) and the lanes
+    /// of `want` whose cell belongs to the saturation-side start instead
+    /// ([`WtaCircuit::saturated_start`]): its sink cannot carry I_k at V_k = 0 (it saturates),
+    /// or its drain lands above 4 U_T, where the fixed point is steep and one step falls short.
+    /// Starting-point kernels: about 1e-5 relative.
     #[inline(always)]
     fn loser_start_lanes(
         &self,
@@ -938,8 +939,7 @@ impl WtaCircuit {
     /// solves `u e^u = z`, `ln z = ln((1 - eta/n)/(eta/n)) + x_s/2 + q - ln q - y_sat` (from
     /// `ln(1 - e^(-q)) = x_s/2 - q`): u = W(z), Lambert's function ([`maths::lambert_w_start`],
     /// Newton steps on `ln u + u = ln z`). A third step takes in the second-order terms at that
-    /// u (the reverse
-    /// end `ln F(x_r) = x_r - e^(x_r/2) + (5/12) e^(x_r)`, the forward excess's
+    /// u (the reverse end `ln F(x_r) = x_r - e^(x_r/2) + (5/12) e^(x_r)`, the forward excess's
     /// `+ d F''/(2 F')`, `d = (eta/n) t`, `F''/F' = (l + q (1 - l))/(2q)`, `l = 1 - e^(-q) =
     /// e^(x_s/2 - q)`), and a last Newton step on the exact law `ln(I_A/I_k)` in V_k polishes
     /// it. NaN in a slot where a step is not finite.
