@@ -932,8 +932,8 @@ struct PassLanes<'a> {
 /// One Newton pass of [`newton`] on every running lane (its residuals, Jacobian, step limits
 /// and convergence test, lane-wise; the arrowhead's elimination takes one division per line,
 /// and a saturated line steps in V_k): `it[l]` is the pass lane l is at, `dest[l]` its
-/// decision. A converged lane is stored and marked done, a
-/// lane whose guard fails is marked for the scalar solve.
+/// decision. A converged lane is stored and marked done, a lane whose guard fails is marked for
+/// the scalar solve.
 #[allow(clippy::too_many_arguments)]
 #[inline(always)]
 fn pass<C: SharedNodeCircuit + ?Sized>(
