@@ -506,19 +506,11 @@ impl SharedNodeCircuit for KWinnersCircuit {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::device::presets;
     use crate::stages::competition::{CompetitionStage, StageSolution, Workspace};
 
     fn design(n: usize, k: usize, unit: f64) -> KWinnersDesign {
-        let p = presets::preset("generic-180nm").unwrap();
-        let t = Transistor {
-            polarity: Polarity::Nmos,
-            w: 2e-6,
-            l: 2e-6,
-        };
-        let wta = WtaDesign::new(n, p, t, t, CurrentSource::Ideal { current: unit });
         KWinnersDesign::new(
-            wta,
+            super::super::wta::tests::generic_design(n, unit),
             k,
             unit,
             Transistor {

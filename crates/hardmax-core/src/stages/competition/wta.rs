@@ -1316,20 +1316,25 @@ impl SharedNodeCircuit for WtaCircuit {
 }
 
 #[cfg(test)]
-mod tests {
+pub(crate) mod tests {
     use super::*;
     use crate::device::{mismatch::sample_mismatch, presets, Polarity};
 
-    /// A die of the generic 180 nm process (sinks and outputs 2 µm / 2 µm, ideal bias),
-    /// every transistor drawn from the process's Pelgrom constants.
-    fn die(n: usize, bias: f64, seed: u64) -> WtaCircuit {
+    /// A design of the generic 180 nm process: sinks and outputs NMOS 2 µm / 2 µm, ideal bias
+    /// (also the cells of the k-winners tests).
+    pub(crate) fn generic_design(n: usize, bias: f64) -> WtaDesign {
         let p = presets::preset("generic-180nm").unwrap();
         let t = Transistor {
             polarity: Polarity::Nmos,
             w: 2e-6,
             l: 2e-6,
         };
-        let d = WtaDesign::new(n, p, t, t, CurrentSource::Ideal { current: bias });
+        WtaDesign::new(n, p, t, t, CurrentSource::Ideal { current: bias })
+    }
+
+    /// A die of [`generic_design`], every transistor drawn from the process's Pelgrom constants.
+    fn die(n: usize, bias: f64, seed: u64) -> WtaCircuit {
+        let d = generic_design(n, bias);
         let tech = d.process.nmos.clone();
         let mut rng = crate::rng::stream(seed, &[7]);
         WtaChip::sample(d, |t| sample_mismatch(&mut rng, &tech, t))
